@@ -1,0 +1,252 @@
+package net
+
+import (
+	"fmt"
+	"math"
+
+	"pdwave/model/fft"
+)
+
+// FeatureChannels is the number of input channels per frame written by
+// Featurizer: the focused and the defocused image, and three
+// object-independent spectral ratios.
+const FeatureChannels = 5
+
+// Featurizer turns the raw images of a burst into the network's input. For
+// each frame j with focused image d1 and defocused image d2 (N×N) it writes
+// five Size×Size channels:
+//
+//  0. (bin(d1) − m1)/s    1. (bin(d2) − m2)/s
+//
+// with bin the mean over (N/Size)² pixel blocks, m_k the burst mean of
+// channel k and s the burst standard deviation of the focused channel
+// (per-patch normalisation: the network sees contrast, not brightness); and,
+// from D_k = F{w·(d_k − mean d_k)} (w a raised-cosine edge window),
+// summed over (N/Size)² blocks of the centred spectrum:
+//
+//  2. (|D1|² − |D2|²)/Q    3. 2 Re(D1 D2*)/Q    4. 2 Im(D1 D2*)/Q
+//
+// with Q = |D1|² + |D2|² + 2ν, ν the noise power read beyond the cut-off.
+// For d_k = o ⊗ s_k the object spectrum cancels from these ratios: they
+// depend on the transfer functions S1, S2 alone (the idea of the
+// phase-diversity error metric, Gonsalves 1982), which makes them a strong,
+// scene-independent cue. Blocks outside the cut-off are set to zero.
+//
+// A Featurizer owns an FFT plan and buffers; it is not safe for concurrent
+// use.
+type Featurizer struct {
+	n, size, bin int
+	cutoff       float64
+	plan         *fft.Plan
+	window       []float64
+	z            []complex128
+	p1, p2       []float64
+	cr, ci       []float64
+	inside       []bool // per output block: centre inside the cut-off
+	outside      []int  // spectrum indices beyond 1.05 r_c, for the noise floor
+}
+
+// NewFeaturizer returns a Featurizer for the model's patch size and optics.
+// It returns an error if the patch size is not a positive multiple of the
+// network's input size.
+func NewFeaturizer(m *Model) (*Featurizer, error) {
+	n, size := m.Meta.Patch, m.Arch.Size
+	if n < size || n%size != 0 {
+		return nil, fmt.Errorf("net: patch size %d is not a multiple of the network input size %d", n, size)
+	}
+	f := &Featurizer{n: n, size: size, bin: n / size, cutoff: m.Meta.CutoffRadius()}
+	f.plan = fft.NewPlan(n, n)
+	f.window = EdgeWindow(n, n/8)
+	f.z = make([]complex128, n*n)
+	f.p1 = make([]float64, size*size)
+	f.p2 = make([]float64, size*size)
+	f.cr = make([]float64, size*size)
+	f.ci = make([]float64, size*size)
+	f.inside = make([]bool, size*size)
+	c := float64(n / 2)
+	for by := 0; by < size; by++ {
+		for bx := 0; bx < size; bx++ {
+			// Block centre in centred frequency pixels.
+			y := (float64(by)+0.5)*float64(f.bin) - 0.5 - c
+			x := (float64(bx)+0.5)*float64(f.bin) - 0.5 - c
+			f.inside[by*size+bx] = math.Hypot(x, y) <= f.cutoff
+		}
+	}
+	for ky := 0; ky < n; ky++ {
+		for kx := 0; kx < n; kx++ {
+			u, v := ky, kx
+			if u > n/2 {
+				u -= n
+			}
+			if v > n/2 {
+				v -= n
+			}
+			if math.Hypot(float64(u), float64(v)) > 1.05*f.cutoff {
+				f.outside = append(f.outside, ky*n+kx)
+			}
+		}
+	}
+	if len(f.outside) < 16 {
+		f.outside = nil
+	}
+	return f, nil
+}
+
+// EdgeWindow returns an n×n apodisation window: 1 inside, rising as a raised
+// cosine over the outer `edge` pixels of every side (a Tukey window per axis).
+func EdgeWindow(n, edge int) []float64 {
+	w1 := make([]float64, n)
+	for i := range w1 {
+		w1[i] = 1
+		d := i
+		if n-1-i < d {
+			d = n - 1 - i
+		}
+		if d < edge {
+			w1[i] = 0.5 * (1 - math.Cos(math.Pi*(float64(d)+0.5)/float64(edge)))
+		}
+	}
+	w := make([]float64, n*n)
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			w[y*n+x] = w1[y] * w1[x]
+		}
+	}
+	return w
+}
+
+// Len returns the feature length of a burst of the given frame count.
+func (f *Featurizer) Len(frames int) int { return frames * FeatureChannels * f.size * f.size }
+
+// Burst writes the features of one burst into dst (frames × 5 × Size × Size,
+// frame-major). data[channel][frame] are the N×N images, channel 0 focused,
+// 1 defocused, as in burst.Burst.Data. It returns an error if the sizes do not
+// match or the focused images are constant or not finite.
+func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
+	frames := len(data[0])
+	if frames < 1 || len(data[1]) != frames {
+		return fmt.Errorf("net: burst has %d focused and %d defocused frames", len(data[0]), len(data[1]))
+	}
+	if len(dst) != f.Len(frames) {
+		return fmt.Errorf("net: feature buffer has length %d, want %d", len(dst), f.Len(frames))
+	}
+	n, s := f.n, f.size
+	var mean [2]float64
+	for c := 0; c < 2; c++ {
+		for j, im := range data[c] {
+			if len(im) != n*n {
+				return fmt.Errorf("net: channel %d frame %d has %d pixels, want %d×%d", c+1, j+1, len(im), n, n)
+			}
+			for _, v := range im {
+				mean[c] += v
+			}
+		}
+		mean[c] /= float64(frames * n * n)
+	}
+	ss := 0.0
+	for _, im := range data[0] {
+		for _, v := range im {
+			d := v - mean[0]
+			ss += d * d
+		}
+	}
+	sd := math.Sqrt(ss / float64(frames*n*n))
+	if !(sd > 0) || math.IsInf(sd, 0) || math.IsNaN(mean[1]) || math.IsInf(mean[1], 0) {
+		return fmt.Errorf("net: focused images have standard deviation %g; need finite, varying data", sd)
+	}
+	plane := s * s
+	inv := 1 / (sd * float64(f.bin*f.bin))
+	for j := 0; j < frames; j++ {
+		out := dst[j*FeatureChannels*plane : (j+1)*FeatureChannels*plane]
+		for c := 0; c < 2; c++ {
+			f.binImage(out[c*plane:(c+1)*plane], data[c][j], mean[c], inv)
+		}
+		f.spectral(out[2*plane:5*plane], data[0][j], data[1][j])
+	}
+	return nil
+}
+
+// binImage writes (block sum of (d − m))·inv.
+func (f *Featurizer) binImage(dst, im []float64, m, inv float64) {
+	n, s, b := f.n, f.size, f.bin
+	for i := range dst {
+		dst[i] = 0
+	}
+	for y := 0; y < n; y++ {
+		row := dst[(y/b)*s:]
+		for x := 0; x < n; x++ {
+			row[x/b] += im[y*n+x] - m
+		}
+	}
+	for i := range dst {
+		dst[i] *= inv
+	}
+}
+
+// spectral writes the three ratio channels of one frame. Both real images go
+// through one complex FFT: with Z = F{a + i b}, A(u) = (Z(u) + Z*(−u))/2 and
+// B(u) = (Z(u) − Z*(−u))/(2i).
+func (f *Featurizer) spectral(dst, d1, d2 []float64) {
+	n, s, b := f.n, f.size, f.bin
+	var m1, m2 float64
+	for i := range d1 {
+		m1 += d1[i]
+		m2 += d2[i]
+	}
+	m1 /= float64(n * n)
+	m2 /= float64(n * n)
+	for i, w := range f.window {
+		f.z[i] = complex(w*(d1[i]-m1), w*(d2[i]-m2))
+	}
+	f.plan.Forward(f.z, f.z)
+	for i := 0; i < s*s; i++ {
+		f.p1[i], f.p2[i], f.cr[i], f.ci[i] = 0, 0, 0, 0
+	}
+	noise := 0.0
+	for ky := 0; ky < n; ky++ {
+		my := (n - ky) % n
+		cy := (ky + n/2) % n // centred row
+		for kx := 0; kx < n; kx++ {
+			mx := (n - kx) % n
+			z := f.z[ky*n+kx]
+			zm := f.z[my*n+mx]
+			zr, zi := real(z), imag(z)
+			wr, wi := real(zm), -imag(zm) // conj Z(−u)
+			ar, ai := 0.5*(zr+wr), 0.5*(zi+wi)
+			// (Z − conj Z(−u))/(2i): (p + iq)/(2i) = (q − ip)/2
+			pr, pq := zr-wr, zi-wi
+			br, bi := 0.5*pq, -0.5*pr
+			cx := (kx + n/2) % n
+			k := (cy/b)*s + cx/b
+			f.p1[k] += ar*ar + ai*ai
+			f.p2[k] += br*br + bi*bi
+			// D1 D2* = (ar + i ai)(br − i bi)
+			f.cr[k] += ar*br + ai*bi
+			f.ci[k] += ai*br - ar*bi
+		}
+	}
+	if f.outside != nil {
+		for _, i := range f.outside {
+			z := f.z[i]
+			noise += real(z)*real(z) + imag(z)*imag(z) // |D1|²+|D2|² summed (Parseval on a+ib)
+		}
+		// |Z(u)|² averaged over ±u equals |A|²+|B|²; per channel per pixel:
+		noise /= 2 * float64(len(f.outside))
+	}
+	reg := 2 * noise * float64(b*b)
+	plane := s * s
+	for k := 0; k < plane; k++ {
+		if !f.inside[k] {
+			dst[k], dst[plane+k], dst[2*plane+k] = 0, 0, 0
+			continue
+		}
+		q := f.p1[k] + f.p2[k] + reg
+		if q <= 0 {
+			dst[k], dst[plane+k], dst[2*plane+k] = 0, 0, 0
+			continue
+		}
+		dst[k] = (f.p1[k] - f.p2[k]) / q
+		dst[plane+k] = 2 * f.cr[k] / q
+		dst[2*plane+k] = 2 * f.ci[k] / q
+	}
+}

@@ -1,0 +1,328 @@
+package net
+
+import (
+	"bytes"
+	"encoding/binary"
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+	"strconv"
+	"strings"
+)
+
+// Weight files use the safetensors layout: an 8-byte little-endian header
+// length n, n bytes of JSON header, then the raw little-endian tensor data.
+// The header maps every tensor name to {"dtype","shape","data_offsets"}
+// (offsets relative to the start of the data) and "__metadata__" to a map of
+// strings. pdwave records in the metadata:
+//
+//	format        "pdwave-weights"
+//	format_version WeightsVersion
+//	arch          JSON of Arch
+//	site, basis, modes, patch, frames
+//	diameter_m, obscuration, wavelength_m, pixel_scale_rad, diversity_pv_waves
+//	training      JSON map of the training settings
+//	version       program version
+//
+// The output scale is stored as the tensor "out.scale"; the trainable tensors
+// under their names in Model.Params. All tensors are F64.
+
+// WeightsFormat names pdwave weight files in the metadata.
+const WeightsFormat = "pdwave-weights"
+
+// WeightsVersion is the version of the weight file layout written here.
+const WeightsVersion = "1"
+
+// maxHeader bounds the JSON header size accepted when reading (1 MiB).
+const maxHeader = 1 << 20
+
+type tensorEntry struct {
+	Dtype   string `json:"dtype"`
+	Shape   []int  `json:"shape"`
+	Offsets [2]int `json:"data_offsets"`
+}
+
+// Write writes m in the weight file layout to w.
+func (m *Model) Write(w io.Writer) error {
+	if err := m.check(); err != nil {
+		return err
+	}
+	arch, err := json.Marshal(m.Arch)
+	if err != nil {
+		return fmt.Errorf("net: encoding architecture: %w", err)
+	}
+	training := m.Meta.Training
+	if training == nil {
+		training = map[string]string{}
+	}
+	tr, err := json.Marshal(training)
+	if err != nil {
+		return fmt.Errorf("net: encoding training settings: %w", err)
+	}
+	f := func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
+	meta := map[string]string{
+		"format":             WeightsFormat,
+		"format_version":     WeightsVersion,
+		"arch":               string(arch),
+		"site":               m.Meta.Site,
+		"basis":              m.Meta.Basis,
+		"modes":              strconv.Itoa(m.Meta.Modes),
+		"patch":              strconv.Itoa(m.Meta.Patch),
+		"frames":             strconv.Itoa(m.Meta.Frames),
+		"diameter_m":         f(m.Meta.Diameter),
+		"obscuration":        f(m.Meta.Obscuration),
+		"wavelength_m":       f(m.Meta.Wavelength),
+		"pixel_scale_rad":    f(m.Meta.PixelScale),
+		"diversity_pv_waves": f(m.Meta.DiversityPV),
+		"training":           string(tr),
+		"version":            m.Meta.Version,
+	}
+	all := append([]*Tensor{{Name: "out.scale", Shape: []int{len(m.Scale)}, Data: m.Scale}}, m.Params...)
+	header := map[string]any{"__metadata__": meta}
+	off := 0
+	for _, t := range all {
+		header[t.Name] = tensorEntry{Dtype: "F64", Shape: t.Shape, Offsets: [2]int{off, off + 8*len(t.Data)}}
+		off += 8 * len(t.Data)
+	}
+	hj, err := json.Marshal(header)
+	if err != nil {
+		return fmt.Errorf("net: encoding weight header: %w", err)
+	}
+	// Pad the header with spaces so the data starts 8-byte aligned.
+	for (8+len(hj))%8 != 0 {
+		hj = append(hj, ' ')
+	}
+	buf := make([]byte, 8, 8+len(hj)+off)
+	binary.LittleEndian.PutUint64(buf, uint64(len(hj)))
+	buf = append(buf, hj...)
+	for _, t := range all {
+		for _, v := range t.Data {
+			buf = binary.LittleEndian.AppendUint64(buf, math.Float64bits(v))
+		}
+	}
+	if _, err := w.Write(buf); err != nil {
+		return fmt.Errorf("net: writing weights: %w", err)
+	}
+	return nil
+}
+
+// Save writes m to path atomically (temporary file in the same directory,
+// then rename).
+func (m *Model) Save(path string) error {
+	var b bytes.Buffer
+	if err := m.Write(&b); err != nil {
+		return err
+	}
+	return writeAtomic(path, b.Bytes())
+}
+
+// writeAtomic writes data to a temporary file beside path and renames it.
+func writeAtomic(path string, data []byte) error {
+	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
+	if err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	name := tmp.Name()
+	if _, err := tmp.Write(data); err != nil {
+		tmp.Close()
+		os.Remove(name)
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	if err := tmp.Close(); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	if err := os.Rename(name, path); err != nil {
+		os.Remove(name)
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	return nil
+}
+
+// Load reads a weight file from path.
+func Load(path string) (*Model, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("reading weights: %w", err)
+	}
+	m, err := Decode(data)
+	if err != nil {
+		return nil, fmt.Errorf("reading weights %s: %w", path, err)
+	}
+	return m, nil
+}
+
+// Read reads a weight file from r.
+func Read(r io.Reader) (*Model, error) {
+	data, err := io.ReadAll(r)
+	if err != nil {
+		return nil, fmt.Errorf("reading weights: %w", err)
+	}
+	return Decode(data)
+}
+
+// Decode parses a weight file held in memory. It returns an error (never
+// panics) for a file that is truncated, not a pdwave weight file, of an
+// unknown layout version, or whose tensors do not match its architecture.
+func Decode(data []byte) (*Model, error) {
+	if len(data) < 8 {
+		return nil, fmt.Errorf("weight file too short (%d bytes)", len(data))
+	}
+	hl := binary.LittleEndian.Uint64(data)
+	if hl > maxHeader || hl > uint64(len(data)-8) {
+		return nil, fmt.Errorf("weight file header length %d does not fit the file (%d bytes)", hl, len(data))
+	}
+	var raw map[string]json.RawMessage
+	if err := json.Unmarshal(data[8:8+hl], &raw); err != nil {
+		return nil, fmt.Errorf("weight file header: %w", err)
+	}
+	body := data[8+hl:]
+	var meta map[string]string
+	if mr, ok := raw["__metadata__"]; !ok {
+		return nil, fmt.Errorf("weight file has no __metadata__; not a pdwave weight file")
+	} else if err := json.Unmarshal(mr, &meta); err != nil {
+		return nil, fmt.Errorf("weight file metadata: %w", err)
+	}
+	if meta["format"] != WeightsFormat {
+		return nil, fmt.Errorf("weight file format is %q, want %q", meta["format"], WeightsFormat)
+	}
+	if meta["format_version"] != WeightsVersion {
+		return nil, fmt.Errorf("weight file layout version %q, this program reads %q", meta["format_version"], WeightsVersion)
+	}
+	m := &Model{}
+	if err := json.Unmarshal([]byte(meta["arch"]), &m.Arch); err != nil {
+		return nil, fmt.Errorf("weight file architecture: %w", err)
+	}
+	if err := m.Arch.Validate(); err != nil {
+		return nil, err
+	}
+	var err error
+	num := func(key string) float64 {
+		if err != nil {
+			return 0
+		}
+		var v float64
+		if v, err = strconv.ParseFloat(meta[key], 64); err != nil {
+			err = fmt.Errorf("weight file metadata %s: %w", key, err)
+		}
+		return v
+	}
+	integer := func(key string) int {
+		if err != nil {
+			return 0
+		}
+		var v int
+		if v, err = strconv.Atoi(meta[key]); err != nil {
+			err = fmt.Errorf("weight file metadata %s: %w", key, err)
+		}
+		return v
+	}
+	m.Meta = Meta{
+		Site: meta["site"], Basis: meta["basis"], Version: meta["version"],
+		Modes: integer("modes"), Patch: integer("patch"), Frames: integer("frames"),
+		Diameter: num("diameter_m"), Obscuration: num("obscuration"), Wavelength: num("wavelength_m"),
+		PixelScale: num("pixel_scale_rad"), DiversityPV: num("diversity_pv_waves"),
+	}
+	if err != nil {
+		return nil, err
+	}
+	if s := meta["training"]; s != "" {
+		if err := json.Unmarshal([]byte(s), &m.Meta.Training); err != nil {
+			return nil, fmt.Errorf("weight file training settings: %w", err)
+		}
+	}
+	read := func(name string, shape []int) ([]float64, error) {
+		er, ok := raw[name]
+		if !ok {
+			return nil, fmt.Errorf("weight file lacks tensor %s", name)
+		}
+		var e tensorEntry
+		if err := json.Unmarshal(er, &e); err != nil {
+			return nil, fmt.Errorf("weight file tensor %s: %w", name, err)
+		}
+		if e.Dtype != "F64" {
+			return nil, fmt.Errorf("weight file tensor %s has dtype %s, want F64", name, e.Dtype)
+		}
+		if !sameShape(e.Shape, shape) {
+			return nil, fmt.Errorf("weight file tensor %s has shape %v, architecture needs %v", name, e.Shape, shape)
+		}
+		n := 1
+		for _, s := range shape {
+			n *= s
+		}
+		b, end := e.Offsets[0], e.Offsets[1]
+		if b < 0 || end != b+8*n || end > len(body) {
+			return nil, fmt.Errorf("weight file tensor %s has data offsets %v, want %d values inside %d bytes", name, e.Offsets, n, len(body))
+		}
+		v := make([]float64, n)
+		for i := range v {
+			v[i] = math.Float64frombits(binary.LittleEndian.Uint64(body[b+8*i:]))
+			if math.IsNaN(v[i]) || math.IsInf(v[i], 0) {
+				return nil, fmt.Errorf("weight file tensor %s holds a non-finite value", name)
+			}
+		}
+		return v, nil
+	}
+	if m.Scale, err = read("out.scale", []int{m.Arch.Modes}); err != nil {
+		return nil, err
+	}
+	m.Params = makeParams(m.Arch)
+	for _, p := range m.Params {
+		if p.Data, err = read(p.Name, p.Shape); err != nil {
+			return nil, err
+		}
+	}
+	if m.Meta.Modes != m.Arch.Modes {
+		return nil, fmt.Errorf("weight file records %d modes but the network has %d outputs", m.Meta.Modes, m.Arch.Modes)
+	}
+	return m, nil
+}
+
+// Compatible reports whether weights made for m can be applied to data taken
+// with the optics, basis and patch size of want. Zero fields of want (and an
+// empty basis) are not checked. The error lists every difference, e.g.
+// "weights were made for wavelength 600 nm, the data has 500 nm".
+// Numbers agree within a relative 1e-3 (header values are rounded).
+func (m Meta) Compatible(want Meta) error {
+	var diffs []string
+	num := func(what string, have, need, unit float64, u string) {
+		if need == 0 {
+			return
+		}
+		if math.Abs(have-need) > 1e-3*math.Max(math.Abs(have), math.Abs(need)) && math.Abs(have-need) > 1e-12 {
+			diffs = append(diffs, fmt.Sprintf("%s %.4g%s, the data has %.4g%s", what, have/unit, u, need/unit, u))
+		}
+	}
+	num("aperture diameter", m.Diameter, want.Diameter, 1, " m")
+	num("wavelength", m.Wavelength, want.Wavelength, 1e-9, " nm")
+	num("pixel scale", m.PixelScale, want.PixelScale, math.Pi/180/3600, " arcsec")
+	num("diversity", m.DiversityPV, want.DiversityPV, 1, " waves PV")
+	if want.Obscuration != 0 || want.Diameter != 0 {
+		// An obscuration of 0 is meaningful once the telescope is given.
+		if math.Abs(m.Obscuration-want.Obscuration) > 1e-3 {
+			diffs = append(diffs, fmt.Sprintf("central obscuration %.3g, the data has %.3g", m.Obscuration, want.Obscuration))
+		}
+	}
+	if want.Patch != 0 && want.Patch != m.Patch {
+		diffs = append(diffs, fmt.Sprintf("patch size %d px, the data has %d px", m.Patch, want.Patch))
+	}
+	if want.Basis != "" && !strings.EqualFold(want.Basis, m.Basis) {
+		diffs = append(diffs, fmt.Sprintf("basis %q, the request is %q", m.Basis, want.Basis))
+	}
+	if want.Modes != 0 && want.Modes != m.Modes {
+		diffs = append(diffs, fmt.Sprintf("%d modes, the request is %d", m.Modes, want.Modes))
+	}
+	if len(diffs) == 0 {
+		return nil
+	}
+	sort.Strings(diffs)
+	site := m.Site
+	if site == "" {
+		site = "an unnamed site"
+	}
+	return fmt.Errorf("weights were made for other optics (%s): %s", site, strings.Join(diffs, "; "))
+}
