@@ -12,7 +12,8 @@ type Plan struct {
 	ny, nx int
 	row    *plan1
 	col    *plan1
-	cbuf   []complex128 // column scratch, length ny
+	a, b   []complex128 // ny*nx scratch for the column pass
+	ra, rb []complex128 // nx scratch for the row pass
 	tmp    []complex128 // ny*nx scratch for the real transforms
 }
 
@@ -28,7 +29,10 @@ func NewPlan(ny, nx int) *Plan {
 	} else {
 		p.col = newPlan1(ny)
 	}
-	p.cbuf = make([]complex128, ny)
+	p.a = make([]complex128, ny*nx)
+	p.b = make([]complex128, ny*nx)
+	p.ra = make([]complex128, nx)
+	p.rb = make([]complex128, nx)
 	p.tmp = make([]complex128, ny*nx)
 	return p
 }
@@ -51,10 +55,7 @@ func (p *Plan) checkLen(name string, n int) {
 func (p *Plan) Forward(dst, src []complex128) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
-	if &dst[0] != &src[0] {
-		copy(dst, src)
-	}
-	p.transform(dst, false)
+	p.transform(dst, src, false)
 }
 
 // Inverse computes the inverse 2-D DFT including the factor 1/(ny*nx)
@@ -67,10 +68,7 @@ func (p *Plan) Forward(dst, src []complex128) {
 func (p *Plan) Inverse(dst, src []complex128) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
-	if &dst[0] != &src[0] {
-		copy(dst, src)
-	}
-	p.transform(dst, true)
+	p.transform(dst, src, true)
 	s := complex(1/float64(p.ny*p.nx), 0)
 	for i := range dst {
 		dst[i] *= s
@@ -87,7 +85,7 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 	for i, v := range src {
 		dst[i] = complex(v, 0)
 	}
-	p.transform(dst, false)
+	p.transform(dst, dst, false)
 }
 
 // InverseReal stores in dst the real part of Inverse(src), including the
@@ -98,37 +96,23 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
 	copy(p.tmp, src)
-	p.transform(p.tmp, true)
+	p.transform(p.tmp, p.tmp, true)
 	s := 1 / float64(p.ny*p.nx)
 	for i, v := range p.tmp {
 		dst[i] = real(v) * s
 	}
 }
 
-// transform performs the unnormalised 2-D transform of x in place.
-func (p *Plan) transform(x []complex128, inverse bool) {
+// transform performs the unnormalised 2-D transform of src into dst;
+// dst may be src.
+func (p *Plan) transform(dst, src []complex128, inverse bool) {
 	ny, nx := p.ny, p.nx
+	// Columns: all nx columns at once as interleaved lanes.
+	p.col.run(dst, src, p.a, p.b, nx, inverse)
+	// Rows, in place.
 	for y := 0; y < ny; y++ {
-		r := x[y*nx : (y+1)*nx]
-		if inverse {
-			p.row.inverse(r)
-		} else {
-			p.row.forward(r)
-		}
-	}
-	c := p.cbuf
-	for xi := 0; xi < nx; xi++ {
-		for y := 0; y < ny; y++ {
-			c[y] = x[y*nx+xi]
-		}
-		if inverse {
-			p.col.inverse(c)
-		} else {
-			p.col.forward(c)
-		}
-		for y := 0; y < ny; y++ {
-			x[y*nx+xi] = c[y]
-		}
+		r := dst[y*nx : (y+1)*nx]
+		p.row.run(r, r, p.ra, p.rb, 1, inverse)
 	}
 }
 

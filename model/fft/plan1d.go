@@ -1,46 +1,86 @@
 package fft
 
-import (
-	"math"
-	"math/bits"
-)
+import "math"
 
-// plan1 is a 1-D complex DFT of length n, computed in place without
-// normalisation. Powers of two use an iterative radix-2 transform; other
-// lengths use Bluestein's chirp-z algorithm on a power-of-two plan
-// (Bluestein 1970, IEEE Trans. Audio Electroacoust. 18, 451).
+// plan1 is a 1-D complex DFT of length n applied to a batch of v
+// interleaved sequences: element j of lane q is at index j*v+q. Lengths
+// whose prime factors are 2, 3 and 5 use a self-sorting mixed-radix
+// Stockham algorithm (Van Loan 1992, Computational Frameworks for the FFT,
+// §1.7); other lengths use Bluestein's chirp-z algorithm (Bluestein 1970,
+// IEEE Trans. Audio Electroacoust. 18, 451) on a power-of-two plan.
 type plan1 struct {
-	n int
+	n      int
+	stages []stage
 
-	// power-of-two path
-	tw  []complex128 // tw[k] = exp(-2πik/n), k < n/2
-	rev []int        // bit-reversal permutation
-
-	// Bluestein path
+	// Bluestein path (stages == nil, n > 1)
 	chirp []complex128 // chirp[k] = exp(-πi k²/n)
-	fb    []complex128 // FFT of the conjugate chirp, zero padded to m
-	sub   *plan1       // power-of-two plan of length m
-	work  []complex128 // length m
+	fb    []complex128 // DFT of the conjugate chirp, zero padded to len(work)
+	sub   *plan1       // power-of-two plan of length len(work)
+	work  []complex128
+	sa    []complex128 // scratch for sub
+	sb    []complex128
 }
 
-func isPow2(n int) bool { return n > 0 && n&(n-1) == 0 }
+// stage is one radix-r pass of the Stockham algorithm on a sub-problem of
+// length r*m with stride s (the product of the radices of earlier stages).
+type stage struct {
+	r, m, s int
+	tw      []complex128 // tw[p*(r-1)+k-1] = exp(-2πi p k/(r m)), p < m, 1 ≤ k < r
+	twi     []complex128 // conjugate of tw, for the inverse transform
+}
+
+// factor splits n into radices 4, 2, 3, 5 (fours first, a single two
+// last). It returns nil if n has another prime factor.
+func factor(n int) []int {
+	var f []int
+	for n%4 == 0 {
+		f = append(f, 4)
+		n /= 4
+	}
+	for _, r := range []int{3, 5} {
+		for n%r == 0 {
+			f = append(f, r)
+			n /= r
+		}
+	}
+	if n%2 == 0 {
+		f = append(f, 2)
+		n /= 2
+	}
+	if n != 1 {
+		return nil
+	}
+	return f
+}
+
+// expi returns exp(-2πi num/den) with the argument reduced exactly.
+func expi(num, den int) complex128 {
+	num %= den
+	s, c := math.Sincos(-2 * math.Pi * float64(num) / float64(den))
+	return complex(c, s)
+}
 
 func newPlan1(n int) *plan1 {
 	p := &plan1{n: n}
-	if isPow2(n) {
-		p.tw = make([]complex128, n/2)
-		for k := range p.tw {
-			s, c := math.Sincos(-2 * math.Pi * float64(k) / float64(n))
-			p.tw[k] = complex(c, s)
-		}
-		p.rev = make([]int, n)
-		lg := bits.TrailingZeros(uint(n))
-		for i := range p.rev {
-			if lg == 0 {
-				p.rev[i] = 0
-			} else {
-				p.rev[i] = int(bits.Reverse(uint(i)) >> (bits.UintSize - lg))
+	if n == 1 {
+		return p
+	}
+	if f := factor(n); f != nil {
+		s := 1
+		for _, r := range f {
+			m := n / (s * r)
+			st := stage{r: r, m: m, s: s}
+			st.tw = make([]complex128, m*(r-1))
+			st.twi = make([]complex128, m*(r-1))
+			for q := 0; q < m; q++ {
+				for k := 1; k < r; k++ {
+					w := expi(q*k, r*m)
+					st.tw[q*(r-1)+k-1] = w
+					st.twi[q*(r-1)+k-1] = conj(w)
+				}
 			}
+			p.stages = append(p.stages, st)
+			s *= r
 		}
 		return p
 	}
@@ -51,10 +91,8 @@ func newPlan1(n int) *plan1 {
 	p.sub = newPlan1(m)
 	p.chirp = make([]complex128, n)
 	for k := range p.chirp {
-		// k² mod 2n keeps the argument small for accuracy.
-		k2 := (k * k) % (2 * n)
-		s, c := math.Sincos(-math.Pi * float64(k2) / float64(n))
-		p.chirp[k] = complex(c, s)
+		// exp(-πi k²/n) = exp(-2πi (k² mod 2n)/(2n)).
+		p.chirp[k] = expi((k*k)%(2*n), 2*n)
 	}
 	p.fb = make([]complex128, m)
 	p.fb[0] = conj(p.chirp[0])
@@ -63,70 +101,304 @@ func newPlan1(n int) *plan1 {
 		p.fb[k] = v
 		p.fb[m-k] = v
 	}
-	p.sub.forward(p.fb)
 	p.work = make([]complex128, m)
+	p.sa = make([]complex128, m)
+	p.sb = make([]complex128, m)
+	p.sub.run(p.fb, p.fb, p.sa, p.sb, 1, false)
 	return p
 }
 
 func conj(z complex128) complex128 { return complex(real(z), -imag(z)) }
 
-// forward computes x ← DFT(x) in place, unnormalised, sign −.
-func (p *plan1) forward(x []complex128) {
-	if p.chirp != nil {
-		p.bluestein(x)
-		return
-	}
-	n := p.n
-	if n == 1 {
-		return
-	}
-	for i, j := range p.rev {
-		if i < j {
-			x[i], x[j] = x[j], x[i]
+// sameSlice reports whether a and b start at the same element.
+func sameSlice(a, b []complex128) bool { return len(a) > 0 && len(b) > 0 && &a[0] == &b[0] }
+
+// run computes the unnormalised DFT (inverse: exponent sign +) of v
+// interleaved sequences of length n from src into dst. dst may be src.
+// a and b are scratch buffers of at least n*v elements that must not
+// overlap dst or src.
+func (p *plan1) run(dst, src, a, b []complex128, v int, inv bool) {
+	n := p.n * v
+	dst, src = dst[:n], src[:n]
+	if p.n == 1 {
+		if !sameSlice(dst, src) {
+			copy(dst, src)
 		}
+		return
 	}
-	for size := 2; size <= n; size <<= 1 {
-		half := size >> 1
-		step := n / size
-		for start := 0; start < n; start += size {
-			for k := 0; k < half; k++ {
-				w := p.tw[k*step]
-				a := x[start+k]
-				b := x[start+k+half] * w
-				x[start+k] = a + b
-				x[start+k+half] = a - b
+	if p.stages == nil {
+		p.bluestein(dst, src, v, inv)
+		return
+	}
+	a, b = a[:n], b[:n]
+	R := len(p.stages)
+	in := src
+	for i := range p.stages {
+		st := &p.stages[i]
+		out := dst
+		if (R-1-i)%2 == 1 {
+			out = a
+		}
+		if i == 0 && sameSlice(out, src) {
+			out = b
+		}
+		st.apply(out, in, v, inv)
+		in = out
+	}
+	if !sameSlice(in, dst) {
+		copy(dst, in)
+	}
+}
+
+func (st *stage) apply(dst, src []complex128, v int, inv bool) {
+	tw := st.tw
+	if inv {
+		tw = st.twi
+	}
+	s := st.s * v
+	switch st.r {
+	case 4:
+		if s == 1 {
+			radix4s1(dst, src, st.m, tw, inv)
+		} else {
+			radix4(dst, src, st.m, s, tw, inv)
+		}
+	case 2:
+		radix2(dst, src, st.m, s, tw)
+	case 3:
+		radix3(dst, src, st.m, s, tw, inv)
+	case 5:
+		radix5(dst, src, st.m, s, tw, inv)
+	default:
+		panic("fft: internal error: bad radix")
+	}
+}
+
+// The radix-r stages below compute, for p < m and q < s,
+//
+//	dst[q + s*(r*p + k)] = w^{pk} Σ_j src[q + s*(p + j*m)] exp(∓2πi jk/r),
+//
+// w = exp(∓2πi/(r m)), the Stockham step derived from the Cooley–Tukey
+// index split n = r·m (Van Loan 1992, §1.7).
+
+func radix2(dst, src []complex128, m, s int, tw []complex128) {
+	for p := 0; p < m; p++ {
+		x0 := src[s*p : s*p+s]
+		x1 := src[s*(p+m) : s*(p+m)+s]
+		y0 := dst[2*s*p : 2*s*p+s]
+		y1 := dst[2*s*p+s : 2*s*p+2*s]
+		x1, y0, y1 = x1[:len(x0)], y0[:len(x0)], y1[:len(x0)]
+		if p == 0 {
+			for q, a := range x0 {
+				b := x1[q]
+				y0[q] = a + b
+				y1[q] = a - b
 			}
+			continue
+		}
+		w := tw[p]
+		for q, a := range x0 {
+			b := x1[q]
+			y0[q] = a + b
+			y1[q] = (a - b) * w
 		}
 	}
 }
 
-// inverse computes x ← conj(DFT(conj(x))), i.e. the unnormalised inverse DFT.
-func (p *plan1) inverse(x []complex128) {
-	for i, v := range x[:p.n] {
-		x[i] = conj(v)
-	}
-	p.forward(x)
-	for i, v := range x[:p.n] {
-		x[i] = conj(v)
+// radix4s1 is radix4 for s == 1.
+func radix4s1(dst, src []complex128, m int, tw []complex128, inv bool) {
+	x0 := src[0:m]
+	x1 := src[m : 2*m]
+	x2 := src[2*m : 3*m]
+	x3 := src[3*m : 4*m]
+	x1, x2, x3 = x1[:len(x0)], x2[:len(x0)], x3[:len(x0)]
+	tw = tw[:3*len(x0)]
+	dst = dst[:4*len(x0)]
+	for p, a0 := range x0 {
+		a1, a2, a3 := x1[p], x2[p], x3[p]
+		t0 := a0 + a2
+		t1 := a0 - a2
+		t2 := a1 + a3
+		d := a1 - a3
+		var t3 complex128
+		if inv {
+			t3 = complex(-imag(d), real(d))
+		} else {
+			t3 = complex(imag(d), -real(d))
+		}
+		w := tw[3*p : 3*p+3]
+		y := dst[4*p : 4*p+4]
+		y[0] = t0 + t2
+		y[1] = (t1 + t3) * w[0]
+		y[2] = (t0 - t2) * w[1]
+		y[3] = (t1 - t3) * w[2]
 	}
 }
 
-func (p *plan1) bluestein(x []complex128) {
-	n, m := p.n, len(p.work)
-	w := p.work
-	for k := 0; k < n; k++ {
-		w[k] = x[k] * p.chirp[k]
+func radix4(dst, src []complex128, m, s int, tw []complex128, inv bool) {
+	for p := 0; p < m; p++ {
+		x0 := src[s*p : s*p+s]
+		x1 := src[s*(p+m) : s*(p+m)+s]
+		x2 := src[s*(p+2*m) : s*(p+2*m)+s]
+		x3 := src[s*(p+3*m) : s*(p+3*m)+s]
+		o := 4 * s * p
+		y0 := dst[o : o+s]
+		y1 := dst[o+s : o+2*s]
+		y2 := dst[o+2*s : o+3*s]
+		y3 := dst[o+3*s : o+4*s]
+		x1, x2, x3 = x1[:len(x0)], x2[:len(x0)], x3[:len(x0)]
+		y0, y1, y2, y3 = y0[:len(x0)], y1[:len(x0)], y2[:len(x0)], y3[:len(x0)]
+		if inv {
+			// Exchanging outputs 1 and 3 turns the forward radix-4
+			// butterfly into the inverse one.
+			y1, y3 = y3, y1
+		}
+		if p == 0 {
+			for q, a0 := range x0 {
+				a1, a2, a3 := x1[q], x2[q], x3[q]
+				t0 := a0 + a2
+				t1 := a0 - a2
+				t2 := a1 + a3
+				d := a1 - a3
+				t3 := complex(imag(d), -real(d))
+				y0[q] = t0 + t2
+				y1[q] = t1 + t3
+				y2[q] = t0 - t2
+				y3[q] = t1 - t3
+			}
+			continue
+		}
+		w1, w2, w3 := tw[3*p], tw[3*p+1], tw[3*p+2]
+		if inv {
+			w1, w3 = w3, w1
+		}
+		for q, a0 := range x0 {
+			a1, a2, a3 := x1[q], x2[q], x3[q]
+			t0 := a0 + a2
+			t1 := a0 - a2
+			t2 := a1 + a3
+			d := a1 - a3
+			t3 := complex(imag(d), -real(d))
+			y0[q] = t0 + t2
+			y1[q] = (t1 + t3) * w1
+			y2[q] = (t0 - t2) * w2
+			y3[q] = (t1 - t3) * w3
+		}
 	}
-	for k := n; k < m; k++ {
-		w[k] = 0
+}
+
+// Radix-3 constants: exp(-2πi/3) = -1/2 - i√3/2.
+const sin60 = 0.86602540378443864676372317075293618347140262690519
+
+func radix3(dst, src []complex128, m, s int, tw []complex128, inv bool) {
+	c := -sin60 // forward: b1 = t + i·c·d with c = -sin(2π/3)
+	if inv {
+		c = sin60
 	}
-	p.sub.forward(w)
-	for k := range w {
-		w[k] *= p.fb[k]
+	for p := 0; p < m; p++ {
+		x0 := src[s*p : s*p+s]
+		x1 := src[s*(p+m) : s*(p+m)+s]
+		x2 := src[s*(p+2*m) : s*(p+2*m)+s]
+		o := 3 * s * p
+		y0 := dst[o : o+s]
+		y1 := dst[o+s : o+2*s]
+		y2 := dst[o+2*s : o+3*s]
+		x1, x2 = x1[:len(x0)], x2[:len(x0)]
+		y0, y1, y2 = y0[:len(x0)], y1[:len(x0)], y2[:len(x0)]
+		w1, w2 := tw[2*p], tw[2*p+1]
+		for q, a0 := range x0 {
+			a1, a2 := x1[q], x2[q]
+			t1 := a1 + a2
+			t := a0 - 0.5*t1
+			d := a1 - a2
+			u := complex(-c*imag(d), c*real(d)) // i·c·d
+			y0[q] = a0 + t1
+			y1[q] = (t + u) * w1
+			y2[q] = (t - u) * w2
+		}
 	}
-	p.sub.inverse(w)
-	scale := complex(1/float64(m), 0)
-	for k := 0; k < n; k++ {
-		x[k] = w[k] * p.chirp[k] * scale
+}
+
+// Radix-5 constants: cos and sin of 2π/5 and 4π/5.
+var (
+	c51 = math.Cos(2 * math.Pi / 5)
+	c52 = math.Cos(4 * math.Pi / 5)
+	s51 = math.Sin(2 * math.Pi / 5)
+	s52 = math.Sin(4 * math.Pi / 5)
+)
+
+func radix5(dst, src []complex128, m, s int, tw []complex128, inv bool) {
+	// Forward: b1 = a0 + c1 t1 + c2 t2 - i(s1 t3 + s2 t4),
+	//          b2 = a0 + c2 t1 + c1 t2 - i(s2 t3 - s1 t4), b3, b4 conjugate
+	// partners; the inverse flips the sign of the sine terms.
+	c1, c2 := c51, c52
+	sn1, sn2 := -s51, -s52
+	if inv {
+		sn1, sn2 = s51, s52
+	}
+	for p := 0; p < m; p++ {
+		x0 := src[s*p : s*p+s]
+		x1 := src[s*(p+m) : s*(p+m)+s]
+		x2 := src[s*(p+2*m) : s*(p+2*m)+s]
+		x3 := src[s*(p+3*m) : s*(p+3*m)+s]
+		x4 := src[s*(p+4*m) : s*(p+4*m)+s]
+		o := 5 * s * p
+		y0 := dst[o : o+s]
+		y1 := dst[o+s : o+2*s]
+		y2 := dst[o+2*s : o+3*s]
+		y3 := dst[o+3*s : o+4*s]
+		y4 := dst[o+4*s : o+5*s]
+		x1, x2, x3, x4 = x1[:len(x0)], x2[:len(x0)], x3[:len(x0)], x4[:len(x0)]
+		y0, y1, y2, y3, y4 = y0[:len(x0)], y1[:len(x0)], y2[:len(x0)], y3[:len(x0)], y4[:len(x0)]
+		w1, w2, w3, w4 := tw[4*p], tw[4*p+1], tw[4*p+2], tw[4*p+3]
+		for q, a0 := range x0 {
+			a1, a2, a3, a4 := x1[q], x2[q], x3[q], x4[q]
+			t1 := a1 + a4
+			t2 := a2 + a3
+			t3 := a1 - a4
+			t4 := a2 - a3
+			r1 := a0 + complex(c1, 0)*t1 + complex(c2, 0)*t2
+			r2 := a0 + complex(c2, 0)*t1 + complex(c1, 0)*t2
+			e1 := complex(sn1, 0)*t3 + complex(sn2, 0)*t4
+			e2 := complex(sn2, 0)*t3 - complex(sn1, 0)*t4
+			i1 := complex(-imag(e1), real(e1)) // i·e1
+			i2 := complex(-imag(e2), real(e2))
+			y0[q] = a0 + t1 + t2
+			y1[q] = (r1 + i1) * w1
+			y4[q] = (r1 - i1) * w4
+			y2[q] = (r2 + i2) * w2
+			y3[q] = (r2 - i2) * w3
+		}
+	}
+}
+
+// bluestein computes the DFT of each of the v lanes through a circular
+// convolution of length len(p.work). The inverse uses
+// IDFT(x) = conj(DFT(conj(x))).
+func (p *plan1) bluestein(dst, src []complex128, v int, inv bool) {
+	n, w := p.n, p.work
+	m := len(w)
+	scale := 1 / float64(m)
+	for q := 0; q < v; q++ {
+		for k := 0; k < n; k++ {
+			x := src[k*v+q]
+			if inv {
+				x = conj(x)
+			}
+			w[k] = x * p.chirp[k]
+		}
+		clear(w[n:])
+		p.sub.run(w, w, p.sa, p.sb, 1, false)
+		for k := range w {
+			w[k] *= p.fb[k]
+		}
+		p.sub.run(w, w, p.sa, p.sb, 1, true)
+		for k := 0; k < n; k++ {
+			x := w[k] * p.chirp[k] * complex(scale, 0)
+			if inv {
+				x = conj(x)
+			}
+			dst[k*v+q] = x
+		}
 	}
 }
