@@ -1,0 +1,40 @@
+// Package pd implements the multi-frame phase-diversity metric, its analytic
+// gradient with respect to the wavefront coefficients, and the object
+// estimate (Gonsalves 1982, Opt. Eng. 21, 829; Paxman, Schulz & Fienup 1992,
+// JOSA A 9, 1072; Löfdahl & Scharmer 1994, A&AS 107, 243).
+//
+// All images of a burst (frames j, channels k) share one object. With
+// D_jk = F{w·(d_jk − m_jk)} the apodised, mean-subtracted data and
+// S_jk the OTF of frame j seen through the diversity θ_k of channel k,
+//
+//	L(α) = Σ_u M(u) [ Σ_jk |D_jk|² − |Σ_jk D_jk* S_jk|² / (γ + Σ_jk |S_jk|²) ]
+//	F̂    = Σ_jk D_jk S_jk* / (γ + Σ_jk |S_jk|²)
+//
+// (the Gonsalves metric with the object eliminated, generalised to many
+// frames by Paxman et al. 1992 and Löfdahl & Scharmer 1994). M is the noise mask: frequencies inside the diffraction
+// cut-off where the data power clearly exceeds the noise floor measured
+// beyond the cut-off. The objective minimised by a Solver is
+//
+//	E(α) = L(Pα)/P̄ + w · ½ Σ_jm (Pα)_jm² / σ_m²
+//
+// with P̄ the masked data power per image, σ_m² the prior (Kolmogorov)
+// variance of mode m, w the prior weight (maximum a posteriori phase
+// diversity; Blanc, Mugnier & Idier 2003, JOSA A 20, 1035), and P the
+// projector that removes the burst mean of the tip/tilt component, which the
+// metric cannot see (a tilt common to all frames only shifts the object).
+//
+// The gradient follows DESIGN §3: with G = −M F̂ R*, R = D − F̂ S,
+// g = F{G}, W = F{Re(g)·h}, h = F⁻¹{P}, c = Σ|h|²,
+//
+//	∂L/∂α_m = −4/(c·N²) · Σ_x ψ_m(x) · Im[ P(x) · W*(x) ]
+//
+// summed over the channels of each frame, for F the unnormalised forward DFT
+// and F⁻¹ its inverse with the 1/N² factor (numpy fft2/ifft2 convention, as
+// model/fft). c = Σ|h|² = Σ A²/N² does not depend on the phase (Parseval), so
+// the PSF normalisation adds no term.
+//
+// Two images are transformed together wherever the quantity is real: the
+// PSFs s_a + i s_b give both OTFs from one complex FFT, and since G is
+// Hermitian, F{G_a + i G_b} = g_a + i g_b. Value and gradient thus cost three
+// FFTs per image instead of four.
+package pd

@@ -1,0 +1,817 @@
+package pd
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"math/cmplx"
+
+	"gonum.org/v1/gonum/mat"
+
+	"pdwave/model/fft"
+	"pdwave/model/modes"
+	"pdwave/model/optics"
+)
+
+// Settings tunes the metric. The zero value is usable: no prior, default
+// regulariser, no noise filter (mask = diffraction cut-off), no tilt
+// constraint, default window.
+type Settings struct {
+	// PriorWeight is w in E = L/P̄ + w·½Σα²/σ², the weight of the
+	// turbulence prior against the metric normalised by the data power per
+	// image. 0 disables the prior. Negative values panic in NewSolver.
+	PriorWeight float64
+	// Gamma is the denominator regulariser relative to the zero-frequency
+	// value of Σ_jk|S_jk|² (= number of images): γ = Gamma·frames·channels.
+	// 0 uses 1e-6.
+	Gamma float64
+	// NoiseFilter restricts the metric to frequencies where the data power
+	// (averaged over the images, 3×3 smoothed) exceeds NoiseThreshold times
+	// the noise power measured beyond the diffraction cut-off. Without it
+	// the metric sums over the whole disc inside the cut-off.
+	NoiseFilter bool
+	// NoiseThreshold is the factor above the noise floor; 0 uses 3.
+	NoiseThreshold float64
+	// TiltConstrain removes the burst mean of the tip/tilt component
+	// (Noll j = 2, 3 expressed in the native basis) from the coefficients
+	// before they enter the metric and from the gradient, so the objective
+	// is flat along the direction the metric cannot see and an optimiser
+	// started with zero burst-mean tilt keeps it there.
+	TiltConstrain bool
+	// Window is the width of the cosine edge taper of the apodisation
+	// window, as a fraction of the patch side, per edge; the centre is flat.
+	// 0 uses 0.125; values are clamped to (0, 0.5].
+	Window float64
+}
+
+// Solver evaluates the phase-diversity objective for one patch size, basis,
+// frame count and set of diversities. It owns its FFT plan and all buffers;
+// it is not safe for concurrent use (use one per goroutine). After SetData,
+// ValueGrad and Restore allocate nothing.
+type Solver struct {
+	n, npix      int
+	frames, nch  int
+	nimg, count  int
+	plan         *fft.Plan
+	pidx         []int       // pupil pixel indices (Amp > 0)
+	amp          []float64   // amplitude at pidx
+	modes        [][]float64 // [count][npup] mode values at pidx
+	div          [][]float64 // [nch][npup] diversity at pidx
+	c            float64     // Σ|h|² = Σ A² / N² (Parseval)
+	neg          []int       // index of −u
+	cutoff       float64     // diffraction cut-off radius, frequency pixels
+	set          Settings
+	gamma        float64
+	invVar       []float64 // 1/σ_m² (0 = loose)
+	tilt         [][]float64
+	win          []float64
+	winSum       float64
+	hasData      bool
+	mask         []int          // frequency indices in the metric
+	filt         []float64      // restoration filter at mask
+	dm           [][]complex128 // [nimg][len(mask)] data spectra at mask
+	dpow         float64        // Σ_u M Σ_jk |D|²
+	norm         float64        // dpow / nimg
+	level        float64        // mean data level, added back by Restore
+	noise        float64        // noise power per frequency (windowed data)
+	ap           []float64      // projected coefficients
+	phi          []float64      // phase of one frame at pidx
+	pup          [][]complex128 // [nimg][npup] pupil field
+	h            [][]complex128 // [nimg][N²] amplitude PSFs
+	sm           [][]complex128 // [nimg][len(mask)] OTFs at mask
+	fhat         []complex128   // object estimate at mask
+	bden         []float64      // γ + Σ|S|² at mask
+	work, work2  []complex128
+	qacc         [][]float64 // [frames][npup] gradient density
+	pw           []float64   // power scratch for SetData
+	pw2          []float64
+	tiltModes    [2]int
+	scratchGrad  []float64
+	lastL, lastP float64
+}
+
+// NewSolver returns a solver for frames frames seen through len(diversity)
+// channels. diversity[k] is the known phase (rad) of channel k on the N×N
+// pupil grid (nil = none). The basis must be drawn on the pupil's grid (same
+// N and Radius). Prior variances start at +Inf (no prior) until SetPrior.
+// It panics if the sizes disagree, frames < 1, there is no channel, or
+// s.PriorWeight < 0: these are programming errors, not user input.
+func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, frames int, s Settings) *Solver {
+	n := pupil.N
+	if basis.N != n {
+		panic(fmt.Sprintf("pd: basis grid %d != pupil grid %d", basis.N, n))
+	}
+	if math.Abs(basis.Radius-pupil.Radius) > 1e-9*pupil.Radius {
+		panic(fmt.Sprintf("pd: basis radius %g != pupil radius %g", basis.Radius, pupil.Radius))
+	}
+	if frames < 1 || len(diversity) < 1 {
+		panic(fmt.Sprintf("pd: need frames ≥ 1 and channels ≥ 1, got %d, %d", frames, len(diversity)))
+	}
+	if s.PriorWeight < 0 || math.IsNaN(s.PriorWeight) {
+		panic(fmt.Sprintf("pd: negative prior weight %g", s.PriorWeight))
+	}
+	if s.Gamma <= 0 {
+		s.Gamma = 1e-6
+	}
+	if s.NoiseThreshold <= 0 {
+		s.NoiseThreshold = 3
+	}
+	if s.Window <= 0 {
+		s.Window = 0.125
+	}
+	if s.Window > 0.5 {
+		s.Window = 0.5
+	}
+	npix := n * n
+	sv := &Solver{
+		n: n, npix: npix, frames: frames, nch: len(diversity),
+		nimg: frames * len(diversity), count: basis.Count,
+		plan: fft.NewPlan(n, n), set: s,
+	}
+	sv.gamma = s.Gamma * float64(sv.nimg)
+	// Pupil cut-off: the OTF (autocorrelation of the pupil) reaches twice
+	// the pupil radius.
+	sv.cutoff = 2 * pupil.Radius
+	for _, i := range pupil.Index {
+		if pupil.Amp[i] > 0 {
+			sv.pidx = append(sv.pidx, i)
+			sv.amp = append(sv.amp, pupil.Amp[i])
+			sv.c += pupil.Amp[i] * pupil.Amp[i]
+		}
+	}
+	if len(sv.pidx) == 0 {
+		panic("pd: empty pupil")
+	}
+	sv.c /= float64(npix)
+	np := len(sv.pidx)
+	sv.modes = make([][]float64, basis.Count)
+	for m := range sv.modes {
+		if len(basis.Modes[m]) != npix {
+			panic(fmt.Sprintf("pd: mode %d has %d pixels, want %d", m, len(basis.Modes[m]), npix))
+		}
+		sv.modes[m] = make([]float64, np)
+		for p, i := range sv.pidx {
+			sv.modes[m][p] = basis.Modes[m][i]
+		}
+	}
+	sv.div = make([][]float64, sv.nch)
+	for k, d := range diversity {
+		sv.div[k] = make([]float64, np)
+		if d == nil {
+			continue
+		}
+		if len(d) != npix {
+			panic(fmt.Sprintf("pd: diversity %d has %d pixels, want %d", k, len(d), npix))
+		}
+		for p, i := range sv.pidx {
+			sv.div[k][p] = d[i]
+		}
+	}
+	sv.neg = make([]int, npix)
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			sv.neg[y*n+x] = ((n-y)%n)*n + (n-x)%n
+		}
+	}
+	sv.invVar = make([]float64, basis.Count)
+	sv.tiltModes = TiltModes(basis)
+	sv.tilt = tiltDirections(basis)
+	sv.win = Window(n, s.Window)
+	for _, v := range sv.win {
+		sv.winSum += v
+	}
+	sv.ap = make([]float64, frames*basis.Count)
+	sv.scratchGrad = make([]float64, frames*basis.Count)
+	sv.phi = make([]float64, np)
+	sv.pup = make([][]complex128, sv.nimg)
+	sv.h = make([][]complex128, sv.nimg)
+	sv.dm = make([][]complex128, sv.nimg)
+	sv.sm = make([][]complex128, sv.nimg)
+	for i := range sv.pup {
+		sv.pup[i] = make([]complex128, np)
+		sv.h[i] = make([]complex128, npix)
+	}
+	sv.work = make([]complex128, npix)
+	sv.work2 = make([]complex128, npix)
+	sv.qacc = make([][]float64, frames)
+	for j := range sv.qacc {
+		sv.qacc[j] = make([]float64, np)
+	}
+	sv.pw = make([]float64, npix)
+	sv.pw2 = make([]float64, npix)
+	// Mask buffers sized for the largest possible mask (the cut-off disc).
+	maxMask := 0
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			if sv.freqRadius(y, x) < sv.cutoff {
+				maxMask++
+			}
+		}
+	}
+	sv.mask = make([]int, 0, maxMask)
+	sv.filt = make([]float64, 0, maxMask)
+	for i := range sv.dm {
+		sv.dm[i] = make([]complex128, 0, maxMask)
+		sv.sm[i] = make([]complex128, maxMask)
+	}
+	sv.fhat = make([]complex128, maxMask)
+	sv.bden = make([]float64, maxMask)
+	return sv
+}
+
+// freqRadius is the distance of frequency pixel (y, x) from zero frequency,
+// with wrap-around (index ≥ N/2 is negative).
+func (s *Solver) freqRadius(y, x int) float64 {
+	n := s.n
+	fy, fx := y, x
+	if fy >= (n+1)/2 {
+		fy -= n
+	}
+	if fx >= (n+1)/2 {
+		fx -= n
+	}
+	return math.Hypot(float64(fy), float64(fx))
+}
+
+// Size returns the patch side, number of frames, channels and modes.
+func (s *Solver) Size() (n, frames, channels, modes int) {
+	return s.n, s.frames, s.nch, s.count
+}
+
+// Settings returns the settings in use, defaults filled in.
+func (s *Solver) Settings() Settings { return s.set }
+
+// SetPriorWeight changes the prior weight w (≥ 0; negative or NaN panics).
+func (s *Solver) SetPriorWeight(w float64) {
+	if w < 0 || math.IsNaN(w) {
+		panic(fmt.Sprintf("pd: negative prior weight %g", w))
+	}
+	s.set.PriorWeight = w
+}
+
+// SetPrior sets the prior variance σ_m² (rad²) of each native mode; len must
+// be the basis size (panics otherwise). Entries that are +Inf, zero,
+// negative or NaN mean "no prior on this mode" (loose).
+func (s *Solver) SetPrior(sigma2 []float64) {
+	if len(sigma2) != s.count {
+		panic(fmt.Sprintf("pd: prior has %d modes, want %d", len(sigma2), s.count))
+	}
+	for m, v := range sigma2 {
+		if v > 0 && !math.IsInf(v, 1) {
+			s.invVar[m] = 1 / v
+		} else {
+			s.invVar[m] = 0
+		}
+	}
+}
+
+// Window returns the N×N separable apodisation window: 1 in the centre,
+// falling to 0 at the edges with a raised-cosine taper over frac·n pixels
+// per edge (frac clamped to (0, 0.5]; at least one pixel).
+func Window(n int, frac float64) []float64 {
+	if frac <= 0 {
+		frac = 0.125
+	}
+	if frac > 0.5 {
+		frac = 0.5
+	}
+	t := frac * float64(n)
+	if t < 1 {
+		t = 1
+	}
+	w1 := make([]float64, n)
+	for i := range w1 {
+		// distance from the nearer edge, measured from pixel centres
+		e := math.Min(float64(i)+0.5, float64(n-i)-0.5)
+		if e >= t {
+			w1[i] = 1
+		} else {
+			w1[i] = 0.5 * (1 - math.Cos(math.Pi*e/t))
+		}
+	}
+	w := make([]float64, n*n)
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			w[y*n+x] = w1[y] * w1[x]
+		}
+	}
+	return w
+}
+
+// TiltModes returns the indices of the two native modes that carry most of
+// the Noll tip and tilt (j = 2, 3): modes 0 and 1 for Zernike bases; for KL
+// bases the two modes with the largest ToNoll(0,k)² + ToNoll(1,k)².
+func TiltModes(b *modes.Basis) [2]int {
+	if b.ToNoll == nil || b.Count < 2 {
+		return [2]int{0, 1}
+	}
+	best := [2]int{-1, -1}
+	bv := [2]float64{-1, -1}
+	for k := 0; k < b.Count; k++ {
+		v := b.ToNoll.At(0, k)*b.ToNoll.At(0, k) + b.ToNoll.At(1, k)*b.ToNoll.At(1, k)
+		if v > bv[0] {
+			best[1], bv[1] = best[0], bv[0]
+			best[0], bv[0] = k, v
+		} else if v > bv[1] {
+			best[1], bv[1] = k, v
+		}
+	}
+	if best[0] > best[1] {
+		best[0], best[1] = best[1], best[0]
+	}
+	return best
+}
+
+// KolmogorovPrior returns the prior variances σ_m² = Variance_m·(D/r0)^(5/3)
+// (rad²) of the native modes of b for Kolmogorov turbulence at dOverR0
+// (Noll 1976 eq. 25 through the basis), with the two tilt modes (TiltModes)
+// set to +Inf: tilts are left loose, since frame-to-frame image motion is
+// not well described by the single-aperture variance and costs the metric
+// nothing to fit. It panics if dOverR0 ≤ 0.
+func KolmogorovPrior(b *modes.Basis, dOverR0 float64) []float64 {
+	if !(dOverR0 > 0) {
+		panic(fmt.Sprintf("pd: D/r0 must be positive, got %g", dOverR0))
+	}
+	f := math.Pow(dOverR0, 5.0/3)
+	s := make([]float64, b.Count)
+	for m := range s {
+		s[m] = b.Variance[m] * f
+	}
+	for _, t := range TiltModes(b) {
+		if t >= 0 && t < len(s) {
+			s[t] = math.Inf(1)
+		}
+	}
+	return s
+}
+
+// tiltDirections returns an orthonormal pair of native coefficient vectors
+// spanning the phases Z2 and Z3 (u_i = ToNoll⁻¹ e_i), the directions the
+// metric cannot see when common to all frames.
+func tiltDirections(b *modes.Basis) [][]float64 {
+	c := b.Count
+	if c < 2 {
+		return nil
+	}
+	var u [2][]float64
+	if b.ToNoll == nil {
+		u[0] = make([]float64, c)
+		u[1] = make([]float64, c)
+		u[0][0], u[1][1] = 1, 1
+	} else {
+		var inv mat.Dense
+		if err := inv.Inverse(b.ToNoll); err != nil {
+			// Fall back to the rows of ToNoll (exact if orthogonal).
+			for i := 0; i < 2; i++ {
+				u[i] = make([]float64, c)
+				for k := 0; k < c; k++ {
+					u[i][k] = b.ToNoll.At(i, k)
+				}
+			}
+		} else {
+			for i := 0; i < 2; i++ {
+				u[i] = make([]float64, c)
+				for k := 0; k < c; k++ {
+					u[i][k] = inv.At(k, i)
+				}
+			}
+		}
+	}
+	// Gram–Schmidt.
+	normalise := func(v []float64) {
+		var s float64
+		for _, x := range v {
+			s += x * x
+		}
+		s = math.Sqrt(s)
+		for i := range v {
+			v[i] /= s
+		}
+	}
+	normalise(u[0])
+	var d float64
+	for k := range u[1] {
+		d += u[0][k] * u[1][k]
+	}
+	for k := range u[1] {
+		u[1][k] -= d * u[0][k]
+	}
+	normalise(u[1])
+	return [][]float64{u[0], u[1]}
+}
+
+// Constrain removes, in place, the burst mean of the tip/tilt component
+// from alpha (frames×modes, frame-major): for each orthonormal tilt
+// direction t, α_j ← α_j − t·(1/J)Σ_j' t·α_j'. It does nothing if the
+// solver was built without TiltConstrain. It panics on a wrong length.
+func (s *Solver) Constrain(alpha []float64) {
+	if len(alpha) != s.frames*s.count {
+		panic(fmt.Sprintf("pd: alpha has length %d, want %d", len(alpha), s.frames*s.count))
+	}
+	if !s.set.TiltConstrain {
+		return
+	}
+	s.project(alpha)
+}
+
+func (s *Solver) project(a []float64) {
+	m := s.count
+	for _, t := range s.tilt {
+		var mean float64
+		for j := 0; j < s.frames; j++ {
+			row := a[j*m : (j+1)*m]
+			for k, v := range t {
+				mean += v * row[k]
+			}
+		}
+		mean /= float64(s.frames)
+		for j := 0; j < s.frames; j++ {
+			row := a[j*m : (j+1)*m]
+			for k, v := range t {
+				row[k] -= mean * v
+			}
+		}
+	}
+}
+
+// ErrNoSignal is returned by SetData when no frequency inside the cut-off
+// carries signal above the noise.
+var ErrNoSignal = errors.New("pd: no frequency above the noise floor")
+
+// SetData loads one patch: data[channel][frame], each N×N row-major. Each
+// image is reduced by its window-weighted mean m (so that w·(d−m) has no
+// zero-frequency component), multiplied by the apodisation window w and
+// transformed; the mean is not added back (DESIGN §3). The noise power is
+// the mean power beyond the diffraction cut-off (zero if the grid has no
+// such frequencies); the metric mask follows Settings.NoiseFilter. It
+// returns an error, leaving the solver without data, if the sizes are wrong,
+// a value is not finite, or the mask is empty. It allocates nothing.
+func (s *Solver) SetData(data [][][]float64) error {
+	s.hasData = false
+	if len(data) != s.nch {
+		return fmt.Errorf("pd: data has %d channels, want %d", len(data), s.nch)
+	}
+	for k := range data {
+		if len(data[k]) != s.frames {
+			return fmt.Errorf("pd: channel %d has %d frames, want %d", k, len(data[k]), s.frames)
+		}
+		for j, im := range data[k] {
+			if len(im) != s.npix {
+				return fmt.Errorf("pd: channel %d frame %d has %d pixels, want %d×%d", k, j, len(im), s.n, s.n)
+			}
+			for _, v := range im {
+				if math.IsNaN(v) || math.IsInf(v, 0) {
+					return fmt.Errorf("pd: channel %d frame %d has a non-finite value", k, j)
+				}
+			}
+		}
+	}
+	n := s.n
+	// Spectra of all images into h (used here as scratch) and power.
+	for i := range s.pw {
+		s.pw[i] = 0
+	}
+	var level float64
+	var noise float64
+	nNoise := 0
+	for j := 0; j < s.frames; j++ {
+		for k := 0; k < s.nch; k++ {
+			im := data[k][j]
+			var m float64
+			for p, v := range im {
+				m += s.win[p] * v
+			}
+			m /= s.winSum
+			level += m
+			buf := s.h[j*s.nch+k]
+			for p, v := range im {
+				buf[p] = complex(s.win[p]*(v-m), 0)
+			}
+			s.plan.Forward(buf, buf)
+			for u, z := range buf {
+				p := real(z)*real(z) + imag(z)*imag(z)
+				s.pw[u] += p
+			}
+		}
+	}
+	s.level = level / float64(s.nimg)
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			if s.freqRadius(y, x) > s.cutoff+1 {
+				noise += s.pw[y*n+x]
+				nNoise++
+			}
+		}
+	}
+	if nNoise > 0 {
+		s.noise = noise / float64(nNoise) / float64(s.nimg)
+	} else {
+		s.noise = 0
+	}
+	// Mean power per image, 3×3 smoothed with wrap-around.
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			var t float64
+			for dy := -1; dy <= 1; dy++ {
+				yy := (y + dy + n) % n
+				for dx := -1; dx <= 1; dx++ {
+					t += s.pw[yy*n+(x+dx+n)%n]
+				}
+			}
+			s.pw2[y*n+x] = t / 9 / float64(s.nimg)
+		}
+	}
+	s.mask = s.mask[:0]
+	s.filt = s.filt[:0]
+	thr := s.set.NoiseThreshold * s.noise
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			u := y*n + x
+			if u == 0 || s.freqRadius(y, x) >= s.cutoff {
+				continue
+			}
+			f := 1.0
+			if s.noise > 0 {
+				p := math.Min(s.pw2[u], s.pw2[s.neg[u]])
+				if s.set.NoiseFilter && p <= thr {
+					continue
+				}
+				// Restoration filter 1 − noise/power (Löfdahl & Scharmer
+				// 1994, optimum-filter approximation), clipped to [0, 1].
+				f = 1 - s.noise/p
+				if f < 0 {
+					f = 0
+				}
+			}
+			s.mask = append(s.mask, u)
+			s.filt = append(s.filt, f)
+		}
+	}
+	if len(s.mask) == 0 {
+		return ErrNoSignal
+	}
+	s.dpow = 0
+	for i := range s.dm {
+		spec := s.h[i]
+		s.dm[i] = s.dm[i][:len(s.mask)]
+		for q, u := range s.mask {
+			// Exact Hermitian symmetry at the mask.
+			z := 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
+			s.dm[i][q] = z
+			s.dpow += real(z)*real(z) + imag(z)*imag(z)
+		}
+	}
+	if !(s.dpow > 0) {
+		return ErrNoSignal
+	}
+	s.norm = s.dpow / float64(s.nimg)
+	s.hasData = true
+	return nil
+}
+
+// Noise returns the noise power per frequency of one windowed image
+// spectrum, as measured by the last SetData (0 if unmeasurable).
+func (s *Solver) Noise() float64 { return s.noise }
+
+// MaskSize returns the number of frequencies in the metric after SetData.
+func (s *Solver) MaskSize() int { return len(s.mask) }
+
+// DataPower returns P̄, the masked data power per image that normalises L.
+func (s *Solver) DataPower() float64 { return s.norm }
+
+// LastTerms returns the two parts of the last ValueGrad: the normalised
+// metric L/P̄ and the weighted prior term.
+func (s *Solver) LastTerms() (metric, prior float64) { return s.lastL, s.lastP }
+
+// otfs computes the pupil fields, amplitude PSFs and the OTFs at the mask
+// for the projected coefficients s.ap, then the object estimate F̂ and the
+// denominators, and returns L (unnormalised).
+func (s *Solver) otfs() float64 {
+	m := s.count
+	np := len(s.pidx)
+	for j := 0; j < s.frames; j++ {
+		a := s.ap[j*m : (j+1)*m]
+		phi := s.phi
+		for p := range phi {
+			phi[p] = 0
+		}
+		for k, c := range a {
+			if c == 0 {
+				continue
+			}
+			md := s.modes[k]
+			for p := range phi {
+				phi[p] += c * md[p]
+			}
+		}
+		for k := 0; k < s.nch; k++ {
+			i := j*s.nch + k
+			pf := s.pup[i]
+			dv := s.div[k]
+			h := s.h[i]
+			clear(h)
+			for p := 0; p < np; p++ {
+				sn, cs := math.Sincos(phi[p] + dv[p])
+				z := complex(s.amp[p]*cs, s.amp[p]*sn)
+				pf[p] = z
+				h[s.pidx[p]] = z
+			}
+			s.plan.Inverse(h, h)
+		}
+	}
+	// OTFs, two images per FFT: F{s_a + i s_b}.
+	nm := len(s.mask)
+	ic := 1 / s.c
+	for a := 0; a < s.nimg; a += 2 {
+		b := a + 1
+		ha := s.h[a]
+		if b < s.nimg {
+			hb := s.h[b]
+			for x, z := range ha {
+				w := hb[x]
+				s.work[x] = complex((real(z)*real(z)+imag(z)*imag(z))*ic, (real(w)*real(w)+imag(w)*imag(w))*ic)
+			}
+		} else {
+			for x, z := range ha {
+				s.work[x] = complex((real(z)*real(z)+imag(z)*imag(z))*ic, 0)
+			}
+		}
+		s.plan.Forward(s.work, s.work)
+		sa := s.sm[a][:nm]
+		if b < s.nimg {
+			sb := s.sm[b][:nm]
+			for q, u := range s.mask {
+				z, zn := s.work[u], cmplx.Conj(s.work[s.neg[u]])
+				sa[q] = 0.5 * (z + zn)
+				d := 0.5 * (z - zn)
+				sb[q] = complex(imag(d), -real(d)) // d / i
+			}
+		} else {
+			for q, u := range s.mask {
+				sa[q] = 0.5 * (s.work[u] + cmplx.Conj(s.work[s.neg[u]]))
+			}
+		}
+	}
+	// A = Σ D* S (stored conjugated in fhat), B = γ + Σ|S|².
+	fh := s.fhat[:nm]
+	bd := s.bden[:nm]
+	for q := range fh {
+		fh[q] = 0
+		bd[q] = s.gamma
+	}
+	for i := 0; i < s.nimg; i++ {
+		d, sm := s.dm[i], s.sm[i][:nm]
+		for q := range fh {
+			z := sm[q]
+			fh[q] += d[q] * cmplx.Conj(z) // Σ D S* = conj(A)
+			bd[q] += real(z)*real(z) + imag(z)*imag(z)
+		}
+	}
+	var expl float64
+	for q := range fh {
+		z := fh[q]
+		expl += (real(z)*real(z) + imag(z)*imag(z)) / bd[q]
+		fh[q] = z / complex(bd[q], 0)
+	}
+	return s.dpow - expl
+}
+
+// ValueGrad returns the objective E(α) (see the package comment) and, if
+// grad is not nil, stores ∂E/∂α in grad. alpha and grad have length
+// frames·modes, frame-major (alpha[j*modes+m]); grad may not alias alpha.
+// It panics if SetData has not succeeded or on wrong lengths. It allocates
+// nothing.
+func (s *Solver) ValueGrad(grad, alpha []float64) float64 {
+	if !s.hasData {
+		panic("pd: ValueGrad before a successful SetData")
+	}
+	nt := s.frames * s.count
+	if len(alpha) != nt || (grad != nil && len(grad) != nt) {
+		panic(fmt.Sprintf("pd: alpha/grad length %d/%d, want %d", len(alpha), len(grad), nt))
+	}
+	copy(s.ap, alpha)
+	if s.set.TiltConstrain {
+		s.project(s.ap)
+	}
+	L := s.otfs()
+	inorm := 1 / s.norm
+	s.lastL = L * inorm
+	var prior float64
+	w := s.set.PriorWeight
+	m := s.count
+	if w > 0 {
+		for j := 0; j < s.frames; j++ {
+			for k := 0; k < m; k++ {
+				a := s.ap[j*m+k]
+				prior += a * a * s.invVar[k]
+			}
+		}
+		prior *= 0.5 * w
+	}
+	s.lastP = prior
+	if grad == nil {
+		return s.lastL + prior
+	}
+	np := len(s.pidx)
+	nm := len(s.mask)
+	for j := range s.qacc {
+		clear(s.qacc[j])
+	}
+	fh := s.fhat[:nm]
+	scale := -4 / (s.c * float64(s.npix)) * inorm
+	for a := 0; a < s.nimg; a += 2 {
+		b := a + 1
+		clear(s.work)
+		da, sa := s.dm[a], s.sm[a][:nm]
+		if b < s.nimg {
+			db, sb := s.dm[b], s.sm[b][:nm]
+			for q, u := range s.mask {
+				f := fh[q]
+				ga := -f * cmplx.Conj(da[q]-f*sa[q])
+				gb := -f * cmplx.Conj(db[q]-f*sb[q])
+				s.work[u] = ga + complex(-imag(gb), real(gb)) // ga + i·gb
+			}
+		} else {
+			for q, u := range s.mask {
+				f := fh[q]
+				s.work[u] = -f * cmplx.Conj(da[q]-f*sa[q])
+			}
+		}
+		s.plan.Forward(s.work, s.work) // g_a + i g_b (both real)
+		for _, i := range [2]int{a, b} {
+			if i >= s.nimg {
+				break
+			}
+			h := s.h[i]
+			if i == a {
+				for x, z := range h {
+					s.work2[x] = z * complex(real(s.work[x]), 0)
+				}
+			} else {
+				for x, z := range h {
+					s.work2[x] = z * complex(imag(s.work[x]), 0)
+				}
+			}
+			s.plan.Forward(s.work2, s.work2)
+			q := s.qacc[i/s.nch]
+			pf := s.pup[i]
+			for p := 0; p < np; p++ {
+				W := s.work2[s.pidx[p]]
+				P := pf[p]
+				// Im(P·W*) = Im(P)Re(W) − Re(P)Im(W)
+				q[p] += scale * (imag(P)*real(W) - real(P)*imag(W))
+			}
+		}
+	}
+	for j := 0; j < s.frames; j++ {
+		q := s.qacc[j]
+		g := grad[j*m : (j+1)*m]
+		for k := 0; k < m; k++ {
+			md := s.modes[k]
+			var t float64
+			for p, v := range q {
+				t += v * md[p]
+			}
+			g[k] = t
+		}
+		if w > 0 {
+			a := s.ap[j*m : (j+1)*m]
+			for k := range g {
+				g[k] += w * a[k] * s.invVar[k]
+			}
+		}
+	}
+	if s.set.TiltConstrain {
+		s.project(grad)
+	}
+	return s.lastL + prior
+}
+
+// Restore stores in dst (N×N) the object estimate for coefficients alpha:
+// the inverse transform of H·F̂ over the metric's frequencies, where H is
+// the noise filter 1 − noise/power clipped to [0, 1] (1 without a noise
+// measurement), plus the mean data level. The result estimates the
+// apodised object w·(o − m) + m, so it equals the object in the flat centre
+// of the window and fades to the mean level at the edges. It panics if
+// SetData has not succeeded or on wrong lengths; allocates nothing.
+func (s *Solver) Restore(dst, alpha []float64) {
+	if !s.hasData {
+		panic("pd: Restore before a successful SetData")
+	}
+	if len(dst) != s.npix || len(alpha) != s.frames*s.count {
+		panic(fmt.Sprintf("pd: Restore dst/alpha length %d/%d, want %d/%d", len(dst), len(alpha), s.npix, s.frames*s.count))
+	}
+	copy(s.ap, alpha)
+	if s.set.TiltConstrain {
+		s.project(s.ap)
+	}
+	s.otfs()
+	clear(s.work)
+	for q, u := range s.mask {
+		s.work[u] = s.fhat[q] * complex(s.filt[q], 0)
+	}
+	s.plan.InverseReal(dst, s.work)
+	for i := range dst {
+		dst[i] += s.level
+	}
+}
