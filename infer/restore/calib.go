@@ -1,0 +1,210 @@
+package restore
+
+import (
+	"bufio"
+	"fmt"
+	"math"
+	"os"
+
+	"github.com/astrogo/fitsio"
+)
+
+// Calibration is what Calibrate does to each frame: d ← (d − Dark)/Gain.
+type Calibration struct {
+	Dark []float64 // nx·ny dark frame (counts); nil = none
+	Gain []float64 // nx·ny flat field normalised to mean 1; nil = none
+	Bad  int       // flat pixels at or below 1 % of the mean flat, given gain 1
+}
+
+// NewCalibration checks the dark and flat frames against an nx×ny field and
+// normalises the flat: Gain = flat/mean(flat). The flat must already be dark
+// corrected (a gain map or a dark-subtracted flat-field exposure). Flat pixels
+// at or below 1 % of the mean are counted in Bad and given gain 1. Either
+// frame may be nil. Errors on size mismatch, non-finite values or a flat with
+// non-positive mean. The inputs are not modified.
+func NewCalibration(nx, ny int, dark, flat []float64) (*Calibration, error) {
+	c := &Calibration{}
+	if dark != nil {
+		if len(dark) != nx*ny {
+			return nil, fmt.Errorf("restore: dark frame has %d pixels, field has %d×%d", len(dark), nx, ny)
+		}
+		for _, v := range dark {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return nil, fmt.Errorf("restore: dark frame holds non-finite values")
+			}
+		}
+		c.Dark = dark
+	}
+	if flat != nil {
+		if len(flat) != nx*ny {
+			return nil, fmt.Errorf("restore: flat frame has %d pixels, field has %d×%d", len(flat), nx, ny)
+		}
+		var mean float64
+		for _, v := range flat {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return nil, fmt.Errorf("restore: flat frame holds non-finite values")
+			}
+			mean += v
+		}
+		mean /= float64(len(flat))
+		if !(mean > 0) {
+			return nil, fmt.Errorf("restore: flat frame has non-positive mean %g", mean)
+		}
+		c.Gain = make([]float64, len(flat))
+		for i, v := range flat {
+			g := v / mean
+			if g <= 0.01 {
+				g = 1
+				c.Bad++
+			}
+			c.Gain[i] = g
+		}
+	}
+	return c, nil
+}
+
+// Apply calibrates frame in place: frame[i] = (frame[i] − Dark[i])/Gain[i].
+// It panics if the lengths differ from the calibration's.
+func (c *Calibration) Apply(frame []float64) {
+	if c.Dark != nil {
+		if len(frame) != len(c.Dark) {
+			panic("restore: Calibration.Apply: frame length differs from dark")
+		}
+		for i := range frame {
+			frame[i] -= c.Dark[i]
+		}
+	}
+	if c.Gain != nil {
+		if len(frame) != len(c.Gain) {
+			panic("restore: Calibration.Apply: frame length differs from flat")
+		}
+		for i := range frame {
+			frame[i] /= c.Gain[i]
+		}
+	}
+}
+
+// ReadFrame reads a 2-D calibration frame (dark or flat) from the primary HDU
+// of a FITS file, applying BZERO/BSCALE. A 3-D cube is averaged over its third
+// axis. It returns the data (row-major, NAXIS1 fastest) and its size.
+func ReadFrame(path string) (data []float64, nx, ny int, err error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, 0, 0, fmt.Errorf("reading %s: %w", path, err)
+	}
+	defer f.Close()
+	ff, err := fitsio.Open(bufio.NewReader(f))
+	if err != nil {
+		return nil, 0, 0, fmt.Errorf("reading %s: %w", path, err)
+	}
+	defer ff.Close()
+	img, ok := ff.HDU(0).(fitsio.Image)
+	if !ok {
+		return nil, 0, 0, fmt.Errorf("reading %s: primary HDU is not an image", path)
+	}
+	hdr := img.Header()
+	axes := hdr.Axes()
+	if len(axes) < 2 || len(axes) > 3 {
+		return nil, 0, 0, fmt.Errorf("reading %s: want a 2-D frame (or 3-D stack), NAXIS=%d", path, len(axes))
+	}
+	nx, ny = axes[0], axes[1]
+	nz := 1
+	if len(axes) == 3 {
+		nz = axes[2]
+	}
+	if nx < 1 || ny < 1 || nz < 1 {
+		return nil, 0, 0, fmt.Errorf("reading %s: empty image %v", path, axes)
+	}
+	raw, err := restoreReadPixels(img, hdr.Bitpix())
+	if err != nil {
+		return nil, 0, 0, fmt.Errorf("reading %s: %w", path, err)
+	}
+	zero, scale := 0.0, 1.0
+	if c := hdr.Get("BZERO"); c != nil {
+		if v, ok := restoreCardFloat(c.Value); ok {
+			zero = v
+		}
+	}
+	if c := hdr.Get("BSCALE"); c != nil {
+		if v, ok := restoreCardFloat(c.Value); ok && v != 0 {
+			scale = v
+		}
+	}
+	data = make([]float64, nx*ny)
+	for z := 0; z < nz; z++ {
+		for i := range data {
+			v := zero + scale*raw[z*nx*ny+i]
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return nil, 0, 0, fmt.Errorf("reading %s: non-finite pixel %d", path, i)
+			}
+			data[i] += v / float64(nz)
+		}
+	}
+	return data, nx, ny, nil
+}
+
+func restoreReadPixels(img fitsio.Image, bitpix int) ([]float64, error) {
+	switch bitpix {
+	case 8:
+		var v []byte
+		if err := img.Read(&v); err != nil {
+			return nil, err
+		}
+		return restoreConv(v), nil
+	case 16:
+		var v []int16
+		if err := img.Read(&v); err != nil {
+			return nil, err
+		}
+		return restoreConv(v), nil
+	case 32:
+		var v []int32
+		if err := img.Read(&v); err != nil {
+			return nil, err
+		}
+		return restoreConv(v), nil
+	case 64:
+		var v []int64
+		if err := img.Read(&v); err != nil {
+			return nil, err
+		}
+		return restoreConv(v), nil
+	case -32:
+		var v []float32
+		if err := img.Read(&v); err != nil {
+			return nil, err
+		}
+		return restoreConv(v), nil
+	case -64:
+		var v []float64
+		if err := img.Read(&v); err != nil {
+			return nil, err
+		}
+		return v, nil
+	}
+	return nil, fmt.Errorf("unsupported BITPIX %d", bitpix)
+}
+
+func restoreConv[T byte | int16 | int32 | int64 | float32](v []T) []float64 {
+	out := make([]float64, len(v))
+	for i, x := range v {
+		out[i] = float64(x)
+	}
+	return out
+}
+
+func restoreCardFloat(v any) (float64, bool) {
+	switch x := v.(type) {
+	case float64:
+		return x, true
+	case float32:
+		return float64(x), true
+	case int:
+		return float64(x), true
+	case int64:
+		return float64(x), true
+	case int32:
+		return float64(x), true
+	}
+	return 0, false
+}

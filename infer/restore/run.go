@@ -1,0 +1,519 @@
+package restore
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"runtime"
+	"sync"
+	"time"
+)
+
+// Field is a calibrated, co-registered burst over the whole field of view.
+type Field struct {
+	Nx, Ny, Frames int
+	// Data[channel][frame] is an Nx·Ny row-major image; channel 0 focused,
+	// channel 1 defocused. Run only reads it.
+	Data [2][][]float64
+	// Mean is the burst-mean focused image (Nx·Ny): the "raw" reference for
+	// previews, quality figures and the fallback of failed patches.
+	Mean []float64
+}
+
+// NewField wraps calibrated frames data[channel][frame] (each nx·ny) and
+// computes the burst-mean focused image. Errors if the frame counts of the
+// channels differ, there are no frames or a frame has the wrong length.
+func NewField(nx, ny int, data [2][][]float64) (*Field, error) {
+	if len(data[0]) == 0 || len(data[0]) != len(data[1]) {
+		return nil, fmt.Errorf("restore: need the same positive number of focused and defocused frames (have %d and %d)", len(data[0]), len(data[1]))
+	}
+	for c := range data {
+		for j, fr := range data[c] {
+			if len(fr) != nx*ny {
+				return nil, fmt.Errorf("restore: channel %d frame %d has %d pixels, want %d×%d", c, j, len(fr), nx, ny)
+			}
+		}
+	}
+	f := &Field{Nx: nx, Ny: ny, Frames: len(data[0]), Data: data, Mean: make([]float64, nx*ny)}
+	for _, fr := range data[0] {
+		for i, v := range fr {
+			f.Mean[i] += v
+		}
+	}
+	for i := range f.Mean {
+		f.Mean[i] /= float64(f.Frames)
+	}
+	return f, nil
+}
+
+// Quality flag bits of PatchResult.Flags.
+const (
+	FlagFailed   = 1 << iota // the estimator or deconvolution failed; the tile is the raw burst mean
+	FlagMetric               // metric ratio above MetricRatioLimit
+	FlagCoeffs               // coefficient rms above CoeffRMSLimit times the prior rms
+	FlagContrast             // restored contrast below the raw contrast or above ContrastLimit times it
+	FlagRinging              // edge ringing above RingingLimit
+)
+
+// Thresholds of the quality flags (common practice for a first screening,
+// not calibrated values).
+const (
+	MetricRatioLimit = 3.0
+	CoeffRMSLimit    = 3.0
+	ContrastLimit    = 4.0
+	RingingLimit     = 2.0
+)
+
+// PatchResult is the outcome for one patch.
+type PatchResult struct {
+	ID     int
+	X0, Y0 int       // patch origin in the field, pixels
+	Tile   []float64 // Patch² restored intensities (same units as the focused frames), before blending
+	// Coeffs holds the wavefront coefficients in the native basis, frame-major
+	// (frames × modes, rad); Noll the Noll-equivalent Zernike coefficients
+	// (j = 2..modes+1). Both nil when the engine estimated no wavefront.
+	Coeffs, Noll []float64
+	Metric       float64 // phase-diversity metric at the solution (engine units; NaN if unknown)
+	MetricRatio  float64 // Metric over its noise-only expectation (NaN if unknown)
+	CoeffRMS     float64 // rms coefficient over the rms prior standard deviation (NaN if unknown)
+	Contrast     float64 // rms/mean of the restored tile centre
+	RawContrast  float64 // rms/mean of the burst-mean focused tile centre
+	Ringing      float64 // high-pass rms in the blend band over that in the centre
+	Flags        int     // Flag* bits
+	Err          string  // engine error message when FlagFailed
+}
+
+// Engine restores single patches. Each worker owns one Engine (with its own
+// solver, plans and buffers); implementations need not be safe for
+// concurrent use but must be deterministic: the result for a patch may not
+// depend on which patches the engine saw before.
+type Engine interface {
+	// Restore estimates the wavefronts of the burst patch data[channel][frame]
+	// (Patch² calibrated images, not windowed; the engine applies its own
+	// apodisation) and writes the restored object into res.Tile (Patch²,
+	// allocated by the caller, same units as the focused frames), plus
+	// res.Coeffs, res.Noll, res.Metric, res.MetricRatio and res.CoeffRMS
+	// (NaN where unknown). data must not be retained or modified.
+	Restore(res *PatchResult, data [][][]float64) error
+}
+
+// Options controls Run.
+type Options struct {
+	Patch, Overlap int
+	// Workers is the number of goroutines, each with its own Engine; 0 means
+	// runtime.NumCPU().
+	Workers int
+	// NewEngine makes one Engine per worker.
+	NewEngine func() (Engine, error)
+	Shard     Shard
+	// Journal is a directory where finished patches are recorded in batches
+	// (each batch file written atomically); "" disables it. With Resume, the
+	// patches recorded there are replayed instead of recomputed.
+	Journal string
+	Resume  bool
+	// Key identifies the inputs and settings; a journal written under another
+	// key is refused.
+	Key string
+	// BatchSize is the number of patches per journal batch (0 = 16).
+	BatchSize int
+	// Progress receives a progress line with an ETA (carriage-return
+	// updates); nil = silent.
+	Progress io.Writer
+}
+
+// Sink receives finished patches in increasing id order. Run calls it from a
+// single goroutine; r and r.Tile are not reused afterwards.
+type Sink func(r *PatchResult) error
+
+// Run restores the patches of the shard opt.Shard of the tiling of f with
+// opt.Workers engines and hands each result to sink in increasing id order
+// (so any accumulation in sink is independent of scheduling). Memory beyond
+// the field is bounded by the patches in flight (about 4 per worker). It
+// returns the results without tiles, in id order.
+func Run(ctx context.Context, f *Field, opt Options, sink Sink) ([]PatchResult, error) {
+	g, err := NewGrid(f.Nx, f.Ny, opt.Patch, opt.Overlap)
+	if err != nil {
+		return nil, err
+	}
+	if err := opt.Shard.Validate(); err != nil {
+		return nil, err
+	}
+	if opt.NewEngine == nil {
+		return nil, errors.New("restore: Run: no engine")
+	}
+	workers := opt.Workers
+	if workers <= 0 {
+		workers = runtime.NumCPU()
+	}
+	lo, hi := opt.Shard.Range(g.Count())
+	results := make([]PatchResult, 0, hi-lo)
+	emit := func(r *PatchResult) error {
+		if err := sink(r); err != nil {
+			return err
+		}
+		meta := *r
+		meta.Tile = nil
+		results = append(results, meta)
+		return nil
+	}
+
+	// Journal: replay the finished prefix, then keep recording.
+	var jr *restoreJournal
+	next := lo
+	if opt.Journal != "" {
+		jr, err = restoreOpenJournal(opt.Journal, opt.Key, opt.Resume, lo, hi, opt.BatchSize)
+		if err != nil {
+			return nil, err
+		}
+		if opt.Resume {
+			err = jr.replay(func(r *PatchResult) error {
+				if r.ID != next || r.ID >= hi {
+					return fmt.Errorf("restore: journal %s: patch %d out of order (want %d)", opt.Journal, r.ID, next)
+				}
+				next++
+				return emit(r)
+			})
+			if err != nil {
+				return nil, err
+			}
+		}
+	}
+	if next == hi {
+		if jr != nil {
+			if err := jr.flush(); err != nil {
+				return nil, err
+			}
+		}
+		return results, nil
+	}
+
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	window := 4 * workers
+	type job struct{ id int }
+	jobs := make(chan job)
+	done := make(chan *PatchResult, window)
+	var firstErr error
+	var errOnce sync.Once
+	fail := func(err error) {
+		errOnce.Do(func() { firstErr = err; cancel() })
+	}
+	// Credits bound the patches in flight plus those waiting for their turn.
+	credits := make(chan struct{}, window)
+	for i := 0; i < window; i++ {
+		credits <- struct{}{}
+	}
+	var wg sync.WaitGroup
+	for w := 0; w < workers; w++ {
+		eng, err := opt.NewEngine()
+		if err != nil {
+			cancel()
+			close(jobs)
+			wg.Wait()
+			return nil, fmt.Errorf("restore: making estimator: %w", err)
+		}
+		wg.Add(1)
+		go func(eng Engine) {
+			defer wg.Done()
+			buf := restoreNewPatchBuffers(f.Frames, g.Patch)
+			raw := make([]float64, g.Patch*g.Patch)
+			for j := range jobs {
+				r := restorePatch(ctx, eng, f, g, j.id, buf, raw)
+				if r == nil {
+					return
+				}
+				select {
+				case done <- r:
+				case <-ctx.Done():
+					return
+				}
+			}
+		}(eng)
+	}
+	go func() {
+		defer close(jobs)
+		for id := next; id < hi; id++ {
+			select {
+			case <-credits:
+			case <-ctx.Done():
+				return
+			}
+			select {
+			case jobs <- job{id}:
+			case <-ctx.Done():
+				return
+			}
+		}
+	}()
+	prog := restoreNewProgress(opt.Progress, hi-lo, next-lo)
+	pending := make(map[int]*PatchResult)
+	for next < hi && firstErr == nil {
+		var r *PatchResult
+		select {
+		case r = <-done:
+		case <-ctx.Done():
+		}
+		if r == nil {
+			break
+		}
+		pending[r.ID] = r
+		for {
+			p, ok := pending[next]
+			if !ok {
+				break
+			}
+			delete(pending, next)
+			if err := emit(p); err != nil {
+				fail(err)
+				break
+			}
+			if jr != nil {
+				if err := jr.add(p); err != nil {
+					fail(err)
+					break
+				}
+			}
+			next++
+			prog.step()
+			credits <- struct{}{}
+		}
+	}
+	cancel()
+	wg.Wait()
+	prog.finish()
+	if jr != nil {
+		if err := jr.flush(); err != nil && firstErr == nil {
+			firstErr = err
+		}
+	}
+	if firstErr != nil {
+		return nil, firstErr
+	}
+	if next < hi {
+		if err := context.Cause(ctx); err != nil && !errors.Is(err, context.Canceled) {
+			return nil, err
+		}
+		return nil, fmt.Errorf("restore: interrupted after %d of %d patches: %w", next-lo, hi-lo, context.Canceled)
+	}
+	return results, nil
+}
+
+func restoreNewPatchBuffers(frames, n int) [][][]float64 {
+	buf := make([][][]float64, 2)
+	for c := range buf {
+		buf[c] = make([][]float64, frames)
+		for j := range buf[c] {
+			buf[c][j] = make([]float64, n*n)
+		}
+	}
+	return buf
+}
+
+// restorePatch extracts patch id, runs the engine and computes the quality
+// figures. Engine failures become flagged fallback tiles, not errors. It
+// returns nil if ctx is already cancelled.
+func restorePatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, buf [][][]float64, raw []float64) *PatchResult {
+	n := g.Patch
+	x0, y0 := g.Origin(id)
+	for c := 0; c < 2; c++ {
+		for j, fr := range f.Data[c] {
+			dst := buf[c][j]
+			for y := 0; y < n; y++ {
+				copy(dst[y*n:(y+1)*n], fr[(y0+y)*f.Nx+x0:(y0+y)*f.Nx+x0+n])
+			}
+		}
+	}
+	for y := 0; y < n; y++ {
+		copy(raw[y*n:(y+1)*n], f.Mean[(y0+y)*f.Nx+x0:(y0+y)*f.Nx+x0+n])
+	}
+	if ctx.Err() != nil {
+		return nil // cancelled: nothing computed, nothing to record
+	}
+	r := &PatchResult{ID: id, X0: x0, Y0: y0, Tile: make([]float64, n*n),
+		Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN()}
+	err := restoreSafe(eng, r, buf)
+	if err == nil {
+		for _, v := range r.Tile {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				err = errors.New("non-finite restored pixel")
+				break
+			}
+		}
+	}
+	if err != nil {
+		r.Flags |= FlagFailed
+		r.Err = err.Error()
+		copy(r.Tile, raw)
+	}
+	restoreQuality(r, raw, g)
+	return r
+}
+
+// restoreSafe runs the engine and turns a panic inside it into an error, so
+// one bad patch cannot take the whole field down.
+func restoreSafe(eng Engine, r *PatchResult, data [][][]float64) (err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = fmt.Errorf("estimator panicked: %v", p)
+		}
+	}()
+	return eng.Restore(r, data)
+}
+
+// restoreQuality fills the image-based quality figures and the flags.
+func restoreQuality(r *PatchResult, raw []float64, g *Grid) {
+	n := g.Patch
+	q := n / 4
+	r.Contrast = restoreContrast(r.Tile, n, q)
+	r.RawContrast = restoreContrast(raw, n, q)
+	band := max(g.Overlap/2, 2)
+	r.Ringing = restoreRinging(r.Tile, n, band)
+	if r.MetricRatio > MetricRatioLimit {
+		r.Flags |= FlagMetric
+	}
+	if r.CoeffRMS > CoeffRMSLimit {
+		r.Flags |= FlagCoeffs
+	}
+	if r.Flags&FlagFailed == 0 && (r.Contrast < r.RawContrast || r.Contrast > ContrastLimit*r.RawContrast) {
+		r.Flags |= FlagContrast
+	}
+	if r.Ringing > RingingLimit {
+		r.Flags |= FlagRinging
+	}
+}
+
+// restoreContrast is the rms over the mean of the centre of an n×n tile
+// (border q pixels excluded).
+func restoreContrast(t []float64, n, q int) float64 {
+	var s, s2, c float64
+	for y := q; y < n-q; y++ {
+		for x := q; x < n-q; x++ {
+			v := t[y*n+x]
+			s += v
+			s2 += v * v
+			c++
+		}
+	}
+	m := s / c
+	if m == 0 {
+		return math.NaN()
+	}
+	return math.Sqrt(math.Max(s2/c-m*m, 0)) / math.Abs(m)
+}
+
+// restoreRinging is the rms of the high-pass image t − box3(t) over the
+// outer band of width band, divided by its rms over the rest of the tile.
+func restoreRinging(t []float64, n, band int) float64 {
+	var eb, ei, cb, ci float64
+	for y := 1; y < n-1; y++ {
+		for x := 1; x < n-1; x++ {
+			var s float64
+			for dy := -1; dy <= 1; dy++ {
+				for dx := -1; dx <= 1; dx++ {
+					s += t[(y+dy)*n+x+dx]
+				}
+			}
+			h := t[y*n+x] - s/9
+			if min(x, y, n-1-x, n-1-y) < band {
+				eb += h * h
+				cb++
+			} else {
+				ei += h * h
+				ci++
+			}
+		}
+	}
+	if ei == 0 || ci == 0 || cb == 0 {
+		return math.NaN()
+	}
+	return math.Sqrt((eb / cb) / (ei / ci))
+}
+
+// Mosaic accumulates blended tiles into a field. Add the tiles in a fixed
+// order (Run's sinks see increasing ids) for bit-identical results.
+type Mosaic struct {
+	Grid        *Grid
+	Sum, Weight []float64 // Nx·Ny accumulators
+	w           []float64
+}
+
+// NewMosaic returns an empty mosaic over g.
+func NewMosaic(g *Grid) *Mosaic {
+	return &Mosaic{Grid: g, Sum: make([]float64, g.Nx*g.Ny), Weight: make([]float64, g.Nx*g.Ny), w: make([]float64, g.Patch*g.Patch)}
+}
+
+// Add blends tile (Patch²) of patch id into the mosaic with the weight of
+// Grid.Weight. It panics on a wrong tile length or id.
+func (m *Mosaic) Add(id int, tile []float64) {
+	g := m.Grid
+	n := g.Patch
+	if len(tile) != n*n {
+		panic("restore: Mosaic.Add: wrong tile length")
+	}
+	g.Weight(m.w, id)
+	x0, y0 := g.Origin(id)
+	for y := 0; y < n; y++ {
+		o := (y0+y)*g.Nx + x0
+		for x := 0; x < n; x++ {
+			w := m.w[y*n+x]
+			m.Sum[o+x] += w * tile[y*n+x]
+			m.Weight[o+x] += w
+		}
+	}
+}
+
+// Image writes the blended field Sum/Weight into dst (Nx·Ny) and returns it
+// (allocating when dst is nil). Pixels no tile reached are NaN.
+func (m *Mosaic) Image(dst []float64) []float64 {
+	if dst == nil {
+		dst = make([]float64, len(m.Sum))
+	}
+	for i, s := range m.Sum {
+		if m.Weight[i] > 0 {
+			dst[i] = s / m.Weight[i]
+		} else {
+			dst[i] = math.NaN()
+		}
+	}
+	return dst
+}
+
+// restoreProgress writes "restore: k/n patches, elapsed, ETA" lines.
+type restoreProgress struct {
+	w          io.Writer
+	total, k   int
+	start      int
+	t0, last   time.Time
+	wroteEnded bool
+}
+
+func restoreNewProgress(w io.Writer, total, done int) *restoreProgress {
+	return &restoreProgress{w: w, total: total, k: done, start: done, t0: time.Now()}
+}
+
+func (p *restoreProgress) step() {
+	p.k++
+	if p.w == nil {
+		return
+	}
+	now := time.Now()
+	if now.Sub(p.last) < 500*time.Millisecond && p.k < p.total {
+		return
+	}
+	p.last = now
+	el := now.Sub(p.t0).Seconds()
+	eta := math.NaN()
+	if p.k > p.start {
+		eta = el / float64(p.k-p.start) * float64(p.total-p.k)
+	}
+	fmt.Fprintf(p.w, "\rrestore: %d/%d patches (%.0f%%), %.1f s elapsed, ETA %.1f s   ", p.k, p.total, 100*float64(p.k)/float64(max(p.total, 1)), el, eta)
+	p.wroteEnded = true
+}
+
+func (p *restoreProgress) finish() {
+	if p.w != nil && p.wroteEnded {
+		fmt.Fprintln(p.w)
+	}
+}
