@@ -14,7 +14,8 @@ type Plan struct {
 	col    *plan1
 	a, b   []complex128 // ny*nx scratch for the column pass
 	ra, rb []complex128 // nx scratch for the row pass
-	tmp    []complex128 // ny*nx scratch for the real transforms
+	rc     []complex128
+	half   []complex128 // ny*(nx/2+1) half spectrum for the real transforms
 }
 
 // NewPlan returns a plan for ny×nx transforms. It panics if ny < 1 or nx < 1.
@@ -33,7 +34,8 @@ func NewPlan(ny, nx int) *Plan {
 	p.b = make([]complex128, ny*nx)
 	p.ra = make([]complex128, nx)
 	p.rb = make([]complex128, nx)
-	p.tmp = make([]complex128, ny*nx)
+	p.rc = make([]complex128, nx)
+	p.half = make([]complex128, ny*(nx/2+1))
 	return p
 }
 
@@ -77,29 +79,129 @@ func (p *Plan) Inverse(dst, src []complex128) {
 
 // ForwardReal computes the full ny*nx spectrum (Hermitian:
 // dst[k,l] = conj(dst[-k,-l])) of the real input src, with the same
-// convention as Forward. It panics if len(dst) or len(src) != ny*nx.
-// dst and src are of different types and cannot alias.
+// convention as Forward. It costs about half a complex Forward: pairs of
+// real rows are packed into one complex row, only the nx/2+1 independent
+// columns are transformed, and the rest is filled in by symmetry. It panics
+// if len(dst) or len(src) != ny*nx. dst and src have different types and
+// must not share memory.
 func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
-	for i, v := range src {
-		dst[i] = complex(v, 0)
+	ny, nx := p.ny, p.nx
+	h := nx/2 + 1
+	c := p.half
+	z := p.ra
+	// Rows: z = r_y + i r_{y+1}; with Z = DFT(z) the row spectra are
+	// R_y[l] = (Z[l] + conj Z[-l])/2 and R_{y+1}[l] = (Z[l] - conj Z[-l])/(2i).
+	for y := 0; y < ny; y += 2 {
+		r0 := src[y*nx : (y+1)*nx]
+		c0 := c[y*h : (y+1)*h]
+		if y+1 == ny {
+			for x, v := range r0 {
+				z[x] = complex(v, 0)
+			}
+			p.row.run(z, z, p.rb, p.rc, 1, false)
+			copy(c0, z[:h])
+			break
+		}
+		r1 := src[(y+1)*nx : (y+2)*nx]
+		r1 = r1[:len(r0)]
+		for x, v := range r0 {
+			z[x] = complex(v, r1[x])
+		}
+		p.row.run(z, z, p.rb, p.rc, 1, false)
+		c1 := c[(y+1)*h : (y+2)*h]
+		c0[0] = complex(real(z[0]), 0)
+		c1[0] = complex(imag(z[0]), 0)
+		zr := z[nx-h+1 : nx] // zr[len(zr)-l] = z[nx-l]
+		c1 = c1[:len(c0)]
+		for l := 1; l < len(c0); l++ {
+			zl := z[l]
+			zm := zr[len(zr)-l]
+			// (zl + conj zm)/2 and -i(zl - conj zm)/2.
+			c0[l] = complex(0.5*(real(zl)+real(zm)), 0.5*(imag(zl)-imag(zm)))
+			c1[l] = complex(0.5*(imag(zl)+imag(zm)), 0.5*(real(zm)-real(zl)))
+		}
 	}
-	p.transform(dst, dst, false)
+	// Columns of the half spectrum, all h at once.
+	p.col.run(c, c, p.a, p.b, h, false)
+	// Expand: X[k,l] = conj X[-k,-l] for l >= h.
+	for k := 0; k < ny; k++ {
+		d := dst[k*nx : (k+1)*nx]
+		copy(d, c[k*h:(k+1)*h])
+		km := (ny - k) % ny
+		cm := c[km*h : (km+1)*h]
+		for l := h; l < nx; l++ {
+			d[l] = conj(cm[nx-l])
+		}
+	}
 }
 
 // InverseReal stores in dst the real part of Inverse(src), including the
-// 1/(ny*nx) factor. src is not modified. If src is Hermitian the
-// discarded imaginary part is zero up to rounding. It panics if len(dst) or
-// len(src) != ny*nx.
+// 1/(ny*nx) factor. src is not modified and need not be Hermitian (the
+// anti-Hermitian part only contributes the discarded imaginary part). It
+// costs about half a complex Inverse. It panics if len(dst) or len(src) !=
+// ny*nx. dst and src must not share memory.
 func (p *Plan) InverseReal(dst []float64, src []complex128) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
-	copy(p.tmp, src)
-	p.transform(p.tmp, p.tmp, true)
-	s := 1 / float64(p.ny*p.nx)
-	for i, v := range p.tmp {
-		dst[i] = real(v) * s
+	ny, nx := p.ny, p.nx
+	h := nx/2 + 1
+	c := p.half
+	// Hermitian part H[k,l] = (S[k,l] + conj S[-k,-l])/2, columns l < h:
+	// Re IDFT(S) = IDFT(H).
+	for k := 0; k < ny; k++ {
+		km := (ny - k) % ny
+		s0 := src[k*nx : (k+1)*nx]
+		sm := src[km*nx : (km+1)*nx]
+		c0 := c[k*h : (k+1)*h]
+		c0[0] = complex(0.5*(real(s0[0])+real(sm[0])), 0.5*(imag(s0[0])-imag(sm[0])))
+		for l := 1; l < len(c0); l++ {
+			a, b := s0[l], sm[nx-l]
+			c0[l] = complex(0.5*(real(a)+real(b)), 0.5*(imag(a)-imag(b)))
+		}
+	}
+	p.col.run(c, c, p.a, p.b, h, true)
+	// Rows: each G_y is Hermitian along x, so z = IDFT(G_y + i G_{y+1})
+	// has real part g_y and imaginary part g_{y+1}.
+	scale := 1 / float64(ny*nx)
+	z := p.ra
+	for y := 0; y < ny; y += 2 {
+		g0 := c[y*h : (y+1)*h]
+		d0 := dst[y*nx : (y+1)*nx]
+		if y+1 == ny {
+			z[0] = complex(real(g0[0]), 0)
+			for l := 1; l < h; l++ {
+				z[l] = g0[l]
+				z[nx-l] = conj(g0[l])
+			}
+			if nx%2 == 0 {
+				z[nx/2] = complex(real(g0[nx/2]), 0)
+			}
+			p.row.run(z, z, p.rb, p.rc, 1, true)
+			for x := range d0 {
+				d0[x] = real(z[x]) * scale
+			}
+			break
+		}
+		g1 := c[(y+1)*h : (y+2)*h]
+		z[0] = complex(real(g0[0]), real(g1[0]))
+		for l := 1; l < h; l++ {
+			a, b := g0[l], g1[l]
+			// a + i b and conj(a) + i conj(b).
+			z[l] = complex(real(a)-imag(b), imag(a)+real(b))
+			z[nx-l] = complex(real(a)+imag(b), real(b)-imag(a))
+		}
+		if nx%2 == 0 {
+			z[nx/2] = complex(real(g0[nx/2]), real(g1[nx/2]))
+		}
+		p.row.run(z, z, p.rb, p.rc, 1, true)
+		d1 := dst[(y+1)*nx : (y+2)*nx]
+		d1 = d1[:len(d0)]
+		for x := range d0 {
+			d0[x] = real(z[x]) * scale
+			d1[x] = imag(z[x]) * scale
+		}
 	}
 }
 

@@ -1,6 +1,9 @@
 package fft
 
-import "math"
+import (
+	"math"
+	"math/bits"
+)
 
 // plan1 is a 1-D complex DFT of length n applied to a batch of v
 // interleaved sequences: element j of lane q is at index j*v+q. Lengths
@@ -29,10 +32,17 @@ type stage struct {
 	twi     []complex128 // conjugate of tw, for the inverse transform
 }
 
-// factor splits n into radices 4, 2, 3, 5 (fours first, a single two
-// last). It returns nil if n has another prime factor.
+// factor splits n into radices 8, 4, 3, 5, 2 (at most one eight and one
+// two). It returns nil if n has another prime factor.
 func factor(n int) []int {
 	var f []int
+	// For powers of two with odd log2, one radix-8 stage replaces a
+	// radix-4 and a radix-2 stage (one pass over the data fewer). More
+	// radix-8 stages measured no faster (register pressure).
+	if n >= 8 && n&(n-1) == 0 && bits.TrailingZeros(uint(n))%2 == 1 {
+		f = append(f, 8)
+		n /= 8
+	}
 	for n%4 == 0 {
 		f = append(f, 4)
 		n /= 4
@@ -162,6 +172,12 @@ func (st *stage) apply(dst, src []complex128, v int, inv bool) {
 			radix4s1(dst, src, st.m, tw, inv)
 		} else {
 			radix4(dst, src, st.m, s, tw, inv)
+		}
+	case 8:
+		if s == 1 {
+			radix8s1(dst, src, st.m, tw, inv)
+		} else {
+			radix8(dst, src, st.m, s, tw, inv)
 		}
 	case 2:
 		radix2(dst, src, st.m, s, tw)
