@@ -369,7 +369,18 @@ func spectraFigure(r *Report) ([]byte, error) {
 	p.X.Label.Text = "spatial frequency (cycles/pixel)"
 	p.Y.Label.Text = "power / mean²"
 	p.Y.Scale = plot.LogScale{}
-	p.Y.Tick.Marker = plot.LogTicks{Prec: -1}
+	p.Y.Tick.Marker = plot.LogTicks{Prec: 1}
+	// Restorations are zero beyond the metric's frequencies; show only
+	// what lies within 12 decades of the largest value.
+	var top float64
+	for _, pw := range sp.Power {
+		for b, v := range pw {
+			if sp.Freq[b] > 0 && v > top {
+				top = v
+			}
+		}
+	}
+	floor := top * 1e-12
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for k, s := range sp.Series {
 		if len(sp.Power[k]) != len(sp.Freq) {
@@ -378,7 +389,7 @@ func spectraFigure(r *Report) ([]byte, error) {
 		var pts plotter.XYs
 		for b, f := range sp.Freq {
 			v := sp.Power[k][b]
-			if f <= 0 || !(v > 0) || math.IsInf(v, 0) {
+			if f <= 0 || !(v > floor) || math.IsInf(v, 0) {
 				continue
 			}
 			pts = append(pts, plotter.XY{X: f, Y: v})
@@ -406,7 +417,7 @@ func spectraFigure(r *Report) ([]byte, error) {
 		p.Add(cl)
 		p.Legend.Add("cut-off D/λ", cl)
 	}
-	p.Legend.Top = true
+	p.Legend.Left = true
 	return renderPlot(p, figureWidthInch*vg.Inch, figureHeightInch*vg.Inch)
 }
 

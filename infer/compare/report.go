@@ -101,8 +101,11 @@ type Spectra struct {
 	// Freq is the radial spatial frequency of each bin, cycles per pixel.
 	Freq []float64 `json:"freq"`
 	// Power[series][bin] is the mean over the annulus and over patches of
-	// |F{w·(d − mean d)}|² / (Σw² · (mean d)²), w the apodisation window, so
-	// that Σ over all frequencies / N² is the squared contrast (Parseval).
+	// |F{x − mean x}|² / (N²·m²), x the image (the raw frame average
+	// apodised with the metric's window, or a restoration, which carries
+	// the same window) and m the window-weighted mean of the raw average,
+	// so that Σ over all frequencies / N² is the squared contrast
+	// (Parseval).
 	Power [][]float64 `json:"power"`
 	// Cutoff is the diffraction cut-off D/λ in cycles per pixel (0 unknown).
 	Cutoff float64 `json:"cutoff"`

@@ -1,0 +1,557 @@
+package compare
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"runtime"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"gonum.org/v1/gonum/mat"
+
+	"pdwave/infer"
+	"pdwave/model/burst"
+	"pdwave/model/fft"
+	"pdwave/model/modes"
+	"pdwave/model/optics"
+	"pdwave/model/pd"
+)
+
+// Config describes one comparison run.
+type Config struct {
+	// Fit is the classical fit (optics, patch size, frames, basis, prior,
+	// metric settings); Fit.Stop is the budget of the full fit.
+	Fit infer.Config
+	// Polish is the number of L-BFGS iterations of the polish that starts
+	// from the learned coefficients; 0 leaves out the polished estimate.
+	Polish int
+	// FromZero starts the full fit from zero coefficients, independent of
+	// the network. By default the fit continues from the polished (or,
+	// without polish, the learned) coefficients; since every stage only
+	// accepts points that lower the objective, fitted ≤ polished ≤ learned
+	// then holds by construction. From zero it need not hold, and the
+	// order flag marks the patches where the independent fit ends higher.
+	FromZero bool
+	// Stride is the step between patches, pixels; 0 means Fit.Patch
+	// (adjacent patches). Patches always cover the field up to its edges.
+	Stride int
+	// Workers is the number of patches processed in parallel; ≤ 0 uses
+	// one per core.
+	Workers int
+	// ExamplePatch and ExampleFrame select the patch and frame shown in
+	// the wavefront/PSF figure; ExamplePatch < 0 picks the patch with the
+	// median learned/fitted metric ratio.
+	ExamplePatch int
+	ExampleFrame int
+	// Version, Source and Settings are copied into the report's
+	// provenance; Notes are added to its notes.
+	Version  string
+	Source   string
+	Settings []Setting
+	Notes    []string
+}
+
+// patchOut is the work result of one patch.
+type patchOut struct {
+	patch   Patch
+	spectra [][]float64 // raw, then per method (no truth)
+	err     error
+}
+
+// Run compares the estimates on every patch of the burst and returns the
+// summarised report (Summarise has run). learned may be nil: the report
+// then holds the fit (and truth) only and says so in its notes. The
+// burst's frame count must equal cfg.Fit.Frames and its field must hold at
+// least one patch. Truth (burst.Truth) is used when the burst is a single
+// patch; it is converted to the report basis and, like every estimate,
+// has the burst-mean tip/tilt removed when the metric constrains it.
+// Patches on which the metric finds no signal are left out with a note;
+// Run fails only if no patch succeeds or the settings are invalid.
+func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
+	if b == nil {
+		return nil, errors.New("compare: no burst")
+	}
+	fc := cfg.Fit
+	n := fc.Patch
+	if b.Frames != fc.Frames {
+		return nil, fmt.Errorf("compare: burst has %d frames, the fit is set up for %d", b.Frames, fc.Frames)
+	}
+	if b.Nx < n || b.Ny < n {
+		return nil, fmt.Errorf("compare: field %d×%d is smaller than one %d px patch", b.Nx, b.Ny, n)
+	}
+	if cfg.Polish < 0 {
+		return nil, fmt.Errorf("compare: polish iterations must be ≥ 0, got %d", cfg.Polish)
+	}
+	fitter, err := infer.NewFitter(fc)
+	if err != nil {
+		return nil, fmt.Errorf("compare: %w", err)
+	}
+	basis := fitter.Basis()
+	var polisher *infer.Fitter
+	if learned != nil && cfg.Polish > 0 {
+		pc := fc
+		pc.Stop = infer.Stop{Iterations: cfg.Polish}
+		if polisher, err = infer.NewFitter(pc); err != nil {
+			return nil, fmt.Errorf("compare: polish: %w", err)
+		}
+	}
+	if learned != nil {
+		lb := learned.Basis()
+		if lb.Kind != basis.Kind || lb.Count != basis.Count || lb.N != basis.N {
+			return nil, fmt.Errorf("compare: learned estimator uses %s %d modes on %d px, the fit %s %d modes on %d px", lb.Kind, lb.Count, lb.N, basis.Kind, basis.Count, basis.N)
+		}
+	}
+	stride := cfg.Stride
+	if stride <= 0 {
+		stride = n
+	}
+	workers := cfg.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+
+	r := &Report{
+		Version: cfg.Version, Created: time.Now().UTC().Format(time.RFC3339), Source: cfg.Source,
+		Basis:  BasisInfo{Kind: string(basis.Kind), Count: basis.Count, N: basis.N, Radius: basis.Radius},
+		Frames: fc.Frames, Modes: basis.Count, PatchSize: n, FieldNx: b.Nx, FieldNy: b.Ny,
+	}
+	var methods []string
+	if learned != nil {
+		methods = append(methods, Learned)
+		if polisher != nil {
+			methods = append(methods, Polished)
+		}
+	} else {
+		r.Notes = append(r.Notes, "No learned estimator was available: the report holds the classical fit only (and the truth for simulated data).")
+	}
+	methods = append(methods, Fitted)
+
+	// Diversity maps, a constraint-only solver and the truth.
+	pupil := fitter.Pupil()
+	div := make([][]float64, len(fc.DiversityPV))
+	for k, pv := range fc.DiversityPV {
+		if pv != 0 {
+			div[k] = make([]float64, n*n)
+			pupil.Defocus(div[k], pv)
+		}
+	}
+	cons := pd.NewSolver(pupil, basis, div, fc.Frames, fitter.Config().Metric)
+	constrain := func(c [][]float64) [][]float64 {
+		m := basis.Count
+		flat := make([]float64, len(c)*m)
+		for j := range c {
+			copy(flat[j*m:], c[j])
+		}
+		cons.Constrain(flat)
+		out := make([][]float64, len(c))
+		for j := range out {
+			out[j] = flat[j*m : (j+1)*m : (j+1)*m]
+		}
+		return out
+	}
+	var truth [][]float64
+	if b.Truth != nil {
+		if b.Nx == n && b.Ny == n {
+			t, note, err := truthNative(b.Truth, basis, fc.Frames)
+			if err != nil {
+				r.Notes = append(r.Notes, "Truth not used: "+err.Error())
+			} else {
+				truth = constrain(t)
+				if note != "" {
+					r.Notes = append(r.Notes, note)
+				}
+				methods = append(methods, Truth)
+			}
+		} else {
+			r.Notes = append(r.Notes, fmt.Sprintf("The burst carries a truth table, but its %d×%d field holds several %d px patches; the table describes one patch, so it is not compared.", b.Nx, b.Ny, n))
+		}
+	}
+	r.Methods = methods
+	if fc.Metric.TiltConstrain {
+		r.Notes = append(r.Notes, "The metric cannot see a tip/tilt common to all frames; its burst mean is removed from every set of coefficients before they are compared.")
+	}
+	if cfg.FromZero {
+		r.Notes = append(r.Notes, "The classical fit started from zero coefficients, independent of the network: the order flag marks patches where it ended above the polished estimate.")
+	}
+
+	// Patches.
+	xs, ys := tiles(b.Nx, n, stride), tiles(b.Ny, n, stride)
+	type job struct{ idx, x, y int }
+	var jobs []job
+	for _, y := range ys {
+		for _, x := range xs {
+			jobs = append(jobs, job{len(jobs), x, y})
+		}
+	}
+	win := pd.Window(n, fc.Metric.Window)
+	outs := make([]patchOut, len(jobs))
+	ch := make(chan job)
+	var wg sync.WaitGroup
+	for range min(workers, len(jobs)) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			plan := fft.NewPlan(n, n)
+			for jb := range ch {
+				data := extract(b, jb.x, jb.y, n)
+				outs[jb.idx] = runPatch(data, jb.idx, jb.x, jb.y, learned, polisher, fitter, cfg.FromZero, methods, truth, constrain, win, plan)
+			}
+		}()
+	}
+	for _, jb := range jobs {
+		ch <- jb
+	}
+	close(ch)
+	wg.Wait()
+
+	var failed []string
+	var spec [][]float64
+	nspec := 0
+	for i := range outs {
+		o := &outs[i]
+		if o.err != nil {
+			failed = append(failed, fmt.Sprintf("patch %d at (%d, %d): %v", jobs[i].idx, jobs[i].x, jobs[i].y, o.err))
+			continue
+		}
+		r.Patches = append(r.Patches, o.patch)
+		if spec == nil {
+			spec = make([][]float64, len(o.spectra))
+			for k := range spec {
+				spec[k] = make([]float64, n/2+1)
+			}
+		}
+		for k := range spec {
+			for q, v := range o.spectra[k] {
+				spec[k][q] += v
+			}
+		}
+		nspec++
+	}
+	if len(r.Patches) == 0 {
+		return nil, fmt.Errorf("compare: no patch could be compared: %s", strings.Join(failed, "; "))
+	}
+	if len(failed) > 0 {
+		r.Notes = append(r.Notes, fmt.Sprintf("%d of %d patches left out: %s", len(failed), len(jobs), strings.Join(failed, "; ")))
+	}
+	sp := &Spectra{Series: []string{"raw"}, Cutoff: fc.Telescope.CutoffRadius(n) / float64(n)}
+	for _, m := range methods {
+		if m != Truth {
+			sp.Series = append(sp.Series, m)
+		}
+	}
+	for q := 0; q <= n/2; q++ {
+		sp.Freq = append(sp.Freq, float64(q)/float64(n))
+	}
+	for k := range spec {
+		for q := range spec[k] {
+			spec[k][q] /= float64(nspec)
+		}
+	}
+	sp.Power = spec
+	r.Spectra = sp
+
+	r.Settings = append(r.Settings, runSettings(cfg, fitter, stride, workers, len(jobs))...)
+	r.Settings = append(r.Settings, cfg.Settings...)
+	r.Notes = append(r.Notes, cfg.Notes...)
+	if err := Summarise(r); err != nil {
+		return nil, err
+	}
+	ex, err := example(r, cfg, fitter, div)
+	if err != nil {
+		return nil, err
+	}
+	r.Example = ex
+	return r, nil
+}
+
+// runPatch computes every estimate of one patch.
+func runPatch(data [][][]float64, idx, x, y int, learned infer.Estimator, polisher, fitter *infer.Fitter, fromZero bool,
+	methods []string, truth [][]float64, constrain func([][]float64) [][]float64, win []float64, plan *fft.Plan) patchOut {
+	out := patchOut{patch: Patch{Index: idx, X: x, Y: y}}
+	ests := map[string]*Estimate{}
+	var start [][]float64
+	var elapsed float64
+	if learned != nil {
+		t0 := time.Now()
+		c, err := learned.Estimate(data)
+		if err != nil {
+			out.err = fmt.Errorf("learned: %w", err)
+			return out
+		}
+		sec := time.Since(t0).Seconds()
+		c = constrain(c)
+		ests[Learned] = &Estimate{Method: Learned, Coeffs: c, Seconds: sec, Total: sec}
+		start, elapsed = c, sec
+		if polisher != nil {
+			res, err := polisher.Fit(data, c)
+			if err != nil {
+				out.err = fmt.Errorf("polish: %w", err)
+				return out
+			}
+			sec := res.Elapsed.Seconds()
+			elapsed += sec
+			ests[Polished] = &Estimate{Method: Polished, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed, Iterations: res.Iterations}
+			start = res.Coeffs
+		}
+	}
+	if fromZero {
+		start, elapsed = nil, 0
+	}
+	res, err := fitter.Fit(data, start)
+	if err != nil {
+		out.err = fmt.Errorf("fit: %w", err)
+		return out
+	}
+	sec := res.Elapsed.Seconds()
+	ests[Fitted] = &Estimate{Method: Fitted, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed + sec, Iterations: res.Iterations}
+	if truth != nil {
+		ests[Truth] = &Estimate{Method: Truth, Coeffs: truth}
+	}
+
+	// Raw frame average, apodised like the metric's data.
+	n := fitter.Config().Patch
+	avg := make([]float64, n*n)
+	for _, im := range data[0] {
+		for i, v := range im {
+			avg[i] += v
+		}
+	}
+	var sw, swd float64
+	for i := range avg {
+		avg[i] /= float64(len(data[0]))
+		sw += win[i]
+		swd += win[i] * avg[i]
+	}
+	level := swd / sw
+	for i := range avg {
+		avg[i] = win[i]*(avg[i]-level) + level
+	}
+	norm := level
+	if !(norm > 0) {
+		norm = 1
+	}
+	spec := make([]float64, n/2+1)
+	zbuf := make([]complex128, n*n)
+	pbuf := make([]float64, n*n)
+	contrast := func(img []float64) float64 {
+		mu := meanOf(img)
+		var s2 float64
+		for _, v := range img {
+			s2 += (v - mu) * (v - mu)
+		}
+		return math.Sqrt(s2/float64(len(img))) / norm
+	}
+	spectrum := func(img []float64) []float64 {
+		mu := meanOf(img)
+		for i, v := range img {
+			pbuf[i] = v - mu
+		}
+		plan.ForwardReal(zbuf, pbuf)
+		scale := 1 / (float64(n*n) * norm * norm)
+		for i, z := range zbuf {
+			pbuf[i] = (real(z)*real(z) + imag(z)*imag(z)) * scale
+		}
+		AzimuthalAverage(spec, pbuf, n)
+		return append([]float64(nil), spec...)
+	}
+	out.patch.RawContrast = contrast(avg)
+	out.spectra = append(out.spectra, spectrum(avg))
+	for _, m := range methods {
+		e := ests[m]
+		met, _, err := fitter.Objective(data, e.Coeffs)
+		if err != nil {
+			out.err = fmt.Errorf("%s metric: %w", m, err)
+			return out
+		}
+		e.Metric = met
+		img, err := fitter.Restore(data, e.Coeffs)
+		if err != nil {
+			out.err = fmt.Errorf("%s restoration: %w", m, err)
+			return out
+		}
+		e.Contrast = contrast(img)
+		if m != Truth {
+			out.spectra = append(out.spectra, spectrum(img))
+		}
+		out.patch.Estimates = append(out.patch.Estimates, *e)
+	}
+	return out
+}
+
+func meanOf(x []float64) float64 {
+	var s float64
+	for _, v := range x {
+		s += v
+	}
+	return s / float64(len(x))
+}
+
+// tiles returns patch origins along one axis of length size: steps of
+// stride from 0, plus a last patch flush with the far edge.
+func tiles(size, n, stride int) []int {
+	var out []int
+	for p := 0; p+n <= size; p += stride {
+		out = append(out, p)
+	}
+	if last := out[len(out)-1]; last+n < size {
+		out = append(out, size-n)
+	}
+	return out
+}
+
+// extract copies the n×n patch at (x, y) of every frame and channel.
+func extract(b *burst.Burst, x, y, n int) [][][]float64 {
+	data := make([][][]float64, 2)
+	for c := range data {
+		data[c] = make([][]float64, b.Frames)
+		for f := range data[c] {
+			im := make([]float64, n*n)
+			src := b.Data[c][f]
+			for r := 0; r < n; r++ {
+				copy(im[r*n:(r+1)*n], src[(y+r)*b.Nx+x:(y+r)*b.Nx+x+n])
+			}
+			data[c][f] = im
+		}
+	}
+	return data
+}
+
+// truthNative converts a truth table to frames × Count native coefficients
+// of basis b: directly when the basis and mode count agree, otherwise
+// through the Noll-equivalent coefficients (truncated or zero-padded to
+// Noll j = 2..Count+1), solving ToNoll·native = noll. The note says when a
+// conversion happened.
+func truthNative(t *burst.Truth, b *modes.Basis, frames int) ([][]float64, string, error) {
+	if len(t.Coeffs) != frames {
+		return nil, "", fmt.Errorf("truth has %d frames, the burst %d", len(t.Coeffs), frames)
+	}
+	if strings.EqualFold(t.Basis, string(b.Kind)) && t.Modes == b.Count {
+		out := make([][]float64, frames)
+		for j, row := range t.Coeffs {
+			if len(row) != b.Count {
+				return nil, "", fmt.Errorf("truth frame %d has %d modes, want %d", j, len(row), b.Count)
+			}
+			out[j] = append([]float64(nil), row...)
+		}
+		return out, "", nil
+	}
+	if t.Noll == nil {
+		return nil, "", fmt.Errorf("truth is in the %s basis with %d modes and carries no Noll equivalent; the comparison uses %s with %d", t.Basis, t.Modes, b.Kind, b.Count)
+	}
+	if len(t.Noll) != frames {
+		return nil, "", fmt.Errorf("truth Noll table has %d frames, the burst %d", len(t.Noll), frames)
+	}
+	c := b.Count
+	var lu mat.LU
+	if b.ToNoll != nil {
+		lu.Factorize(b.ToNoll)
+	}
+	out := make([][]float64, frames)
+	for j, row := range t.Noll {
+		v := mat.NewVecDense(c, nil)
+		for i := 0; i < c && i < len(row); i++ {
+			v.SetVec(i, row[i])
+		}
+		x := mat.NewVecDense(c, nil)
+		if b.ToNoll != nil {
+			if err := lu.SolveVecTo(x, false, v); err != nil {
+				return nil, "", fmt.Errorf("converting the truth to the %s basis: %w", b.Kind, err)
+			}
+		} else {
+			x.CopyVec(v)
+		}
+		out[j] = make([]float64, c)
+		for i := range out[j] {
+			out[j][i] = x.AtVec(i)
+		}
+	}
+	note := fmt.Sprintf("The truth (%s basis, %d modes) was converted to the %s basis with %d modes through its Noll-equivalent coefficients; modes beyond Noll j = %d are dropped.", t.Basis, t.Modes, b.Kind, c, c+1)
+	return out, note, nil
+}
+
+// runSettings lists the provenance of a run.
+func runSettings(cfg Config, f *infer.Fitter, stride, workers, patches int) []Setting {
+	fc := f.Config()
+	t := fc.Telescope
+	start := "polished coefficients"
+	if cfg.Polish == 0 {
+		start = "learned coefficients"
+	}
+	if cfg.FromZero {
+		start = "zero"
+	}
+	div := make([]string, len(fc.DiversityPV))
+	for k, v := range fc.DiversityPV {
+		div[k] = fmt.Sprintf("%g", v)
+	}
+	return []Setting{
+		{"telescope", fmt.Sprintf("D = %g m, obscuration %g, λ = %g nm, pixel %.4g arcsec", t.Diameter, t.Obscuration, t.Wavelength*1e9, t.PixelScale*180/math.Pi*3600)},
+		{"diversity (waves PV per channel)", strings.Join(div, ", ")},
+		{"patch", fmt.Sprintf("%d px, stride %d px, %d patches", fc.Patch, stride, patches)},
+		{"frames", fmt.Sprint(fc.Frames)},
+		{"basis", fmt.Sprintf("%s, %d modes", fc.Basis, fc.Modes)},
+		{"expected D/r0 (prior)", fmt.Sprintf("%g", fc.DOverR0)},
+		{"prior weight", fmt.Sprintf("%g", fc.Prior)},
+		{"metric", fmt.Sprintf("gamma %g, noise filter %v (threshold %g), tilt constraint %v, window %g", fc.Metric.Gamma, fc.Metric.NoiseFilter, fc.Metric.NoiseThreshold, fc.Metric.TiltConstrain, fc.Metric.Window)},
+		{"fit", fmt.Sprintf("L-BFGS, at most %d iterations, relative change %g, wall time %v, started from %s", fc.Stop.Iterations, fc.Stop.RelChange, fc.Stop.WallTime, start)},
+		{"polish", fmt.Sprintf("%d L-BFGS iterations from the learned coefficients", cfg.Polish)},
+		{"workers", fmt.Sprint(workers)},
+	}
+}
+
+// example computes the wavefront/PSF figure data of one patch and frame.
+func example(r *Report, cfg Config, f *infer.Fitter, div [][]float64) (*Example, error) {
+	pi := cfg.ExamplePatch
+	if pi < 0 || pi >= len(r.Patches) {
+		pi = 0
+		if cfg.ExamplePatch < 0 && len(r.Summary.Ratios) > 0 {
+			rs := append([]Ratio(nil), r.Summary.Ratios[0]...)
+			sort.SliceStable(rs, func(i, j int) bool { return rs[i].Value < rs[j].Value })
+			want := rs[len(rs)/2].Patch
+			for i, p := range r.Patches {
+				if p.Index == want {
+					pi = i
+				}
+			}
+		}
+	}
+	fr := cfg.ExampleFrame
+	if fr < 0 || fr >= r.Frames {
+		fr = 0
+	}
+	basis, pupil := f.Basis(), f.Pupil()
+	n := basis.N
+	p := &r.Patches[pi]
+	ex := &Example{Patch: p.Index, Frame: fr, N: n, Pupil: append([]float64(nil), pupil.Amp...)}
+	// Truth first when present, so the eye starts from the reference.
+	order := append([]string(nil), r.Methods...)
+	if r.has(Truth) {
+		order = append([]string{Truth}, order[:len(order)-1]...)
+	}
+	im := optics.NewImager(pupil)
+	phase := make([]float64, n*n)
+	tot := make([]float64, n*n)
+	psf := make([]float64, n*n)
+	for _, m := range order {
+		e := p.Find(m)
+		basis.Phase(phase, e.Coeffs[fr])
+		ex.Series = append(ex.Series, m)
+		ex.Phase = append(ex.Phase, append([]float64(nil), phase...))
+		for ch := 0; ch < 2; ch++ {
+			copy(tot, phase)
+			if ch < len(div) && div[ch] != nil {
+				for i, v := range div[ch] {
+					tot[i] += v
+				}
+			}
+			im.PSF(psf, tot)
+			sh := make([]float64, n*n)
+			fft.Shift(sh, psf, n, n)
+			ex.PSF[ch] = append(ex.PSF[ch], sh)
+		}
+	}
+	return ex, nil
+}
