@@ -320,3 +320,31 @@ func BenchmarkProject36(b *testing.B) {
 		bs.Project(coef, phase, nil)
 	}
 }
+
+// The block-wise decomposition gives the same spectrum as mat.EigenSym of
+// the full covariance matrix (C is block diagonal in m and cos/sin).
+func TestKLMatchesFullEigen(t *testing.T) {
+	const count = 54
+	b, err := New(KindKL, count, 32, 15)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var es mat.EigenSym
+	if !es.Factorize(NollCovarianceMatrix(count), false) {
+		t.Fatal("factorisation failed")
+	}
+	vals := es.Values(nil) // ascending
+	for k := 0; k < count; k++ {
+		if want := vals[count-1-k]; math.Abs(b.Variance[k]-want) > 1e-12 {
+			t.Errorf("KL variance %d = %g, full eigenvalue %g", k, b.Variance[k], want)
+		}
+	}
+}
+
+func BenchmarkNewKL36(b *testing.B) {
+	for i := 0; i < b.N; i++ {
+		if _, err := New(KindKL, 36, 64, 15.5); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

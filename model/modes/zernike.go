@@ -7,6 +7,9 @@
 // Phases and coefficients are in radians. Kolmogorov variances are in units of
 // (D/r0)^(5/3) rad², D the aperture diameter and r0 the Fried parameter at the
 // wavelength of interest.
+//
+// Equation numbers of Noll 1976 other than eq. 25 (the covariance) and
+// Table IV (the residuals) are quoted from memory.
 package modes
 
 import (

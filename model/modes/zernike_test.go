@@ -236,7 +236,7 @@ func TestNollResidualTableIV(t *testing.T) {
 			t.Errorf("Δ%d = %.5f, want %.4f within 3 %% (Noll 1976 Table IV); off by %.1f %%", c.J, got, c.want, 100*rel)
 		}
 	}
-	// Noll 1976 eq. 31 (large-J law): Δ_J ≈ 0.2944 J^(−√3/2). Checked at
+	// Noll 1976 (large-J law, eq. 31 from memory): Δ_J ≈ 0.2944 J^(−√3/2). Checked at
 	// J = 100 and 200 within 5 % (the law is asymptotic; measured 2.6 % and 4.4 % high).
 	for _, J := range []int{100, 200} {
 		want := 0.2944 * math.Pow(float64(J), -math.Sqrt(3)/2)

@@ -206,7 +206,7 @@ func (im *Imager) Pupil() *Pupil { return im.pupil }
 // AmplitudePSF writes the amplitude PSF h = F⁻¹{A·exp(iφ)} into dst (length
 // N*N), with F⁻¹ the inverse DFT including 1/N² (numpy ifft2). phase (rad,
 // length N*N) is read only where Amp > 0. The PSF centre is pixel 0
-// (wrap-around). It panics on wrong lengths. dst must not alias phase.
+// (wrap-around). It panics on wrong lengths.
 func (im *Imager) AmplitudePSF(dst []complex128, phase []float64) {
 	p := im.pupil
 	n2 := p.N * p.N
