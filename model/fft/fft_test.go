@@ -267,3 +267,29 @@ func TestPanics(t *testing.T) {
 	mustPanic("InverseReal", func() { p.InverseReal(make([]float64, 1), make([]complex128, 16)) })
 	mustPanic("Shift", func() { Shift(make([]float64, 4), make([]float64, 4), 3, 3) })
 }
+
+func TestNoAllocs(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	for _, s := range [][2]int{{64, 64}, {7, 11}, {96, 100}} {
+		ny, nx := s[0], s[1]
+		p := NewPlan(ny, nx)
+		x := randComplex(rng, ny*nx)
+		y := make([]complex128, ny*nx)
+		r := randReal(rng, ny*nx)
+		checks := []struct {
+			name string
+			f    func()
+		}{
+			{"Forward", func() { p.Forward(y, x) }},
+			{"Forward in place", func() { p.Forward(y, y) }},
+			{"Inverse", func() { p.Inverse(y, x) }},
+			{"ForwardReal", func() { p.ForwardReal(y, r) }},
+			{"InverseReal", func() { p.InverseReal(r, x) }},
+		}
+		for _, c := range checks {
+			if n := testing.AllocsPerRun(5, c.f); n != 0 {
+				t.Errorf("%d×%d %s: %v allocations per call, want 0", ny, nx, c.name, n)
+			}
+		}
+	}
+}
