@@ -1,0 +1,264 @@
+package main
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"github.com/spf13/cobra"
+
+	"pdwave/infer"
+	"pdwave/infer/compare"
+	"pdwave/model/burst"
+	"pdwave/model/modes"
+	"pdwave/model/net"
+	"pdwave/model/optics"
+)
+
+// compareOpts holds the flags of "pdwave compare".
+var compareOpts struct {
+	out        string
+	site       string
+	weights    string
+	polish     int
+	iterations int
+	patch      int
+	stride     int
+	workers    int
+	fromZero   bool
+	modes      int
+	basis      string
+	dOverR0    float64
+	prior      float64
+}
+
+var compareCmd = &cobra.Command{
+	Use:   "compare BURST --out DIR",
+	Short: "Compare learned, polished and fitted wavefronts patch by patch",
+	Long: `compare runs three estimates on the same patches of a burst: the learned
+network prediction, the prediction polished with a few classical fit steps,
+and the full classical fit. It writes into the folder DIR the coefficients,
+their differences, the metric of each estimate and the learned/fitted ratio,
+restored contrasts and timings as CSV and JSON, PNG figures, and one
+self-contained HTML page (index.html) that opens offline.
+
+The fit continues from the polished coefficients, so the metric can only
+fall from learned to polished to fitted; --from-zero runs an independent fit
+instead. For simulated bursts of one patch the true coefficients are
+compared as well. Without weights (no --weights and no built-in weights for
+this telescope) the report holds the fit alone and says so.
+
+The folder is built next to DIR under a temporary name and renamed into
+place when complete; an existing DIR is replaced.`,
+	Args: cobra.ExactArgs(1),
+	RunE: compareRun,
+}
+
+func init() {
+	f := compareCmd.Flags()
+	f.StringVar(&compareOpts.out, "out", "", "output folder (required)")
+	f.StringVar(&compareOpts.site, "site", "", "site/telescope YAML file (fills optics the burst header lacks, expected seeing, sizes)")
+	f.StringVar(&compareOpts.weights, "weights", "", "network weight file (default: the built-in weights, if they fit the telescope)")
+	f.IntVar(&compareOpts.polish, "polish", 5, "L-BFGS iterations of the polish started from the learned coefficients (0 = no polished estimate)")
+	f.IntVar(&compareOpts.iterations, "iterations", 200, "maximum L-BFGS iterations of the full fit")
+	f.IntVar(&compareOpts.patch, "patch", 0, "patch side, pixels (default: from the weights, else the site file, else 64)")
+	f.IntVar(&compareOpts.stride, "stride", 0, "step between patches, pixels (default: the patch side)")
+	f.IntVar(&compareOpts.workers, "workers", 0, "patches processed in parallel (default: all cores)")
+	f.BoolVar(&compareOpts.fromZero, "from-zero", false, "start the full fit from zero instead of the polished coefficients")
+	f.IntVar(&compareOpts.modes, "modes", 0, "number of modes (default: from the weights, else the site file, else 36)")
+	f.StringVar(&compareOpts.basis, "basis", "", "modal basis zernike|kl (default: from the weights, else the site file, else kl)")
+	f.Float64Var(&compareOpts.dOverR0, "d-over-r0", 0, "expected D/r0 at the observing wavelength for the prior (default: from the site seeing, else 5)")
+	f.Float64Var(&compareOpts.prior, "prior", infer.DefaultConfig().Prior, "weight of the turbulence prior against the normalised metric")
+	root.AddCommand(compareCmd)
+}
+
+// compareRun loads the burst, settings and estimator, runs the comparison
+// and writes the folder.
+func compareRun(cmd *cobra.Command, args []string) error {
+	o := compareOpts
+	if o.out == "" {
+		return errors.New("compare: --out DIR is required")
+	}
+	if o.polish < 0 || o.iterations < 1 {
+		return fmt.Errorf("compare: --polish must be ≥ 0 and --iterations ≥ 1 (got %d, %d)", o.polish, o.iterations)
+	}
+	if o.patch < 0 || o.stride < 0 || o.modes < 0 {
+		return errors.New("compare: --patch, --stride and --modes must not be negative")
+	}
+	b, err := burst.Read(args[0])
+	if err != nil {
+		return err
+	}
+	var notes []string
+	ctx, err := compareSettings(o.site)
+	if err != nil {
+		return err
+	}
+	opt := b.Optics.Fill(ctx.optics)
+	var missing []string
+	for _, m := range []struct {
+		v    float64
+		name string
+	}{{opt.Wavelength, "wavelength"}, {opt.PixelScale, "pixel scale"}, {opt.Diameter, "telescope diameter"}, {opt.DiversityPV, "diversity"}} {
+		if !(m.v > 0) {
+			missing = append(missing, m.name)
+		}
+	}
+	if len(missing) > 0 {
+		return fmt.Errorf("compare: %s unknown: neither the burst header nor a site file (--site) gives it", strings.Join(missing, ", "))
+	}
+	tel := ctx.telescope
+	tel.Diameter, tel.Obscuration, tel.Wavelength, tel.PixelScale = opt.Diameter, opt.Obscuration, opt.Wavelength, opt.PixelScale
+	if tel.FocalRatio == 0 {
+		tel.FocalRatio = 1 // only used for focus-shift diversity, which compare does not use
+	}
+
+	// Weights: explicit file, else built-in, else none.
+	var model *net.Model
+	weightsFrom := ""
+	switch {
+	case o.weights != "":
+		if model, err = net.Load(o.weights); err != nil {
+			return err
+		}
+		weightsFrom = o.weights
+	default:
+		m, from, err := compareBuiltinWeights()
+		if err != nil {
+			notes = append(notes, "Built-in weights not used: "+err.Error())
+		} else if m != nil {
+			model, weightsFrom = m, from
+		}
+	}
+
+	fc := infer.DefaultConfig()
+	fc.Telescope = tel
+	fc.DiversityPV = []float64{0, opt.DiversityPV}
+	fc.Frames = b.Frames
+	fc.Stop = infer.Stop{Iterations: o.iterations, RelChange: 1e-6}
+	pick := func(flag, fromWeights, fromSite, def int) int {
+		for _, v := range []int{flag, fromWeights, fromSite} {
+			if v > 0 {
+				return v
+			}
+		}
+		return def
+	}
+	var wPatch, wModes int
+	var wBasis string
+	if model != nil {
+		wPatch, wModes, wBasis = model.Meta.Patch, model.Arch.Modes, model.Meta.Basis
+	}
+	fc.Patch = pick(o.patch, wPatch, ctx.patch, fc.Patch)
+	fc.Modes = pick(o.modes, wModes, ctx.modes, fc.Modes)
+	kind := fc.Basis
+	for _, s := range []string{o.basis, wBasis, ctx.basis} {
+		if s != "" {
+			if kind, err = modes.ParseKind(s); err != nil {
+				return fmt.Errorf("compare: %w", err)
+			}
+			break
+		}
+	}
+	fc.Basis = kind
+	switch {
+	case o.dOverR0 > 0:
+		fc.DOverR0 = o.dOverR0
+	case ctx.r0 > 0:
+		fc.DOverR0 = tel.Diameter / ctx.r0
+	default:
+		notes = append(notes, fmt.Sprintf("No site seeing given: the prior assumes D/r0 = %g.", fc.DOverR0))
+	}
+	if !(o.prior >= 0) {
+		return fmt.Errorf("compare: --prior must be ≥ 0, got %g", o.prior)
+	}
+	fc.Prior = o.prior
+	if b.Nx < fc.Patch || b.Ny < fc.Patch {
+		return fmt.Errorf("compare: the %d×%d field is smaller than one %d px patch (set --patch)", b.Nx, b.Ny, fc.Patch)
+	}
+	if _, err := optics.NewPupil(tel, fc.Patch); err != nil {
+		return fmt.Errorf("compare: %w", err)
+	}
+	fitter, err := infer.NewFitter(fc)
+	if err != nil {
+		return fmt.Errorf("compare: %w", err)
+	}
+	var learned infer.Estimator
+	if model != nil {
+		est, err := compare.NewNetEstimator(model, fitter.Basis())
+		if err != nil {
+			if o.weights != "" {
+				return fmt.Errorf("compare: %s: %w", o.weights, err)
+			}
+			notes = append(notes, "Built-in weights not used: "+err.Error())
+		} else {
+			learned = est
+		}
+	}
+	abs, _ := filepath.Abs(args[0])
+	cfg := compare.Config{
+		Fit: fc, Polish: o.polish, FromZero: o.fromZero, Stride: o.stride, Workers: o.workers,
+		ExamplePatch: -1, Version: version, Source: abs, Notes: notes,
+		Settings: []compare.Setting{{Key: "command", Value: "pdwave " + strings.Join(os.Args[1:], " ")}},
+	}
+	if learned != nil {
+		cfg.Settings = append(cfg.Settings, compare.Setting{Key: "weights", Value: weightsFrom + compareWeightsMeta(model)})
+	}
+	if o.site != "" {
+		cfg.Settings = append(cfg.Settings, compare.Setting{Key: "site file", Value: o.site})
+	}
+	fmt.Fprintf(cmd.ErrOrStderr(), "compare: %s, %d×%d px, %d frames, %d px patches, %s %d modes, learned estimator: %v\n",
+		args[0], b.Nx, b.Ny, b.Frames, fc.Patch, fc.Basis, fc.Modes, learned != nil)
+	r, err := compare.Run(b, cfg, learned)
+	if err != nil {
+		return err
+	}
+	if err := compare.WriteDir(o.out, r); err != nil {
+		return err
+	}
+	for k, m := range r.Summary.RatioMethods {
+		fmt.Fprintf(cmd.ErrOrStderr(), "compare: median metric ratio %s/fitted = %.4g\n", m, r.Summary.MedianRatio[k])
+	}
+	fmt.Fprintf(cmd.ErrOrStderr(), "compare: %d patches written to %s\n", len(r.Patches), filepath.Join(o.out, compare.FileHTML))
+	return nil
+}
+
+// compareWeightsMeta describes what the weights were made for.
+func compareWeightsMeta(m *net.Model) string {
+	mt := m.Meta
+	s := fmt.Sprintf(" (%s %d modes, %d px", mt.Basis, m.Arch.Modes, mt.Patch)
+	if mt.Wavelength > 0 {
+		s += fmt.Sprintf(", λ %.0f nm", mt.Wavelength*1e9)
+	}
+	if mt.Site != "" {
+		s += ", site " + mt.Site
+	}
+	if mt.Version != "" {
+		s += ", pdwave " + mt.Version
+	}
+	return s + ")"
+}
+
+// compareContext is what the site file contributes.
+type compareContext struct {
+	optics       burst.Optics
+	telescope    optics.Telescope
+	r0           float64 // median r0 at the observing wavelength, m
+	patch, modes int
+	basis        string
+}
+
+// compareSettings reads the site file, if any.
+func compareSettings(path string) (compareContext, error) {
+	if path == "" {
+		return compareContext{}, nil
+	}
+	return compareContext{}, fmt.Errorf("compare: reading %s: site files are not supported by this build", path)
+}
+
+// compareBuiltinWeights returns the built-in weights, if any.
+func compareBuiltinWeights() (*net.Model, string, error) {
+	return nil, "", nil
+}
