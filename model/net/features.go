@@ -8,13 +8,14 @@ import (
 )
 
 // FeatureChannels is the number of input channels per frame written by
-// Featurizer: the focused and the defocused image, and three
-// object-independent spectral ratios.
-const FeatureChannels = 5
+// Featurizer: the focused and the defocused image, three object-independent
+// spectral ratios between the channels and two between the frame and the
+// burst mean.
+const FeatureChannels = 7
 
 // Featurizer turns the raw images of a burst into the network's input. For
 // each frame j with focused image d1 and defocused image d2 (N×N) it writes
-// five Size×Size channels:
+// seven Size×Size channels:
 //
 //  0. (bin(d1) − m1)/s    1. (bin(d2) − m2)/s
 //
@@ -26,11 +27,17 @@ const FeatureChannels = 5
 //
 //  2. (|D1|² − |D2|²)/Q    3. 2 Re(D1 D2*)/Q    4. 2 Im(D1 D2*)/Q
 //
-// with Q = |D1|² + |D2|² + 2ν, ν the noise power read beyond the cut-off.
+//  5. 2 Re(D1 M*)/R     6. 2 Im(D1 M*)/R
+//
+// with Q = |D1|² + |D2|² + 2ν, ν the noise power read beyond the cut-off,
+// M the burst mean of the focused spectra D1 and R = |D1|² + |M|² + 2ν.
 // For d_k = o ⊗ s_k the object spectrum cancels from these ratios: they
-// depend on the transfer functions S1, S2 alone (the idea of the
-// phase-diversity error metric, Gonsalves 1982), which makes them a strong,
-// scene-independent cue. Blocks outside the cut-off are set to zero.
+// depend on the transfer functions alone (the idea of the phase-diversity
+// error metric, Gonsalves 1982), which makes them a strong, scene-independent
+// cue. Channels 5 and 6 carry the phase ramp of the frame's image motion
+// against the burst mean (phase correlation), i.e. its tip and tilt relative
+// to the burst, which the channel ratios cannot see. Blocks outside the
+// cut-off are set to zero.
 //
 // A Featurizer owns an FFT plan and buffers; it is not safe for concurrent
 // use.
@@ -39,9 +46,11 @@ type Featurizer struct {
 	cutoff       float64
 	plan         *fft.Plan
 	window       []float64
-	z            []complex128
-	p1, p2       []float64
+	zs           [][]complex128 // per frame Z spectrum (see transform)
+	mean         []complex128   // burst mean of the focused spectra
+	p1, p2, pm   []float64
 	cr, ci       []float64
+	tr, ti       []float64
 	inside       []bool // per output block: centre inside the cut-off
 	outside      []int  // spectrum indices beyond 1.05 r_c, for the noise floor
 }
@@ -57,7 +66,10 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 	f := &Featurizer{n: n, size: size, bin: n / size, cutoff: m.Meta.CutoffRadius()}
 	f.plan = fft.NewPlan(n, n)
 	f.window = EdgeWindow(n, n/8)
-	f.z = make([]complex128, n*n)
+	f.mean = make([]complex128, n*n)
+	f.pm = make([]float64, size*size)
+	f.tr = make([]float64, size*size)
+	f.ti = make([]float64, size*size)
 	f.p1 = make([]float64, size*size)
 	f.p2 = make([]float64, size*size)
 	f.cr = make([]float64, size*size)
@@ -156,12 +168,31 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	}
 	plane := s * s
 	inv := 1 / (sd * float64(f.bin*f.bin))
+	for len(f.zs) < frames {
+		f.zs = append(f.zs, make([]complex128, n*n))
+	}
+	clear(f.mean)
+	for j := 0; j < frames; j++ {
+		z := f.zs[j]
+		f.transform(z, data[0][j], data[1][j])
+		for ky := 0; ky < n; ky++ {
+			my := (n - ky) % n
+			for kx := 0; kx < n; kx++ {
+				d1, _ := split(z[ky*n+kx], z[my*n+(n-kx)%n])
+				f.mean[ky*n+kx] += d1
+			}
+		}
+	}
+	invF := complex(1/float64(frames), 0)
+	for i := range f.mean {
+		f.mean[i] *= invF
+	}
 	for j := 0; j < frames; j++ {
 		out := dst[j*FeatureChannels*plane : (j+1)*FeatureChannels*plane]
 		for c := 0; c < 2; c++ {
 			f.binImage(out[c*plane:(c+1)*plane], data[c][j], mean[c], inv)
 		}
-		f.spectral(out[2*plane:5*plane], data[0][j], data[1][j])
+		f.spectral(out[2*plane:7*plane], f.zs[j], f.mean)
 	}
 	return nil
 }
@@ -183,11 +214,11 @@ func (f *Featurizer) binImage(dst, im []float64, m, inv float64) {
 	}
 }
 
-// spectral writes the three ratio channels of one frame. Both real images go
-// through one complex FFT: with Z = F{a + i b}, A(u) = (Z(u) + Z*(−u))/2 and
-// B(u) = (Z(u) − Z*(−u))/(2i).
-func (f *Featurizer) spectral(dst, d1, d2 []float64) {
-	n, s, b := f.n, f.size, f.bin
+// transform computes Z = F{w·(d1 − mean d1) + i w·(d2 − mean d2)} into z.
+// Both real images go through one complex FFT: D1(u) = (Z(u) + Z*(−u))/2 and
+// D2(u) = (Z(u) − Z*(−u))/(2i).
+func (f *Featurizer) transform(z []complex128, d1, d2 []float64) {
+	n := f.n
 	var m1, m2 float64
 	for i := range d1 {
 		m1 += d1[i]
@@ -196,26 +227,38 @@ func (f *Featurizer) spectral(dst, d1, d2 []float64) {
 	m1 /= float64(n * n)
 	m2 /= float64(n * n)
 	for i, w := range f.window {
-		f.z[i] = complex(w*(d1[i]-m1), w*(d2[i]-m2))
+		z[i] = complex(w*(d1[i]-m1), w*(d2[i]-m2))
 	}
-	f.plan.Forward(f.z, f.z)
+	f.plan.Forward(z, z)
+}
+
+// split returns D1(u) and D2(u) from Z at index k and its mirror km (−u).
+func split(z, zm complex128) (d1, d2 complex128) {
+	zr, zi := real(z), imag(z)
+	wr, wi := real(zm), -imag(zm) // conj Z(−u)
+	d1 = complex(0.5*(zr+wr), 0.5*(zi+wi))
+	// (Z − conj Z(−u))/(2i): (p + iq)/(2i) = (q − ip)/2
+	d2 = complex(0.5*(zi-wi), -0.5*(zr-wr))
+	return d1, d2
+}
+
+// spectral writes the five ratio channels of one frame from its Z spectrum
+// and the burst mean M of the focused spectra.
+func (f *Featurizer) spectral(dst []float64, z, mean []complex128) {
+	n, s, b := f.n, f.size, f.bin
 	for i := 0; i < s*s; i++ {
-		f.p1[i], f.p2[i], f.cr[i], f.ci[i] = 0, 0, 0, 0
+		f.p1[i], f.p2[i], f.cr[i], f.ci[i], f.pm[i], f.tr[i], f.ti[i] = 0, 0, 0, 0, 0, 0, 0
 	}
-	noise := 0.0
 	for ky := 0; ky < n; ky++ {
 		my := (n - ky) % n
 		cy := (ky + n/2) % n // centred row
 		for kx := 0; kx < n; kx++ {
 			mx := (n - kx) % n
-			z := f.z[ky*n+kx]
-			zm := f.z[my*n+mx]
-			zr, zi := real(z), imag(z)
-			wr, wi := real(zm), -imag(zm) // conj Z(−u)
-			ar, ai := 0.5*(zr+wr), 0.5*(zi+wi)
-			// (Z − conj Z(−u))/(2i): (p + iq)/(2i) = (q − ip)/2
-			pr, pq := zr-wr, zi-wi
-			br, bi := 0.5*pq, -0.5*pr
+			d1, d2 := split(z[ky*n+kx], z[my*n+mx])
+			ar, ai := real(d1), imag(d1)
+			br, bi := real(d2), imag(d2)
+			m := mean[ky*n+kx]
+			mr, mi := real(m), imag(m)
 			cx := (kx + n/2) % n
 			k := (cy/b)*s + cx/b
 			f.p1[k] += ar*ar + ai*ai
@@ -223,30 +266,34 @@ func (f *Featurizer) spectral(dst, d1, d2 []float64) {
 			// D1 D2* = (ar + i ai)(br − i bi)
 			f.cr[k] += ar*br + ai*bi
 			f.ci[k] += ai*br - ar*bi
+			f.pm[k] += mr*mr + mi*mi
+			f.tr[k] += ar*mr + ai*mi
+			f.ti[k] += ai*mr - ar*mi
 		}
 	}
+	noise := 0.0
 	if f.outside != nil {
 		for _, i := range f.outside {
-			z := f.z[i]
-			noise += real(z)*real(z) + imag(z)*imag(z) // |D1|²+|D2|² summed (Parseval on a+ib)
+			v := z[i]
+			noise += real(v)*real(v) + imag(v)*imag(v) // Σ |D1|²+|D2|² (the cross terms cancel over ±u)
 		}
-		// |Z(u)|² averaged over ±u equals |A|²+|B|²; per channel per pixel:
-		noise /= 2 * float64(len(f.outside))
+		noise /= 2 * float64(len(f.outside)) // per channel and frequency
 	}
 	reg := 2 * noise * float64(b*b)
 	plane := s * s
 	for k := 0; k < plane; k++ {
-		if !f.inside[k] {
-			dst[k], dst[plane+k], dst[2*plane+k] = 0, 0, 0
-			continue
-		}
 		q := f.p1[k] + f.p2[k] + reg
-		if q <= 0 {
-			dst[k], dst[plane+k], dst[2*plane+k] = 0, 0, 0
+		r := f.p1[k] + f.pm[k] + reg
+		if !f.inside[k] || q <= 0 || r <= 0 {
+			for c := 0; c < 5; c++ {
+				dst[c*plane+k] = 0
+			}
 			continue
 		}
 		dst[k] = (f.p1[k] - f.p2[k]) / q
 		dst[plane+k] = 2 * f.cr[k] / q
 		dst[2*plane+k] = 2 * f.ci[k] / q
+		dst[3*plane+k] = 2 * f.tr[k] / r
+		dst[4*plane+k] = 2 * f.ti[k] / r
 	}
 }

@@ -172,6 +172,13 @@ func (gr *Graph) Backward(x, gin, y []float64) ([][]float64, error) {
 			return nil, fmt.Errorf("net: gradient of %s: %w", n.Name(), err)
 		}
 		copy(gr.grads[i], gv.Data().([]float64))
+		// The machine accumulates into the dual values; clear them so the
+		// next pass starts from zero.
+		d, ok := gv.(*tensor.Dense)
+		if !ok {
+			return nil, fmt.Errorf("net: gradient of %s is a %T", n.Name(), gv)
+		}
+		d.Zero()
 	}
 	if y != nil {
 		if len(y) != r*a.Modes {

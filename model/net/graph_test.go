@@ -108,6 +108,21 @@ func TestGraphOuterGradient(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// A second pass gives the same gradient (no accumulation between calls).
+	first := make([][]float64, len(grads))
+	for i, g := range grads {
+		first[i] = append([]float64(nil), g...)
+	}
+	if grads, err = gr.Backward(x, gin, nil); err != nil {
+		t.Fatal(err)
+	}
+	for i, g := range grads {
+		for k, v := range g {
+			if v != first[i][k] {
+				t.Fatalf("%s[%d]: second pass %v, first %v", m.Params[i].Name, k, v, first[i][k])
+			}
+		}
+	}
 	const h = 1e-6
 	checked := 0
 	for ti, q := range m.Params {

@@ -1,0 +1,206 @@
+package train
+
+import (
+	"bytes"
+	"fmt"
+	"io"
+	"math"
+	"path/filepath"
+	"strconv"
+	"time"
+)
+
+// Output file names of a run directory.
+const (
+	WeightsFile = "weights.safetensors"
+	LossPlot    = "loss.png"
+	HistoryFile = "history.csv"
+)
+
+// RunOptions controls Run.
+type RunOptions struct {
+	Out             string        // run directory: checkpoints, weights, plot, history
+	CheckpointEvery int           // steps between checkpoints; 0 uses 100
+	ValidateEvery   int           // steps between validations; 0 uses 200
+	Validation      []*Sample     // fixed validation set (nil = no validation)
+	Progress        io.Writer     // progress lines; nil = none
+	ProgressEvery   time.Duration // minimum time between progress lines; 0 uses 10 s
+	MaxWall         time.Duration // stop (after a checkpoint) once this much wall time is spent in this call; 0 = no limit
+	History         []StepStats   // record carried over from a resumed run
+	Vals            []Validation
+	Seconds         float64 // wall time already spent (resumed runs)
+}
+
+// Run trains until all steps are taken (or MaxWall is reached), writing
+// checkpoints, a progress line with the ETA, and at the end the weights
+// (WeightsFile, with the training settings in their metadata), the loss
+// curve (LossPlot) and the per-step record (HistoryFile). It returns the
+// last validation (zero if none).
+func (t *Trainer) Run(o RunOptions) (Validation, error) {
+	if o.CheckpointEvery <= 0 {
+		o.CheckpointEvery = 100
+	}
+	if o.ValidateEvery <= 0 {
+		o.ValidateEvery = 200
+	}
+	if o.ProgressEvery <= 0 {
+		o.ProgressEvery = 10 * time.Second
+	}
+	hist, vals := o.History, o.Vals
+	start := time.Now()
+	startStep := t.step
+	lastPrint := time.Time{}
+	var last Validation
+	if len(vals) > 0 {
+		last = vals[len(vals)-1]
+	}
+	elapsed := func() float64 { return o.Seconds + time.Since(start).Seconds() }
+	validate := func() error {
+		if o.Validation == nil {
+			return nil
+		}
+		v, err := t.Validate(o.Validation)
+		if err != nil {
+			return err
+		}
+		vals = append(vals, v)
+		last = v
+		if o.Progress != nil {
+			fmt.Fprintf(o.Progress, "validation at step %d: %s\n", t.step, v.Summary())
+		}
+		return nil
+	}
+	if t.step == 0 && len(vals) == 0 {
+		if err := validate(); err != nil {
+			return last, err
+		}
+	}
+	for !t.Done() {
+		st, err := t.Step()
+		if err != nil {
+			return last, err
+		}
+		hist = append(hist, st)
+		if o.Progress != nil && (time.Since(lastPrint) >= o.ProgressEvery || t.Done()) {
+			lastPrint = time.Now()
+			per := time.Since(start).Seconds() / float64(t.step-startStep)
+			eta := time.Duration(per*float64(t.cfg.Steps-t.step)) * time.Second
+			mode := "pd"
+			if st.Supervised {
+				mode = "supervised"
+			}
+			fmt.Fprintf(o.Progress, "step %d/%d  %s loss %.4f (mean of last 50: %.4f)  lr %.2e  |g| %.3g  %.2f s/step  ETA %s\n",
+				t.step, t.cfg.Steps, mode, st.Loss, recentLoss(hist, 50), st.LR, st.GradNorm, per, eta.Round(time.Second))
+		}
+		if t.step%o.ValidateEvery == 0 || t.Done() {
+			if err := validate(); err != nil {
+				return last, err
+			}
+		}
+		stop := o.MaxWall > 0 && time.Since(start) >= o.MaxWall
+		if t.step%o.CheckpointEvery == 0 || t.Done() || stop {
+			if err := t.SaveCheckpoint(o.Out, hist, vals, elapsed()); err != nil {
+				return last, err
+			}
+		}
+		if stop {
+			if o.Progress != nil {
+				fmt.Fprintf(o.Progress, "stopping at step %d after %s of wall time (checkpoint saved; resume to continue)\n", t.step, o.MaxWall)
+			}
+			break
+		}
+	}
+	t.recordSettings(last, elapsed())
+	if err := t.model.Save(filepath.Join(o.Out, WeightsFile)); err != nil {
+		return last, err
+	}
+	if err := writeFileAtomic(filepath.Join(o.Out, HistoryFile), historyCSV(hist, vals)); err != nil {
+		return last, err
+	}
+	if err := PlotLoss(filepath.Join(o.Out, LossPlot), hist, vals); err != nil {
+		return last, err
+	}
+	return last, nil
+}
+
+// recordSettings puts the training settings and the last validation into the
+// model's metadata.
+func (t *Trainer) recordSettings(v Validation, seconds float64) {
+	m := &t.model.Meta
+	if m.Training == nil {
+		m.Training = map[string]string{}
+	}
+	c := t.cfg
+	f := func(x float64) string { return strconv.FormatFloat(x, 'g', 6, 64) }
+	m.Training["steps"] = strconv.Itoa(t.step)
+	m.Training["steps_planned"] = strconv.Itoa(c.Steps)
+	m.Training["batch"] = strconv.Itoa(c.Batch)
+	m.Training["lr"] = f(c.LR)
+	m.Training["warmup"] = strconv.Itoa(c.Warmup)
+	m.Training["min_lr"] = f(c.MinLR)
+	m.Training["clip_norm"] = f(c.ClipNorm)
+	m.Training["prior_weight"] = f(c.PriorWeight)
+	m.Training["warm_start"] = strconv.Itoa(c.WarmStart)
+	m.Training["seed"] = strconv.FormatUint(c.Seed, 10)
+	m.Training["r0_median_m"] = f(t.prob.setup.R0)
+	m.Training["wall_seconds"] = f(seconds)
+	if v.Bursts > 0 {
+		m.Training["val_bursts"] = strconv.Itoa(v.Bursts)
+		m.Training["val_loss"] = f(v.Loss)
+		if e := v.ErrFrac(2, 10); !math.IsNaN(e) {
+			m.Training["val_err_noll_2_10"] = f(e)
+		}
+		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
+			m.Training["val_err_noll_2_21"] = f(e)
+		}
+	}
+}
+
+// Summary is a one-line account of v.
+func (v Validation) Summary() string {
+	s := fmt.Sprintf("%d bursts, loss %.4f (no correction %.4f", v.Bursts, v.Loss, v.LossZero)
+	if v.SqErr != nil {
+		s += fmt.Sprintf(", truth %.4f)", v.LossTruth)
+		if e := v.ErrFrac(2, 10); !math.IsNaN(e) {
+			s += fmt.Sprintf(", error/variance Noll 2–10 %.3f", e)
+		} else {
+			s += fmt.Sprintf(", error/variance Noll 2–%d %.3f", len(v.SqErr)+1, v.ErrFrac(2, len(v.SqErr)+1))
+		}
+		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
+			s += fmt.Sprintf(", 2–21 %.3f", e)
+		}
+	} else {
+		s += ")"
+	}
+	return s
+}
+
+func recentLoss(h []StepStats, n int) float64 {
+	if len(h) < n {
+		n = len(h)
+	}
+	var s float64
+	for _, st := range h[len(h)-n:] {
+		s += st.Loss
+	}
+	return s / float64(n)
+}
+
+func historyCSV(h []StepStats, vals []Validation) []byte {
+	var b bytes.Buffer
+	b.WriteString("step,supervised,loss,metric,prior,lr,grad_norm,skipped,val_loss,val_loss_zero,val_loss_truth,val_err_2_10,val_err_2_21\n")
+	vi := 0
+	for _, st := range h {
+		fmt.Fprintf(&b, "%d,%t,%.6g,%.6g,%.6g,%.4g,%.4g,%d", st.Step+1, st.Supervised, st.Loss, st.Metric, st.Prior, st.LR, st.GradNorm, st.Skipped)
+		for vi < len(vals) && vals[vi].Step < st.Step+1 {
+			vi++
+		}
+		if vi < len(vals) && vals[vi].Step == st.Step+1 {
+			v := vals[vi]
+			fmt.Fprintf(&b, ",%.6g,%.6g,%.6g,%.4g,%.4g\n", v.Loss, v.LossZero, v.LossTruth, v.ErrFrac(2, 10), v.ErrFrac(2, 21))
+		} else {
+			b.WriteString(",,,,,\n")
+		}
+	}
+	return b.Bytes()
+}

@@ -1,0 +1,165 @@
+package train
+
+import (
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"sync"
+
+	"pdwave/model/burst"
+)
+
+// Sample is one training burst.
+type Sample struct {
+	Data [2][][]float64 // Data[channel][frame], each Patch×Patch; channel 0 focused
+	// Noll holds the true Noll coefficients (frames × ≥ Modes, j = 2..,
+	// rad) of simulated bursts; nil for observations.
+	Noll [][]float64
+}
+
+// Source hands out training bursts. Get must return the same burst for the
+// same index (runs are reproducible and resumable) and be safe for
+// concurrent use.
+type Source interface {
+	Get(i uint64) (*Sample, error)
+}
+
+// mix derives a well-spread 64-bit value from a seed and an index
+// (SplitMix64 finaliser, Steele, Lea & Flood 2014).
+func mix(seed, i uint64) uint64 {
+	z := seed + 0x9e3779b97f4a7c15*(i+1)
+	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9
+	z = (z ^ (z >> 27)) * 0x94d049bb133111eb
+	return z ^ (z >> 31)
+}
+
+// FolderSource draws bursts from the burst FITS files of a folder
+// (observations, no truth needed). Burst i is a random file, a random run of
+// Frames consecutive frames, a random Patch×Patch crop, and one of the eight
+// flips/rotations of the square (the pupil and the defocus are symmetric
+// under them, so a transformed burst is a valid burst) — all drawn from
+// (seed, i). Files are read once and kept in memory.
+type FolderSource struct {
+	Files         []string
+	Patch, Frames int
+	Seed          uint64
+
+	mu    sync.Mutex
+	cache map[string]*burst.Burst
+}
+
+// NewFolderSource lists the .fits/.fit/.fts files of dir. It returns an
+// error if there is none.
+func NewFolderSource(dir string, patch, frames int, seed uint64) (*FolderSource, error) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return nil, fmt.Errorf("reading burst folder: %w", err)
+	}
+	var files []string
+	for _, e := range ents {
+		ext := strings.ToLower(filepath.Ext(e.Name()))
+		if !e.IsDir() && (ext == ".fits" || ext == ".fit" || ext == ".fts") {
+			files = append(files, filepath.Join(dir, e.Name()))
+		}
+	}
+	if len(files) == 0 {
+		return nil, fmt.Errorf("burst folder %s holds no FITS files (.fits, .fit, .fts)", dir)
+	}
+	sort.Strings(files)
+	return &FolderSource{Files: files, Patch: patch, Frames: frames, Seed: seed, cache: map[string]*burst.Burst{}}, nil
+}
+
+func (s *FolderSource) read(path string) (*burst.Burst, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if b, ok := s.cache[path]; ok {
+		return b, nil
+	}
+	b, err := burst.Read(path)
+	if err != nil {
+		return nil, err
+	}
+	if b.Nx < s.Patch || b.Ny < s.Patch {
+		return nil, fmt.Errorf("burst %s is %d×%d px, smaller than the %d px patch", path, b.Nx, b.Ny, s.Patch)
+	}
+	if b.Frames < s.Frames {
+		return nil, fmt.Errorf("burst %s has %d frames, training uses %d", path, b.Frames, s.Frames)
+	}
+	s.cache[path] = b
+	return b, nil
+}
+
+// Get returns burst i.
+func (s *FolderSource) Get(i uint64) (*Sample, error) {
+	rng := rand.New(rand.NewPCG(mix(s.Seed, i), 0x5eed))
+	path := s.Files[rng.IntN(len(s.Files))]
+	b, err := s.read(path)
+	if err != nil {
+		return nil, err
+	}
+	f0 := rng.IntN(b.Frames - s.Frames + 1)
+	x0 := rng.IntN(b.Nx - s.Patch + 1)
+	y0 := rng.IntN(b.Ny - s.Patch + 1)
+	tr := rng.IntN(8)
+	out := &Sample{}
+	n := s.Patch
+	for c := 0; c < 2; c++ {
+		out.Data[c] = make([][]float64, s.Frames)
+		for j := range out.Data[c] {
+			src := b.Data[c][f0+j]
+			im := make([]float64, n*n)
+			for y := 0; y < n; y++ {
+				for x := 0; x < n; x++ {
+					sy, sx := dihedral(tr, y, x, n)
+					im[y*n+x] = src[(y0+sy)*b.Nx+x0+sx]
+				}
+			}
+			out.Data[c][j] = im
+		}
+	}
+	return out, nil
+}
+
+// dihedral maps output pixel (y, x) of an n×n square to its source pixel
+// under transform t ∈ [0, 8): identity, three rotations, and the four
+// reflections.
+func dihedral(t, y, x, n int) (int, int) {
+	if t >= 4 {
+		x = n - 1 - x
+		t -= 4
+	}
+	switch t {
+	case 1:
+		return x, n - 1 - y
+	case 2:
+		return n - 1 - y, n - 1 - x
+	case 3:
+		return n - 1 - x, y
+	}
+	return y, x
+}
+
+// FuncSource adapts a function to a Source.
+type FuncSource func(i uint64) (*Sample, error)
+
+// Get returns f(i).
+func (f FuncSource) Get(i uint64) (*Sample, error) { return f(i) }
+
+// SampleFromBurst turns a burst into a Sample (sharing its data), checking the
+// patch and frame sizes. Truth in Noll form, if present, is carried.
+func SampleFromBurst(b *burst.Burst, patch, frames int) (*Sample, error) {
+	if b.Nx != patch || b.Ny != patch {
+		return nil, fmt.Errorf("burst is %d×%d px, training uses %d×%d patches", b.Nx, b.Ny, patch, patch)
+	}
+	if b.Frames != frames {
+		return nil, fmt.Errorf("burst has %d frames, training uses %d", b.Frames, frames)
+	}
+	s := &Sample{Data: b.Data}
+	if b.Truth != nil && b.Truth.Noll != nil {
+		s.Noll = b.Truth.Noll
+	}
+	return s, nil
+}
