@@ -37,7 +37,7 @@ func testConfig(n, frames, nmodes int) Config {
 // basis) and the channel diversities, plus white noise of relative level
 // noise. The convolution is periodic over the whole field and every patch
 // sees the same wavefront; it returns the burst and the true coefficients.
-func synthBurst(t *testing.T, cfg Config, nx, ny int, seed uint64, noise float64) (*burst.Burst, [][]float64) {
+func synthBurst(t testing.TB, cfg Config, nx, ny int, seed uint64, noise float64) (*burst.Burst, [][]float64) {
 	t.Helper()
 	fc := cfg.Fit
 	rng := rand.New(rand.NewPCG(seed, 7))
@@ -133,7 +133,7 @@ type truthEstimator struct {
 	c     [][]float64
 }
 
-func newTruthEstimator(t *testing.T, cfg Config, truth [][]float64, rel float64, seed uint64) *truthEstimator {
+func newTruthEstimator(t testing.TB, cfg Config, truth [][]float64, rel float64, seed uint64) *truthEstimator {
 	f, err := infer.NewFitter(cfg.Fit)
 	if err != nil {
 		t.Fatal(err)
