@@ -1,0 +1,547 @@
+package burst
+
+import (
+	"bufio"
+	"encoding/binary"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strconv"
+	"strings"
+)
+
+// The writer formats headers and data itself, following FITS Standard 4.0
+// (IAU FITS Working Group 2016). fitsio v0.3.0's writer is not used because
+// its binary tables carry keywords fitsverify rejects (TBCOLn, TSCALn on
+// character columns, THEAP with PCOUNT = 0) and its image extensions lack
+// PCOUNT/GCOUNT.
+
+// keyRE is the set of valid keyword names (FITS Standard 4.0 §4.1.2.1).
+var keyRE = regexp.MustCompile(`^[A-Z0-9_-]{1,8}$`)
+
+// structural keywords are written by the encoder itself and never taken
+// from Card lists.
+var structuralRE = regexp.MustCompile(`^(SIMPLE|XTENSION|BITPIX|NAXIS[0-9]*|EXTEND|PCOUNT|GCOUNT|GROUPS|BZERO|BSCALE|BLANK|END|EXTNAME|EXTVER|EXTLEVEL|CHECKSUM|DATASUM|TFIELDS|THEAP|T(TYPE|FORM|UNIT|DIM|NULL|SCAL|ZERO|DISP|BCOL)[0-9]+)$`)
+
+func isCommentary(key string) bool {
+	return key == "COMMENT" || key == "HISTORY" || key == ""
+}
+
+// header accumulates 80-character card images.
+type header struct {
+	lines []string
+	index map[string]int // keyword → line index, for "last wins" replacement
+}
+
+func newHeader() *header { return &header{index: map[string]int{}} }
+
+// add appends one card. A later card with the same (non-commentary) keyword
+// replaces the earlier one in place.
+func (h *header) add(c Card) error {
+	key := strings.TrimRight(c.Key, " ")
+	if isCommentary(key) {
+		text := c.Comment
+		if text == "" {
+			if s, ok := c.Value.(string); ok {
+				text = s
+			}
+		}
+		text = printable(text)
+		for {
+			n := min(len(text), 72)
+			h.lines = append(h.lines, pad80(fmt.Sprintf("%-8s%s", key, text[:n])))
+			text = text[n:]
+			if text == "" {
+				break
+			}
+		}
+		return nil
+	}
+	if !keyRE.MatchString(key) {
+		return fmt.Errorf("invalid FITS keyword %q (1–8 characters of A–Z, 0–9, '-', '_')", c.Key)
+	}
+	lines, err := formatCard(key, c.Value, c.Comment)
+	if err != nil {
+		return err
+	}
+	if _, ok := h.index["LONGSTRN"]; len(lines) > 1 && !ok {
+		// Announce CONTINUE cards, as fitsverify recommends.
+		if err := h.add(Card{Key: "LONGSTRN", Value: "OGIP 1.0", Comment: "long strings continue on CONTINUE cards"}); err != nil {
+			return err
+		}
+	}
+	if i, ok := h.index[key]; ok {
+		// Replace an earlier (possibly continued) card: blank its lines,
+		// which bytes() drops, and append the new one.
+		h.lines[i] = pad80("")
+		for j := i + 1; j < len(h.lines) && strings.HasPrefix(h.lines[j], "CONTINUE"); j++ {
+			h.lines[j] = pad80("")
+		}
+	}
+	h.index[key] = len(h.lines)
+	h.lines = append(h.lines, lines...)
+	return nil
+}
+
+// addUser appends caller cards, skipping the structural keywords the
+// encoder owns.
+func (h *header) addUser(cards []Card) error {
+	for _, c := range cards {
+		key := strings.TrimRight(c.Key, " ")
+		if structuralRE.MatchString(key) {
+			continue
+		}
+		if err := h.add(c); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// bytes returns the header with END, padded with spaces to whole blocks.
+func (h *header) bytes() []byte {
+	var b strings.Builder
+	for _, l := range h.lines {
+		if strings.TrimSpace(l) == "" {
+			continue // blanked by a replacement
+		}
+		b.WriteString(l)
+	}
+	b.WriteString(pad80("END"))
+	for b.Len()%blockSize != 0 {
+		b.WriteByte(' ')
+	}
+	return []byte(b.String())
+}
+
+func pad80(s string) string {
+	if len(s) >= cardSize {
+		return s[:cardSize]
+	}
+	return s + strings.Repeat(" ", cardSize-len(s))
+}
+
+// printable replaces characters outside ASCII 32–126 (FITS Standard 4.0
+// §4.1.2.3 allows only those in headers) by '?'.
+func printable(s string) string {
+	ok := true
+	for i := 0; i < len(s); i++ {
+		if s[i] < 32 || s[i] > 126 {
+			ok = false
+			break
+		}
+	}
+	if ok {
+		return s
+	}
+	var b strings.Builder
+	for _, r := range s {
+		if r < 32 || r > 126 {
+			b.WriteByte('?')
+		} else {
+			b.WriteRune(r)
+		}
+	}
+	return b.String()
+}
+
+// formatCard renders a value card in the fixed format of FITS Standard 4.0
+// §4.2 (logical, integer and real values right-justified to column 30,
+// strings starting in column 11). Strings longer than one card use the
+// CONTINUE long-string convention (§4.2.1.2). The comment is truncated to
+// fit the card.
+func formatCard(key string, value any, comment string) ([]string, error) {
+	prefix := fmt.Sprintf("%-8s= ", key)
+	var val string
+	switch v := value.(type) {
+	case nil:
+		val = ""
+	case bool:
+		val = fmt.Sprintf("%20s", map[bool]string{true: "T", false: "F"}[v])
+	case int:
+		val = fmt.Sprintf("%20d", v)
+	case int8, int16, int32, int64, uint8, uint16, uint32:
+		val = fmt.Sprintf("%20d", v)
+	case uint:
+		if uint64(v) > math.MaxInt64 {
+			return nil, fmt.Errorf("keyword %s: integer %d too large", key, v)
+		}
+		val = fmt.Sprintf("%20d", v)
+	case uint64:
+		if v > math.MaxInt64 {
+			return nil, fmt.Errorf("keyword %s: integer %d too large", key, v)
+		}
+		val = fmt.Sprintf("%20d", v)
+	case float32:
+		s, err := formatReal(float64(v))
+		if err != nil {
+			return nil, fmt.Errorf("keyword %s: %w", key, err)
+		}
+		val = fmt.Sprintf("%20s", s)
+	case float64:
+		s, err := formatReal(v)
+		if err != nil {
+			return nil, fmt.Errorf("keyword %s: %w", key, err)
+		}
+		val = fmt.Sprintf("%20s", s)
+	case string:
+		return formatString(prefix, v, comment)
+	default:
+		return nil, fmt.Errorf("keyword %s: unsupported value type %T", key, value)
+	}
+	return []string{withComment(prefix+val, comment)}, nil
+}
+
+// sig12 rounds x to 12 significant digits, removing the noise of unit
+// conversions (6e-7 m · 1e9 = 600.0000000000001 nm) so that values written
+// from converted units are stable over repeated read/write cycles.
+func sig12(x float64) float64 {
+	y, err := strconv.ParseFloat(strconv.FormatFloat(x, 'g', 12, 64), 64)
+	if err != nil {
+		return x
+	}
+	return y
+}
+
+// formatReal writes the shortest decimal that reads back to the same
+// float64, with the decimal point the fixed format requires.
+func formatReal(v float64) (string, error) {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return "", fmt.Errorf("value %v cannot be written in a FITS header", v)
+	}
+	s := strconv.FormatFloat(v, 'G', -1, 64)
+	if !strings.ContainsAny(s, ".") {
+		if i := strings.IndexByte(s, 'E'); i >= 0 {
+			s = s[:i] + ".0" + s[i:]
+		} else {
+			s += ".0"
+		}
+	}
+	return s, nil
+}
+
+func withComment(line, comment string) string {
+	if comment != "" {
+		c := " / " + printable(comment)
+		if room := cardSize - len(line); room > 3 {
+			if len(c) > room {
+				c = c[:room]
+			}
+			line += c
+		}
+	}
+	return pad80(line)
+}
+
+func quote(s string) string { return strings.ReplaceAll(s, "'", "''") }
+
+// formatString renders a string value; values longer than 68 characters
+// (after doubling quotes) are split over CONTINUE cards, each piece but
+// the last ending in '&' (FITS Standard 4.0 §4.2.1.2).
+func formatString(prefix, s, comment string) ([]string, error) {
+	for i := 0; i < len(s); i++ {
+		if s[i] < 32 || s[i] > 126 {
+			return nil, fmt.Errorf("keyword %s: string value %q has characters outside printable ASCII", strings.TrimSpace(prefix[:8]), s)
+		}
+	}
+	q := quote(s)
+	if len(q) <= 68 {
+		v := "'" + q + "'"
+		if len(q) < 8 {
+			v = "'" + q + strings.Repeat(" ", 8-len(q)) + "'"
+		}
+		return []string{withComment(prefix+fmt.Sprintf("%-20s", v), comment)}, nil
+	}
+	// Split s into pieces whose quoted form plus '&' fits in 67 characters.
+	var pieces []string
+	for s != "" {
+		n, w := 0, 0
+		for n < len(s) {
+			cw := 1
+			if s[n] == '\'' {
+				cw = 2
+			}
+			if w+cw > 66 {
+				break
+			}
+			w += cw
+			n++
+		}
+		pieces = append(pieces, s[:n])
+		s = s[n:]
+	}
+	lines := make([]string, len(pieces))
+	for i, p := range pieces {
+		amp := "&"
+		if i == len(pieces)-1 {
+			amp = ""
+		}
+		v := "'" + quote(p) + amp + "'"
+		if i == 0 {
+			lines[i] = pad80(prefix + v)
+		} else if i == len(pieces)-1 {
+			lines[i] = withComment("CONTINUE  "+v, comment)
+		} else {
+			lines[i] = pad80("CONTINUE  " + v)
+		}
+	}
+	return lines, nil
+}
+
+// dataUnit is an encoded HDU: header bytes and a writer of its data.
+type dataUnit struct {
+	hdr  []byte
+	size int // data bytes before padding
+	put  func(w *bufio.Writer) error
+}
+
+// encodeImage builds an image HDU with BITPIX −32 (IEEE float32, big-endian,
+// FITS Standard 4.0 §5.3).
+func encodeImage(img *Image, primary, extend bool) (dataUnit, error) {
+	n := 1
+	for _, d := range img.Dims {
+		if d < 1 {
+			return dataUnit{}, fmt.Errorf("image %q: dimension %d < 1", img.Name, d)
+		}
+		if n > math.MaxInt32/d {
+			return dataUnit{}, fmt.Errorf("image %q: too large", img.Name)
+		}
+		n *= d
+	}
+	if len(img.Dims) == 0 {
+		n = 0
+	}
+	if len(img.Dims) > 999 {
+		return dataUnit{}, fmt.Errorf("image %q: %d axes (at most 999)", img.Name, len(img.Dims))
+	}
+	if len(img.Data) != n {
+		return dataUnit{}, fmt.Errorf("image %q: %d values for dimensions %v (want %d)", img.Name, len(img.Data), img.Dims, n)
+	}
+	h := newHeader()
+	var err error
+	if primary {
+		err = h.add(Card{Key: "SIMPLE", Value: true, Comment: "conforms to FITS Standard 4.0"})
+	} else {
+		err = h.add(Card{Key: "XTENSION", Value: "IMAGE", Comment: "image extension"})
+	}
+	if err != nil {
+		return dataUnit{}, err
+	}
+	must(h.add(Card{Key: "BITPIX", Value: -32, Comment: "IEEE single precision"}))
+	must(h.add(Card{Key: "NAXIS", Value: len(img.Dims), Comment: "number of axes"}))
+	for i, d := range img.Dims {
+		must(h.add(Card{Key: "NAXIS" + strconv.Itoa(i+1), Value: d}))
+	}
+	if primary {
+		if extend {
+			must(h.add(Card{Key: "EXTEND", Value: true, Comment: "extensions may follow"}))
+		}
+		if img.Name != "" {
+			if err := h.add(Card{Key: "EXTNAME", Value: img.Name}); err != nil {
+				return dataUnit{}, fmt.Errorf("image %q: %w", img.Name, err)
+			}
+		}
+	} else {
+		must(h.add(Card{Key: "PCOUNT", Value: 0}))
+		must(h.add(Card{Key: "GCOUNT", Value: 1}))
+		if err := h.add(Card{Key: "EXTNAME", Value: img.Name, Comment: "extension name"}); err != nil {
+			return dataUnit{}, fmt.Errorf("image %q: %w", img.Name, err)
+		}
+	}
+	if err := h.addUser(img.Cards); err != nil {
+		return dataUnit{}, fmt.Errorf("image %q: %w", img.Name, err)
+	}
+	data := img.Data
+	return dataUnit{hdr: h.bytes(), size: 4 * n, put: func(w *bufio.Writer) error {
+		var b [4]byte
+		for _, v := range data {
+			binary.BigEndian.PutUint32(b[:], math.Float32bits(float32(v)))
+			if _, err := w.Write(b[:]); err != nil {
+				return err
+			}
+		}
+		return nil
+	}}, nil
+}
+
+func must(err error) {
+	if err != nil {
+		panic(err) // only for cards the encoder itself builds; a failure is a bug here
+	}
+}
+
+// encodeTable builds a binary table extension (FITS Standard 4.0 §7.3).
+func encodeTable(t *Table) (dataUnit, error) {
+	if len(t.Columns) == 0 {
+		return dataUnit{}, fmt.Errorf("table %q has no columns", t.Name)
+	}
+	rows := -1
+	forms := make([]string, len(t.Columns))
+	widths := make([]int, len(t.Columns))
+	rowBytes := 0
+	for i, c := range t.Columns {
+		set := 0
+		var r int
+		if c.Float != nil {
+			set++
+			r = len(c.Float)
+			rep := 0
+			if r > 0 {
+				rep = len(c.Float[0])
+			}
+			for k, row := range c.Float {
+				if len(row) != rep {
+					return dataUnit{}, fmt.Errorf("table %q column %q: row %d has %d values, row 0 has %d", t.Name, c.Name, k, len(row), rep)
+				}
+			}
+			if rep < 1 && r > 0 {
+				return dataUnit{}, fmt.Errorf("table %q column %q: empty rows", t.Name, c.Name)
+			}
+			rep = max(rep, 1)
+			forms[i] = strconv.Itoa(rep) + "D"
+			widths[i] = 8 * rep
+		}
+		if c.Int != nil {
+			set++
+			r = len(c.Int)
+			forms[i] = "1K"
+			widths[i] = 8
+		}
+		if c.Text != nil {
+			set++
+			r = len(c.Text)
+			w := 1
+			for _, s := range c.Text {
+				for k := 0; k < len(s); k++ {
+					if s[k] < 32 || s[k] > 126 {
+						return dataUnit{}, fmt.Errorf("table %q column %q: text %q has characters outside printable ASCII", t.Name, c.Name, s)
+					}
+				}
+				w = max(w, len(s))
+			}
+			forms[i] = strconv.Itoa(w) + "A"
+			widths[i] = w
+		}
+		if set != 1 {
+			return dataUnit{}, fmt.Errorf("table %q column %q: exactly one of Float, Int, Text must be set", t.Name, c.Name)
+		}
+		if rows >= 0 && r != rows {
+			return dataUnit{}, fmt.Errorf("table %q column %q: %d rows, earlier columns have %d", t.Name, c.Name, r, rows)
+		}
+		rows = r
+		rowBytes += widths[i]
+	}
+	h := newHeader()
+	if err := h.add(Card{Key: "XTENSION", Value: "BINTABLE", Comment: "binary table extension"}); err != nil {
+		return dataUnit{}, err
+	}
+	must(h.add(Card{Key: "BITPIX", Value: 8}))
+	must(h.add(Card{Key: "NAXIS", Value: 2}))
+	must(h.add(Card{Key: "NAXIS1", Value: rowBytes, Comment: "bytes per row"}))
+	must(h.add(Card{Key: "NAXIS2", Value: rows, Comment: "rows"}))
+	must(h.add(Card{Key: "PCOUNT", Value: 0}))
+	must(h.add(Card{Key: "GCOUNT", Value: 1}))
+	must(h.add(Card{Key: "TFIELDS", Value: len(t.Columns)}))
+	for i, c := range t.Columns {
+		n := strconv.Itoa(i + 1)
+		if err := h.add(Card{Key: "TTYPE" + n, Value: c.Name}); err != nil {
+			return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+		}
+		must(h.add(Card{Key: "TFORM" + n, Value: forms[i]}))
+		if c.Unit != "" {
+			if err := h.add(Card{Key: "TUNIT" + n, Value: c.Unit}); err != nil {
+				return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+			}
+		}
+	}
+	if err := h.add(Card{Key: "EXTNAME", Value: t.Name, Comment: "extension name"}); err != nil {
+		return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+	}
+	if err := h.addUser(t.Cards); err != nil {
+		return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+	}
+	cols := t.Columns
+	return dataUnit{hdr: h.bytes(), size: rows * rowBytes, put: func(w *bufio.Writer) error {
+		var b [8]byte
+		for r := 0; r < rows; r++ {
+			for i, c := range cols {
+				switch {
+				case c.Float != nil:
+					for _, v := range c.Float[r] {
+						binary.BigEndian.PutUint64(b[:], math.Float64bits(v))
+						w.Write(b[:])
+					}
+				case c.Int != nil:
+					binary.BigEndian.PutUint64(b[:], uint64(c.Int[r]))
+					w.Write(b[:])
+				default:
+					s := c.Text[r]
+					w.WriteString(s)
+					for k := len(s); k < widths[i]; k++ {
+						w.WriteByte(' ')
+					}
+				}
+			}
+		}
+		return nil
+	}}, nil
+}
+
+// writeAtomic writes the units to path through a temporary file in the
+// same directory ("<path>.tmp-XXXX"), synced and renamed over path; the
+// temporary file is removed on any error, so path is either the old file
+// or the complete new one.
+func writeAtomic(path string, units []dataUnit) (err error) {
+	dir, base := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	f, err := os.CreateTemp(dir, base+".tmp-*")
+	if err != nil {
+		return err
+	}
+	tmp := f.Name()
+	defer func() {
+		if err != nil {
+			f.Close()
+			os.Remove(tmp)
+		}
+	}()
+	w := bufio.NewWriterSize(f, 1<<16)
+	zeros := make([]byte, blockSize)
+	for _, u := range units {
+		if _, err = w.Write(u.hdr); err != nil {
+			return err
+		}
+		if err = u.put(w); err != nil {
+			return err
+		}
+		if p := roundBlock(u.size) - u.size; p > 0 {
+			if _, err = w.Write(zeros[:p]); err != nil {
+				return err
+			}
+		}
+	}
+	if err = w.Flush(); err != nil {
+		return err
+	}
+	if err = f.Chmod(0o644); err != nil {
+		return err
+	}
+	if err = f.Sync(); err != nil {
+		return err
+	}
+	if err = f.Close(); err != nil {
+		return err
+	}
+	if err = os.Rename(tmp, path); err != nil {
+		return err
+	}
+	if d, e := os.Open(dir); e == nil {
+		d.Sync() // best effort: make the rename durable
+		d.Close()
+	}
+	return nil
+}
