@@ -82,7 +82,7 @@ func Figures(r *Report) ([]Figure, error) {
 			spectraFigure, r.Spectra != nil},
 		{FigRatioMap, "Metric ratio learned / fitted over the field",
 			"Each cell is one patch placed at its position in the field; the colour is the learned metric divided by the fitted metric (1 means the network is as good as the fit).",
-			ratioFigure, len(r.Summary.RatioMethods) > 0 && len(r.Patches) > 0},
+			ratioFigure, r.has(Learned) && r.has(Fitted) && len(r.Patches) > 0},
 	}
 	for _, m := range ms {
 		if !m.ok {

@@ -174,7 +174,7 @@ type Summary struct {
 	Pairs  []Pair     `json:"pairs"`
 	Modes  []ModeStat `json:"modes"`
 	// Ratios[m] holds metric(m)/metric(fitted) per patch for each method m
-	// in RatioMethods.
+	// in RatioMethods (every method but the fit, the truth included).
 	RatioMethods []string  `json:"ratio_methods"`
 	Ratios       [][]Ratio `json:"ratios"`
 	// MedianRatio[m] is the median of Ratios[m].
@@ -348,7 +348,7 @@ func Summarise(r *Report) error {
 	}
 	if r.has(Fitted) {
 		for _, m := range r.Methods {
-			if m == Fitted || m == Truth {
+			if m == Fitted {
 				continue
 			}
 			rs := make([]Ratio, np)
