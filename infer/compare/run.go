@@ -52,6 +52,10 @@ type Config struct {
 	Source   string
 	Settings []Setting
 	Notes    []string
+	// TruthAt, if set, gives the true coefficients at field pixel (x, y)
+	// (simulated fields; for example simulate.Simulator.TruthAt). Run asks
+	// for each patch centre (x0 + N/2, y0 + N/2) and ignores burst.Truth.
+	TruthAt func(x, y float64) *burst.Truth
 }
 
 // patchOut is the work result of one patch.
@@ -65,8 +69,9 @@ type patchOut struct {
 // summarised report (Summarise has run). learned may be nil: the report
 // then holds the fit (and truth) only and says so in its notes. The
 // burst's frame count must equal cfg.Fit.Frames and its field must hold at
-// least one patch. Truth (burst.Truth) is used when the burst is a single
-// patch; it is converted to the report basis and, like every estimate,
+// least one patch. The truth comes from cfg.TruthAt per patch, or else
+// from burst.Truth when the burst is a single patch; it is converted to the
+// report basis and, like every estimate,
 // has the burst-mean tip/tilt removed when the metric constrains it.
 // Patches on which the metric finds no signal are left out with a note;
 // Run fails only if no patch succeeds or the settings are invalid.
@@ -152,22 +157,22 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		}
 		return out
 	}
-	var truth [][]float64
-	if b.Truth != nil {
-		if b.Nx == n && b.Ny == n {
-			t, note, err := truthNative(b.Truth, basis, fc.Frames)
-			if err != nil {
-				r.Notes = append(r.Notes, "Truth not used: "+err.Error())
-			} else {
-				truth = constrain(t)
-				if note != "" {
-					r.Notes = append(r.Notes, note)
-				}
-				methods = append(methods, Truth)
-			}
+	var truth [][]float64 // single-patch truth
+	truthNote := ""
+	switch {
+	case cfg.TruthAt != nil:
+		methods = append(methods, Truth)
+	case b.Truth != nil && b.Nx == n && b.Ny == n:
+		t, note, err := truthNative(b.Truth, basis, fc.Frames)
+		if err != nil {
+			r.Notes = append(r.Notes, "Truth not used: "+err.Error())
 		} else {
-			r.Notes = append(r.Notes, fmt.Sprintf("The burst carries a truth table, but its %d×%d field holds several %d px patches; the table describes one patch, so it is not compared.", b.Nx, b.Ny, n))
+			truth = constrain(t)
+			truthNote = note
+			methods = append(methods, Truth)
 		}
+	case b.Truth != nil:
+		r.Notes = append(r.Notes, fmt.Sprintf("The burst carries a truth table, but its %d×%d field holds several %d px patches; the table describes one patch, so it is not compared.", b.Nx, b.Ny, n))
 	}
 	r.Methods = methods
 	if fc.Metric.TiltConstrain {
@@ -186,6 +191,28 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 			jobs = append(jobs, job{len(jobs), x, y})
 		}
 	}
+	// Per-patch truth of a field, at each patch centre, before the
+	// parallel part (TruthAt need not be safe for concurrent use).
+	truths := make([][][]float64, len(jobs))
+	for i, jb := range jobs {
+		if cfg.TruthAt == nil {
+			truths[i] = truth
+			continue
+		}
+		tt := cfg.TruthAt(float64(jb.x+n/2), float64(jb.y+n/2))
+		if tt == nil {
+			return nil, fmt.Errorf("compare: no truth at patch %d (%d, %d)", i, jb.x, jb.y)
+		}
+		t, note, err := truthNative(tt, basis, fc.Frames)
+		if err != nil {
+			return nil, fmt.Errorf("compare: truth of patch %d: %w", i, err)
+		}
+		truths[i] = constrain(t)
+		truthNote = note
+	}
+	if truthNote != "" {
+		r.Notes = append(r.Notes, truthNote)
+	}
 	win := pd.Window(n, fc.Metric.Window)
 	outs := make([]patchOut, len(jobs))
 	ch := make(chan job)
@@ -197,7 +224,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 			plan := fft.NewPlan(n, n)
 			for jb := range ch {
 				data := extract(b, jb.x, jb.y, n)
-				outs[jb.idx] = runPatch(data, jb.idx, jb.x, jb.y, learned, polisher, fitter, cfg.FromZero, methods, truth, constrain, win, plan)
+				outs[jb.idx] = runPatch(data, jb.idx, jb.x, jb.y, learned, polisher, fitter, cfg.FromZero, methods, truths[jb.idx], constrain, win, plan)
 			}
 		}()
 	}
