@@ -12,11 +12,7 @@ func benchForward(b *testing.B, ny, nx int) {
 	p := NewPlan(ny, nx)
 	x := randComplex(rng, ny*nx)
 	dst := make([]complex128, ny*nx)
-	b.SetBytes(int64(16 * ny * nx))
-	b.ResetTimer()
-	for b.Loop() {
-		p.Forward(dst, x)
-	}
+	cpuLoop(b, func() { p.Forward(dst, x) })
 }
 
 func BenchmarkForward64(b *testing.B)  { benchForward(b, 64, 64) }
@@ -30,9 +26,7 @@ func BenchmarkInverse64(b *testing.B) {
 	p := NewPlan(64, 64)
 	x := randComplex(rng, 64*64)
 	dst := make([]complex128, 64*64)
-	for b.Loop() {
-		p.Inverse(dst, x)
-	}
+	cpuLoop(b, func() { p.Inverse(dst, x) })
 }
 
 func benchForwardReal(b *testing.B, ny, nx int) {
@@ -40,9 +34,7 @@ func benchForwardReal(b *testing.B, ny, nx int) {
 	p := NewPlan(ny, nx)
 	x := randReal(rng, ny*nx)
 	dst := make([]complex128, ny*nx)
-	for b.Loop() {
-		p.ForwardReal(dst, x)
-	}
+	cpuLoop(b, func() { p.ForwardReal(dst, x) })
 }
 
 func BenchmarkForwardReal64(b *testing.B)  { benchForwardReal(b, 64, 64) }
@@ -53,9 +45,7 @@ func benchInverseReal(b *testing.B, ny, nx int) {
 	p := NewPlan(ny, nx)
 	x := randComplex(rng, ny*nx)
 	dst := make([]float64, ny*nx)
-	for b.Loop() {
-		p.InverseReal(dst, x)
-	}
+	cpuLoop(b, func() { p.InverseReal(dst, x) })
 }
 
 func BenchmarkInverseReal64(b *testing.B)  { benchInverseReal(b, 64, 64) }
@@ -70,9 +60,7 @@ func benchGonum(b *testing.B, ny, nx int) {
 	rows := fourier.NewCmplxFFT(nx)
 	cols := fourier.NewCmplxFFT(ny)
 	col := make([]complex128, ny)
-	b.SetBytes(int64(16 * ny * nx))
-	b.ResetTimer()
-	for b.Loop() {
+	cpuLoop(b, func() {
 		for y := 0; y < ny; y++ {
 			rows.Coefficients(dst[y*nx:(y+1)*nx], x[y*nx:(y+1)*nx])
 		}
@@ -85,7 +73,7 @@ func benchGonum(b *testing.B, ny, nx int) {
 				dst[y*nx+c] = col[y]
 			}
 		}
-	}
+	})
 }
 
 func BenchmarkGonumRowColumn64(b *testing.B)  { benchGonum(b, 64, 64) }

@@ -13,10 +13,15 @@ type Plan struct {
 	row    *plan1
 	col    *plan1
 	a, b   []complex128 // ny*nx scratch for the column pass
-	ra, rb []complex128 // nx scratch for the row pass
-	rc     []complex128
 	half   []complex128 // ny*(nx/2+1) half spectrum for the real transforms
+	blk    []complex128 // rowBlock*nx: a block of rows, interleaved
+	sa, sb []complex128 // rowBlock*nx scratch for the row pass
 }
+
+// rowBlock is the number of rows transformed together in the row pass:
+// they are interleaved (x slowest) so that every butterfly works on
+// rowBlock contiguous values, like the column pass.
+const rowBlock = 8
 
 // NewPlan returns a plan for ny×nx transforms. It panics if ny < 1 or nx < 1.
 func NewPlan(ny, nx int) *Plan {
@@ -32,10 +37,10 @@ func NewPlan(ny, nx int) *Plan {
 	}
 	p.a = make([]complex128, ny*nx)
 	p.b = make([]complex128, ny*nx)
-	p.ra = make([]complex128, nx)
-	p.rb = make([]complex128, nx)
-	p.rc = make([]complex128, nx)
 	p.half = make([]complex128, ny*(nx/2+1))
+	p.blk = make([]complex128, rowBlock*nx)
+	p.sa = make([]complex128, rowBlock*nx)
+	p.sb = make([]complex128, rowBlock*nx)
 	return p
 }
 
@@ -90,35 +95,42 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 	ny, nx := p.ny, p.nx
 	h := nx/2 + 1
 	c := p.half
-	z := p.ra
-	// Rows: z = r_y + i r_{y+1}; with Z = DFT(z) the row spectra are
-	// R_y[l] = (Z[l] + conj Z[-l])/2 and R_{y+1}[l] = (Z[l] - conj Z[-l])/(2i).
-	for y := 0; y < ny; y += 2 {
-		r0 := src[y*nx : (y+1)*nx]
-		c0 := c[y*h : (y+1)*h]
-		if y+1 == ny {
+	// Pack rows: z_j = r_{2j} + i r_{2j+1}.
+	np := (ny + 1) / 2
+	z := p.a[:np*nx]
+	for j := 0; j < np; j++ {
+		zj := z[j*nx : (j+1)*nx]
+		r0 := src[2*j*nx : (2*j+1)*nx]
+		if 2*j+1 == ny {
 			for x, v := range r0 {
-				z[x] = complex(v, 0)
+				zj[x] = complex(v, 0)
 			}
-			p.row.run(z, z, p.rb, p.rc, 1, false)
-			copy(c0, z[:h])
 			break
 		}
-		r1 := src[(y+1)*nx : (y+2)*nx]
-		r1 = r1[:len(r0)]
+		r1 := src[(2*j+1)*nx : (2*j+2)*nx]
+		r1 = r1[:len(zj)]
 		for x, v := range r0 {
-			z[x] = complex(v, r1[x])
+			zj[x] = complex(v, r1[x])
 		}
-		p.row.run(z, z, p.rb, p.rc, 1, false)
-		c1 := c[(y+1)*h : (y+2)*h]
-		c0[0] = complex(real(z[0]), 0)
-		c1[0] = complex(imag(z[0]), 0)
-		zr := z[nx-h+1 : nx] // zr[len(zr)-l] = z[nx-l]
+	}
+	p.rows(z, np, false)
+	// Unpack: with Z = DFT(z_j) the row spectra are
+	// R_{2j}[l] = (Z[l] + conj Z[-l])/2, R_{2j+1}[l] = (Z[l] - conj Z[-l])/(2i).
+	for j := 0; j < np; j++ {
+		zj := z[j*nx : (j+1)*nx]
+		c0 := c[2*j*h : (2*j+1)*h]
+		if 2*j+1 == ny {
+			copy(c0, zj[:h])
+			break
+		}
+		c1 := c[(2*j+1)*h : (2*j+2)*h]
 		c1 = c1[:len(c0)]
+		c0[0] = complex(real(zj[0]), 0)
+		c1[0] = complex(imag(zj[0]), 0)
+		zr := zj[nx-h+1 : nx] // zr[len(zr)-l] = Z[nx-l]
 		for l := 1; l < len(c0); l++ {
-			zl := z[l]
+			zl := zj[l]
 			zm := zr[len(zr)-l]
-			// (zl + conj zm)/2 and -i(zl - conj zm)/2.
 			c0[l] = complex(0.5*(real(zl)+real(zm)), 0.5*(imag(zl)-imag(zm)))
 			c1[l] = complex(0.5*(imag(zl)+imag(zm)), 0.5*(real(zm)-real(zl)))
 		}
@@ -162,45 +174,56 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 		}
 	}
 	p.col.run(c, c, p.a, p.b, h, true)
-	// Rows: each G_y is Hermitian along x, so z = IDFT(G_y + i G_{y+1})
-	// has real part g_y and imaginary part g_{y+1}.
-	scale := 1 / float64(ny*nx)
-	z := p.ra
-	for y := 0; y < ny; y += 2 {
-		g0 := c[y*h : (y+1)*h]
-		d0 := dst[y*nx : (y+1)*nx]
-		if y+1 == ny {
-			z[0] = complex(real(g0[0]), 0)
+	// Each row G_y of the result is Hermitian along x, so
+	// z_j = IDFT(G_{2j} + i G_{2j+1}) has real part g_{2j} and imaginary
+	// part g_{2j+1}. Columns 0 and nx/2 of a Hermitian row are real.
+	np := (ny + 1) / 2
+	z := p.a[:np*nx]
+	for j := 0; j < np; j++ {
+		zj := z[j*nx : (j+1)*nx]
+		g0 := c[2*j*h : (2*j+1)*h]
+		if 2*j+1 == ny {
+			zj[0] = complex(real(g0[0]), 0)
 			for l := 1; l < h; l++ {
-				z[l] = g0[l]
-				z[nx-l] = conj(g0[l])
+				zj[l] = g0[l]
+				zj[nx-l] = conj(g0[l])
 			}
 			if nx%2 == 0 {
-				z[nx/2] = complex(real(g0[nx/2]), 0)
-			}
-			p.row.run(z, z, p.rb, p.rc, 1, true)
-			for x := range d0 {
-				d0[x] = real(z[x]) * scale
+				zj[nx/2] = complex(real(g0[nx/2]), 0)
 			}
 			break
 		}
-		g1 := c[(y+1)*h : (y+2)*h]
-		z[0] = complex(real(g0[0]), real(g1[0]))
-		for l := 1; l < h; l++ {
+		g1 := c[(2*j+1)*h : (2*j+2)*h]
+		g1 = g1[:len(g0)]
+		zj[0] = complex(real(g0[0]), real(g1[0]))
+		zr := zj[nx-h+1 : nx] // zr[len(zr)-l] = z[nx-l]
+		for l := 1; l < len(g0); l++ {
 			a, b := g0[l], g1[l]
 			// a + i b and conj(a) + i conj(b).
-			z[l] = complex(real(a)-imag(b), imag(a)+real(b))
-			z[nx-l] = complex(real(a)+imag(b), real(b)-imag(a))
+			zj[l] = complex(real(a)-imag(b), imag(a)+real(b))
+			zr[len(zr)-l] = complex(real(a)+imag(b), real(b)-imag(a))
 		}
 		if nx%2 == 0 {
-			z[nx/2] = complex(real(g0[nx/2]), real(g1[nx/2]))
+			zj[nx/2] = complex(real(g0[nx/2]), real(g1[nx/2]))
 		}
-		p.row.run(z, z, p.rb, p.rc, 1, true)
-		d1 := dst[(y+1)*nx : (y+2)*nx]
-		d1 = d1[:len(d0)]
-		for x := range d0 {
-			d0[x] = real(z[x]) * scale
-			d1[x] = imag(z[x]) * scale
+	}
+	p.rows(z, np, true)
+	scale := 1 / float64(ny*nx)
+	for j := 0; j < np; j++ {
+		zj := z[j*nx : (j+1)*nx]
+		d0 := dst[2*j*nx : (2*j+1)*nx]
+		d0 = d0[:len(zj)]
+		if 2*j+1 == ny {
+			for x, v := range zj {
+				d0[x] = real(v) * scale
+			}
+			break
+		}
+		d1 := dst[(2*j+1)*nx : (2*j+2)*nx]
+		d1 = d1[:len(zj)]
+		for x, v := range zj {
+			d0[x] = real(v) * scale
+			d1[x] = imag(v) * scale
 		}
 	}
 }
@@ -208,13 +231,39 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 // transform performs the unnormalised 2-D transform of src into dst;
 // dst may be src.
 func (p *Plan) transform(dst, src []complex128, inverse bool) {
-	ny, nx := p.ny, p.nx
 	// Columns: all nx columns at once as interleaved lanes.
-	p.col.run(dst, src, p.a, p.b, nx, inverse)
-	// Rows, in place.
-	for y := 0; y < ny; y++ {
-		r := dst[y*nx : (y+1)*nx]
-		p.row.run(r, r, p.ra, p.rb, 1, inverse)
+	p.col.run(dst, src, p.a, p.b, p.nx, inverse)
+	p.rows(dst, p.ny, inverse)
+}
+
+// rows transforms in place the first n rows (length nx) of x. With the
+// vector kernels, blocks of rowBlock rows are interleaved so that the
+// butterflies run over contiguous lanes; otherwise row by row.
+func (p *Plan) rows(x []complex128, n int, inverse bool) {
+	nx := p.nx
+	if !useVec || nx == 1 {
+		for y := 0; y < n; y++ {
+			r := x[y*nx : (y+1)*nx]
+			p.row.run(r, r, p.sa, p.sb, 1, inverse)
+		}
+		return
+	}
+	for y0 := 0; y0 < n; y0 += rowBlock {
+		b := min(rowBlock, n-y0)
+		blk := p.blk[:b*nx]
+		for r := 0; r < b; r++ {
+			row := x[(y0+r)*nx : (y0+r+1)*nx]
+			for j, v := range row {
+				blk[j*b+r] = v
+			}
+		}
+		p.row.run(blk, blk, p.sa, p.sb, b, inverse)
+		for r := 0; r < b; r++ {
+			row := x[(y0+r)*nx : (y0+r+1)*nx]
+			for j := range row {
+				row[j] = blk[j*b+r]
+			}
+		}
 	}
 }
 

@@ -293,3 +293,18 @@ func TestNoAllocs(t *testing.T) {
 		}
 	}
 }
+
+// TestPortablePath repeats the checks with the vector kernels switched off
+// (where they exist), so both code paths are compared with the direct DFT.
+func TestPortablePath(t *testing.T) {
+	if !useVec {
+		t.Log("vector kernels not in use on this machine; portable path already tested")
+		return
+	}
+	useVec = false
+	defer func() { useVec = true }()
+	TestForwardInverseVsDirect(t)
+	Test1DSizes(t)
+	TestRealVsDirect(t)
+	TestRoundTripAndAliasing(t)
+}

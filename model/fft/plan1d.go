@@ -38,8 +38,9 @@ func factor(n int) []int {
 	var f []int
 	// For powers of two with odd log2, one radix-8 stage replaces a
 	// radix-4 and a radix-2 stage (one pass over the data fewer). More
-	// radix-8 stages measured no faster (register pressure).
-	if n >= 8 && n&(n-1) == 0 && bits.TrailingZeros(uint(n))%2 == 1 {
+	// radix-8 stages measured no faster (register pressure). The vector
+	// kernels exist for radices 2 and 4 only.
+	if !useVec && n >= 8 && n&(n-1) == 0 && bits.TrailingZeros(uint(n))%2 == 1 {
 		f = append(f, 8)
 		n /= 8
 	}
@@ -204,16 +205,29 @@ func radix2(dst, src []complex128, m, s int, tw []complex128) {
 		y0 := dst[2*s*p : 2*s*p+s]
 		y1 := dst[2*s*p+s : 2*s*p+2*s]
 		x1, y0, y1 = x1[:len(x0)], y0[:len(x0)], y1[:len(x0)]
+		q0 := 0
+		if useVec && len(x0) >= 2 {
+			q0 = len(x0) &^ 1
+			if p == 0 {
+				r2vecNoTw(&y0[0], &y1[0], &x0[0], &x1[0], q0)
+			} else {
+				r2vec(&y0[0], &y1[0], &x0[0], &x1[0], q0, &tw[p])
+			}
+			if q0 == len(x0) {
+				continue
+			}
+		}
 		if p == 0 {
-			for q, a := range x0 {
-				b := x1[q]
+			for q := q0; q < len(x0); q++ {
+				a, b := x0[q], x1[q]
 				y0[q] = a + b
 				y1[q] = a - b
 			}
 			continue
 		}
 		w := tw[p]
-		for q, a := range x0 {
+		for q := q0; q < len(x0); q++ {
+			a := x0[q]
 			b := x1[q]
 			y0[q] = a + b
 			y1[q] = (a - b) * w
@@ -269,9 +283,25 @@ func radix4(dst, src []complex128, m, s int, tw []complex128, inv bool) {
 			// butterfly into the inverse one.
 			y1, y3 = y3, y1
 		}
+		q0 := 0
+		if useVec && len(x0) >= 2 {
+			q0 = len(x0) &^ 1
+			if p == 0 {
+				r4vecNoTw(&y0[0], &y1[0], &y2[0], &y3[0], &x0[0], &x1[0], &x2[0], &x3[0], q0)
+			} else {
+				w := [3]complex128{tw[3*p], tw[3*p+1], tw[3*p+2]}
+				if inv {
+					w[0], w[2] = w[2], w[0]
+				}
+				r4vec(&y0[0], &y1[0], &y2[0], &y3[0], &x0[0], &x1[0], &x2[0], &x3[0], q0, &w)
+			}
+			if q0 == len(x0) {
+				continue
+			}
+		}
 		if p == 0 {
-			for q, a0 := range x0 {
-				a1, a2, a3 := x1[q], x2[q], x3[q]
+			for q := q0; q < len(x0); q++ {
+				a0, a1, a2, a3 := x0[q], x1[q], x2[q], x3[q]
 				t0 := a0 + a2
 				t1 := a0 - a2
 				t2 := a1 + a3
@@ -288,8 +318,8 @@ func radix4(dst, src []complex128, m, s int, tw []complex128, inv bool) {
 		if inv {
 			w1, w3 = w3, w1
 		}
-		for q, a0 := range x0 {
-			a1, a2, a3 := x1[q], x2[q], x3[q]
+		for q := q0; q < len(x0); q++ {
+			a0, a1, a2, a3 := x0[q], x1[q], x2[q], x3[q]
 			t0 := a0 + a2
 			t1 := a0 - a2
 			t2 := a1 + a3

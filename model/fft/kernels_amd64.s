@@ -1,0 +1,194 @@
+//go:build amd64 && !purego
+
+#include "textflag.h"
+
+// func cpuid(eaxArg, ecxArg uint32) (eax, ebx, ecx, edx uint32)
+TEXT ·cpuid(SB), NOSPLIT, $0-24
+	MOVL eaxArg+0(FP), AX
+	MOVL ecxArg+4(FP), CX
+	CPUID
+	MOVL AX, eax+8(FP)
+	MOVL BX, ebx+12(FP)
+	MOVL CX, ecx+16(FP)
+	MOVL DX, edx+20(FP)
+	RET
+
+// func xgetbv() (eax, edx uint32)
+TEXT ·xgetbv(SB), NOSPLIT, $0-8
+	MOVL $0, CX
+	XGETBV
+	MOVL AX, eax+0(FP)
+	MOVL DX, edx+4(FP)
+	RET
+
+// Sign mask negating the odd (imaginary) lanes of a YMM register.
+DATA negodd<>+0(SB)/8, $0x0000000000000000
+DATA negodd<>+8(SB)/8, $0x8000000000000000
+DATA negodd<>+16(SB)/8, $0x0000000000000000
+DATA negodd<>+24(SB)/8, $0x8000000000000000
+GLOBL negodd<>(SB), RODATA|NOPTR, $32
+
+// Sign mask negating the even (real) lanes.
+DATA negeven<>+0(SB)/8, $0x8000000000000000
+DATA negeven<>+8(SB)/8, $0x0000000000000000
+DATA negeven<>+16(SB)/8, $0x8000000000000000
+DATA negeven<>+24(SB)/8, $0x0000000000000000
+GLOBL negeven<>(SB), RODATA|NOPTR, $32
+
+// A YMM register holds two complex128 values (re0, im0, re1, im1).
+// Complex product z·w with w broadcast as WR = (wr, wr, wr, wr) and
+// WI = (-wi, wi, -wi, wi):  z·w = z*WR + swap(z)*WI, swap = VPERMILPD $5.
+
+// func r4vec(y0, y1, y2, y3, x0, x1, x2, x3 *complex128, n int, w *[3]complex128)
+TEXT ·r4vec(SB), NOSPLIT, $0-80
+	MOVQ y0+0(FP), DI
+	MOVQ y1+8(FP), SI
+	MOVQ y2+16(FP), BX
+	MOVQ y3+24(FP), DX
+	MOVQ x0+32(FP), R8
+	MOVQ x1+40(FP), R9
+	MOVQ x2+48(FP), R10
+	MOVQ x3+56(FP), R11
+	MOVQ n+64(FP), CX
+	MOVQ w+72(FP), AX
+	SHLQ $4, CX // bytes
+	VMOVUPD negeven<>(SB), Y14
+	VBROADCASTSD 0(AX), Y8
+	VBROADCASTSD 8(AX), Y9
+	VXORPD Y14, Y9, Y9
+	VBROADCASTSD 16(AX), Y10
+	VBROADCASTSD 24(AX), Y11
+	VXORPD Y14, Y11, Y11
+	VBROADCASTSD 32(AX), Y12
+	VBROADCASTSD 40(AX), Y13
+	VXORPD Y14, Y13, Y13
+	VMOVUPD negodd<>(SB), Y14
+	XORQ AX, AX
+
+r4loop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VMOVUPD (R10)(AX*1), Y2
+	VMOVUPD (R11)(AX*1), Y3
+	VADDPD Y2, Y0, Y4 // t0 = a0+a2
+	VSUBPD Y2, Y0, Y5 // t1 = a0-a2
+	VADDPD Y3, Y1, Y6 // t2 = a1+a3
+	VSUBPD Y3, Y1, Y7 // d = a1-a3
+	VPERMILPD $5, Y7, Y7
+	VXORPD Y14, Y7, Y7 // t3 = -i·d
+	VADDPD Y6, Y4, Y0 // b0 = t0+t2
+	VMOVUPD Y0, (DI)(AX*1)
+	VSUBPD Y6, Y4, Y0 // b2 = t0-t2
+	VADDPD Y7, Y5, Y1 // b1 = t1+t3
+	VSUBPD Y7, Y5, Y2 // b3 = t1-t3
+	VPERMILPD $5, Y1, Y3
+	VMULPD Y8, Y1, Y1
+	VFMADD231PD Y9, Y3, Y1
+	VMOVUPD Y1, (SI)(AX*1)
+	VPERMILPD $5, Y0, Y3
+	VMULPD Y10, Y0, Y0
+	VFMADD231PD Y11, Y3, Y0
+	VMOVUPD Y0, (BX)(AX*1)
+	VPERMILPD $5, Y2, Y3
+	VMULPD Y12, Y2, Y2
+	VFMADD231PD Y13, Y3, Y2
+	VMOVUPD Y2, (DX)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r4loop
+	VZEROUPPER
+	RET
+
+// func r4vecNoTw(y0, y1, y2, y3, x0, x1, x2, x3 *complex128, n int)
+TEXT ·r4vecNoTw(SB), NOSPLIT, $0-72
+	MOVQ y0+0(FP), DI
+	MOVQ y1+8(FP), SI
+	MOVQ y2+16(FP), BX
+	MOVQ y3+24(FP), DX
+	MOVQ x0+32(FP), R8
+	MOVQ x1+40(FP), R9
+	MOVQ x2+48(FP), R10
+	MOVQ x3+56(FP), R11
+	MOVQ n+64(FP), CX
+	SHLQ $4, CX
+	VMOVUPD negodd<>(SB), Y14
+	XORQ AX, AX
+
+r4nloop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VMOVUPD (R10)(AX*1), Y2
+	VMOVUPD (R11)(AX*1), Y3
+	VADDPD Y2, Y0, Y4
+	VSUBPD Y2, Y0, Y5
+	VADDPD Y3, Y1, Y6
+	VSUBPD Y3, Y1, Y7
+	VPERMILPD $5, Y7, Y7
+	VXORPD Y14, Y7, Y7
+	VADDPD Y6, Y4, Y0
+	VSUBPD Y6, Y4, Y2
+	VADDPD Y7, Y5, Y1
+	VSUBPD Y7, Y5, Y3
+	VMOVUPD Y0, (DI)(AX*1)
+	VMOVUPD Y1, (SI)(AX*1)
+	VMOVUPD Y2, (BX)(AX*1)
+	VMOVUPD Y3, (DX)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r4nloop
+	VZEROUPPER
+	RET
+
+// func r2vec(y0, y1, x0, x1 *complex128, n int, w *complex128)
+TEXT ·r2vec(SB), NOSPLIT, $0-48
+	MOVQ y0+0(FP), DI
+	MOVQ y1+8(FP), SI
+	MOVQ x0+16(FP), R8
+	MOVQ x1+24(FP), R9
+	MOVQ n+32(FP), CX
+	MOVQ w+40(FP), AX
+	SHLQ $4, CX
+	VMOVUPD negeven<>(SB), Y14
+	VBROADCASTSD 0(AX), Y8
+	VBROADCASTSD 8(AX), Y9
+	VXORPD Y14, Y9, Y9
+	XORQ AX, AX
+
+r2loop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VADDPD Y1, Y0, Y2
+	VSUBPD Y1, Y0, Y3
+	VMOVUPD Y2, (DI)(AX*1)
+	VPERMILPD $5, Y3, Y4
+	VMULPD Y8, Y3, Y3
+	VFMADD231PD Y9, Y4, Y3
+	VMOVUPD Y3, (SI)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r2loop
+	VZEROUPPER
+	RET
+
+// func r2vecNoTw(y0, y1, x0, x1 *complex128, n int)
+TEXT ·r2vecNoTw(SB), NOSPLIT, $0-40
+	MOVQ y0+0(FP), DI
+	MOVQ y1+8(FP), SI
+	MOVQ x0+16(FP), R8
+	MOVQ x1+24(FP), R9
+	MOVQ n+32(FP), CX
+	SHLQ $4, CX
+	XORQ AX, AX
+
+r2nloop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VADDPD Y1, Y0, Y2
+	VSUBPD Y1, Y0, Y3
+	VMOVUPD Y2, (DI)(AX*1)
+	VMOVUPD Y3, (SI)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r2nloop
+	VZEROUPPER
+	RET
