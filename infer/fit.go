@@ -1,0 +1,502 @@
+// Package infer fits wavefront coefficients to phase-diversity patches with
+// the classical optimiser, restores the patch images, and defines the
+// Estimator interface through which the classical fit and a learned network
+// are interchangeable.
+//
+// A patch is data[channel][frame], each an N×N row-major image; channel 0
+// is the focused channel. Coefficients are frames × modes (native basis,
+// rad of phase at the observing wavelength) and come with their
+// Noll-equivalent (Noll j = 2, 3, …).
+package infer
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"runtime"
+	"sync"
+	"time"
+
+	"gonum.org/v1/gonum/optimize"
+
+	"pdwave/model/modes"
+	"pdwave/model/optics"
+	"pdwave/model/pd"
+)
+
+// Estimator gives wavefront coefficients for one patch. The classical fit
+// (*Fitter) and a learned network implement it, so a restoration pipeline
+// can take either.
+//
+// Estimate receives data[channel][frame] (N×N images, channel 0 focused,
+// N and frame count as the estimator was built for) and returns frames ×
+// Basis().Count native coefficients in rad. It must not modify data nor
+// keep references to it, and must be safe for concurrent use.
+type Estimator interface {
+	Basis() *modes.Basis
+	Estimate(data [][][]float64) ([][]float64, error)
+}
+
+// Stop tells the optimiser when to stop; whichever comes first. Zero
+// fields are ignored, but at least one of Iterations or WallTime should be
+// set.
+type Stop struct {
+	Iterations int           // maximum major (L-BFGS) iterations
+	RelChange  float64       // stop when the objective improves by less than this fraction over 3 iterations
+	WallTime   time.Duration // maximum run time per patch
+}
+
+// Config describes the fit shared by all patches of a burst.
+type Config struct {
+	Telescope   optics.Telescope // D, obscuration, λ, pixel scale
+	DiversityPV []float64        // per channel: defocus, waves peak-to-valley (channel 0 usually 0)
+	Patch       int              // patch side N, pixels
+	Frames      int              // frames per patch
+	Basis       modes.Kind       // zernike or kl
+	Modes       int              // number of modes (piston excluded)
+	// DOverR0 is the expected D/r0 at the observing wavelength. It sets the
+	// prior variances σ_m² = Variance_m·(D/r0)^(5/3) and the coefficient
+	// scaling of the optimiser. Must be > 0.
+	DOverR0 float64
+	// Prior is the weight of the turbulence prior against the metric
+	// normalised by the data power (pd.Settings.PriorWeight); 0 = none.
+	Prior float64
+	// Metric holds the remaining metric settings; its PriorWeight is
+	// replaced by Prior.
+	Metric pd.Settings
+	Stop   Stop
+	// RegisterTilt starts fits from zero with the tip/tilt of each frame
+	// measured by cross-correlating the frames of the least-defocused
+	// channel (fits from given coefficients keep theirs).
+	RegisterTilt bool
+	// Stages lists increasing numbers of free modes for a coarse-to-fine
+	// fit (each stage starts where the previous ended; the final stage
+	// frees all modes). Empty: one stage.
+	Stages []int
+}
+
+// DefaultConfig returns the settings the accuracy study found best for the
+// demo telescope (see the package README / study table): 64 px patches, 16
+// frames, 36 KL modes, D/r0 = 5, prior weight 0.01, noise filter, tilt
+// constraint, 1 wave of defocus in channel 1, 200 iterations or 1e-6
+// relative change. The telescope must still be filled in.
+func DefaultConfig() Config {
+	return Config{
+		DiversityPV:  []float64{0, 1},
+		Patch:        64,
+		Frames:       16,
+		Basis:        modes.KindKL,
+		Modes:        36,
+		DOverR0:      5,
+		Prior:        0.1,
+		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3},
+		Stop:         Stop{Iterations: 200, RelChange: 1e-6},
+		RegisterTilt: true,
+	}
+}
+
+// Result is the outcome of fitting one patch.
+type Result struct {
+	Restored    []float64     // restored patch, N×N (object estimate with the noise filter)
+	Coeffs      [][]float64   // frames × modes, native basis, rad; burst-mean tilt removed
+	Noll        [][]float64   // frames × modes, Noll-equivalent (Noll j = 2 + index), rad
+	StartNoll   [][]float64   // Noll-equivalent coefficients of the starting point (after tilt registration)
+	MetricStart float64       // objective E at the start (normalised metric + prior)
+	MetricEnd   float64       // objective E at the end
+	DataStart   float64       // normalised metric L/P̄ alone, at the start
+	DataEnd     float64       // normalised metric L/P̄ alone, at the end
+	Iterations  int           // major iterations of L-BFGS
+	Evaluations int           // value+gradient evaluations
+	Elapsed     time.Duration // wall time of the fit
+	Status      string        // why the optimiser stopped
+}
+
+// Fitter fits patches for one Config. It is safe for concurrent use: each
+// concurrent call takes its own pd.Solver from an internal pool (one
+// Solver per goroutine; a Solver owns its FFT plan and buffers).
+type Fitter struct {
+	cfg    Config
+	pupil  *optics.Pupil
+	basis  *modes.Basis
+	div    [][]float64
+	sigma2 []float64 // prior variances
+	scale  []float64 // coefficient scale per mode, rad
+	tiltX  []float64 // native coefficients per pixel of image motion
+	tiltY  []float64
+	refCh  int // least-defocused channel, for registration
+
+	mu   sync.Mutex
+	free []*worker
+}
+
+type worker struct {
+	s      *pd.Solver
+	x      []float64 // optimiser variables (scaled coefficients)
+	alpha  []float64
+	grad   []float64
+	cacheX []float64
+	cacheF float64
+	cacheG []float64
+	valid  bool
+	evals  int
+	active int // modes free in this stage (others held)
+	reg    *registrar
+}
+
+// NewFitter checks cfg and prepares the pupil, basis and diversities. It
+// returns an error on invalid settings (sampling coarser than Nyquist for
+// the patch, no frames, …).
+func NewFitter(cfg Config) (*Fitter, error) {
+	if err := cfg.Telescope.Validate(); err != nil {
+		return nil, fmt.Errorf("fit: telescope: %w", err)
+	}
+	if cfg.Patch < 8 {
+		return nil, fmt.Errorf("fit: patch size %d too small (need ≥ 8)", cfg.Patch)
+	}
+	if cfg.Frames < 1 {
+		return nil, fmt.Errorf("fit: need at least one frame, got %d", cfg.Frames)
+	}
+	if len(cfg.DiversityPV) < 1 {
+		return nil, errors.New("fit: no channels (DiversityPV is empty)")
+	}
+	if cfg.Modes < 2 {
+		return nil, fmt.Errorf("fit: need at least 2 modes, got %d", cfg.Modes)
+	}
+	if !(cfg.DOverR0 > 0) || math.IsInf(cfg.DOverR0, 0) {
+		return nil, fmt.Errorf("fit: expected D/r0 must be positive, got %g", cfg.DOverR0)
+	}
+	if cfg.Prior < 0 || math.IsNaN(cfg.Prior) {
+		return nil, fmt.Errorf("fit: prior weight must be ≥ 0, got %g", cfg.Prior)
+	}
+	if cfg.Stop.Iterations <= 0 && cfg.Stop.WallTime <= 0 && cfg.Stop.RelChange <= 0 {
+		return nil, errors.New("fit: no stopping rule (iterations, relative change or wall time)")
+	}
+	pup, err := optics.NewPupil(cfg.Telescope, cfg.Patch)
+	if err != nil {
+		return nil, fmt.Errorf("fit: pupil for %d px patches: %w", cfg.Patch, err)
+	}
+	b, err := modes.New(cfg.Basis, cfg.Modes, cfg.Patch, pup.Radius)
+	if err != nil {
+		return nil, fmt.Errorf("fit: %s basis: %w", cfg.Basis, err)
+	}
+	f := &Fitter{cfg: cfg, pupil: pup, basis: b}
+	for k, pv := range cfg.DiversityPV {
+		if math.IsNaN(pv) || math.IsInf(pv, 0) {
+			return nil, fmt.Errorf("fit: diversity of channel %d is %g", k, pv)
+		}
+		if pv == 0 {
+			f.div = append(f.div, nil)
+			continue
+		}
+		d := make([]float64, cfg.Patch*cfg.Patch)
+		pup.Defocus(d, pv)
+		f.div = append(f.div, d)
+	}
+	f.cfg.Metric.PriorWeight = cfg.Prior
+	f.tiltX, f.tiltY = tiltPerPixel(b)
+	for k, pv := range cfg.DiversityPV {
+		if math.Abs(pv) < math.Abs(cfg.DiversityPV[f.refCh]) {
+			f.refCh = k
+		}
+	}
+	f.sigma2 = pd.KolmogorovPrior(b, cfg.DOverR0)
+	fac := math.Pow(cfg.DOverR0, 5.0/3)
+	f.scale = make([]float64, b.Count)
+	for m := range f.scale {
+		f.scale[m] = math.Sqrt(b.Variance[m] * fac)
+		if !(f.scale[m] > 0) {
+			f.scale[m] = 1
+		}
+	}
+	return f, nil
+}
+
+// Basis returns the fit's modal basis (drawn on the patch grid).
+func (f *Fitter) Basis() *modes.Basis { return f.basis }
+
+// Pupil returns the pupil on the patch grid.
+func (f *Fitter) Pupil() *optics.Pupil { return f.pupil }
+
+// Config returns the configuration (PriorWeight filled in).
+func (f *Fitter) Config() Config { return f.cfg }
+
+// PriorVariance returns the prior variance σ_m² of each native mode (rad²;
+// +Inf for the loose tilt modes). The slice is shared; do not modify.
+func (f *Fitter) PriorVariance() []float64 { return f.sigma2 }
+
+func (f *Fitter) get() *worker {
+	f.mu.Lock()
+	if n := len(f.free); n > 0 {
+		w := f.free[n-1]
+		f.free = f.free[:n-1]
+		f.mu.Unlock()
+		return w
+	}
+	f.mu.Unlock()
+	s := pd.NewSolver(f.pupil, f.basis, f.div, f.cfg.Frames, f.cfg.Metric)
+	s.SetPrior(f.sigma2)
+	nt := f.cfg.Frames * f.basis.Count
+	win := f.cfg.Metric.Window
+	if win <= 0 {
+		win = 0.125
+	}
+	return &worker{
+		reg: newRegistrar(f.cfg.Patch, f.cfg.Frames, win),
+		s:   s, x: make([]float64, nt), alpha: make([]float64, nt), grad: make([]float64, nt),
+		cacheX: make([]float64, nt), cacheG: make([]float64, nt),
+	}
+}
+
+func (f *Fitter) put(w *worker) {
+	f.mu.Lock()
+	f.free = append(f.free, w)
+	f.mu.Unlock()
+}
+
+// Estimate fits the patch from zero and returns the native coefficients
+// (frames × modes, rad). It implements Estimator.
+func (f *Fitter) Estimate(data [][][]float64) ([][]float64, error) {
+	r, err := f.fit(data, nil, false)
+	if err != nil {
+		return nil, err
+	}
+	return r.Coeffs, nil
+}
+
+// Fit fits the patch data[channel][frame] starting from start (frames ×
+// modes native coefficients, rad; nil = zero) and restores it. It returns
+// an error on malformed data (wrong sizes, non-finite values, no signal).
+func (f *Fitter) Fit(data [][][]float64, start [][]float64) (*Result, error) {
+	return f.fit(data, start, true)
+}
+
+// Restore returns the restored patch (N×N) for given coefficients without
+// fitting: the object estimate F̂ with the noise filter (pd.Solver.Restore).
+func (f *Fitter) Restore(data [][][]float64, coeffs [][]float64) ([]float64, error) {
+	w := f.get()
+	defer f.put(w)
+	if err := w.s.SetData(data); err != nil {
+		return nil, fmt.Errorf("restore: %w", err)
+	}
+	if err := f.flatten(w.alpha, coeffs); err != nil {
+		return nil, fmt.Errorf("restore: %w", err)
+	}
+	out := make([]float64, f.cfg.Patch*f.cfg.Patch)
+	w.s.Restore(out, w.alpha)
+	return out, nil
+}
+
+// Objective returns the objective E and the normalised metric L/P̄ of the
+// patch for given coefficients (nil = zero), without fitting.
+func (f *Fitter) Objective(data [][][]float64, coeffs [][]float64) (e, metric float64, err error) {
+	w := f.get()
+	defer f.put(w)
+	if err := w.s.SetData(data); err != nil {
+		return 0, 0, fmt.Errorf("objective: %w", err)
+	}
+	if err := f.flatten(w.alpha, coeffs); err != nil {
+		return 0, 0, fmt.Errorf("objective: %w", err)
+	}
+	e = w.s.ValueGrad(nil, w.alpha)
+	metric, _ = w.s.LastTerms()
+	return e, metric, nil
+}
+
+func (f *Fitter) flatten(dst []float64, c [][]float64) error {
+	m := f.basis.Count
+	if c == nil {
+		clear(dst)
+		return nil
+	}
+	if len(c) != f.cfg.Frames {
+		return fmt.Errorf("coefficients for %d frames, want %d", len(c), f.cfg.Frames)
+	}
+	for j, row := range c {
+		if len(row) != m {
+			return fmt.Errorf("frame %d has %d coefficients, want %d", j, len(row), m)
+		}
+		for k, v := range row {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("frame %d coefficient %d is %g", j, k, v)
+			}
+			dst[j*m+k] = v
+		}
+	}
+	return nil
+}
+
+// eval computes value and gradient in the scaled variables x (α = scale·x),
+// caching the last point: gonum asks for Func and Grad separately at the
+// same x.
+func (f *Fitter) eval(w *worker, x []float64) {
+	if w.valid {
+		same := true
+		for i, v := range x {
+			if v != w.cacheX[i] {
+				same = false
+				break
+			}
+		}
+		if same {
+			return
+		}
+	}
+	m := f.basis.Count
+	for i, v := range x {
+		w.alpha[i] = v * f.scale[i%m]
+	}
+	w.cacheF = w.s.ValueGrad(w.grad, w.alpha)
+	for i, g := range w.grad {
+		if i%m < w.active {
+			w.cacheG[i] = g * f.scale[i%m]
+		} else {
+			w.cacheG[i] = 0
+		}
+	}
+	copy(w.cacheX, x)
+	w.valid = true
+	w.evals++
+}
+
+func (f *Fitter) fit(data [][][]float64, start [][]float64, restore bool) (*Result, error) {
+	t0 := time.Now()
+	w := f.get()
+	defer f.put(w)
+	if err := w.s.SetData(data); err != nil {
+		return nil, fmt.Errorf("fit: %w", err)
+	}
+	if err := f.flatten(w.alpha, start); err != nil {
+		return nil, fmt.Errorf("fit: start: %w", err)
+	}
+	if start == nil && f.cfg.RegisterTilt && f.cfg.Frames > 1 {
+		m := f.basis.Count
+		for j, s := range w.reg.shifts(data[f.refCh]) {
+			for k := 0; k < m; k++ {
+				w.alpha[j*m+k] += s[0]*f.tiltX[k] + s[1]*f.tiltY[k]
+			}
+		}
+	}
+	w.s.Constrain(w.alpha)
+	m := f.basis.Count
+	res := &Result{StartNoll: make([][]float64, f.cfg.Frames)}
+	for j := range res.StartNoll {
+		res.StartNoll[j] = make([]float64, m)
+		f.basis.NollEquivalent(res.StartNoll[j], w.alpha[j*m:(j+1)*m])
+	}
+	x0 := make([]float64, len(w.alpha))
+	for i, a := range w.alpha {
+		x0[i] = a / f.scale[i%m]
+	}
+	w.valid, w.evals = false, 0
+	res.MetricStart = w.s.ValueGrad(nil, w.alpha)
+	res.DataStart, _ = w.s.LastTerms()
+	prob := optimize.Problem{
+		Func: func(x []float64) float64 { f.eval(w, x); return w.cacheF },
+		Grad: func(g, x []float64) { f.eval(w, x); copy(g, w.cacheG) },
+	}
+	st := f.cfg.Stop
+	set := &optimize.Settings{
+		MajorIterations: st.Iterations,
+		Runtime:         st.WallTime,
+		Converger:       optimize.NeverTerminate{},
+	}
+	if st.RelChange > 0 {
+		set.Converger = &optimize.FunctionConverge{Relative: st.RelChange, Iterations: 3}
+	}
+	xBest := x0
+	fBest := res.MetricStart
+	status := "start"
+	for _, act := range f.stages() {
+		w.active = act
+		w.valid = false
+		or, err := optimize.Minimize(prob, xBest, set, &optimize.LBFGS{Store: 10})
+		if or != nil {
+			status = or.Status.String()
+			res.Iterations += or.MajorIterations
+			if or.F <= fBest && or.X != nil {
+				xBest, fBest = or.X, or.F
+			}
+		}
+		if err != nil {
+			// Line-search failures near the optimum are not fatal: keep the best point.
+			status = fmt.Sprintf("%s (%v)", status, err)
+		}
+	}
+	res.Status = status
+	for i, v := range xBest {
+		w.alpha[i] = v * f.scale[i%m]
+	}
+	w.s.Constrain(w.alpha)
+	res.MetricEnd = w.s.ValueGrad(nil, w.alpha)
+	res.DataEnd, _ = w.s.LastTerms()
+	res.Evaluations = w.evals
+	res.Coeffs = make([][]float64, f.cfg.Frames)
+	res.Noll = make([][]float64, f.cfg.Frames)
+	for j := range res.Coeffs {
+		res.Coeffs[j] = append([]float64(nil), w.alpha[j*m:(j+1)*m]...)
+		res.Noll[j] = make([]float64, m)
+		f.basis.NollEquivalent(res.Noll[j], res.Coeffs[j])
+	}
+	if restore {
+		res.Restored = make([]float64, f.cfg.Patch*f.cfg.Patch)
+		w.s.Restore(res.Restored, w.alpha)
+	}
+	res.Elapsed = time.Since(t0)
+	return res, nil
+}
+
+// stages returns the number of free modes in each optimisation stage:
+// the low orders first, then all (coarse-to-fine in the modes).
+func (f *Fitter) stages() []int {
+	m := f.basis.Count
+	var st []int
+	for _, k := range f.cfg.Stages {
+		if k > 0 && k < m && (len(st) == 0 || k > st[len(st)-1]) {
+			st = append(st, k)
+		}
+	}
+	return append(st, m)
+}
+
+// Patch is one job for FitAll: the data and an optional start.
+type Patch struct {
+	Data  [][][]float64 // data[channel][frame], N×N each
+	Start [][]float64   // frames × modes native coefficients; nil = zero
+}
+
+// FitAll fits the patches in parallel with the given number of workers
+// (≤ 0: one per core), each owning one Solver. results[i] is nil where
+// errs[i] is not; the returned error joins all per-patch errors (nil if
+// all succeeded).
+func (f *Fitter) FitAll(patches []Patch, workers int) (results []*Result, err error) {
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	if workers > len(patches) {
+		workers = len(patches)
+	}
+	results = make([]*Result, len(patches))
+	errs := make([]error, len(patches))
+	jobs := make(chan int)
+	var wg sync.WaitGroup
+	for range workers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := range jobs {
+				r, e := f.Fit(patches[i].Data, patches[i].Start)
+				if e != nil {
+					errs[i] = fmt.Errorf("patch %d: %w", i, e)
+					continue
+				}
+				results[i] = r
+			}
+		}()
+	}
+	for i := range patches {
+		jobs <- i
+	}
+	close(jobs)
+	wg.Wait()
+	return results, errors.Join(errs...)
+}
