@@ -88,7 +88,7 @@ func DefaultConfig() Config {
 		Basis:        modes.KindKL,
 		Modes:        36,
 		DOverR0:      5,
-		Prior:        0.1,
+		Prior:        0.01,
 		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3},
 		Stop:         Stop{Iterations: 200, RelChange: 1e-6},
 		RegisterTilt: true,
