@@ -14,14 +14,8 @@ type Plan struct {
 	col    *plan1
 	a, b   []complex128 // ny*nx scratch for the column pass
 	half   []complex128 // ny*(nx/2+1) half spectrum for the real transforms
-	blk    []complex128 // rowBlock*nx: a block of rows, interleaved
-	sa, sb []complex128 // rowBlock*nx scratch for the row pass
+	sa, sb []complex128 // nx scratch for the row pass
 }
-
-// rowBlock is the number of rows transformed together in the row pass:
-// they are interleaved (x slowest) so that every butterfly works on
-// rowBlock contiguous values, like the column pass.
-const rowBlock = 8
 
 // NewPlan returns a plan for ny×nx transforms. It panics if ny < 1 or nx < 1.
 func NewPlan(ny, nx int) *Plan {
@@ -38,9 +32,8 @@ func NewPlan(ny, nx int) *Plan {
 	p.a = make([]complex128, ny*nx)
 	p.b = make([]complex128, ny*nx)
 	p.half = make([]complex128, ny*(nx/2+1))
-	p.blk = make([]complex128, rowBlock*nx)
-	p.sa = make([]complex128, rowBlock*nx)
-	p.sb = make([]complex128, rowBlock*nx)
+	p.sa = make([]complex128, nx)
+	p.sb = make([]complex128, nx)
 	return p
 }
 
@@ -236,34 +229,12 @@ func (p *Plan) transform(dst, src []complex128, inverse bool) {
 	p.rows(dst, p.ny, inverse)
 }
 
-// rows transforms in place the first n rows (length nx) of x. With the
-// vector kernels, blocks of rowBlock rows are interleaved so that the
-// butterflies run over contiguous lanes; otherwise row by row.
+// rows transforms in place the first n rows (length nx) of x.
 func (p *Plan) rows(x []complex128, n int, inverse bool) {
 	nx := p.nx
-	if !useVec || nx == 1 {
-		for y := 0; y < n; y++ {
-			r := x[y*nx : (y+1)*nx]
-			p.row.run(r, r, p.sa, p.sb, 1, inverse)
-		}
-		return
-	}
-	for y0 := 0; y0 < n; y0 += rowBlock {
-		b := min(rowBlock, n-y0)
-		blk := p.blk[:b*nx]
-		for r := 0; r < b; r++ {
-			row := x[(y0+r)*nx : (y0+r+1)*nx]
-			for j, v := range row {
-				blk[j*b+r] = v
-			}
-		}
-		p.row.run(blk, blk, p.sa, p.sb, b, inverse)
-		for r := 0; r < b; r++ {
-			row := x[(y0+r)*nx : (y0+r+1)*nx]
-			for j := range row {
-				row[j] = blk[j*b+r]
-			}
-		}
+	for y := 0; y < n; y++ {
+		r := x[y*nx : (y+1)*nx]
+		p.row.run(r, r, p.sa, p.sb, 1, inverse)
 	}
 }
 

@@ -45,3 +45,13 @@ func r2vec(y0, y1, x0, x1 *complex128, n int, w *complex128)
 
 //go:noescape
 func r2vecNoTw(y0, y1, x0, x1 *complex128, n int)
+
+//go:noescape
+func r4s1vec(y, x *complex128, m int, tv *float64, mask *[4]uint64)
+
+// Sign masks for r4s1vec: negate the imaginary (forward) or real
+// (inverse) lanes.
+var (
+	maskNegOdd  = [4]uint64{0, 1 << 63, 0, 1 << 63}
+	maskNegEven = [4]uint64{1 << 63, 0, 1 << 63, 0}
+)

@@ -192,3 +192,65 @@ r2nloop:
 	JLT r2nloop
 	VZEROUPPER
 	RET
+
+// func r4s1vec(y, x *complex128, m int, tv *float64, mask *[4]uint64)
+//
+// First radix-4 stage (stride 1) vectorised over p, two values of p per
+// YMM register: reads x[p+j*m], j < 4, writes y[4p+k] = w_k(p)·b_k(p).
+// tv holds per pair of p the six vectors WR1, WI1, WR2, WI2, WR3, WI3
+// (24 float64); mask negates the lanes that turn d into ∓i·d (forward:
+// negodd, inverse: negeven). m must be even and >= 2.
+TEXT ·r4s1vec(SB), NOSPLIT, $0-40
+	MOVQ y+0(FP), DI
+	MOVQ x+8(FP), R8
+	MOVQ m+16(FP), CX
+	MOVQ tv+24(FP), DX
+	MOVQ mask+32(FP), AX
+	VMOVUPD (AX), Y15
+	MOVQ CX, BX
+	SHLQ $4, BX // m*16 bytes: distance between x_j
+	LEAQ (R8)(BX*1), R9
+	LEAQ (R9)(BX*1), R10
+	LEAQ (R10)(BX*1), R11
+	SHRQ $1, CX // pairs
+	XORQ AX, AX
+
+r4s1loop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VMOVUPD (R10)(AX*1), Y2
+	VMOVUPD (R11)(AX*1), Y3
+	VADDPD Y2, Y0, Y4 // t0
+	VSUBPD Y2, Y0, Y5 // t1
+	VADDPD Y3, Y1, Y6 // t2
+	VSUBPD Y3, Y1, Y7 // d
+	VPERMILPD $5, Y7, Y7
+	VXORPD Y15, Y7, Y7 // t3
+	VADDPD Y6, Y4, Y0 // B0
+	VSUBPD Y6, Y4, Y2 // B2
+	VADDPD Y7, Y5, Y1 // B1
+	VSUBPD Y7, Y5, Y3 // B3
+	VPERMILPD $5, Y1, Y8
+	VMULPD 0(DX), Y1, Y1
+	VFMADD231PD 32(DX), Y8, Y1
+	VPERMILPD $5, Y2, Y8
+	VMULPD 64(DX), Y2, Y2
+	VFMADD231PD 96(DX), Y8, Y2
+	VPERMILPD $5, Y3, Y8
+	VMULPD 128(DX), Y3, Y3
+	VFMADD231PD 160(DX), Y8, Y3
+	VPERM2F128 $0x20, Y1, Y0, Y4 // b0(p), b1(p)
+	VPERM2F128 $0x20, Y3, Y2, Y5 // b2(p), b3(p)
+	VPERM2F128 $0x31, Y1, Y0, Y6 // b0(p+1), b1(p+1)
+	VPERM2F128 $0x31, Y3, Y2, Y7 // b2(p+1), b3(p+1)
+	VMOVUPD Y4, 0(DI)
+	VMOVUPD Y5, 32(DI)
+	VMOVUPD Y6, 64(DI)
+	VMOVUPD Y7, 96(DI)
+	ADDQ $128, DI
+	ADDQ $192, DX
+	ADDQ $32, AX
+	DECQ CX
+	JNZ r4s1loop
+	VZEROUPPER
+	RET

@@ -42,3 +42,31 @@ func r2vecNoTw(y0, y1, x0, x1 *complex128, n int) {
 	w := complex128(1)
 	r2vec(y0, y1, x0, x1, n, &w)
 }
+
+var (
+	maskNegOdd  = [4]uint64{0, 1 << 63, 0, 1 << 63}
+	maskNegEven = [4]uint64{1 << 63, 0, 1 << 63, 0}
+)
+
+// r4s1vec is the portable equivalent of the amd64 kernel (see
+// kernels_amd64.s); it is not used when useVec is false.
+func r4s1vec(y, x *complex128, m int, tv *float64, mask *[4]uint64) {
+	xs := unsafe.Slice(x, 4*m)
+	ys := unsafe.Slice(y, 4*m)
+	t := unsafe.Slice(tv, 12*m)
+	inv := mask[0] != 0
+	for p := 0; p < m; p++ {
+		a0, a1, a2, a3 := xs[p], xs[p+m], xs[p+2*m], xs[p+3*m]
+		t0, t1, t2, d := a0+a2, a0-a2, a1+a3, a1-a3
+		t3 := complex(imag(d), -real(d))
+		if inv {
+			t3 = -t3
+		}
+		b := [4]complex128{t0 + t2, t1 + t3, t0 - t2, t1 - t3}
+		ys[4*p] = b[0]
+		for k := 1; k < 4; k++ {
+			o := (p/2)*24 + (k-1)*8 + 2*(p%2)
+			ys[4*p+k] = b[k] * complex(t[o], t[o+5])
+		}
+	}
+}

@@ -30,6 +30,23 @@ type stage struct {
 	r, m, s int
 	tw      []complex128 // tw[p*(r-1)+k-1] = exp(-2πi p k/(r m)), p < m, 1 ≤ k < r
 	twi     []complex128 // conjugate of tw, for the inverse transform
+
+	// Twiddles of a first radix-4 stage laid out for r4s1vec (forward
+	// and inverse); nil unless r == 4, s == 1 and m is even.
+	tv, tvi []float64
+}
+
+// vecTwiddles lays out radix-4 twiddles for r4s1vec: per pair of p, the
+// vectors (wr, wr, wr', wr') and (-wi, wi, -wi', wi') for k = 1, 2, 3.
+func vecTwiddles(tw []complex128, m int) []float64 {
+	t := make([]float64, 0, 12*m)
+	for p := 0; p < m; p += 2 {
+		for k := 0; k < 3; k++ {
+			a, b := tw[3*p+k], tw[3*(p+1)+k]
+			t = append(t, real(a), real(a), real(b), real(b), -imag(a), imag(a), -imag(b), imag(b))
+		}
+	}
+	return t
 }
 
 // factor splits n into radices 8, 4, 3, 5, 2 (at most one eight and one
@@ -89,6 +106,10 @@ func newPlan1(n int) *plan1 {
 					st.tw[q*(r-1)+k-1] = w
 					st.twi[q*(r-1)+k-1] = conj(w)
 				}
+			}
+			if r == 4 && s == 1 && m%2 == 0 {
+				st.tv = vecTwiddles(st.tw, m)
+				st.tvi = vecTwiddles(st.twi, m)
 			}
 			p.stages = append(p.stages, st)
 			s *= r
@@ -169,7 +190,13 @@ func (st *stage) apply(dst, src []complex128, v int, inv bool) {
 	s := st.s * v
 	switch st.r {
 	case 4:
-		if s == 1 {
+		if s == 1 && useVec && st.tv != nil {
+			if inv {
+				r4s1vec(&dst[0], &src[0], st.m, &st.tvi[0], &maskNegEven)
+			} else {
+				r4s1vec(&dst[0], &src[0], st.m, &st.tv[0], &maskNegOdd)
+			}
+		} else if s == 1 {
 			radix4s1(dst, src, st.m, tw, inv)
 		} else {
 			radix4(dst, src, st.m, s, tw, inv)
