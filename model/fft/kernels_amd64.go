@@ -55,3 +55,9 @@ var (
 	maskNegOdd  = [4]uint64{0, 1 << 63, 0, 1 << 63}
 	maskNegEven = [4]uint64{1 << 63, 0, 1 << 63, 0}
 )
+
+//go:noescape
+func r3vec(y0, y1, y2, x0, x1, x2 *complex128, n int, wt *[4][4]float64)
+
+//go:noescape
+func r5vec(y0, y1, y2, y3, y4, x0, x1, x2, x3, x4 *complex128, n int, wt *[8][4]float64)

@@ -254,3 +254,148 @@ r4s1loop:
 	JNZ r4s1loop
 	VZEROUPPER
 	RET
+
+// Radix-3 and radix-5 constants, broadcast.
+DATA r3c<>+0(SB)/8, $0.5
+DATA r3c<>+8(SB)/8, $0.86602540378443864676 // sin(2π/3)
+GLOBL r3c<>(SB), RODATA|NOPTR, $16
+
+// func r3vec(y0, y1, y2, x0, x1, x2 *complex128, n int, wt *[4][4]float64)
+//
+// Forward radix-3 butterflies over n (even) complex values:
+// t1 = a1+a2, t = a0 - t1/2, u = -i·sin(2π/3)·(a1-a2);
+// y0 = a0+t1, y1 = (t+u)·w1, y2 = (t-u)·w2. wt holds WR1, WI1, WR2, WI2.
+TEXT ·r3vec(SB), NOSPLIT, $0-64
+	MOVQ y0+0(FP), DI
+	MOVQ y1+8(FP), SI
+	MOVQ y2+16(FP), BX
+	MOVQ x0+24(FP), R8
+	MOVQ x1+32(FP), R9
+	MOVQ x2+40(FP), R10
+	MOVQ n+48(FP), CX
+	MOVQ wt+56(FP), DX
+	SHLQ $4, CX
+	VBROADCASTSD r3c<>+0(SB), Y12
+	VBROADCASTSD r3c<>+8(SB), Y13
+	VMOVUPD negodd<>(SB), Y14
+	VMOVUPD 0(DX), Y8
+	VMOVUPD 32(DX), Y9
+	VMOVUPD 64(DX), Y10
+	VMOVUPD 96(DX), Y11
+	XORQ AX, AX
+
+r3loop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VMOVUPD (R10)(AX*1), Y2
+	VADDPD Y2, Y1, Y3 // t1
+	VSUBPD Y2, Y1, Y4 // d
+	VADDPD Y3, Y0, Y5 // y0
+	VMOVUPD Y5, (DI)(AX*1)
+	VFNMADD231PD Y12, Y3, Y0 // t = a0 - t1/2
+	VPERMILPD $5, Y4, Y4
+	VXORPD Y14, Y4, Y4
+	VMULPD Y13, Y4, Y4 // u = sin60·(di, -dr)
+	VADDPD Y4, Y0, Y1 // t+u
+	VSUBPD Y4, Y0, Y2 // t-u
+	VPERMILPD $5, Y1, Y3
+	VMULPD Y8, Y1, Y1
+	VFMADD231PD Y9, Y3, Y1
+	VMOVUPD Y1, (SI)(AX*1)
+	VPERMILPD $5, Y2, Y3
+	VMULPD Y10, Y2, Y2
+	VFMADD231PD Y11, Y3, Y2
+	VMOVUPD Y2, (BX)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r3loop
+	VZEROUPPER
+	RET
+
+DATA r5c<>+0(SB)/8, $0.30901699437494742410  // cos(2π/5)
+DATA r5c<>+8(SB)/8, $-0.80901699437494742410 // cos(4π/5)
+DATA r5c<>+16(SB)/8, $0.95105651629515357212 // sin(2π/5)
+DATA r5c<>+24(SB)/8, $0.58778525229247312917 // sin(4π/5)
+GLOBL r5c<>(SB), RODATA|NOPTR, $32
+
+// func r5vec(y0, y1, y2, y3, y4, x0, x1, x2, x3, x4 *complex128, n int, wt *[8][4]float64)
+//
+// Forward radix-5 butterflies over n (even) complex values (see radix5):
+// t1 = a1+a4, t2 = a2+a3, t3 = a1-a4, t4 = a2-a3,
+// r1 = a0 + c1 t1 + c2 t2, r2 = a0 + c2 t1 + c1 t2,
+// E1 = s1 t3 + s2 t4, E2 = s2 t3 - s1 t4,
+// y1 = (r1 - iE1)w1, y4 = (r1 + iE1)w4, y2 = (r2 - iE2)w2, y3 = (r2 + iE2)w3.
+// wt holds WR1, WI1, ..., WR4, WI4.
+TEXT ·r5vec(SB), NOSPLIT, $0-96
+	MOVQ x0+40(FP), R8
+	MOVQ x1+48(FP), R9
+	MOVQ x2+56(FP), R10
+	MOVQ x3+64(FP), R11
+	MOVQ x4+72(FP), R12
+	MOVQ n+80(FP), CX
+	MOVQ wt+88(FP), DX
+	MOVQ y0+0(FP), DI
+	MOVQ y1+8(FP), SI
+	MOVQ y2+16(FP), BX
+	MOVQ y3+24(FP), R13
+	MOVQ y4+32(FP), R14
+	SHLQ $4, CX
+	VBROADCASTSD r5c<>+0(SB), Y10
+	VBROADCASTSD r5c<>+8(SB), Y11
+	VBROADCASTSD r5c<>+16(SB), Y12
+	VBROADCASTSD r5c<>+24(SB), Y13
+	VMOVUPD negodd<>(SB), Y14
+	XORQ AX, AX
+
+r5loop:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VMOVUPD (R10)(AX*1), Y2
+	VMOVUPD (R11)(AX*1), Y3
+	VMOVUPD (R12)(AX*1), Y4
+	VADDPD Y4, Y1, Y5 // t1
+	VSUBPD Y4, Y1, Y6 // t3
+	VADDPD Y3, Y2, Y7 // t2
+	VSUBPD Y3, Y2, Y8 // t4
+	VADDPD Y7, Y5, Y9
+	VADDPD Y0, Y9, Y9 // y0
+	VMOVUPD Y9, (DI)(AX*1)
+	VMOVAPD Y0, Y1
+	VFMADD231PD Y10, Y5, Y1 // r1 = a0 + c1 t1
+	VFMADD231PD Y11, Y7, Y1 //      + c2 t2
+	VMOVAPD Y0, Y2
+	VFMADD231PD Y11, Y5, Y2 // r2 = a0 + c2 t1
+	VFMADD231PD Y10, Y7, Y2 //      + c1 t2
+	VMULPD Y12, Y6, Y3      // E1 = s1 t3
+	VFMADD231PD Y13, Y8, Y3 //      + s2 t4
+	VMULPD Y13, Y6, Y4      // E2 = s2 t3
+	VFNMADD231PD Y12, Y8, Y4 //     - s1 t4
+	VPERMILPD $5, Y3, Y3
+	VXORPD Y14, Y3, Y3 // -i·E1
+	VPERMILPD $5, Y4, Y4
+	VXORPD Y14, Y4, Y4 // -i·E2
+	VADDPD Y3, Y1, Y5 // b1
+	VSUBPD Y3, Y1, Y6 // b4
+	VADDPD Y4, Y2, Y7 // b2
+	VSUBPD Y4, Y2, Y8 // b3
+	VPERMILPD $5, Y5, Y9
+	VMULPD 0(DX), Y5, Y5
+	VFMADD231PD 32(DX), Y9, Y5
+	VMOVUPD Y5, (SI)(AX*1)
+	VPERMILPD $5, Y7, Y9
+	VMULPD 64(DX), Y7, Y7
+	VFMADD231PD 96(DX), Y9, Y7
+	VMOVUPD Y7, (BX)(AX*1)
+	VPERMILPD $5, Y8, Y9
+	VMULPD 128(DX), Y8, Y8
+	VFMADD231PD 160(DX), Y9, Y8
+	VMOVUPD Y8, (R13)(AX*1)
+	VPERMILPD $5, Y6, Y9
+	VMULPD 192(DX), Y6, Y6
+	VFMADD231PD 224(DX), Y9, Y6
+	VMOVUPD Y6, (R14)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r5loop
+	VZEROUPPER
+	RET

@@ -379,8 +379,24 @@ func radix3(dst, src []complex128, m, s int, tw []complex128, inv bool) {
 		x1, x2 = x1[:len(x0)], x2[:len(x0)]
 		y0, y1, y2 = y0[:len(x0)], y1[:len(x0)], y2[:len(x0)]
 		w1, w2 := tw[2*p], tw[2*p+1]
-		for q, a0 := range x0 {
-			a1, a2 := x1[q], x2[q]
+		q0 := 0
+		if useVec && len(x0) >= 2 {
+			q0 = len(x0) &^ 1
+			var wt [4][4]float64
+			if inv {
+				// IDFT(x)[k] = DFT(x)[-k]: forward kernel, outputs 1 and 2
+				// exchanged.
+				setBroadcast(wt[0:2], w2)
+				setBroadcast(wt[2:4], w1)
+				r3vec(&y0[0], &y2[0], &y1[0], &x0[0], &x1[0], &x2[0], q0, &wt)
+			} else {
+				setBroadcast(wt[0:2], w1)
+				setBroadcast(wt[2:4], w2)
+				r3vec(&y0[0], &y1[0], &y2[0], &x0[0], &x1[0], &x2[0], q0, &wt)
+			}
+		}
+		for q := q0; q < len(x0); q++ {
+			a0, a1, a2 := x0[q], x1[q], x2[q]
 			t1 := a1 + a2
 			t := a0 - 0.5*t1
 			d := a1 - a2
@@ -424,8 +440,27 @@ func radix5(dst, src []complex128, m, s int, tw []complex128, inv bool) {
 		x1, x2, x3, x4 = x1[:len(x0)], x2[:len(x0)], x3[:len(x0)], x4[:len(x0)]
 		y0, y1, y2, y3, y4 = y0[:len(x0)], y1[:len(x0)], y2[:len(x0)], y3[:len(x0)], y4[:len(x0)]
 		w1, w2, w3, w4 := tw[4*p], tw[4*p+1], tw[4*p+2], tw[4*p+3]
-		for q, a0 := range x0 {
-			a1, a2, a3, a4 := x1[q], x2[q], x3[q], x4[q]
+		q0 := 0
+		if useVec && len(x0) >= 2 {
+			q0 = len(x0) &^ 1
+			var wt [8][4]float64
+			if inv {
+				// Forward kernel with outputs k and 5-k exchanged.
+				setBroadcast(wt[0:2], w4)
+				setBroadcast(wt[2:4], w3)
+				setBroadcast(wt[4:6], w2)
+				setBroadcast(wt[6:8], w1)
+				r5vec(&y0[0], &y4[0], &y3[0], &y2[0], &y1[0], &x0[0], &x1[0], &x2[0], &x3[0], &x4[0], q0, &wt)
+			} else {
+				setBroadcast(wt[0:2], w1)
+				setBroadcast(wt[2:4], w2)
+				setBroadcast(wt[4:6], w3)
+				setBroadcast(wt[6:8], w4)
+				r5vec(&y0[0], &y1[0], &y2[0], &y3[0], &y4[0], &x0[0], &x1[0], &x2[0], &x3[0], &x4[0], q0, &wt)
+			}
+		}
+		for q := q0; q < len(x0); q++ {
+			a0, a1, a2, a3, a4 := x0[q], x1[q], x2[q], x3[q], x4[q]
 			t1 := a1 + a4
 			t2 := a2 + a3
 			t3 := a1 - a4
@@ -443,6 +478,14 @@ func radix5(dst, src []complex128, m, s int, tw []complex128, inv bool) {
 			y3[q] = (r2 - i2) * w3
 		}
 	}
+}
+
+// setBroadcast stores w as the vectors (wr, wr, wr, wr) and
+// (-wi, wi, -wi, wi) used by the vector kernels for a complex product.
+func setBroadcast(dst [][4]float64, w complex128) {
+	wr, wi := real(w), imag(w)
+	dst[0] = [4]float64{wr, wr, wr, wr}
+	dst[1] = [4]float64{-wi, wi, -wi, wi}
 }
 
 // bluestein computes the DFT of each of the v lanes through a circular
