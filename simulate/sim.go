@@ -1,0 +1,484 @@
+package simulate
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"sync"
+
+	"pdwave/model/burst"
+	"pdwave/model/fft"
+	"pdwave/model/modes"
+	"pdwave/model/optics"
+)
+
+// Config is everything physical a Simulator needs, in SI units.
+type Config struct {
+	Telescope     optics.Telescope
+	DiversityPV   float64    // defocus of channel 2, peak-to-valley waves (DESIGN §3)
+	Turbulence    Turbulence // R0 is the default; Options.R0 overrides per burst
+	FrameInterval float64    // s between frames
+	Camera        Camera
+	Patch         int        // patch and pupil grid side N, px
+	Frames        int        // frames per burst
+	Basis         modes.Kind // basis of the truth coefficients
+	Modes         int        // number of modes, piston excluded
+}
+
+// Validate reports whether the configuration is usable.
+func (c Config) Validate() error {
+	if err := c.Telescope.CheckSampling(max(c.Patch, 1)); err != nil {
+		return fmt.Errorf("simulate: %w", err)
+	}
+	if err := c.Turbulence.Validate(); err != nil {
+		return err
+	}
+	if err := c.Camera.Validate(); err != nil {
+		return err
+	}
+	switch {
+	case c.Patch < 8:
+		return fmt.Errorf("simulate: patch size %d px, need at least 8", c.Patch)
+	case c.Frames < 1:
+		return fmt.Errorf("simulate: %d frames, need at least 1", c.Frames)
+	case !(c.FrameInterval >= 0) || math.IsInf(c.FrameInterval, 0):
+		return fmt.Errorf("simulate: frame interval %g s, need a finite value ≥ 0", c.FrameInterval)
+	case math.IsNaN(c.DiversityPV) || math.IsInf(c.DiversityPV, 0):
+		return fmt.Errorf("simulate: diversity %g waves is not finite", c.DiversityPV)
+	case c.Modes < 1:
+		return fmt.Errorf("simulate: %d modes, need at least 1", c.Modes)
+	}
+	return nil
+}
+
+// Options tune one burst. The zero value gives granulation with the
+// default GranulationParams, the Config's r0, subharmonics on, and all
+// cores.
+type Options struct {
+	R0             float64           // Fried parameter at the observing wavelength, m; 0 = Config.Turbulence.R0
+	Scene          GranulationParams // look of the granulation; its Contrast is set at the diffraction limit (see Simulator)
+	Object         []float64         // user object map (row-major ObjectNx×ObjectNy, any positive scale); nil = granulation
+	ObjectNx       int
+	ObjectNy       int
+	NoSubharmonics bool // draw screens without subharmonics
+	KeepPhases     bool // Patch: return each frame's wavefront in Result.Phases
+	NodeSpacing    int  // Field: spacing of the PSF grid, px; 0 = Patch/2
+	Workers        int  // goroutines; 0 = GOMAXPROCS
+}
+
+// Result is one simulated burst with what produced it.
+type Result struct {
+	Burst      *burst.Burst
+	R0         float64     // Fried parameter used, m, at the observing wavelength
+	Atmosphere *Atmosphere // the layers (screens) used; Phase gives the wavefront anywhere
+	Phases     [][]float64 // Patch with KeepPhases: per frame, N*N wavefront on the pupil grid, rad
+	// Times holds the time of each frame, s (frame f at f·FrameInterval).
+	Times []float64
+	// Field bursts: the canvas pixel of the field centre is (Nx/2, Ny/2)
+	// of the burst; pixel (x, y) lies at field angle ((x−Nx/2)·p, (y−Ny/2)·p).
+}
+
+// Simulator makes bursts for one Config. It holds the pupil, basis and
+// diversity; it is read-only after New and safe for concurrent use (each
+// call makes its own work buffers).
+type Simulator struct {
+	cfg   Config
+	pupil *optics.Pupil
+	basis *modes.Basis
+	div   [2][]float64 // diversity phase of each channel on the pupil grid, rad
+	dx    float64      // pupil grid pixel, m
+	gens  *genPool
+}
+
+// New returns a Simulator for cfg, or an error if cfg is invalid.
+func New(cfg Config) (*Simulator, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	pupil, err := optics.NewPupil(cfg.Telescope, cfg.Patch)
+	if err != nil {
+		return nil, fmt.Errorf("simulate: %w", err)
+	}
+	basis, err := modes.New(cfg.Basis, cfg.Modes, cfg.Patch, pupil.Radius)
+	if err != nil {
+		return nil, fmt.Errorf("simulate: %w", err)
+	}
+	s := &Simulator{cfg: cfg, pupil: pupil, basis: basis, gens: &genPool{}}
+	n := cfg.Patch
+	s.div[0] = make([]float64, n*n)
+	s.div[1] = make([]float64, n*n)
+	pupil.Defocus(s.div[1], cfg.DiversityPV)
+	s.dx = cfg.Telescope.Diameter / (2 * pupil.Radius)
+	return s, nil
+}
+
+// Config returns the simulator's configuration.
+func (s *Simulator) Config() Config { return s.cfg }
+
+// Pupil returns the pupil (shared; do not modify).
+func (s *Simulator) Pupil() *optics.Pupil { return s.pupil }
+
+// Basis returns the basis of the truth coefficients (shared; do not modify).
+func (s *Simulator) Basis() *modes.Basis { return s.basis }
+
+// PupilPixel returns the size of a pupil-grid pixel in metres, D/(2·Radius).
+func (s *Simulator) PupilPixel() float64 { return s.dx }
+
+func (s *Simulator) workers(o Options) int {
+	if o.Workers > 0 {
+		return o.Workers
+	}
+	return runtime.GOMAXPROCS(0)
+}
+
+func (s *Simulator) turbulence(o Options) (Turbulence, error) {
+	t := s.cfg.Turbulence
+	if o.R0 != 0 {
+		if !(o.R0 > 0) || math.IsInf(o.R0, 0) {
+			return t, fmt.Errorf("simulate: r0 = %g m, need a positive finite value", o.R0)
+		}
+		t.R0 = o.R0
+	}
+	return t, nil
+}
+
+// former convolves objects with the PSF pair of one frame on an m×m
+// canvas; one per goroutine.
+type former struct {
+	n, m  int
+	im    *optics.Imager
+	plan  *fft.Plan
+	phase []float64
+	psf   [2][]float64
+	buf   []complex128
+}
+
+func (s *Simulator) newFormer(m int) *former {
+	n := s.cfg.Patch
+	return &former{
+		n: n, m: m,
+		im:    optics.NewImager(s.pupil),
+		plan:  fft.NewPlan(m, m),
+		phase: make([]float64, n*n),
+		psf:   [2][]float64{make([]float64, n*n), make([]float64, n*n)},
+		buf:   make([]complex128, m*m),
+	}
+}
+
+// psfs computes the PSFs of both channels for the wavefront phase (N*N).
+func (f *former) psfs(s *Simulator, phase []float64) {
+	for c := 0; c < 2; c++ {
+		for i := range f.phase {
+			f.phase[i] = phase[i] + s.div[c][i]
+		}
+		f.im.PSF(f.psf[c], f.phase)
+	}
+}
+
+// blurPair sets f.buf to o⊗s0 + i·o⊗s1 (cyclic on the m×m canvas) for the
+// object spectrum objSpec and the current PSF pair: both PSFs are real, so
+// one transform carries both (real part channel 1, imaginary part
+// channel 2). The PSFs (N×N, centred on pixel 0) are embedded around
+// pixel 0 of the canvas; the canvas must be at least N wider than the
+// region read back for the result to be free of wrap-around.
+func (f *former) blurPair(objSpec []complex128) {
+	n, m := f.n, f.m
+	clear(f.buf)
+	for y := 0; y < n; y++ {
+		dy := y
+		if y >= n/2 {
+			dy = y - n
+		}
+		row := wrap(dy, m) * m
+		for x := 0; x < n; x++ {
+			dx := x
+			if x >= n/2 {
+				dx = x - n
+			}
+			k := y*n + x
+			f.buf[row+wrap(dx, m)] = complex(f.psf[0][k], f.psf[1][k])
+		}
+	}
+	f.plan.Forward(f.buf, f.buf)
+	for i, o := range objSpec {
+		f.buf[i] *= o
+	}
+	f.plan.Inverse(f.buf, f.buf)
+}
+
+func nextPow2(v int) int {
+	p := 1
+	for p < v {
+		p *= 2
+	}
+	return p
+}
+
+// object returns the object on an m×m canvas (mean ≈ 1 for granulation;
+// user maps scaled to mean 1) whose central region is the output.
+func (s *Simulator) object(rng *rand.Rand, o Options, mx, my int) ([]float64, error) {
+	obj := make([]float64, mx*my)
+	if o.Object == nil {
+		ps := s.cfg.Telescope.PixelScale * optics.RadToArcsec
+		if err := Granulation(obj, mx, my, ps, o.Scene, rng); err != nil {
+			return nil, err
+		}
+		return obj, nil
+	}
+	if o.ObjectNx < 1 || o.ObjectNy < 1 || len(o.Object) != o.ObjectNx*o.ObjectNy {
+		return nil, fmt.Errorf("simulate: object map of %d values is not %d×%d", len(o.Object), o.ObjectNx, o.ObjectNy)
+	}
+	if o.ObjectNx < mx || o.ObjectNy < my {
+		return nil, fmt.Errorf("simulate: object map %d×%d px is smaller than the %d×%d px canvas needed (output plus a margin of half a patch on each side)", o.ObjectNx, o.ObjectNy, mx, my)
+	}
+	// A random window of the map.
+	x0 := rng.IntN(o.ObjectNx - mx + 1)
+	y0 := rng.IntN(o.ObjectNy - my + 1)
+	var sum float64
+	for y := 0; y < my; y++ {
+		copy(obj[y*mx:y*mx+mx], o.Object[(y0+y)*o.ObjectNx+x0:])
+	}
+	for _, v := range obj {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, errors.New("simulate: object map holds a non-finite value")
+		}
+		sum += v
+	}
+	if !(sum > 0) {
+		return nil, errors.New("simulate: object map window has no positive flux")
+	}
+	mean := sum / float64(len(obj))
+	for i := range obj {
+		obj[i] /= mean
+	}
+	return obj, nil
+}
+
+// contrastFactor returns the factor k by which the fluctuations of the
+// object canvas obj (m×m, m that of f) must be stretched about their mean
+// so that the region [c0x, c0x+wx)×[c0y, c0y+wy) of its diffraction-limited
+// image (focused channel, no turbulence) has rms contrast target; 1 if that
+// image is flat.
+func (s *Simulator) contrastFactor(f *former, obj []float64, c0x, c0y, wx, wy int, target float64) float64 {
+	m := f.m
+	spec := make([]complex128, m*m)
+	f.plan.ForwardReal(spec, obj)
+	zero := make([]float64, s.cfg.Patch*s.cfg.Patch)
+	f.psfs(s, zero)
+	f.blurPair(spec)
+	crop := make([]float64, wx*wy)
+	for y := 0; y < wy; y++ {
+		for x := 0; x < wx; x++ {
+			crop[y*wx+x] = real(f.buf[(c0y+y)*m+c0x+x])
+		}
+	}
+	if c := Contrast(crop); c > 0 {
+		return target / c
+	}
+	return 1
+}
+
+// stretch maps obj in place to mean + (v − mean)·k, clipped below at 5 % of
+// the mean (so very high contrasts come out slightly lower).
+func stretch(obj []float64, k float64) {
+	var sum float64
+	for _, v := range obj {
+		sum += v
+	}
+	mean := sum / float64(len(obj))
+	for i, v := range obj {
+		obj[i] = math.Max(0.05*mean, mean+(v-mean)*k)
+	}
+}
+
+// frameSeeds draws two PCG seeds per frame and channel from rng, so the
+// noise of each frame is independent of how frames are spread over
+// goroutines.
+func frameSeeds(rng *rand.Rand, frames int) [][2][2]uint64 {
+	out := make([][2][2]uint64, frames)
+	for f := range out {
+		for c := 0; c < 2; c++ {
+			out[f][c] = [2]uint64{rng.Uint64(), rng.Uint64()}
+		}
+	}
+	return out
+}
+
+// parallel runs fn(i) for i in [0, n) on w goroutines, each with its own
+// worker index.
+func parallel(n, w int, fn func(worker, i int)) {
+	if w > n {
+		w = n
+	}
+	var wg sync.WaitGroup
+	next := make(chan int)
+	for k := 0; k < w; k++ {
+		wg.Add(1)
+		go func(k int) {
+			defer wg.Done()
+			for i := range next {
+				fn(k, i)
+			}
+		}(k)
+	}
+	for i := 0; i < n; i++ {
+		next <- i
+	}
+	close(next)
+	wg.Wait()
+}
+
+// finish turns expected images (mean ≈ 1 in object units) into camera
+// data in place: scale to photo-electrons by scale, then expose; the
+// object truth gets the same scale divided by the gain.
+func (s *Simulator) finish(b *burst.Burst, seeds [][2][2]uint64, scale float64, workers int) {
+	cam := s.cfg.Camera
+	if cam.Noiseless() {
+		return
+	}
+	g := cam.gain()
+	parallel(b.Frames, workers, func(_, f int) {
+		for c := 0; c < 2; c++ {
+			im := b.Data[c][f]
+			for i := range im {
+				im[i] *= scale
+			}
+			cam.expose(im, rand.New(rand.NewPCG(seeds[f][c][0], seeds[f][c][1])))
+		}
+	})
+	for i := range b.Object {
+		b.Object[i] *= scale / g
+	}
+}
+
+// optics returns the burst header optics of the configuration.
+func (s *Simulator) opticsHeader() burst.Optics {
+	t := s.cfg.Telescope
+	return burst.Optics{
+		Wavelength:  t.Wavelength,
+		PixelScale:  t.PixelScale,
+		Diameter:    t.Diameter,
+		Obscuration: t.Obscuration,
+		DiversityPV: s.cfg.DiversityPV,
+	}
+}
+
+// Truth returns the true coefficients of the wavefronts phases (each N*N on
+// the pupil grid, rad) in the simulator's basis: the pupil-mean is removed,
+// then the least-squares projection over ρ ≤ 1 (modes.Basis.Project), and
+// their Noll equivalents.
+func (s *Simulator) Truth(phases [][]float64) *burst.Truth {
+	b := s.basis
+	t := &burst.Truth{Basis: string(b.Kind), Modes: b.Count}
+	work := make([]float64, b.N*b.N)
+	for _, ph := range phases {
+		copy(work, ph)
+		var m float64
+		for _, i := range b.Index {
+			m += work[i]
+		}
+		m /= float64(len(b.Index))
+		for _, i := range b.Index {
+			work[i] -= m
+		}
+		c := make([]float64, b.Count)
+		b.Project(c, work, nil)
+		nl := make([]float64, b.Count)
+		b.NollEquivalent(nl, c)
+		t.Coeffs = append(t.Coeffs, c)
+		t.Noll = append(t.Noll, nl)
+	}
+	return t
+}
+
+// Patch simulates one N×N burst (N = Config.Patch) of Config.Frames frames
+// on axis, with Truth (the wavefront of every frame in the simulator's basis
+// and as Noll coefficients) and Object (the true object over the same
+// pixels, in the data's units before noise: ADU, or object units when the
+// camera is noiseless).
+//
+// Steps: the layers' screens are drawn (NewAtmosphere) to cover the burst
+// duration; the object is drawn on a canvas M = 2N rounded up to a power of
+// two, so light from outside the patch enters as it does on the sky; for
+// granulation its contrast is scaled so the diffraction-limited image of
+// the patch has rms contrast Options.Scene.Contrast (default 0.12). Each
+// frame's wavefront at t = f·FrameInterval gives PSFs for both channels
+// (channel 2 with the defocus diversity); the canvas is convolved and the
+// central N×N cropped; photons, read noise and quantisation follow the
+// Camera, the scale set so the object's mean over the patch gives Photons
+// electrons per pixel. Deterministic given rng.
+func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
+	turb, err := s.turbulence(o)
+	if err != nil {
+		return nil, err
+	}
+	n, frames := s.cfg.Patch, s.cfg.Frames
+	dur := float64(frames-1) * s.cfg.FrameInterval
+	atm, err := newAtmosphere(rng, turb, n, s.dx, Extent{Duration: dur}, !o.NoSubharmonics, s.gens)
+	if err != nil {
+		return nil, err
+	}
+	m := nextPow2(2 * n)
+	c0 := (m - n) / 2
+	obj, err := s.object(rng, o, m, m)
+	if err != nil {
+		return nil, err
+	}
+	seeds := frameSeeds(rng, frames)
+	workers := s.workers(o)
+	formers := make([]*former, min(workers, frames))
+	for i := range formers {
+		formers[i] = s.newFormer(m)
+	}
+	if o.Object == nil {
+		target := o.Scene.withDefaults().Contrast
+		stretch(obj, s.contrastFactor(formers[0], obj, c0, c0, n, n, target))
+	}
+	spec := make([]complex128, m*m)
+	formers[0].plan.ForwardReal(spec, obj)
+
+	b := burst.New(n, n, frames)
+	b.Optics = s.opticsHeader()
+	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames)}
+	phases := make([][]float64, frames)
+	parallel(frames, len(formers), func(w, f int) {
+		fm := formers[w]
+		t := float64(f) * s.cfg.FrameInterval
+		res.Times[f] = t
+		ph := make([]float64, n*n)
+		atm.Phase(ph, t, 0, 0)
+		phases[f] = ph
+		fm.psfs(s, ph)
+		fm.blurPair(spec)
+		for c := 0; c < 2; c++ {
+			im := b.Data[c][f]
+			for y := 0; y < n; y++ {
+				for x := 0; x < n; x++ {
+					v := fm.buf[(c0+y)*m+c0+x]
+					if c == 0 {
+						im[y*n+x] = real(v)
+					} else {
+						im[y*n+x] = imag(v)
+					}
+				}
+			}
+		}
+	})
+	b.Object = make([]float64, n*n)
+	var sum float64
+	for y := 0; y < n; y++ {
+		copy(b.Object[y*n:y*n+n], obj[(c0+y)*m+c0:])
+	}
+	for _, v := range b.Object {
+		sum += v
+	}
+	scale := s.cfg.Camera.Photons / (sum / float64(n*n))
+	s.finish(b, seeds, scale, workers)
+	b.Truth = s.Truth(phases)
+	if o.KeepPhases {
+		res.Phases = phases
+	}
+	return res, nil
+}

@@ -1,0 +1,64 @@
+package simulate
+
+import (
+	"math"
+	"math/rand/v2"
+	"reflect"
+	"testing"
+
+	"pdwave/model/site"
+)
+
+// TestDemoSite reads the demo site file and checks that the Config built
+// from it is the demo configuration used by the other tests (r0 at 600 nm
+// from 0.08 m at 500 nm by λ^(6/5), DESIGN.md §3), and that a site-level
+// Patch and Field run and are reproducible.
+func TestDemoSite(t *testing.T) {
+	s, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := ConfigFromSite(s)
+	want := demoConfig()
+	want.Turbulence.R0 = 0.08 * math.Pow(600.0/500, 1.2)
+	if math.Abs(got.Telescope.PixelScale-want.Telescope.PixelScale) > 1e-15 {
+		t.Errorf("pixel scale %g, want %g", got.Telescope.PixelScale, want.Telescope.PixelScale)
+	}
+	got.Telescope.PixelScale = want.Telescope.PixelScale
+	if math.Abs(got.Telescope.Wavelength/want.Telescope.Wavelength-1) < 1e-12 {
+		got.Telescope.Wavelength = want.Telescope.Wavelength
+	}
+	for i := range got.Turbulence.Layers {
+		if math.Abs(got.Turbulence.Layers[i].Direction-want.Turbulence.Layers[i].Direction) < 1e-12 {
+			got.Turbulence.Layers[i].Direction = want.Turbulence.Layers[i].Direction
+		}
+	}
+	if math.Abs(got.Turbulence.R0-want.Turbulence.R0) < 1e-12 {
+		got.Turbulence.R0 = want.Turbulence.R0
+	}
+	if !reflect.DeepEqual(got, want) {
+		t.Errorf("config from the demo site:\n got %+v\nwant %+v", got, want)
+	}
+	s.Sizes.Frames = 2
+	a, err := Patch(s, rand.New(rand.NewPCG(1, 2)), Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := Patch(s, rand.New(rand.NewPCG(1, 2)), Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(a, b) {
+		t.Error("site Patch not reproducible")
+	}
+	if a.Truth == nil || a.Truth.Modes != 36 || a.Truth.Basis != "kl" || a.Object == nil {
+		t.Errorf("truth %+v, object %d px", a.Truth, len(a.Object))
+	}
+	f, err := Field(s, rand.New(rand.NewPCG(1, 2)), 96, 80, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if f.Nx != 96 || f.Ny != 80 || f.Frames != 2 || f.Validate() != nil {
+		t.Errorf("field %d×%d×%d: %v", f.Nx, f.Ny, f.Frames, f.Validate())
+	}
+}
