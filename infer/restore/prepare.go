@@ -14,8 +14,10 @@ type Offset struct{ DX, DY float64 }
 
 // Prepare turns a burst into a restorable Field: it calibrates every frame
 // of b in place with cal (nil = none), measures the offset of the
-// burst-mean defocused image against the burst-mean focused one
-// (MeasureShift) and, if align is true, moves every defocused frame back by
+// defocused channel against the focused one from the cross-spectra of the
+// simultaneous frame pairs summed over the burst (MeasureShiftFrames; the
+// same as cross-correlating the burst means, but without the frame-to-frame
+// image motion, which is common to both channels) and, if align is true, moves every defocused frame back by
 // it with a Shifter (band-limited interpolation, mirror-extended edges). It
 // uses up to workers goroutines (0 = all cores). The frames of b become the
 // field's frames (no copy).
@@ -41,13 +43,7 @@ func Prepare(b *burst.Burst, cal *Calibration, align bool, workers int) (*Field,
 	if err != nil {
 		return nil, Offset{}, err
 	}
-	defMean := make([]float64, nx*ny)
-	for _, fr := range b.Data[1] {
-		for i, v := range fr {
-			defMean[i] += v
-		}
-	}
-	dx, dy, err := MeasureShift(f.Mean, defMean, nx, ny)
+	dx, dy, err := MeasureShiftFrames(b.Data[0], b.Data[1], nx, ny)
 	if err != nil {
 		return nil, Offset{}, fmt.Errorf("co-registering the channels: %w", err)
 	}

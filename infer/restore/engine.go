@@ -1,0 +1,225 @@
+package restore
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"pdwave/infer"
+	"pdwave/model/modes"
+	"pdwave/model/pd"
+)
+
+// Method says how the wavefront of each patch is obtained.
+type Method struct {
+	// Start gives the first coefficients (typically the learned network);
+	// nil means the full classical fit from zero.
+	Start infer.Estimator
+	// Polish is the number of classical L-BFGS iterations run from Start's
+	// coefficients (0 = use them as they are). Ignored when Start is nil.
+	Polish int
+	// Name describes the method in outputs ("learned", "learned+polish 5",
+	// "fit").
+	Name string
+}
+
+// Physics is the per-field setup shared by the engines of all workers: the
+// classical fit configuration (telescope, patch, frames, basis, prior,
+// metric settings, stopping rule of the full fit) and the wavefront method.
+type Physics struct {
+	Config infer.Config
+	Method Method
+
+	full, polish *infer.Fitter // safe for concurrent use
+	div          [][]float64
+	sigma2       []float64
+	win          []float64
+	winSum       float64
+}
+
+// NewPhysics checks the configuration and prepares the fitters. It errors if
+// the fit configuration is invalid or the start estimator's basis differs
+// from the configured one.
+func NewPhysics(cfg infer.Config, m Method) (*Physics, error) {
+	p := &Physics{Config: cfg, Method: m}
+	var err error
+	p.full, err = infer.NewFitter(cfg)
+	if err != nil {
+		return nil, err
+	}
+	if m.Start != nil {
+		b := m.Start.Basis()
+		if b == nil || b.Kind != cfg.Basis || b.Count != cfg.Modes || b.N != cfg.Patch {
+			return nil, fmt.Errorf("restore: estimator basis does not match the fit (%s, %d modes, %d px wanted)", cfg.Basis, cfg.Modes, cfg.Patch)
+		}
+		if m.Polish > 0 {
+			pc := cfg
+			pc.Stop = infer.Stop{Iterations: m.Polish}
+			p.polish, err = infer.NewFitter(pc)
+			if err != nil {
+				return nil, err
+			}
+		}
+	}
+	pup := p.full.Pupil()
+	for _, pv := range cfg.DiversityPV {
+		if pv == 0 {
+			p.div = append(p.div, nil)
+			continue
+		}
+		d := make([]float64, cfg.Patch*cfg.Patch)
+		pup.Defocus(d, pv)
+		p.div = append(p.div, d)
+	}
+	p.sigma2 = p.full.PriorVariance()
+	p.win = pd.Window(cfg.Patch, cfg.Metric.Window)
+	for _, w := range p.win {
+		p.winSum += w
+	}
+	return p, nil
+}
+
+// Basis returns the native basis of the coefficients.
+func (p *Physics) Basis() *modes.Basis { return p.full.Basis() }
+
+// NewEngine returns an Engine with its own pd.Solver (for the object
+// estimate and the quality figures). It is a valid Options.NewEngine after
+// wrapping: func() (Engine, error) { return p.NewEngine() }.
+func (p *Physics) NewEngine() (Engine, error) {
+	cfg := p.Config
+	set := cfg.Metric
+	set.PriorWeight = cfg.Prior
+	s := pd.NewSolver(p.full.Pupil(), p.full.Basis(), p.div, cfg.Frames, set)
+	s.SetPrior(p.sigma2)
+	n := cfg.Frames * cfg.Modes
+	return &restorePhysicsEngine{p: p, s: s, alpha: make([]float64, n), obj: make([]float64, cfg.Patch*cfg.Patch)}, nil
+}
+
+type restorePhysicsEngine struct {
+	p     *Physics
+	s     *pd.Solver
+	alpha []float64
+	obj   []float64
+}
+
+// Restore implements Engine.
+func (e *restorePhysicsEngine) Restore(r *PatchResult, data [][][]float64) error {
+	p := e.p
+	cfg := p.Config
+	if len(data) != 2 || len(data[0]) != cfg.Frames {
+		return fmt.Errorf("patch has %d channels × %d frames, the estimator wants 2 × %d", len(data), len(data[0]), cfg.Frames)
+	}
+	var coeffs [][]float64
+	var err error
+	switch {
+	case p.Method.Start == nil:
+		var res *infer.Result
+		res, err = p.full.Fit(data, nil)
+		if err == nil {
+			coeffs = res.Coeffs
+		}
+	default:
+		coeffs, err = p.Method.Start.Estimate(data)
+		if err == nil && p.polish != nil {
+			var res *infer.Result
+			res, err = p.polish.Fit(data, coeffs)
+			if err == nil {
+				coeffs = res.Coeffs
+			}
+		}
+	}
+	if err != nil {
+		return err
+	}
+	m := cfg.Modes
+	if len(coeffs) != cfg.Frames {
+		return fmt.Errorf("estimator returned %d frames, want %d", len(coeffs), cfg.Frames)
+	}
+	for j, row := range coeffs {
+		if len(row) != m {
+			return fmt.Errorf("estimator returned %d modes, want %d", len(row), m)
+		}
+		copy(e.alpha[j*m:], row)
+	}
+	if err := e.s.SetData(data); err != nil {
+		if errors.Is(err, pd.ErrNoSignal) {
+			return fmt.Errorf("patch carries no signal above the noise")
+		}
+		return err
+	}
+	e.s.Constrain(e.alpha)
+	e.s.ValueGrad(nil, e.alpha)
+	metric, _ := e.s.LastTerms()
+	r.Metric = metric
+	// Noise-only expectation of the object-eliminated metric: with K images
+	// and white noise of power ν per frequency, the residual of the
+	// least-squares object leaves (K−1)·ν per frequency (Paxman, Schulz &
+	// Fienup 1992, JOSA A 9, 1072, the Gaussian-noise likelihood); L is
+	// normalised by the data power per image P̄.
+	k := float64(2 * cfg.Frames)
+	if nu, pbar := e.s.Noise(), e.s.DataPower(); nu > 0 && pbar > 0 {
+		r.MetricRatio = metric / ((k - 1) * float64(e.s.MaskSize()) * nu / pbar)
+	}
+	var s2 float64
+	var cnt int
+	for i, a := range e.alpha {
+		if v := p.sigma2[i%m]; v > 0 && !math.IsInf(v, 1) {
+			s2 += a * a / v
+			cnt++
+		}
+	}
+	if cnt > 0 {
+		r.CoeffRMS = math.Sqrt(s2 / float64(cnt))
+	}
+	r.Coeffs = append([]float64(nil), e.alpha...)
+	r.Noll = make([]float64, len(e.alpha))
+	b := p.full.Basis()
+	for j := 0; j < cfg.Frames; j++ {
+		b.NollEquivalent(r.Noll[j*m:(j+1)*m], e.alpha[j*m:(j+1)*m])
+	}
+	e.s.Restore(e.obj, e.alpha)
+	p.unapodise(r.Tile, e.obj, data)
+	return nil
+}
+
+// restoreMinWindow is the window value below which the restored patch is
+// not divided by the window but faded into the burst-mean image.
+const restoreMinWindow = 0.5
+
+// unapodise undoes the apodisation in the object estimate. pd's Restore
+// returns w·(o − m) + m (w the apodisation window, m the mean data level:
+// the window-weighted image means averaged over all images), so
+// o = m + (R − m)/w. Where w < restoreMinWindow the quotient amplifies noise;
+// there the tile fades linearly in w from the quotient at w = restoreMinWindow
+// to the burst-mean focused image at w = 0. Those pixels lie in the blend
+// margin of inner patch edges (weight 0) and matter only at the field edge.
+func (p *Physics) unapodise(dst, obj []float64, data [][][]float64) {
+	n := p.Config.Patch
+	var level float64
+	nimg := 0
+	for c := range data {
+		for _, im := range data[c] {
+			var m float64
+			for i, v := range im {
+				m += p.win[i] * v
+			}
+			level += m / p.winSum
+			nimg++
+		}
+	}
+	level /= float64(nimg)
+	for i := 0; i < n*n; i++ {
+		w := p.win[i]
+		if w >= restoreMinWindow {
+			dst[i] = level + (obj[i]-level)/w
+			continue
+		}
+		var raw float64
+		for _, im := range data[0] {
+			raw += im[i]
+		}
+		raw /= float64(len(data[0]))
+		t := w / restoreMinWindow
+		dst[i] = t*(level+(obj[i]-level)/restoreMinWindow) + (1-t)*raw
+	}
+}
