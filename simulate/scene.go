@@ -151,7 +151,9 @@ func Granulation(dst []float64, nx, ny int, pixelScale float64, p GranulationPar
 				}
 				dx, dy := x-cx[k], y-cy[k]
 				b := (dx*dx + dy*dy - d1) / (2 * math.Hypot(cx[k]-cx[k1], cy[k]-cy[k1]))
-				sum += math.Exp(-b / soft)
+				if b < 10*soft { // farther edges add < e^−10 of the nearest
+					sum += math.Exp(-b / soft)
+				}
 			}
 		}
 		return math.Max(0, -soft*math.Log(sum))
@@ -218,19 +220,32 @@ func Granulation(dst []float64, nx, ny int, pixelScale float64, p GranulationPar
 	// Mesoscale modulation: 12 plane waves of wavelengths 6–20 arcsec.
 	if p.Mesoscale > 0 {
 		const waves = 12
-		var kx, ky, ph [waves]float64
 		a := p.Mesoscale * math.Sqrt(2.0/waves)
-		for i := range kx {
+		// cos(kx·x + ky·y + φ) = Re(e^{i kx x}·e^{i(ky y + φ)}): phasors
+		// per column and per row.
+		ex := make([]complex128, waves*nx)
+		ey := make([]complex128, waves*ny)
+		for i := 0; i < waves; i++ {
 			lambda := (6 + 14*rng.Float64()) / pixelScale
 			s, c := math.Sincos(2 * math.Pi * rng.Float64())
-			kx[i], ky[i] = 2*math.Pi*c/lambda, 2*math.Pi*s/lambda
-			ph[i] = 2 * math.Pi * rng.Float64()
+			kx, ky := 2*math.Pi*c/lambda, 2*math.Pi*s/lambda
+			ph := 2 * math.Pi * rng.Float64()
+			for x := 0; x < nx; x++ {
+				s, c := math.Sincos(kx * float64(x))
+				ex[x*waves+i] = complex(c, s)
+			}
+			for y := 0; y < ny; y++ {
+				s, c := math.Sincos(ky*float64(y) + ph)
+				ey[y*waves+i] = complex(c, s)
+			}
 		}
 		for y := 0; y < ny; y++ {
+			ry := ey[y*waves : y*waves+waves]
 			for x := 0; x < nx; x++ {
+				rx := ex[x*waves : x*waves+waves]
 				var m float64
-				for i := range kx {
-					m += math.Cos(kx[i]*float64(x) + ky[i]*float64(y) + ph[i])
+				for i, e := range ry {
+					m += real(rx[i])*real(e) - imag(rx[i])*imag(e)
 				}
 				dst[y*nx+x] *= 1 + a*m
 			}
