@@ -13,7 +13,8 @@ type Plan struct {
 	row    *plan1
 	col    *plan1
 	a, b   []complex128 // ny*nx scratch for the column pass
-	half   []complex128 // ny*(nx/2+1) half spectrum for the real transforms
+	half   []complex128 // ny×hp half spectrum for the real transforms
+	hp     int          // row stride of half: nx/2+1 rounded up to even
 	sa, sb []complex128 // nx scratch for the row pass
 }
 
@@ -31,7 +32,10 @@ func NewPlan(ny, nx int) *Plan {
 	}
 	p.a = make([]complex128, ny*nx)
 	p.b = make([]complex128, ny*nx)
-	p.half = make([]complex128, ny*(nx/2+1))
+	// An even number of lanes keeps the column pass on the vector kernels;
+	// the padding lane stays zero.
+	p.hp = (nx/2 + 2) &^ 1
+	p.half = make([]complex128, ny*p.hp)
 	p.sa = make([]complex128, nx)
 	p.sb = make([]complex128, nx)
 	return p
@@ -69,10 +73,7 @@ func (p *Plan) Inverse(dst, src []complex128) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
 	p.transform(dst, src, true)
-	s := complex(1/float64(p.ny*p.nx), 0)
-	for i := range dst {
-		dst[i] *= s
-	}
+	scale(dst, 1/float64(p.ny*p.nx))
 }
 
 // ForwardReal computes the full ny*nx spectrum (Hermitian:
@@ -86,7 +87,7 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
 	ny, nx := p.ny, p.nx
-	h := nx/2 + 1
+	h, hp := nx/2+1, p.hp
 	c := p.half
 	// Pack rows: z_j = r_{2j} + i r_{2j+1}.
 	np := (ny + 1) / 2
@@ -111,12 +112,12 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 	// R_{2j}[l] = (Z[l] + conj Z[-l])/2, R_{2j+1}[l] = (Z[l] - conj Z[-l])/(2i).
 	for j := 0; j < np; j++ {
 		zj := z[j*nx : (j+1)*nx]
-		c0 := c[2*j*h : (2*j+1)*h]
+		c0 := c[2*j*hp : 2*j*hp+h]
 		if 2*j+1 == ny {
 			copy(c0, zj[:h])
 			break
 		}
-		c1 := c[(2*j+1)*h : (2*j+2)*h]
+		c1 := c[(2*j+1)*hp : (2*j+1)*hp+h]
 		c1 = c1[:len(c0)]
 		c0[0] = complex(real(zj[0]), 0)
 		c1[0] = complex(imag(zj[0]), 0)
@@ -129,13 +130,13 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 		}
 	}
 	// Columns of the half spectrum, all h at once.
-	p.col.run(c, c, p.a, p.b, h, false)
+	p.col.run(c, c, p.a, p.b, hp, false)
 	// Expand: X[k,l] = conj X[-k,-l] for l >= h.
 	for k := 0; k < ny; k++ {
 		d := dst[k*nx : (k+1)*nx]
-		copy(d, c[k*h:(k+1)*h])
+		copy(d, c[k*hp:k*hp+h])
 		km := (ny - k) % ny
-		cm := c[km*h : (km+1)*h]
+		cm := c[km*hp : km*hp+h]
 		for l := h; l < nx; l++ {
 			d[l] = conj(cm[nx-l])
 		}
@@ -151,7 +152,7 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 	p.checkLen("dst", len(dst))
 	p.checkLen("src", len(src))
 	ny, nx := p.ny, p.nx
-	h := nx/2 + 1
+	h, hp := nx/2+1, p.hp
 	c := p.half
 	// Hermitian part H[k,l] = (S[k,l] + conj S[-k,-l])/2, columns l < h:
 	// Re IDFT(S) = IDFT(H).
@@ -159,14 +160,14 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 		km := (ny - k) % ny
 		s0 := src[k*nx : (k+1)*nx]
 		sm := src[km*nx : (km+1)*nx]
-		c0 := c[k*h : (k+1)*h]
+		c0 := c[k*hp : k*hp+h]
 		c0[0] = complex(0.5*(real(s0[0])+real(sm[0])), 0.5*(imag(s0[0])-imag(sm[0])))
 		for l := 1; l < len(c0); l++ {
 			a, b := s0[l], sm[nx-l]
 			c0[l] = complex(0.5*(real(a)+real(b)), 0.5*(imag(a)-imag(b)))
 		}
 	}
-	p.col.run(c, c, p.a, p.b, h, true)
+	p.col.run(c, c, p.a, p.b, hp, true)
 	// Each row G_y of the result is Hermitian along x, so
 	// z_j = IDFT(G_{2j} + i G_{2j+1}) has real part g_{2j} and imaginary
 	// part g_{2j+1}. Columns 0 and nx/2 of a Hermitian row are real.
@@ -174,7 +175,7 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 	z := p.a[:np*nx]
 	for j := 0; j < np; j++ {
 		zj := z[j*nx : (j+1)*nx]
-		g0 := c[2*j*h : (2*j+1)*h]
+		g0 := c[2*j*hp : 2*j*hp+h]
 		if 2*j+1 == ny {
 			zj[0] = complex(real(g0[0]), 0)
 			for l := 1; l < h; l++ {
@@ -186,7 +187,7 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 			}
 			break
 		}
-		g1 := c[(2*j+1)*h : (2*j+2)*h]
+		g1 := c[(2*j+1)*hp : (2*j+1)*hp+h]
 		g1 = g1[:len(g0)]
 		zj[0] = complex(real(g0[0]), real(g1[0]))
 		zr := zj[nx-h+1 : nx] // zr[len(zr)-l] = z[nx-l]
@@ -218,6 +219,18 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 			d0[x] = real(v) * scale
 			d1[x] = imag(v) * scale
 		}
+	}
+}
+
+// scale multiplies x by s.
+func scale(x []complex128, s float64) {
+	i0 := 0
+	if useVec && len(x) >= 2 {
+		i0 = len(x) &^ 1
+		scalevec(&x[0], i0, s)
+	}
+	for i := i0; i < len(x); i++ {
+		x[i] = complex(real(x[i])*s, imag(x[i])*s)
 	}
 }
 

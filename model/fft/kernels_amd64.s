@@ -399,3 +399,100 @@ r5loop:
 	JLT r5loop
 	VZEROUPPER
 	RET
+
+// func r4stage(dst, src *complex128, m, s int, tw *complex128, mask *[4]uint64)
+//
+// A whole radix-4 Stockham stage for even s >= 2: for p < m and q < s,
+// with a_j = src[q + s*(p + j*m)] and w_k = tw[3p + k-1],
+// dst[q + s*(4p + k)] = w_k·b_k, b = the radix-4 butterfly of a with
+// t3 = mask(swap(a1 - a3)) (negodd: forward, −i·d; negeven: inverse, +i·d;
+// the inverse also takes conjugate twiddles).
+TEXT ·r4stage(SB), NOSPLIT, $0-48
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), R8
+	MOVQ m+16(FP), R13
+	MOVQ s+24(FP), CX
+	MOVQ tw+32(FP), R12
+	MOVQ mask+40(FP), AX
+	VMOVUPD (AX), Y14
+	VMOVUPD negeven<>(SB), Y15
+	SHLQ $4, CX    // s*16 bytes
+	MOVQ R13, R14
+	IMULQ CX, R14  // m*s*16 bytes
+
+r4sp:
+	LEAQ (R8)(R14*1), R9
+	LEAQ (R9)(R14*1), R10
+	LEAQ (R10)(R14*1), R11
+	LEAQ (DI)(CX*1), SI
+	LEAQ (SI)(CX*1), BX
+	LEAQ (BX)(CX*1), DX
+	VBROADCASTSD 0(R12), Y8
+	VBROADCASTSD 8(R12), Y9
+	VXORPD Y15, Y9, Y9
+	VBROADCASTSD 16(R12), Y10
+	VBROADCASTSD 24(R12), Y11
+	VXORPD Y15, Y11, Y11
+	VBROADCASTSD 32(R12), Y12
+	VBROADCASTSD 40(R12), Y13
+	VXORPD Y15, Y13, Y13
+	XORQ AX, AX
+
+r4sq:
+	VMOVUPD (R8)(AX*1), Y0
+	VMOVUPD (R9)(AX*1), Y1
+	VMOVUPD (R10)(AX*1), Y2
+	VMOVUPD (R11)(AX*1), Y3
+	VADDPD Y2, Y0, Y4 // t0
+	VSUBPD Y2, Y0, Y5 // t1
+	VADDPD Y3, Y1, Y6 // t2
+	VSUBPD Y3, Y1, Y7 // d
+	VPERMILPD $5, Y7, Y7
+	VXORPD Y14, Y7, Y7 // t3
+	VADDPD Y6, Y4, Y0
+	VMOVUPD Y0, (DI)(AX*1)
+	VSUBPD Y6, Y4, Y0 // b2
+	VADDPD Y7, Y5, Y1 // b1
+	VSUBPD Y7, Y5, Y2 // b3
+	VPERMILPD $5, Y1, Y3
+	VMULPD Y8, Y1, Y1
+	VFMADD231PD Y9, Y3, Y1
+	VMOVUPD Y1, (SI)(AX*1)
+	VPERMILPD $5, Y0, Y3
+	VMULPD Y10, Y0, Y0
+	VFMADD231PD Y11, Y3, Y0
+	VMOVUPD Y0, (BX)(AX*1)
+	VPERMILPD $5, Y2, Y3
+	VMULPD Y12, Y2, Y2
+	VFMADD231PD Y13, Y3, Y2
+	VMOVUPD Y2, (DX)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r4sq
+
+	ADDQ CX, R8
+	LEAQ (DX)(CX*1), DI
+	ADDQ $48, R12
+	DECQ R13
+	JNZ r4sp
+	VZEROUPPER
+	RET
+
+// func scalevec(x *complex128, n int, s float64)
+//
+// x[i] *= s for n complex values, n even.
+TEXT ·scalevec(SB), NOSPLIT, $0-24
+	MOVQ x+0(FP), DI
+	MOVQ n+8(FP), CX
+	VBROADCASTSD s+16(FP), Y1
+	SHLQ $4, CX
+	XORQ AX, AX
+
+scloop:
+	VMULPD (DI)(AX*1), Y1, Y0
+	VMOVUPD Y0, (DI)(AX*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT scloop
+	VZEROUPPER
+	RET

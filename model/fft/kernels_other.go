@@ -22,3 +22,7 @@ func r3vec(y0, y1, y2, x0, x1, x2 *complex128, n int, wt *[4][4]float64)        
 func r5vec(y0, y1, y2, y3, y4, x0, x1, x2, x3, x4 *complex128, n int, wt *[8][4]float64) {
 	panicNoVec()
 }
+
+func r4stage(dst, src *complex128, m, s int, tw *complex128, mask *[4]uint64) { panicNoVec() }
+
+func scalevec(x *complex128, n int, s float64) { panicNoVec() }

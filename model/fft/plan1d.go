@@ -293,6 +293,17 @@ func radix4s1(dst, src []complex128, m int, tw []complex128, inv bool) {
 }
 
 func radix4(dst, src []complex128, m, s int, tw []complex128, inv bool) {
+	if useVec && s%2 == 0 && m > 1 {
+		_ = dst[4*m*s-1]
+		_ = src[4*m*s-1]
+		_ = tw[3*m-1]
+		mask := &maskNegOdd
+		if inv {
+			mask = &maskNegEven
+		}
+		r4stage(&dst[0], &src[0], m, s, &tw[0], mask)
+		return
+	}
 	for p := 0; p < m; p++ {
 		x0 := src[s*p : s*p+s]
 		x1 := src[s*(p+m) : s*(p+m)+s]
