@@ -1,0 +1,316 @@
+package main
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"strconv"
+
+	"github.com/spf13/cobra"
+
+	"pdwave/model/burst"
+	"pdwave/model/site"
+	"pdwave/simulate"
+)
+
+// simulateOpts holds the flags of "pdwave simulate".
+var simulateOpts struct {
+	site     string
+	out      string
+	bursts   int
+	seed     uint64
+	field    int
+	frames   int
+	screens  bool
+	object   string
+	contrast float64
+	workers  int
+}
+
+var simulateCmd = &cobra.Command{
+	Use:   "simulate --site FILE --out DIR",
+	Short: "Simulate phase-diversity bursts with known wavefronts",
+	Long: `simulate writes synthetic phase-diversity bursts for the telescope, seeing
+and camera of a site file: DIR/burst-0001.fits, DIR/burst-0002.fits, ...
+
+Each burst is seen through the site's turbulent layers (von Kármán phase
+screens moving with the wind between frames), imaged through the telescope
+pupil in focus (channel 1) and with the site's defocus diversity (channel 2),
+with photon noise, read noise and quantisation to the camera's bit depth.
+The scene is synthetic granulation (rms contrast --contrast at the
+diffraction limit) or windows of a user object map (--object, a FITS image
+at the camera's pixel scale).
+
+Without --field each burst is one patch of the site's patch size; its file
+carries the true wavefront of every frame (extension TRUTH: coefficients in
+the site's basis and as Noll Zernike coefficients) and the true object
+(extension OBJECT). With --field NX each burst is an NX×NX field whose PSF
+varies over the field (anisoplanatism); it carries OBJECT only.
+
+r0 is drawn for every burst from the site's seeing distribution; it is
+recorded as SIMR0 (m, at the observing wavelength) in the header, with the
+seed and all settings as HISTORY cards. Burst i (from 1) uses the random
+stream (--seed, i), so any burst can be remade alone.
+
+With --screens, DIR/burst-0001-screens.fits holds the layer phase screens
+(radians at the observing wavelength; one image per layer, LAYER1, ...,
+keywords SCRPIX = pixel size in m, LAYERH = height in m, LAYERR0 = the
+layer's r0 in m) and, for patches, extension PHASE: the wavefront of every
+frame on the pupil grid (radians, N×N×frames, pixel SCRPIX m).`,
+	Args: cobra.NoArgs,
+	RunE: simulateRun,
+}
+
+// simulateScreenOpts holds the flags of "pdwave simulate screen".
+var simulateScreenOpts struct {
+	site  string
+	out   string
+	size  int
+	seed  uint64
+	r0    float64
+	pixel float64
+	noSub bool
+}
+
+var simulateScreenCmd = &cobra.Command{
+	Use:   "screen --site FILE --out FILE.fits --size N",
+	Short: "Write one von Kármán phase screen",
+	Long: `screen writes one N×N phase screen in radians at the site's observing
+wavelength, drawn with the FFT method and subharmonics, with the site's r0
+(median, or --r0) and outer scale.
+
+The pixel size is the site's pupil-grid pixel (D divided by the pupil
+diameter in pixels on the patch grid) unless --pixel is given. Header
+keywords: SCRPIX (pixel size, m), SCRR0 (r0, m), SCRL0 (outer scale, m;
+0 = Kolmogorov), SCRLEV (subharmonic levels), BUNIT = 'rad'.`,
+	Args: cobra.NoArgs,
+	RunE: simulateScreenRun,
+}
+
+func init() {
+	f := simulateCmd.Flags()
+	f.StringVar(&simulateOpts.site, "site", "", "site/telescope YAML file (required)")
+	f.StringVar(&simulateOpts.out, "out", "", "output folder, created if missing (required)")
+	f.IntVar(&simulateOpts.bursts, "bursts", 1, "number of bursts")
+	f.Uint64Var(&simulateOpts.seed, "seed", 1, "random seed")
+	f.IntVar(&simulateOpts.field, "field", 0, "simulate NX×NX full fields instead of single patches (0 = patches)")
+	f.IntVar(&simulateOpts.frames, "frames", 0, "frames per burst (0 = the site's)")
+	f.BoolVar(&simulateOpts.screens, "screens", false, "also write the phase screens of every burst")
+	f.StringVar(&simulateOpts.object, "object", "", "FITS object map to image instead of granulation")
+	f.Float64Var(&simulateOpts.contrast, "contrast", 0.12, "rms contrast of the granulation at the diffraction limit")
+	f.IntVar(&simulateOpts.workers, "workers", 0, "worker goroutines (0 = all cores)")
+
+	g := simulateScreenCmd.Flags()
+	g.StringVar(&simulateScreenOpts.site, "site", "", "site/telescope YAML file (required)")
+	g.StringVar(&simulateScreenOpts.out, "out", "", "output FITS file (required)")
+	g.IntVar(&simulateScreenOpts.size, "size", 256, "screen side, pixels")
+	g.Uint64Var(&simulateScreenOpts.seed, "seed", 1, "random seed")
+	g.Float64Var(&simulateScreenOpts.r0, "r0", 0, "r0 at the observing wavelength, m (0 = the site's median)")
+	g.Float64Var(&simulateScreenOpts.pixel, "pixel", 0, "pixel size, m (0 = the site's pupil-grid pixel)")
+	g.BoolVar(&simulateScreenOpts.noSub, "no-subharmonics", false, "draw without subharmonics")
+
+	simulateCmd.AddCommand(simulateScreenCmd)
+	root.AddCommand(simulateCmd)
+}
+
+func simulateRun(cmd *cobra.Command, _ []string) error {
+	o := simulateOpts
+	switch {
+	case o.site == "":
+		return errors.New("simulate: --site is required")
+	case o.out == "":
+		return errors.New("simulate: --out is required")
+	case o.bursts < 1 || o.bursts > 1000000:
+		return fmt.Errorf("simulate: --bursts %d, want 1 to 1000000", o.bursts)
+	case o.frames < 0:
+		return fmt.Errorf("simulate: --frames %d, want ≥ 1 (0 = the site's)", o.frames)
+	case o.field < 0 || o.field > simulate.MaxField:
+		return fmt.Errorf("simulate: --field %d, want 0 (patches) or a side up to %d", o.field, simulate.MaxField)
+	case !(o.contrast > 0 && o.contrast < 1):
+		return fmt.Errorf("simulate: --contrast %g, want in (0, 1)", o.contrast)
+	case o.workers < 0:
+		return fmt.Errorf("simulate: --workers %d, want ≥ 0", o.workers)
+	}
+	st, err := site.Load(o.site)
+	if err != nil {
+		return err
+	}
+	cfg := simulate.ConfigFromSite(st)
+	if o.frames > 0 {
+		cfg.Frames = o.frames
+	}
+	if o.field > 0 && o.field < cfg.Patch {
+		return fmt.Errorf("simulate: --field %d is smaller than the patch (%d px)", o.field, cfg.Patch)
+	}
+	sim, err := simulate.New(cfg)
+	if err != nil {
+		return fmt.Errorf("simulate: site %s: %w", o.site, err)
+	}
+	opts := simulate.Options{Workers: o.workers, KeepPhases: o.screens}
+	opts.Scene.Contrast = o.contrast
+	if o.object != "" {
+		data, nx, ny, err := simulate.ReadObject(o.object)
+		if err != nil {
+			return err
+		}
+		opts.Object, opts.ObjectNx, opts.ObjectNy = data, nx, ny
+	}
+	if err := os.MkdirAll(o.out, 0o755); err != nil {
+		return fmt.Errorf("simulate: creating %s: %w", o.out, err)
+	}
+	kind := "patch"
+	if o.field > 0 {
+		kind = "field"
+	}
+	for i := 1; i <= o.bursts; i++ {
+		rng := rand.New(rand.NewPCG(o.seed, uint64(i)))
+		opts.R0 = st.DrawR0(rng)
+		var res *simulate.Result
+		if o.field > 0 {
+			res, err = sim.Field(rng, o.field, o.field, opts)
+		} else {
+			res, err = sim.Patch(rng, opts)
+		}
+		if err != nil {
+			return fmt.Errorf("simulate: burst %d: %w", i, err)
+		}
+		b := res.Burst
+		b.Cards = append(b.Cards,
+			burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
+			burst.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
+			burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
+		)
+		settings := map[string]string{
+			"verb":         "simulate",
+			"site":         o.site,
+			"seed":         strconv.FormatUint(o.seed, 10),
+			"burst":        strconv.Itoa(i),
+			"kind":         kind,
+			"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
+			"frames":       strconv.Itoa(cfg.Frames),
+			"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
+			"patch":        strconv.Itoa(cfg.Patch),
+			"basis":        string(cfg.Basis),
+			"modes":        strconv.Itoa(cfg.Modes),
+			"subharmonics": "true",
+			"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
+		}
+		if o.object != "" {
+			settings["object"] = o.object
+			delete(settings, "contrast")
+		}
+		prov := burst.Provenance(version, settings)
+		name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
+		if err := burst.Write(name, b, prov); err != nil {
+			return err
+		}
+		msg := fmt.Sprintf("wrote %s (%s %d×%d, %d frames, r0 = %.3f m, D/r0 = %.1f)", name, kind, b.Nx, b.Ny, b.Frames, res.R0, cfg.Telescope.Diameter/res.R0)
+		if o.screens {
+			sname := filepath.Join(o.out, fmt.Sprintf("burst-%04d-screens.fits", i))
+			if err := burst.WriteFile(sname, simulateScreenHDUs(res, sim, prov)...); err != nil {
+				return err
+			}
+			msg += " and " + sname
+		}
+		fmt.Fprintln(cmd.OutOrStdout(), msg)
+	}
+	return nil
+}
+
+// simulateScreenHDUs lays out the screens file of one burst: one image per
+// layer, then the per-frame pupil wavefronts of a patch.
+func simulateScreenHDUs(res *simulate.Result, sim *simulate.Simulator, prov []burst.Card) []burst.HDU {
+	atm := res.Atmosphere
+	var hdus []burst.HDU
+	for i, s := range atm.Screens {
+		l := atm.Layers[i]
+		cards := []burst.Card{
+			{Key: "BUNIT", Value: "rad", Comment: "phase at the observing wavelength"},
+			{Key: "SCRPIX", Value: s.Dx, Comment: "screen pixel size, m"},
+			{Key: "LAYERH", Value: l.Height, Comment: "layer height, m"},
+			{Key: "LAYERW", Value: l.Weight, Comment: "share of r0^(-5/3)"},
+			{Key: "LAYERR0", Value: simulate.LayerR0(res.R0, l.Weight), Comment: "layer r0, m"},
+			{Key: "WINDV", Value: l.Speed, Comment: "wind speed, m/s"},
+			{Key: "WINDDIR", Value: l.Direction * 180 / math.Pi, Comment: "wind direction, deg from +x towards +y"},
+		}
+		if i == 0 {
+			cards = append(cards, prov...)
+		}
+		hdus = append(hdus, &burst.Image{Name: fmt.Sprintf("LAYER%d", i+1), Dims: []int{s.N, s.N}, Data: s.Data, Cards: cards})
+	}
+	if res.Phases != nil {
+		n := sim.Config().Patch
+		data := make([]float64, 0, n*n*len(res.Phases))
+		for _, p := range res.Phases {
+			data = append(data, p...)
+		}
+		hdus = append(hdus, &burst.Image{Name: "PHASE", Dims: []int{n, n, len(res.Phases)}, Data: data, Cards: []burst.Card{
+			{Key: "BUNIT", Value: "rad", Comment: "wavefront on the pupil grid per frame"},
+			{Key: "SCRPIX", Value: sim.PupilPixel(), Comment: "pupil grid pixel size, m"},
+			{Key: "PUPRAD", Value: sim.Pupil().Radius, Comment: "pupil radius, pixels; centre (N/2, N/2)"},
+		}})
+	}
+	return hdus
+}
+
+func simulateScreenRun(cmd *cobra.Command, _ []string) error {
+	o := simulateScreenOpts
+	switch {
+	case o.site == "":
+		return errors.New("simulate screen: --site is required")
+	case o.out == "":
+		return errors.New("simulate screen: --out is required")
+	case o.size < 8 || o.size > simulate.MaxScreen:
+		return fmt.Errorf("simulate screen: --size %d, want 8 to %d", o.size, simulate.MaxScreen)
+	case !(o.r0 >= 0) || math.IsInf(o.r0, 0):
+		return fmt.Errorf("simulate screen: --r0 %g, want a positive value in m (0 = the site's)", o.r0)
+	case !(o.pixel >= 0) || math.IsInf(o.pixel, 0):
+		return fmt.Errorf("simulate screen: --pixel %g, want a positive value in m (0 = the pupil-grid pixel)", o.pixel)
+	}
+	st, err := site.Load(o.site)
+	if err != nil {
+		return err
+	}
+	cfg := simulate.ConfigFromSite(st)
+	p := simulate.ScreenParams{N: o.size, Dx: o.pixel, R0: o.r0, L0: cfg.Turbulence.L0, Subharmonics: !o.noSub}
+	if p.R0 == 0 {
+		p.R0 = cfg.Turbulence.R0
+	}
+	if p.Dx == 0 {
+		sim, err := simulate.New(cfg)
+		if err != nil {
+			return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
+		}
+		p.Dx = sim.PupilPixel()
+	}
+	if p.Subharmonics {
+		p.Levels = simulate.LevelsFor(p.N, p.Dx, p.L0)
+	}
+	s, err := simulate.NewScreen(rand.New(rand.NewPCG(o.seed, 0)), p)
+	if err != nil {
+		return fmt.Errorf("simulate screen: %w", err)
+	}
+	l0 := p.L0
+	if math.IsInf(l0, 0) || l0 < 0 {
+		l0 = 0
+	}
+	cards := []burst.Card{
+		{Key: "BUNIT", Value: "rad", Comment: "phase at the observing wavelength"},
+		{Key: "SCRPIX", Value: p.Dx, Comment: "screen pixel size, m"},
+		{Key: "SCRR0", Value: p.R0, Comment: "Fried parameter r0, m"},
+		{Key: "SCRL0", Value: l0, Comment: "outer scale L0, m (0 = Kolmogorov)"},
+		{Key: "SCRLEV", Value: p.Levels, Comment: "subharmonic levels (0 = none)"},
+	}
+	cards = append(cards, burst.Provenance(version, map[string]string{
+		"verb": "simulate screen", "site": o.site, "seed": strconv.FormatUint(o.seed, 10),
+		"size": strconv.Itoa(o.size),
+	})...)
+	if err := burst.WriteFile(o.out, &burst.Image{Dims: []int{p.N, p.N}, Data: s.Data, Cards: cards}); err != nil {
+		return err
+	}
+	fmt.Fprintf(cmd.OutOrStdout(), "wrote %s (%d×%d px of %.4g m, r0 = %.3f m, L0 = %g m, %d subharmonic levels)\n", o.out, p.N, p.N, p.Dx, p.R0, l0, p.Levels)
+	return nil
+}
