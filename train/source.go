@@ -2,6 +2,7 @@ package train
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -162,4 +163,82 @@ func SampleFromBurst(b *burst.Burst, patch, frames int) (*Sample, error) {
 		s.Noll = b.Truth.Noll
 	}
 	return s, nil
+}
+
+// ReuseSource stretches an expensive source (simulation) by using every
+// burst Times times, each time under another of the eight flips and
+// rotations of the square (valid bursts for a symmetric pupil and defocus;
+// see FolderSource). Index i maps to base burst (i/(Batch·Times))·Batch +
+// i mod Batch under transform (i/Batch) mod Times, so a batch holds Batch
+// different bursts and each burst comes back in the next Times−1 steps. The
+// last Batch·Times base bursts are cached. Truth is kept only for the
+// untransformed use (transform 0); transformed samples carry none, so use
+// Times = 1 for supervised steps.
+type ReuseSource struct {
+	Src          Source
+	Batch, Times int
+
+	mu    sync.Mutex
+	cache map[uint64]*Sample
+	order []uint64
+}
+
+// Get returns sample i.
+func (r *ReuseSource) Get(i uint64) (*Sample, error) {
+	bt := uint64(r.Batch * r.Times)
+	base := (i/bt)*uint64(r.Batch) + i%uint64(r.Batch)
+	t := int((i / uint64(r.Batch)) % uint64(r.Times))
+	s, err := r.base(base)
+	if err != nil {
+		return nil, err
+	}
+	if t == 0 {
+		return s, nil
+	}
+	out := &Sample{}
+	for c := 0; c < 2; c++ {
+		for _, im := range s.Data[c] {
+			out.Data[c] = append(out.Data[c], transformSquare(im, t))
+		}
+	}
+	return out, nil
+}
+
+func (r *ReuseSource) base(i uint64) (*Sample, error) {
+	r.mu.Lock()
+	if r.cache == nil {
+		r.cache = map[uint64]*Sample{}
+	}
+	if s, ok := r.cache[i]; ok {
+		r.mu.Unlock()
+		return s, nil
+	}
+	r.mu.Unlock()
+	s, err := r.Src.Get(i)
+	if err != nil {
+		return nil, err
+	}
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if _, ok := r.cache[i]; !ok {
+		r.cache[i] = s
+		r.order = append(r.order, i)
+		for keep := 2 * r.Batch * r.Times; len(r.order) > keep; r.order = r.order[1:] {
+			delete(r.cache, r.order[0])
+		}
+	}
+	return r.cache[i], nil
+}
+
+// transformSquare returns the n×n image im under dihedral transform t.
+func transformSquare(im []float64, t int) []float64 {
+	n := int(math.Sqrt(float64(len(im))) + 0.5)
+	out := make([]float64, len(im))
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			sy, sx := dihedral(t, y, x, n)
+			out[y*n+x] = im[sy*n+sx]
+		}
+	}
+	return out
 }

@@ -24,6 +24,7 @@ type Config struct {
 	Seed        uint64    // weights, data order
 	Workers     int       // goroutines for the per-burst work; 0 = all cores
 	Arch        *net.Arch // nil uses net.DefaultArch(Modes)
+	Reuse       int       // uses of each simulated burst (Job's data stream; recorded for resume)
 }
 
 func (c *Config) fill() error {
@@ -40,7 +41,7 @@ func (c *Config) fill() error {
 		c.MinLR = 0.05
 	}
 	if c.PriorWeight == 0 {
-		c.PriorWeight = 0.1
+		c.PriorWeight = 0.01
 	}
 	if c.Workers <= 0 {
 		c.Workers = runtime.GOMAXPROCS(0)

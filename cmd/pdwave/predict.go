@@ -1,0 +1,197 @@
+package main
+
+import (
+	"bytes"
+	"fmt"
+	"os"
+	"path/filepath"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"pdwave/model/burst"
+	"pdwave/model/net"
+	"pdwave/model/site"
+	"pdwave/weights"
+)
+
+// predictOpts holds the flags of "pdwave predict".
+var predictOpts struct {
+	weights string
+	site    string
+	out     string
+}
+
+var predictCmd = &cobra.Command{
+	Use:   "predict BURST --out FILE",
+	Short: "Read the wavefront of every frame of a burst with the trained network",
+	Long: `predict runs the trained network on one burst FITS file (one patch: its
+size must be the patch size the weights were trained for) and writes the
+wavefront coefficients of every frame, in rad, with the burst mean of tip and
+tilt removed (the phase-diversity data cannot show it).
+
+FILE receives a FITS table COEFFS in the layout of "pdwave fit" (columns
+FRAME, NATIVE = basis coefficients, NOLL = Noll Zernike equivalents j = 2..)
+and a CSV copy beside it (same name, .csv); if FILE ends in .csv only the
+CSV is written.
+
+Without --weights the built-in weights are used. The weights must have been
+made for the burst's optics (from its header, or --site for bursts without
+optics keywords); otherwise predict refuses and says what differs.`,
+	Args: cobra.ExactArgs(1),
+	RunE: predictRun,
+}
+
+func init() {
+	f := predictCmd.Flags()
+	f.StringVar(&predictOpts.weights, "weights", "", "weight file (default: built-in weights)")
+	f.StringVar(&predictOpts.site, "site", "", "site file giving the optics of bursts without optics keywords")
+	f.StringVar(&predictOpts.out, "out", "", "output table (FITS, plus a CSV copy; or .csv)")
+	root.AddCommand(predictCmd)
+}
+
+func predictRun(cmd *cobra.Command, args []string) error {
+	o := predictOpts
+	if o.out == "" {
+		return fmt.Errorf("predict: --out is required")
+	}
+	var (
+		m    *net.Model
+		from string
+		err  error
+	)
+	if o.weights != "" {
+		if m, err = net.Load(o.weights); err != nil {
+			return err
+		}
+		from = o.weights
+	} else {
+		if m, err = weights.Default(); err != nil {
+			return fmt.Errorf("predict: built-in weights: %w", err)
+		}
+		from = "built-in (" + weights.DefaultName + ")"
+	}
+	b, err := burst.Read(args[0])
+	if err != nil {
+		return err
+	}
+	opt := b.Optics
+	if o.site != "" {
+		st, err := site.Load(o.site)
+		if err != nil {
+			return err
+		}
+		opt = opt.Fill(st.Optics())
+	}
+	want := net.Meta{Wavelength: opt.Wavelength, PixelScale: opt.PixelScale, Diameter: opt.Diameter,
+		Obscuration: opt.Obscuration, DiversityPV: opt.DiversityPV, Patch: b.Nx}
+	if b.Nx != b.Ny {
+		return fmt.Errorf("predict: %s is %d×%d px; the network reads square %d px patches (use restore for fields)", args[0], b.Nx, b.Ny, m.Meta.Patch)
+	}
+	if err := m.Meta.Compatible(want); err != nil {
+		return fmt.Errorf("predict: %s: %w", args[0], err)
+	}
+	est, err := net.NewEstimator(m)
+	if err != nil {
+		return err
+	}
+	start := time.Now()
+	native, noll, err := est.Burst(b.Data)
+	if err != nil {
+		return fmt.Errorf("predict: %s: %w", args[0], err)
+	}
+	elapsed := time.Since(start)
+	settings := map[string]string{"verb": "predict", "burst": filepath.Base(args[0]), "weights": from,
+		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds())}
+	csv := predictCSV(settings, native, noll)
+	if strings.EqualFold(filepath.Ext(o.out), ".csv") {
+		if err := predictWriteAtomic(o.out, csv); err != nil {
+			return err
+		}
+	} else {
+		frames := make([]int64, len(native))
+		for j := range frames {
+			frames[j] = int64(j + 1)
+		}
+		nm := len(native[0])
+		table := &burst.Table{Name: "COEFFS", Columns: []burst.Column{
+			{Name: "FRAME", Int: frames},
+			{Name: "NATIVE", Unit: "rad", Float: native},
+			{Name: "NOLL", Unit: "rad", Float: noll},
+		}, Cards: []burst.Card{
+			{Key: "FITBASIS", Value: m.Meta.Basis, Comment: "basis of NATIVE"},
+			{Key: "NOLLJ0", Value: 2, Comment: "Noll index of the first NOLL element"},
+			{Key: "NMODES", Value: nm, Comment: "modes per frame, piston excluded"},
+			{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
+		}}
+		prov := burst.Provenance(version, settings)
+		primary := &burst.Image{Cards: prov}
+		if err := burst.WriteFile(o.out, primary, table); err != nil {
+			return err
+		}
+		if err := predictWriteAtomic(strings.TrimSuffix(o.out, filepath.Ext(o.out))+".csv", csv); err != nil {
+			return err
+		}
+	}
+	fmt.Fprintf(os.Stderr, "predicted %d frames × %d %s modes in %s with weights %s\n",
+		len(native), len(native[0]), m.Meta.Basis, elapsed.Round(time.Microsecond), from)
+	return nil
+}
+
+// predictCSV formats the coefficients as "pdwave fit" does: "# key: value"
+// lines, then one row per frame with the native coefficients and the Noll
+// equivalents (rad).
+func predictCSV(settings map[string]string, native, noll [][]float64) []byte {
+	var b bytes.Buffer
+	fmt.Fprintf(&b, "# pdwave %s predict\n", version)
+	keys := make([]string, 0, len(settings))
+	for k := range settings {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	for _, k := range keys {
+		fmt.Fprintf(&b, "# %s: %s\n", k, settings[k])
+	}
+	b.WriteString("frame")
+	for k := range native[0] {
+		fmt.Fprintf(&b, ",native_%d", k+1)
+	}
+	for k := range noll[0] {
+		fmt.Fprintf(&b, ",noll_%d", k+2)
+	}
+	b.WriteByte('\n')
+	for j := range native {
+		b.WriteString(strconv.Itoa(j + 1))
+		for _, v := range native[j] {
+			b.WriteString("," + strconv.FormatFloat(v, 'g', 8, 64))
+		}
+		for _, v := range noll[j] {
+			b.WriteString("," + strconv.FormatFloat(v, 'g', 8, 64))
+		}
+		b.WriteByte('\n')
+	}
+	return b.Bytes()
+}
+
+// predictWriteAtomic writes data to a temporary file beside path and renames it.
+func predictWriteAtomic(path string, data []byte) error {
+	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
+	if err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	_, werr := tmp.Write(data)
+	if cerr := tmp.Close(); werr == nil {
+		werr = cerr
+	}
+	if werr == nil {
+		werr = os.Rename(tmp.Name(), path)
+	}
+	if werr != nil {
+		os.Remove(tmp.Name())
+		return fmt.Errorf("writing %s: %w", path, werr)
+	}
+	return nil
+}

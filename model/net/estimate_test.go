@@ -1,0 +1,51 @@
+package net
+
+import (
+	"math"
+	"testing"
+)
+
+// The estimator's native and Noll coefficients describe the same wavefront
+// and carry no burst-mean tip/tilt.
+func TestEstimatorRemovesMeanTilt(t *testing.T) {
+	scale := make([]float64, 10)
+	for i := range scale {
+		scale[i] = 1
+	}
+	m, err := New(DefaultArch(10), demoMeta(), scale, 3)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Bias the output so the raw prediction has a clear mean tilt.
+	last := m.Params[len(m.Params)-1].Data
+	for i := range last {
+		last[i] = 0.3 * float64(i+1)
+	}
+	e, err := NewEstimator(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	const frames = 4
+	native, noll, err := e.Burst(randomBurst(frames, 64, 5))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var mean [2]float64
+	eq := make([]float64, 10)
+	for j := 0; j < frames; j++ {
+		e.Basis().NollEquivalent(eq, native[j])
+		for k := range eq {
+			if math.Abs(eq[k]-noll[j][k]) > 1e-12 {
+				t.Fatalf("frame %d Noll %d: from native %g, returned %g", j, k+2, eq[k], noll[j][k])
+			}
+		}
+		mean[0] += noll[j][0]
+		mean[1] += noll[j][1]
+	}
+	if math.Abs(mean[0]) > 1e-12 || math.Abs(mean[1]) > 1e-12 {
+		t.Fatalf("burst-mean tip/tilt %g, %g left", mean[0]/frames, mean[1]/frames)
+	}
+	if m.Meta.Basis != "kl" {
+		t.Fatal("test expects a KL model")
+	}
+}

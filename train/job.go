@@ -1,0 +1,178 @@
+package train
+
+import (
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"time"
+
+	"pdwave/model/modes"
+	"pdwave/model/site"
+	"pdwave/simulate"
+)
+
+// Job is one training run as the command line describes it.
+type Job struct {
+	Site       string        // site file (optics, seeing, sizes); required
+	Out        string        // run directory; required
+	Data       string        // folder of burst FITS files to train on; "" = simulate from the site
+	Resume     bool          // continue the run checkpointed in Out
+	Steps      int           // optimiser steps; 0 uses 2000
+	Batch      int           // bursts per step; 0 uses 4
+	Seed       uint64        // weights and data order
+	WarmStart  int           // supervised steps on simulated truth first
+	Modes      int           // 0 = the site's
+	Basis      string        // "" = the site's
+	Workers    int           // 0 = all cores
+	LR         float64       // 0 uses 3e-3
+	Prior      float64       // prior weight; 0 uses 0.01
+	Reuse      int           // uses of each simulated burst under flips/rotations (1–8); 0 uses 4
+	Validation int           // validation bursts (simulated at the median r0, with truth); 0 uses 32, < 0 none
+	MaxWall    time.Duration // stop after this much wall time (checkpointed; resume later); 0 = none
+	Progress   io.Writer     // progress lines; nil = none
+	Command    string        // command line, recorded in the weights
+	Version    string        // program version, recorded in the weights
+}
+
+// Run executes the job and returns the last validation.
+func (j Job) Run() (Validation, error) {
+	if j.Site == "" || j.Out == "" {
+		return Validation{}, fmt.Errorf("train: a site file and an output folder are required")
+	}
+	if j.Steps == 0 {
+		j.Steps = 2000
+	}
+	if j.Batch == 0 {
+		j.Batch = 4
+	}
+	if j.LR == 0 {
+		j.LR = 3e-3
+	}
+	if j.Reuse == 0 {
+		j.Reuse = 4
+	}
+	if j.Reuse < 1 || j.Reuse > 8 {
+		return Validation{}, fmt.Errorf("train: reuse %d outside 1–8", j.Reuse)
+	}
+	if j.Validation == 0 {
+		j.Validation = 32
+	}
+	st, err := site.Load(j.Site)
+	if err != nil {
+		return Validation{}, err
+	}
+	var kind modes.Kind
+	if j.Basis != "" {
+		if kind, err = modes.ParseKind(j.Basis); err != nil {
+			return Validation{}, err
+		}
+	}
+	setup, simCfg, err := FromSite(st, j.Modes, kind)
+	if err != nil {
+		return Validation{}, err
+	}
+	if err := os.MkdirAll(j.Out, 0o755); err != nil {
+		return Validation{}, fmt.Errorf("train: output folder: %w", err)
+	}
+	sim, err := simulate.New(simCfg)
+	if err != nil {
+		return Validation{}, err
+	}
+	// On resume the checkpoint's settings rule; the sources are rebuilt from
+	// them so the data stream continues where it stopped.
+	var res *Resumed
+	if j.Resume {
+		if res, err = Resume(j.Out, nil, j.Workers); err != nil {
+			return Validation{}, err
+		}
+		defer res.Close()
+		c := res.Config()
+		j.Batch, j.Seed, j.WarmStart = c.Batch, c.Seed, c.WarmStart
+		if c.Reuse > 0 {
+			j.Reuse = c.Reuse
+		}
+		setup = res.prob.setup
+		if simCfg.Modes != setup.Modes || simCfg.Basis != setup.Basis {
+			simCfg.Modes, simCfg.Basis = setup.Modes, setup.Basis
+			if sim, err = simulate.New(simCfg); err != nil {
+				return Validation{}, err
+			}
+		}
+	}
+	src, err := j.source(sim, st, setup)
+	if err != nil {
+		return Validation{}, err
+	}
+	var t *Trainer
+	opts := RunOptions{Out: j.Out, Progress: j.Progress, MaxWall: j.MaxWall}
+	if res != nil {
+		t = res.Trainer
+		t.src = src
+		opts.History, opts.Vals, opts.Seconds = res.History, res.Vals, res.Seconds
+		if j.Progress != nil {
+			fmt.Fprintf(j.Progress, "resuming %s at step %d of %d\n", j.Out, t.Steps(), t.Config().Steps)
+		}
+	} else {
+		cfg := Config{Steps: j.Steps, Batch: j.Batch, LR: j.LR, PriorWeight: j.Prior, WarmStart: j.WarmStart,
+			Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse}
+		if t, err = New(setup, cfg, src); err != nil {
+			return Validation{}, err
+		}
+		defer t.Close()
+	}
+	m := t.Model()
+	m.Meta.Version = j.Version
+	if m.Meta.Training == nil {
+		m.Meta.Training = map[string]string{}
+	}
+	if j.Command != "" {
+		m.Meta.Training["command"] = j.Command
+	}
+	data := "simulated from " + filepath.Base(j.Site)
+	if j.Data != "" {
+		data = "burst files in " + j.Data
+	}
+	m.Meta.Training["data"] = data
+	m.Meta.Training["reuse"] = fmt.Sprint(j.Reuse)
+	if j.Validation > 0 {
+		vsrc, err := NewSimSource(sim, setup, j.Seed^0x7a11da7e, nil)
+		if err != nil {
+			return Validation{}, err
+		}
+		if j.Progress != nil {
+			fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m\n", j.Validation, setup.R0)
+		}
+		if opts.Validation, err = FetchSet(vsrc, j.Validation); err != nil {
+			return Validation{}, err
+		}
+	}
+	if j.Progress != nil && res == nil {
+		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
+			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
+	}
+	return t.Run(opts)
+}
+
+// source builds the training data stream.
+func (j Job) source(sim *simulate.Simulator, st *site.Site, setup Setup) (Source, error) {
+	if j.Data != "" {
+		return NewFolderSource(j.Data, setup.Patch, setup.Frames, j.Seed)
+	}
+	raw, err := NewSimSource(sim, setup, j.Seed, st.DrawR0)
+	if err != nil {
+		return nil, err
+	}
+	if j.Reuse == 1 {
+		return raw, nil
+	}
+	reuse := &ReuseSource{Src: raw, Batch: j.Batch, Times: j.Reuse}
+	// Supervised warm-start steps need truth: no reuse for them.
+	ws := uint64(j.WarmStart) * uint64(j.Batch)
+	return FuncSource(func(i uint64) (*Sample, error) {
+		if i < ws {
+			return raw.Get(i)
+		}
+		return reuse.Get(i)
+	}), nil
+}
