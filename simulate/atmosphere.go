@@ -163,6 +163,7 @@ func newAtmosphere(rng *rand.Rand, turb Turbulence, n int, dx float64, ext Exten
 		return nil, fmt.Errorf("simulate: extent %+v needs finite non-negative values", ext)
 	}
 	a := &Atmosphere{N: n, Dx: dx, Layers: turb.layers()}
+	spare := map[ScreenParams][]float64{}
 	for i, l := range a.Layers {
 		sn, cs := math.Sincos(l.Direction)
 		vx, vy := l.Speed*cs, l.Speed*sn
@@ -180,17 +181,33 @@ func newAtmosphere(rng *rand.Rand, turb Turbulence, n int, dx float64, ext Exten
 		if side > MaxScreen {
 			return nil, fmt.Errorf("simulate: layer %d at %g m needs a %d-pixel screen (> %d): shorten the burst or the field", i+1, l.Height, side, MaxScreen)
 		}
-		p := ScreenParams{N: side, Dx: dx, R0: LayerR0(turb.R0, l.Weight), L0: turb.L0, Subharmonics: subharmonics}
+		// Screens are drawn for r0 = 1 m and scaled by r0_i^(−5/6) (the
+		// phase scales as r0^(−5/6), since Φ ∝ r0^(−5/3)), so generators
+		// are shared between layers and bursts of any r0, and the second
+		// screen of each pair serves the next layer of the same size.
+		p := ScreenParams{N: side, Dx: dx, R0: 1, L0: turb.L0, Subharmonics: subharmonics}
 		if subharmonics {
 			p.Levels = LevelsFor(side, dx, turb.L0)
 		}
-		g, err := pool.get(p)
-		if err != nil {
-			return nil, fmt.Errorf("layer %d: %w", i+1, err)
+		s := &Screen{N: side, Dx: dx}
+		if sp := spare[p]; sp != nil {
+			s.Data = sp
+			delete(spare, p)
+		} else {
+			g, err := pool.get(p)
+			if err != nil {
+				return nil, fmt.Errorf("layer %d: %w", i+1, err)
+			}
+			s.Data = make([]float64, side*side)
+			other := make([]float64, side*side)
+			g.GeneratePair(s.Data, other, rng)
+			pool.put(g)
+			spare[p] = other
 		}
-		s := &Screen{N: side, Dx: dx, Data: make([]float64, side*side)}
-		g.Generate(s.Data, rng)
-		pool.put(g)
+		k := math.Pow(LayerR0(turb.R0, l.Weight), -5.0/6)
+		for j := range s.Data {
+			s.Data[j] *= k
+		}
 		a.Screens = append(a.Screens, s)
 		// Place the covered box [x0/dx, x1/dx + n + 1] inside the screen.
 		ox := -x0/dx + rng.Float64()*(float64(side)-wx)
