@@ -67,7 +67,7 @@ func (t Turbulence) layers() []Layer {
 // LayerR0 returns the Fried parameter of a layer carrying the share w of
 // r0^(−5/3): r0_i = r0·w^(−3/5), since r0^(−5/3) = Σ_i r0_i^(−5/3)
 // (Fried parameters of independent layers add as r0^(−5/3); Roddier 1981,
-// Progress in Optics 19, 281, eq. 3.37).
+// Progress in Optics 19, 281; equation number not checked).
 func LayerR0(r0, w float64) float64 { return r0 * math.Pow(w, -3.0/5) }
 
 // Extent is the span an Atmosphere must cover besides one pupil grid.

@@ -155,3 +155,31 @@ func TestFieldAnisoplanatic(t *testing.T) {
 	}
 	t.Logf("rms coefficient difference: 4 px %.3f rad, 40 px %.3f rad", d1, d2)
 }
+
+// TestFieldDeterministic: the same seed gives the same field for any
+// number of workers; another seed gives another.
+func TestFieldDeterministic(t *testing.T) {
+	c := demoConfig()
+	c.Frames = 3
+	s := newSim(t, c)
+	run := func(seed uint64, w int) []float64 {
+		r, err := s.Field(rand.New(rand.NewPCG(seed, 3)), 96, 96, Options{Workers: w})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return r.Burst.Data[1][2]
+	}
+	a, b, d := run(1, 1), run(1, 3), run(2, 2)
+	for i := range a {
+		if a[i] != b[i] {
+			t.Fatalf("pixel %d: %g with 1 worker, %g with 3", i, a[i], b[i])
+		}
+	}
+	same := true
+	for i := range a {
+		same = same && a[i] == d[i]
+	}
+	if same {
+		t.Error("different seeds: identical fields")
+	}
+}

@@ -60,9 +60,10 @@ func (p ScreenParams) kappa0() float64 {
 //	Φ(κ) = 0.023 r0^(−5/3) (κ² + κ0²)^(−11/6)   [rad² m²]
 //
 // at spatial frequency κ (cycles per metre), κ0 = 1/L0 (0 for L0 ≤ 0 or
-// +Inf). This is the Kolmogorov spectrum 0.023 r0^(−5/3) κ^(−11/3) (Noll
-// 1976 eq. 18 written in cycles per metre; Lane, Glindemann & Dainty 1992
-// eq. 3) with the von Kármán modification. It returns +Inf at κ = κ0 = 0.
+// +Inf): the Kolmogorov phase spectrum 0.023 r0^(−5/3) κ^(−11/3) in
+// cycles per metre (Noll 1976, JOSA 66, 207; Lane, Glindemann & Dainty
+// 1992) with the von Kármán modification (DESIGN.md §3). It returns +Inf
+// at κ = κ0 = 0.
 func PhasePSD(kappa, r0, l0 float64) float64 {
 	k0 := ScreenParams{L0: l0}.kappa0()
 	return 0.023 * math.Pow(r0, -5.0/3) * math.Pow(kappa*kappa+k0*k0, -11.0/6)

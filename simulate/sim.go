@@ -68,16 +68,16 @@ type Options struct {
 	Workers        int  // goroutines; 0 = GOMAXPROCS
 }
 
-// Result is one simulated burst with what produced it.
+// Result is one simulated burst with what produced it. For Field bursts,
+// burst pixel (x, y) lies at field angle ((x − Nx/2)·p, (y − Ny/2)·p) with p
+// the pixel scale; Atmosphere.Phase at that angle and Times[f] gives the
+// wavefront there (see Simulator.TruthAt).
 type Result struct {
 	Burst      *burst.Burst
 	R0         float64     // Fried parameter used, m, at the observing wavelength
-	Atmosphere *Atmosphere // the layers (screens) used; Phase gives the wavefront anywhere
+	Atmosphere *Atmosphere // the layers (screens) used
 	Phases     [][]float64 // Patch with KeepPhases: per frame, N*N wavefront on the pupil grid, rad
-	// Times holds the time of each frame, s (frame f at f·FrameInterval).
-	Times []float64
-	// Field bursts: the canvas pixel of the field centre is (Nx/2, Ny/2)
-	// of the burst; pixel (x, y) lies at field angle ((x−Nx/2)·p, (y−Ny/2)·p).
+	Times      []float64   // time of each frame, s (frame f at f·FrameInterval)
 }
 
 // Simulator makes bursts for one Config. It holds the pupil, basis and
