@@ -347,8 +347,11 @@ func TestShardMergeEqualsSingleRun(t *testing.T) {
 		}
 		parts = append(parts, path)
 	}
-	c := NewCollector(g)
-	meta, total, err := Merge(parts, c.Add)
+	var c *Collector
+	meta, total, err := Merge(parts, func(_ *Meta, gm *Grid) (Sink, error) {
+		c = NewCollector(gm)
+		return c.Add, nil
+	})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -358,7 +361,7 @@ func TestShardMergeEqualsSingleRun(t *testing.T) {
 	sameProducts(t, "merge vs single run", single, c.Product(meta))
 
 	// A missing part is an error, not a silent hole.
-	if _, _, err := Merge(parts[:3], func(*PatchResult) error { return nil }); err == nil {
+	if _, _, err := Merge(parts[:3], func(*Meta, *Grid) (Sink, error) { return func(*PatchResult) error { return nil }, nil }); err == nil {
 		t.Error("merge with a missing shard succeeded")
 	}
 

@@ -44,8 +44,20 @@ func (c *Collector) Add(r *PatchResult) error {
 	return nil
 }
 
-// Product returns the finished restoration.
+// Product returns the finished restoration. It sets FlagMetric on the
+// patches whose metric ratio exceeds MetricRatioLimit times the median over
+// the field.
 func (c *Collector) Product(meta *Meta) *Product {
+	mr := make([]float64, len(c.Patches))
+	for i, p := range c.Patches {
+		mr[i] = p.MetricRatio
+	}
+	med := restoreMedian(mr)
+	for i := range c.Patches {
+		if c.Patches[i].MetricRatio > MetricRatioLimit*med {
+			c.Patches[i].Flags |= FlagMetric
+		}
+	}
 	return &Product{Meta: meta, Image: c.Mosaic.Image(nil), Patches: c.Patches}
 }
 
@@ -71,7 +83,15 @@ func (p *Product) Write(out, version string) error {
 	for k, v := range m.Settings {
 		settings[k] = v
 	}
-	cards := append([]burst.Card{}, m.Cards...)
+	var cards []burst.Card
+	for _, c := range m.Cards {
+		// The burst's description of its 4-D axes does not apply to the
+		// restored image.
+		if v, ok := c.Value.(string); ok && c.Key == "COMMENT" && strings.HasPrefix(v, "Axes:") {
+			continue
+		}
+		cards = append(cards, c)
+	}
 	cards = append(cards, burst.Provenance(version, settings)...)
 	cards = append(cards,
 		burst.Card{Key: "PDPATCH", Value: m.Patch, Comment: "restoration patch side, pixels"},
@@ -167,6 +187,7 @@ func (p *Product) table() *burst.Table {
 		{Key: "PDMODES", Value: p.Meta.Modes, Comment: "modes per frame"},
 		{Key: "PDFRAMES", Value: p.Meta.Frames, Comment: "frames"},
 		{Key: "COMMENT", Value: "NOLL: Noll-equivalent Zernike coefficients j=2..modes+1 per frame"},
+		{Key: "COMMENT", Value: "COEFFS, NOLL: frames x modes per row, frame-major (mode index fastest)"},
 		{Key: "COMMENT", Value: "FLAGS bits: 1 failed, 2 metric, 4 coefficients, 8 contrast, 16 ringing"},
 	}}
 }

@@ -173,13 +173,13 @@ func (r *restorePartReader) next() (*PatchResult, error) {
 	return &p, nil
 }
 
-// Merge reads partial files written by shard runs of one restoration and
-// feeds all patches, in increasing id order, to sink. It checks that the
-// parts share one key, that their ranges tile [0, total) without gaps or
-// overlaps, and that every part is complete. It returns the common Meta,
-// the shard count and the total number of patches. Only one patch per part is
-// held in memory at a time.
-func Merge(paths []string, sink Sink) (meta *Meta, total int, err error) {
+// Merge reads partial files written by shard runs of one restoration. It
+// checks that the parts share one key and that their ranges tile
+// [0, total) without gaps or overlaps, then calls start with the common Meta
+// and grid to obtain a sink and feeds it every patch in increasing id order,
+// checking that every part is complete. It returns the Meta and the total
+// number of patches. Only one patch is held in memory at a time.
+func Merge(paths []string, start func(*Meta, *Grid) (Sink, error)) (meta *Meta, total int, err error) {
 	if len(paths) == 0 {
 		return nil, 0, errors.New("restore: merge: no partial files")
 	}
@@ -222,6 +222,11 @@ func Merge(paths []string, sink Sink) (meta *Meta, total int, err error) {
 	if at != total {
 		return nil, 0, fmt.Errorf("restore: merge: patches %d–%d missing (no part covers them)", at, total-1)
 	}
+	m := first.h.Meta
+	sink, err := start(&m, g)
+	if err != nil {
+		return nil, 0, err
+	}
 	for _, p := range parts {
 		for id := p.h.Lo; ; id++ {
 			r, err := p.next()
@@ -242,6 +247,5 @@ func Merge(paths []string, sink Sink) (meta *Meta, total int, err error) {
 			}
 		}
 	}
-	m := first.h.Meta
 	return &m, total, nil
 }

@@ -1,0 +1,174 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"os"
+	"os/signal"
+	"strings"
+
+	"github.com/spf13/cobra"
+
+	"pdwave/infer/restore"
+	"pdwave/model/net"
+	"pdwave/model/site"
+)
+
+// restoreFlags holds the flags of "pdwave restore".
+var restoreFlags struct {
+	out, site, weights, dark, flat, shard string
+	patch, overlap, polish, workers       int
+	fit, resume, pairs, noAlign, quiet    bool
+}
+
+var restoreCmd = &cobra.Command{
+	Use:   "restore BURST... --out FILE",
+	Short: "Restore full fields: calibrate, tile, estimate wavefronts, deconvolve, mosaic",
+	Long: `restore turns phase-diversity bursts of a whole field into sharp images.
+
+Each burst (a 4-D FITS cube; with --pairs, a focused and a defocused 3-D file
+after each other) is calibrated ((frame − dark)/flat, the flat normalised to
+mean 1), the defocused channel is co-registered to the focused one (the
+measured sub-pixel offset is reported and removed), and the field is cut into
+overlapping patches (--patch, --overlap; defaults from the site file and
+patch/4). In every patch the wavefront of each frame comes from the learned
+network (default when weights are available), optionally polished with
+--polish classical iterations, or from the full classical fit (--fit); the
+patch is deconvolved with the noise-filtered object estimate, and the patches
+are blended into one seamless field with weights that sum to one across the
+overlaps.
+
+Output: FILE (FITS: the restored field with the input's WCS and header cards
+and the provenance; extensions RAWMEAN, the calibrated burst mean, and
+PATCHES, a table with every patch's position, coefficients in the native
+basis and as Noll Zernikes, metric and quality flags), and beside it
+FILE_preview.png (raw beside restored, same scale), FILE_patches.csv and
+FILE_summary.json. With several bursts, --out is a folder.
+
+Large jobs: --shard i/n (or a job array: SLURM_ARRAY_TASK_ID, _COUNT, _MIN)
+restores a fixed share of the patches into a partial file; 
+"pdwave restore merge PARTS... --out FILE" assembles the parts into exactly
+the output of a single run. A killed run continues with --resume: finished
+patches are kept in FILE.journal/ and not computed again.`,
+	Args: cobra.ArbitraryArgs,
+	RunE: restoreRun,
+}
+
+var restoreMergeOut string
+
+var restoreMergeCmd = &cobra.Command{
+	Use:   "merge PARTS... --out FILE",
+	Short: "Assemble the partial files of a sharded restoration",
+	Long: `merge reads the partial files written by "pdwave restore --shard i/n" for
+every i, checks that they come from the same data and settings and cover every
+patch exactly once, and writes the same FITS file and sidecars as a single run.`,
+	Args: cobra.MinimumNArgs(1),
+	RunE: func(cmd *cobra.Command, args []string) error {
+		if restoreMergeOut == "" {
+			return fmt.Errorf("restore merge: --out is required")
+		}
+		p, err := restore.MergeFiles(args, restoreMergeOut, version)
+		if err != nil {
+			return err
+		}
+		fmt.Fprintf(os.Stderr, "restore merge: %s: %s\n", restoreMergeOut, p)
+		return nil
+	},
+}
+
+func init() {
+	f := restoreCmd.Flags()
+	o := &restoreFlags
+	f.StringVar(&o.out, "out", "", "output FITS file (a folder when restoring several bursts; a partial file with --shard)")
+	f.StringVar(&o.site, "site", "", "site file (YAML): optics the header lacks, seeing for the prior, patch size, basis")
+	f.StringVar(&o.weights, "weights", "", "network weight file (default: the built-in weights, if they fit the telescope)")
+	f.IntVar(&o.patch, "patch", 0, "patch side, pixels (default: the weights', else the site's, else 64)")
+	f.IntVar(&o.overlap, "overlap", -1, "overlap of neighbouring patches, pixels (default: patch/4)")
+	f.IntVar(&o.polish, "polish", 0, "classical optimiser iterations after the learned estimate")
+	f.BoolVar(&o.fit, "fit", false, "full classical fit in every patch instead of the learned estimate")
+	f.StringVar(&o.dark, "dark", "", "dark frame (FITS, 2-D or a stack to average)")
+	f.StringVar(&o.flat, "flat", "", "flat field (FITS, dark-corrected; normalised to mean 1)")
+	f.StringVar(&o.shard, "shard", "", "restore only share i of n of the patches (i/n, 0-based) into a partial file")
+	f.BoolVar(&o.resume, "resume", false, "continue an interrupted run from its journal (FILE.journal)")
+	f.IntVar(&o.workers, "workers", 0, "worker goroutines (default: all cores)")
+	f.BoolVar(&o.pairs, "pairs", false, "arguments are focused/defocused 3-D files, two by two")
+	f.BoolVar(&o.noAlign, "no-align", false, "measure but do not remove the offset between the channels")
+	f.BoolVar(&o.quiet, "quiet", false, "no progress line")
+	restoreMergeCmd.Flags().StringVar(&restoreMergeOut, "out", "", "output FITS file")
+	restoreCmd.AddCommand(restoreMergeCmd)
+	root.AddCommand(restoreCmd)
+}
+
+func restoreRun(cmd *cobra.Command, args []string) error {
+	o := restoreFlags
+	if len(args) == 0 {
+		return fmt.Errorf("restore: no burst files given")
+	}
+	if o.out == "" {
+		return fmt.Errorf("restore: --out is required")
+	}
+	if o.polish < 0 || o.workers < 0 {
+		return fmt.Errorf("restore: --polish and --workers must not be negative")
+	}
+	job := &restore.Job{
+		Inputs: args, Pairs: o.pairs, Out: o.out, Patch: o.patch, Overlap: o.overlap,
+		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,
+		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
+		Command: "pdwave " + strings.Join(os.Args[1:], " "),
+	}
+	if !o.quiet {
+		job.Progress = os.Stderr
+	}
+	switch {
+	case o.shard != "":
+		sh, err := restore.ParseShard(o.shard)
+		if err != nil {
+			return err
+		}
+		job.Shard = sh
+	default:
+		sh, ok, err := restore.ShardFromEnv(os.Getenv)
+		if err != nil {
+			return err
+		}
+		if ok {
+			job.Shard = sh
+			fmt.Fprintf(os.Stderr, "restore: shard %v from the job-array environment\n", sh)
+		}
+	}
+	if o.site != "" {
+		s, err := site.Load(o.site)
+		if err != nil {
+			return err
+		}
+		job.Site = s
+	}
+	if !o.fit {
+		switch {
+		case o.weights != "":
+			m, err := net.Load(o.weights)
+			if err != nil {
+				return err
+			}
+			job.Model, job.ModelFrom = m, o.weights
+		default:
+			m, from, err := restoreBuiltinWeights()
+			if err != nil {
+				fmt.Fprintf(os.Stderr, "restore: built-in weights not used: %v\n", err)
+			}
+			job.Model, job.ModelFrom = m, from
+		}
+		if job.Model == nil {
+			fmt.Fprintln(os.Stderr, "restore: no network weights; using the classical fit in every patch")
+		}
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	defer stop()
+	return job.Run(ctx)
+}
+
+// restoreBuiltinWeights returns the weights shipped with the program, or nil
+// if there are none.
+func restoreBuiltinWeights() (*net.Model, string, error) {
+	return nil, "", nil
+}

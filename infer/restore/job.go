@@ -1,0 +1,367 @@
+package restore
+
+import (
+	"context"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"hash/crc64"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"pdwave/infer"
+	"pdwave/model/burst"
+	"pdwave/model/net"
+	"pdwave/model/site"
+)
+
+// Job is one invocation of the restore command: inputs, settings and where
+// the outputs go. The command line fills it; Run does the work.
+type Job struct {
+	// Inputs are burst files: 4-D cubes, or (with Pairs) focused/defocused
+	// 3-D files alternating.
+	Inputs []string
+	Pairs  bool
+	// Out is the output FITS file for a single burst, or a directory (made
+	// if needed) for several: DIR/<input name>_restored.fits. Shard runs
+	// write partial files instead (same names with .part).
+	Out       string
+	Site      *site.Site // nil: optics from the burst headers, sizes and seeing defaults
+	Model     *net.Model // learned estimator; nil = none
+	ModelFrom string     // where the weights came from (provenance)
+	Patch     int        // 0 = site (or 64)
+	Overlap   int        // < 0 = patch/4
+	Polish    int        // classical iterations after the learned estimate
+	Fit       bool       // full classical fit instead of the learned estimate
+	Dark      string     // dark frame FITS; "" = none
+	Flat      string     // flat frame FITS; "" = none
+	NoAlign   bool       // measure but do not remove the channel offset
+	Shard     Shard
+	Resume    bool
+	Workers   int
+	Progress  io.Writer // progress lines; nil = silent
+	Log       io.Writer // one-line reports (offset, timing); nil = silent
+	Version   string
+	Command   string
+}
+
+// Run restores every burst of the job in turn.
+func (j *Job) Run(ctx context.Context) error {
+	if j.Out == "" {
+		return errors.New("restore: no output (--out)")
+	}
+	if err := j.Shard.Validate(); err != nil {
+		return err
+	}
+	type unit struct{ name, a, b string }
+	var units []unit
+	if j.Pairs {
+		if len(j.Inputs) == 0 || len(j.Inputs)%2 != 0 {
+			return fmt.Errorf("restore: --pairs needs focused/defocused files two by two, got %d files", len(j.Inputs))
+		}
+		for i := 0; i < len(j.Inputs); i += 2 {
+			units = append(units, unit{j.Inputs[i], j.Inputs[i], j.Inputs[i+1]})
+		}
+	} else {
+		if len(j.Inputs) == 0 {
+			return errors.New("restore: no burst files given")
+		}
+		for _, in := range j.Inputs {
+			units = append(units, unit{in, in, ""})
+		}
+	}
+	var cal *Calibration
+	for k, u := range units {
+		out := j.Out
+		if len(units) > 1 {
+			if err := os.MkdirAll(j.Out, 0o755); err != nil {
+				return fmt.Errorf("restore: creating %s: %w", j.Out, err)
+			}
+			base := strings.TrimSuffix(filepath.Base(u.name), filepath.Ext(u.name))
+			out = filepath.Join(j.Out, base+"_restored.fits")
+			if j.Shard.Partial() {
+				out = filepath.Join(j.Out, fmt.Sprintf("%s_%d-%d.part", base, j.Shard.Index, j.Shard.Count))
+			}
+		}
+		var b *burst.Burst
+		var err error
+		inputs := []string{u.a}
+		if u.b != "" {
+			b, err = burst.ReadPair(u.a, u.b)
+			inputs = append(inputs, u.b)
+		} else {
+			b, err = burst.Read(u.a)
+		}
+		if err != nil {
+			return err
+		}
+		if k == 0 || cal == nil {
+			if cal, err = j.calibration(b.Nx, b.Ny); err != nil {
+				return err
+			}
+		}
+		if err := j.one(ctx, b, cal, inputs, out); err != nil {
+			return fmt.Errorf("restoring %s: %w", u.name, err)
+		}
+	}
+	return nil
+}
+
+func (j *Job) calibration(nx, ny int) (*Calibration, error) {
+	var dark, flat []float64
+	for _, c := range []struct {
+		path string
+		dst  *[]float64
+	}{{j.Dark, &dark}, {j.Flat, &flat}} {
+		if c.path == "" {
+			continue
+		}
+		d, fx, fy, err := ReadFrame(c.path)
+		if err != nil {
+			return nil, err
+		}
+		if fx != nx || fy != ny {
+			return nil, fmt.Errorf("restore: %s is %d×%d, the bursts are %d×%d", c.path, fx, fy, nx, ny)
+		}
+		*c.dst = d
+	}
+	if dark == nil && flat == nil {
+		return nil, nil
+	}
+	cal, err := NewCalibration(nx, ny, dark, flat)
+	if err != nil {
+		return nil, err
+	}
+	if cal.Bad > 0 && j.Log != nil {
+		fmt.Fprintf(j.Log, "restore: %d flat-field pixels at or below 1 %% of the mean given gain 1\n", cal.Bad)
+	}
+	return cal, nil
+}
+
+// Configure returns the fit configuration and wavefront method for a burst
+// with the given optics and frame count, following the job's settings.
+func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error) {
+	var cfg infer.Config
+	var err error
+	if j.Site != nil {
+		cfg, err = FitConfig(j.Site, o, frames, j.Patch)
+	} else {
+		cfg, err = HeaderConfig(o, frames, j.Patch)
+	}
+	if err != nil {
+		return cfg, Method{}, err
+	}
+	if j.Fit || j.Model == nil {
+		return cfg, Method{Name: "fit"}, nil
+	}
+	cfg = LearnedConfig(j.Model, cfg)
+	if j.Patch == 0 && j.Model.Meta.Patch > 0 {
+		cfg.Patch = j.Model.Meta.Patch
+	}
+	l, err := NewLearned(j.Model, cfg)
+	if err != nil {
+		return cfg, Method{}, err
+	}
+	m := Method{Start: l, Polish: j.Polish, Name: "learned"}
+	if j.Polish > 0 {
+		m.Name = fmt.Sprintf("learned+polish %d", j.Polish)
+	}
+	return cfg, m, nil
+}
+
+// HeaderConfig is FitConfig without a site file: optics from the burst
+// header (all of wavelength, pixel scale, diameter and diversity must be
+// present), 64 px patches unless patch > 0, 36 KL modes and an expected
+// D/r0 of 5 for the prior (common practice for moderate daytime seeing).
+func HeaderConfig(o burst.Optics, frames, patch int) (infer.Config, error) {
+	cfg := infer.DefaultConfig()
+	var missing []string
+	for _, c := range []struct {
+		v    float64
+		name string
+	}{{o.Wavelength, "wavelength (WAVELNTH)"}, {o.PixelScale, "pixel scale (CDELT1)"}, {o.Diameter, "diameter (TELDIAM)"}, {o.DiversityPV, "diversity (DIVPV)"}} {
+		if !(c.v > 0) {
+			missing = append(missing, c.name)
+		}
+	}
+	if len(missing) > 0 {
+		return cfg, fmt.Errorf("restore: the burst header lacks %s; give a site file (--site)", strings.Join(missing, ", "))
+	}
+	cfg.Telescope.Wavelength, cfg.Telescope.PixelScale = o.Wavelength, o.PixelScale
+	cfg.Telescope.Diameter, cfg.Telescope.Obscuration = o.Diameter, o.Obscuration
+	cfg.DiversityPV = []float64{0, o.DiversityPV}
+	if patch > 0 {
+		cfg.Patch = patch
+	}
+	cfg.Frames = frames
+	if err := cfg.Telescope.CheckSampling(cfg.Patch); err != nil {
+		return cfg, fmt.Errorf("restore: %w", err)
+	}
+	return cfg, nil
+}
+
+// one restores one burst into out.
+func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out string) error {
+	t0 := time.Now()
+	cfg, method, err := j.Configure(b.Optics, b.Frames)
+	if err != nil {
+		return err
+	}
+	overlap := j.Overlap
+	if overlap < 0 {
+		overlap = cfg.Patch / 4
+	}
+	if _, err := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap); err != nil {
+		return err
+	}
+	field, off, err := Prepare(b, cal, !j.NoAlign, j.Workers)
+	if err != nil {
+		return err
+	}
+	if j.Log != nil {
+		fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px%s\n", off.DX, off.DY, map[bool]string{true: " (not removed)", false: " removed"}[j.NoAlign])
+	}
+	phys, err := NewPhysics(cfg, method)
+	if err != nil {
+		return err
+	}
+	settings := map[string]string{
+		"command":   j.Command,
+		"estimator": method.Name,
+		"patch":     strconv.Itoa(cfg.Patch),
+		"overlap":   strconv.Itoa(overlap),
+		"polish":    strconv.Itoa(j.Polish),
+		"basis":     string(cfg.Basis),
+		"modes":     strconv.Itoa(cfg.Modes),
+		"frames":    strconv.Itoa(cfg.Frames),
+		"d_over_r0": strconv.FormatFloat(cfg.DOverR0, 'g', 6, 64),
+		"prior":     strconv.FormatFloat(cfg.Prior, 'g', 6, 64),
+		"diversity": strconv.FormatFloat(cfg.DiversityPV[1], 'g', 6, 64),
+		"align":     strconv.FormatBool(!j.NoAlign),
+		"dark":      j.Dark,
+		"flat":      j.Flat,
+		"inputs":    strings.Join(inputs, ","),
+	}
+	if j.ModelFrom != "" && method.Start != nil {
+		settings["weights"] = j.ModelFrom
+	}
+	calNote := ""
+	if cal != nil {
+		var parts []string
+		if cal.Dark != nil {
+			parts = append(parts, "dark "+filepath.Base(j.Dark))
+		}
+		if cal.Gain != nil {
+			parts = append(parts, "flat "+filepath.Base(j.Flat))
+		}
+		calNote = strings.Join(parts, ", ")
+	}
+	tel := cfg.Telescope
+	cards := append(append([]burst.Card{}, b.Cards...),
+		burst.Card{Key: "WAVELNTH", Value: tel.Wavelength * 1e9, Comment: "wavelength used, nm"},
+		burst.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
+		burst.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
+		burst.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
+		burst.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"})
+	meta := &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
+		Basis: string(cfg.Basis), Modes: cfg.Modes, Estimator: method.Name, ShiftX: off.DX, ShiftY: off.DY,
+		Cards: cards, Settings: settings, Mean: field.Mean, Inputs: inputs, CalibrationNotes: calNote}
+	meta.Key = restoreKey(field, settings)
+	// The command line itself may differ between shards and the merge; it
+	// is recorded but not part of the key.
+	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
+		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress}
+	g, _ := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap)
+	var results []PatchResult
+	if j.Shard.Partial() {
+		lo, hi := j.Shard.Range(g.Count())
+		w, err := CreatePart(out, meta, j.Shard, lo, hi)
+		if err != nil {
+			return err
+		}
+		results, err = Run(ctx, field, opt, w.Write)
+		if err != nil {
+			w.Abort()
+			return err
+		}
+		if err := w.Close(); err != nil {
+			return err
+		}
+	} else {
+		col := NewCollector(g)
+		results, err = Run(ctx, field, opt, col.Add)
+		if err != nil {
+			return err
+		}
+		if err := col.Product(meta).Write(out, j.Version); err != nil {
+			return err
+		}
+	}
+	if err := os.RemoveAll(opt.Journal); err != nil {
+		return fmt.Errorf("removing journal: %w", err)
+	}
+	if j.Log != nil {
+		failed := 0
+		for _, r := range results {
+			if r.Flags&FlagFailed != 0 {
+				failed++
+			}
+		}
+		fmt.Fprintf(j.Log, "restore: %s: %d patches (%s) in %.1f s, %d failed\n", out, len(results), method.Name, time.Since(t0).Seconds(), failed)
+	}
+	return nil
+}
+
+// restoreKey identifies the calibrated data and the settings that shape the
+// result (CRC-64 of the pixels and of the sorted settings without the
+// command line).
+func restoreKey(f *Field, settings map[string]string) string {
+	h := crc64.New(crc64.MakeTable(crc64.ECMA))
+	var b [8]byte
+	for c := range f.Data {
+		for _, fr := range f.Data[c] {
+			buf := make([]byte, 0, 8*len(fr))
+			for _, v := range fr {
+				binary.LittleEndian.PutUint64(b[:], math.Float64bits(v))
+				buf = append(buf, b[:]...)
+			}
+			h.Write(buf)
+		}
+	}
+	keys := make([]string, 0, len(settings))
+	for k := range settings {
+		if k != "command" {
+			keys = append(keys, k)
+		}
+	}
+	sort.Strings(keys)
+	for _, k := range keys {
+		fmt.Fprintf(h, "%s=%s\n", k, settings[k])
+	}
+	return fmt.Sprintf("%d×%d×%d %016x", f.Nx, f.Ny, f.Frames, h.Sum64())
+}
+
+// MergeFiles assembles the partial files of a sharded restoration into the
+// same output a single run writes (FITS product and sidecars) at out, and
+// returns the product.
+func MergeFiles(parts []string, out, version string) (*Product, error) {
+	var col *Collector
+	meta, _, err := Merge(parts, func(_ *Meta, g *Grid) (Sink, error) {
+		col = NewCollector(g)
+		return col.Add, nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	p := col.Product(meta)
+	if err := p.Write(out, version); err != nil {
+		return nil, err
+	}
+	return p, nil
+}
