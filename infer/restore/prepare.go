@@ -27,13 +27,16 @@ func Prepare(b *burst.Burst, cal *Calibration, align bool, workers int) (*Field,
 	if b.Frames < 1 || len(b.Data[0]) != b.Frames || len(b.Data[1]) != b.Frames {
 		return nil, Offset{}, fmt.Errorf("restore: burst has %d/%d frames per channel", len(b.Data[0]), len(b.Data[1]))
 	}
+	return prepareData(b.Nx, b.Ny, b.Data, cal, align, workers)
+}
+
+func prepareData(nx, ny int, data [2][][]float64, cal *Calibration, align bool, workers int) (*Field, Offset, error) {
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
-	nx, ny := b.Nx, b.Ny
 	if cal != nil {
-		for c := range b.Data {
-			for _, fr := range b.Data[c] {
+		for c := range data {
+			for _, fr := range data[c] {
 				if len(fr) != nx*ny {
 					return nil, Offset{}, fmt.Errorf("restore: frame has %d pixels, want %d×%d", len(fr), nx, ny)
 				}
@@ -41,12 +44,12 @@ func Prepare(b *burst.Burst, cal *Calibration, align bool, workers int) (*Field,
 			}
 		}
 	}
-	f, err := NewField(nx, ny, b.Data)
+	f, err := NewField(nx, ny, data)
 	if err != nil {
 		return nil, Offset{}, err
 	}
 	defMean := make([]float64, nx*ny)
-	for _, fr := range b.Data[1] {
+	for _, fr := range data[1] {
 		for i, v := range fr {
 			defMean[i] += v
 		}
@@ -61,7 +64,7 @@ func Prepare(b *burst.Burst, cal *Calibration, align bool, workers int) (*Field,
 	}
 	var wg sync.WaitGroup
 	frames := make(chan []float64)
-	for w := 0; w < min(workers, b.Frames); w++ {
+	for w := 0; w < min(workers, len(data[1])); w++ {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
@@ -71,7 +74,7 @@ func Prepare(b *burst.Burst, cal *Calibration, align bool, workers int) (*Field,
 			}
 		}()
 	}
-	for _, fr := range b.Data[1] {
+	for _, fr := range data[1] {
 		frames <- fr
 	}
 	close(frames)
