@@ -48,11 +48,15 @@ type Featurizer struct {
 	window       []float64
 	zs           [][]complex128 // per frame Z spectrum (see transform)
 	mean         []complex128   // burst mean of the focused spectra
+	meanZ        []complex128   // burst mean of Z
 	p1, p2, pm   []float64
 	cr, ci       []float64
 	tr, ti       []float64
-	inside       []bool // per output block: centre inside the cut-off
-	outside      []int  // spectrum indices beyond 1.05 r_c, for the noise floor
+	inside       []bool  // per output block: centre inside the cut-off
+	outside      []int   // spectrum indices beyond 1.05 r_c, for the noise floor
+	block        []int32 // per spectrum index: output block of the centred spectrum
+	mirror       []int32 // per spectrum index: index of −u
+	colBlock     []int32 // per image column: output column
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -67,6 +71,21 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 	f.plan = fft.NewPlan(n, n)
 	f.window = EdgeWindow(n, n/8)
 	f.mean = make([]complex128, n*n)
+	f.meanZ = make([]complex128, n*n)
+	f.block = make([]int32, n*n)
+	f.mirror = make([]int32, n*n)
+	f.colBlock = make([]int32, n)
+	for x := range f.colBlock {
+		f.colBlock[x] = int32(x / f.bin)
+	}
+	for ky := 0; ky < n; ky++ {
+		cy := (ky + n/2) % n
+		for kx := 0; kx < n; kx++ {
+			cx := (kx + n/2) % n
+			f.block[ky*n+kx] = int32((cy/f.bin)*size + cx/f.bin)
+			f.mirror[ky*n+kx] = int32(((n-ky)%n)*n + (n-kx)%n)
+		}
+	}
 	f.pm = make([]float64, size*size)
 	f.tr = make([]float64, size*size)
 	f.ti = make([]float64, size*size)
@@ -171,21 +190,19 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	for len(f.zs) < frames {
 		f.zs = append(f.zs, make([]complex128, n*n))
 	}
-	clear(f.mean)
+	clear(f.meanZ)
 	for j := 0; j < frames; j++ {
 		z := f.zs[j]
 		f.transform(z, data[0][j], data[1][j])
-		for ky := 0; ky < n; ky++ {
-			my := (n - ky) % n
-			for kx := 0; kx < n; kx++ {
-				d1, _ := split(z[ky*n+kx], z[my*n+(n-kx)%n])
-				f.mean[ky*n+kx] += d1
-			}
+		for i, v := range z {
+			f.meanZ[i] += v
 		}
 	}
-	invF := complex(1/float64(frames), 0)
-	for i := range f.mean {
-		f.mean[i] *= invF
+	// The split is linear: the mean of D1 is the split of the mean of Z.
+	invF := 1 / float64(frames)
+	for i, v := range f.meanZ {
+		d1, _ := split(v, f.meanZ[f.mirror[i]])
+		f.mean[i] = complex(real(d1)*invF, imag(d1)*invF)
 	}
 	for j := 0; j < frames; j++ {
 		out := dst[j*FeatureChannels*plane : (j+1)*FeatureChannels*plane]
@@ -203,10 +220,12 @@ func (f *Featurizer) binImage(dst, im []float64, m, inv float64) {
 	for i := range dst {
 		dst[i] = 0
 	}
+	cb := f.colBlock
 	for y := 0; y < n; y++ {
-		row := dst[(y/b)*s:]
-		for x := 0; x < n; x++ {
-			row[x/b] += im[y*n+x] - m
+		row := dst[(y/b)*s : (y/b+1)*s]
+		src := im[y*n : (y+1)*n]
+		for x, v := range src {
+			row[cb[x]] += v - m
 		}
 	}
 	for i := range dst {
@@ -245,22 +264,20 @@ func split(z, zm complex128) (d1, d2 complex128) {
 // spectral writes the five ratio channels of one frame from its Z spectrum
 // and the burst mean M of the focused spectra.
 func (f *Featurizer) spectral(dst []float64, z, mean []complex128) {
-	n, s, b := f.n, f.size, f.bin
+	s, b := f.size, f.bin
 	for i := 0; i < s*s; i++ {
 		f.p1[i], f.p2[i], f.cr[i], f.ci[i], f.pm[i], f.tr[i], f.ti[i] = 0, 0, 0, 0, 0, 0, 0
 	}
-	for ky := 0; ky < n; ky++ {
-		my := (n - ky) % n
-		cy := (ky + n/2) % n // centred row
-		for kx := 0; kx < n; kx++ {
-			mx := (n - kx) % n
-			d1, d2 := split(z[ky*n+kx], z[my*n+mx])
+	mean = mean[:len(z)]
+	mirror, block := f.mirror[:len(z)], f.block[:len(z)]
+	for i, zi := range z {
+		{
+			d1, d2 := split(zi, z[mirror[i]])
 			ar, ai := real(d1), imag(d1)
 			br, bi := real(d2), imag(d2)
-			m := mean[ky*n+kx]
+			m := mean[i]
 			mr, mi := real(m), imag(m)
-			cx := (kx + n/2) % n
-			k := (cy/b)*s + cx/b
+			k := block[i]
 			f.p1[k] += ar*ar + ai*ai
 			f.p2[k] += br*br + bi*bi
 			// D1 D2* = (ar + i ai)(br − i bi)

@@ -5,6 +5,7 @@ import (
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/floats"
 )
 
 // Predictor runs the network forward in plain Go over a Model's weights. It
@@ -131,22 +132,23 @@ func (p *Predictor) Raw(dst, x []float64, frames int) {
 		p.col = grow(p.col, o*o*k)
 		out := grow(p.act[l+1], frames*cout*o*o)
 		p.act[l+1] = out
-		w := blas64.General{Rows: cout, Cols: k, Stride: k, Data: ps[2*l].Data}
+		w := ps[2*l].Data
 		bias := ps[2*l+1].Data
 		for f := 0; f < frames; f++ {
 			im2col(p.col, in[f*cin*s*s:(f+1)*cin*s*s], cin, s, o)
-			c := blas64.General{Rows: o * o, Cols: k, Stride: k, Data: p.col}
-			dstf := blas64.General{Rows: cout, Cols: o * o, Stride: o * o, Data: out[f*cout*o*o : (f+1)*cout*o*o]}
-			blas64.Gemm(blas.NoTrans, blas.Trans, 1, w, c, 0, dstf)
+			dstf := out[f*cout*o*o : (f+1)*cout*o*o]
+			// Small products: dot products on one goroutine beat a
+			// general matrix multiply that spawns workers.
 			for ch := 0; ch < cout; ch++ {
-				row := dstf.Data[ch*o*o : (ch+1)*o*o]
+				wc := w[ch*k : (ch+1)*k]
+				row := dstf[ch*o*o : (ch+1)*o*o]
 				b := bias[ch]
-				for i, v := range row {
-					v += b
+				for q := range row {
+					v := floats.Dot(wc, p.col[q*k:(q+1)*k]) + b
 					if v < 0 {
 						v = 0
 					}
-					row[i] = v
+					row[q] = v
 				}
 			}
 		}
