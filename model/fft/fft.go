@@ -103,8 +103,13 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 		}
 		r1 := src[(2*j+1)*nx : (2*j+2)*nx]
 		r1 = r1[:len(zj)]
-		for x, v := range r0 {
-			zj[x] = complex(v, r1[x])
+		x0 := 0
+		if useVec && nx >= 4 {
+			x0 = nx &^ 3
+			interleave(&zj[0], &r0[0], &r1[0], x0/4)
+		}
+		for x := x0; x < nx; x++ {
+			zj[x] = complex(r0[x], r1[x])
 		}
 	}
 	p.rows(z, np, false)
@@ -122,7 +127,12 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 		c0[0] = complex(real(zj[0]), 0)
 		c1[0] = complex(imag(zj[0]), 0)
 		zr := zj[nx-h+1 : nx] // zr[len(zr)-l] = Z[nx-l]
-		for l := 1; l < len(c0); l++ {
+		l0 := 1
+		if pairs := (h - 1) / 2; useVec && pairs > 0 {
+			unpackRows(&c0[1], &c1[1], &zj[1], &zj[nx-2], pairs)
+			l0 += 2 * pairs
+		}
+		for l := l0; l < len(c0); l++ {
 			zl := zj[l]
 			zm := zr[len(zr)-l]
 			c0[l] = complex(0.5*(real(zl)+real(zm)), 0.5*(imag(zl)-imag(zm)))
@@ -137,7 +147,12 @@ func (p *Plan) ForwardReal(dst []complex128, src []float64) {
 		copy(d, c[k*hp:k*hp+h])
 		km := (ny - k) % ny
 		cm := c[km*hp : km*hp+h]
-		for l := h; l < nx; l++ {
+		l0 := h
+		if pairs := (nx - h) / 2; useVec && pairs > 0 {
+			conjRev(&d[h], &cm[nx-h-1], pairs)
+			l0 += 2 * pairs
+		}
+		for l := l0; l < nx; l++ {
 			d[l] = conj(cm[nx-l])
 		}
 	}
@@ -162,7 +177,12 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 		sm := src[km*nx : (km+1)*nx]
 		c0 := c[k*hp : k*hp+h]
 		c0[0] = complex(0.5*(real(s0[0])+real(sm[0])), 0.5*(imag(s0[0])-imag(sm[0])))
-		for l := 1; l < len(c0); l++ {
+		l0 := 1
+		if pairs := (h - 1) / 2; useVec && pairs > 0 {
+			hermHalf(&c0[1], &s0[1], &sm[nx-2], pairs)
+			l0 += 2 * pairs
+		}
+		for l := l0; l < len(c0); l++ {
 			a, b := s0[l], sm[nx-l]
 			c0[l] = complex(0.5*(real(a)+real(b)), 0.5*(imag(a)-imag(b)))
 		}
@@ -191,7 +211,12 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 		g1 = g1[:len(g0)]
 		zj[0] = complex(real(g0[0]), real(g1[0]))
 		zr := zj[nx-h+1 : nx] // zr[len(zr)-l] = z[nx-l]
-		for l := 1; l < len(g0); l++ {
+		l0 := 1
+		if pairs := (h - 1) / 2; useVec && pairs > 0 {
+			packInv(&zj[1], &zj[nx-2], &g0[1], &g1[1], pairs)
+			l0 += 2 * pairs
+		}
+		for l := l0; l < len(g0); l++ {
 			a, b := g0[l], g1[l]
 			// a + i b and conj(a) + i conj(b).
 			zj[l] = complex(real(a)-imag(b), imag(a)+real(b))
@@ -215,9 +240,14 @@ func (p *Plan) InverseReal(dst []float64, src []complex128) {
 		}
 		d1 := dst[(2*j+1)*nx : (2*j+2)*nx]
 		d1 = d1[:len(zj)]
-		for x, v := range zj {
-			d0[x] = real(v) * scale
-			d1[x] = imag(v) * scale
+		x0 := 0
+		if useVec && nx >= 4 {
+			x0 = nx &^ 3
+			deinterleave(&d0[0], &d1[0], &zj[0], x0/4, scale)
+		}
+		for x := x0; x < nx; x++ {
+			d0[x] = real(zj[x]) * scale
+			d1[x] = imag(zj[x]) * scale
 		}
 	}
 }

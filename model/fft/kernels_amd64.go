@@ -67,3 +67,24 @@ func r4stage(dst, src *complex128, m, s int, tw *complex128, mask *[4]uint64)
 
 //go:noescape
 func scalevec(x *complex128, n int, s float64)
+
+// Helpers for the real transforms (see kernels_amd64.s); counts are of
+// groups of 4 (quads) or 2 (pairs) values and must be >= 1.
+
+//go:noescape
+func interleave(z *complex128, a, b *float64, quads int)
+
+//go:noescape
+func deinterleave(a, b *float64, z *complex128, quads int, s float64)
+
+//go:noescape
+func unpackRows(c0, c1, zl, zm *complex128, pairs int)
+
+//go:noescape
+func hermHalf(c, s0, sm *complex128, pairs int)
+
+//go:noescape
+func packInv(zf, zr, g0, g1 *complex128, pairs int)
+
+//go:noescape
+func conjRev(d, c *complex128, pairs int)

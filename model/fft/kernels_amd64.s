@@ -496,3 +496,172 @@ scloop:
 	JLT scloop
 	VZEROUPPER
 	RET
+
+// Helpers for the real transforms. "Pairs" count two complex values per
+// YMM register; a reversed pointer addresses the lower element of the
+// pair and moves down by 32 bytes per iteration (the pair is swapped
+// with VPERMPD $0x4E).
+
+DATA half<>+0(SB)/8, $0.5
+GLOBL half<>(SB), RODATA|NOPTR, $8
+
+// func interleave(z *complex128, a, b *float64, quads int)
+// z[i] = complex(a[i], b[i]) for 4*quads values.
+TEXT ·interleave(SB), NOSPLIT, $0-32
+	MOVQ z+0(FP), DI
+	MOVQ a+8(FP), SI
+	MOVQ b+16(FP), BX
+	MOVQ quads+24(FP), CX
+
+illoop:
+	VMOVUPD (SI), Y0
+	VMOVUPD (BX), Y1
+	VUNPCKLPD Y1, Y0, Y2 // a0 b0 a2 b2
+	VUNPCKHPD Y1, Y0, Y3 // a1 b1 a3 b3
+	VPERM2F128 $0x20, Y3, Y2, Y4
+	VPERM2F128 $0x31, Y3, Y2, Y5
+	VMOVUPD Y4, 0(DI)
+	VMOVUPD Y5, 32(DI)
+	ADDQ $32, SI
+	ADDQ $32, BX
+	ADDQ $64, DI
+	DECQ CX
+	JNZ illoop
+	VZEROUPPER
+	RET
+
+// func deinterleave(a, b *float64, z *complex128, quads int, s float64)
+// a[i] = s·real(z[i]), b[i] = s·imag(z[i]) for 4*quads values.
+TEXT ·deinterleave(SB), NOSPLIT, $0-40
+	MOVQ a+0(FP), DI
+	MOVQ b+8(FP), BX
+	MOVQ z+16(FP), SI
+	MOVQ quads+24(FP), CX
+	VBROADCASTSD s+32(FP), Y6
+
+dlloop:
+	VMOVUPD 0(SI), Y0
+	VMOVUPD 32(SI), Y1
+	VUNPCKLPD Y1, Y0, Y2 // r0 r2 r1 r3
+	VUNPCKHPD Y1, Y0, Y3 // i0 i2 i1 i3
+	VPERMPD $0xD8, Y2, Y2
+	VPERMPD $0xD8, Y3, Y3
+	VMULPD Y6, Y2, Y2
+	VMULPD Y6, Y3, Y3
+	VMOVUPD Y2, (DI)
+	VMOVUPD Y3, (BX)
+	ADDQ $64, SI
+	ADDQ $32, DI
+	ADDQ $32, BX
+	DECQ CX
+	JNZ dlloop
+	VZEROUPPER
+	RET
+
+// func unpackRows(c0, c1, zl, zm *complex128, pairs int)
+// With zm reversed: c0 = (zl + conj zm)/2, c1 = -i(zl - conj zm)/2.
+TEXT ·unpackRows(SB), NOSPLIT, $0-40
+	MOVQ c0+0(FP), DI
+	MOVQ c1+8(FP), SI
+	MOVQ zl+16(FP), R8
+	MOVQ zm+24(FP), R9
+	MOVQ pairs+32(FP), CX
+	VMOVUPD negodd<>(SB), Y14
+	VBROADCASTSD half<>(SB), Y13
+
+uploop:
+	VMOVUPD (R8), Y0
+	VPERMPD $0x4E, (R9), Y1
+	VXORPD Y14, Y1, Y1 // conj zm
+	VADDPD Y1, Y0, Y2
+	VSUBPD Y1, Y0, Y3
+	VMULPD Y13, Y2, Y2
+	VPERMILPD $5, Y3, Y3
+	VXORPD Y14, Y3, Y3
+	VMULPD Y13, Y3, Y3
+	VMOVUPD Y2, (DI)
+	VMOVUPD Y3, (SI)
+	ADDQ $32, R8
+	SUBQ $32, R9
+	ADDQ $32, DI
+	ADDQ $32, SI
+	DECQ CX
+	JNZ uploop
+	VZEROUPPER
+	RET
+
+// func hermHalf(c, s0, sm *complex128, pairs int)
+// With sm reversed: c = (s0 + conj sm)/2.
+TEXT ·hermHalf(SB), NOSPLIT, $0-32
+	MOVQ c+0(FP), DI
+	MOVQ s0+8(FP), R8
+	MOVQ sm+16(FP), R9
+	MOVQ pairs+24(FP), CX
+	VMOVUPD negodd<>(SB), Y14
+	VBROADCASTSD half<>(SB), Y13
+
+hhloop:
+	VMOVUPD (R8), Y0
+	VPERMPD $0x4E, (R9), Y1
+	VXORPD Y14, Y1, Y1
+	VADDPD Y1, Y0, Y2
+	VMULPD Y13, Y2, Y2
+	VMOVUPD Y2, (DI)
+	ADDQ $32, R8
+	SUBQ $32, R9
+	ADDQ $32, DI
+	DECQ CX
+	JNZ hhloop
+	VZEROUPPER
+	RET
+
+// func packInv(zf, zr, g0, g1 *complex128, pairs int)
+// zf = g0 + i g1 (ascending); zr (reversed) = conj(g0) + i conj(g1)
+// = conj(g0 - i g1).
+TEXT ·packInv(SB), NOSPLIT, $0-40
+	MOVQ zf+0(FP), DI
+	MOVQ zr+8(FP), SI
+	MOVQ g0+16(FP), R8
+	MOVQ g1+24(FP), R9
+	MOVQ pairs+32(FP), CX
+	VMOVUPD negodd<>(SB), Y14
+	VMOVUPD negeven<>(SB), Y15
+
+piloop:
+	VMOVUPD (R8), Y0
+	VMOVUPD (R9), Y1
+	VPERMILPD $5, Y1, Y1
+	VXORPD Y15, Y1, Y1 // i·g1
+	VADDPD Y1, Y0, Y2
+	VSUBPD Y1, Y0, Y3
+	VXORPD Y14, Y3, Y3
+	VPERMPD $0x4E, Y3, Y3
+	VMOVUPD Y2, (DI)
+	VMOVUPD Y3, (SI)
+	ADDQ $32, R8
+	ADDQ $32, R9
+	ADDQ $32, DI
+	SUBQ $32, SI
+	DECQ CX
+	JNZ piloop
+	VZEROUPPER
+	RET
+
+// func conjRev(d, c *complex128, pairs int)
+// d ascending = conj of c reversed.
+TEXT ·conjRev(SB), NOSPLIT, $0-24
+	MOVQ d+0(FP), DI
+	MOVQ c+8(FP), SI
+	MOVQ pairs+16(FP), CX
+	VMOVUPD negodd<>(SB), Y14
+
+crloop:
+	VPERMPD $0x4E, (SI), Y0
+	VXORPD Y14, Y0, Y0
+	VMOVUPD Y0, (DI)
+	ADDQ $32, DI
+	SUBQ $32, SI
+	DECQ CX
+	JNZ crloop
+	VZEROUPPER
+	RET

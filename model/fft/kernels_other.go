@@ -26,3 +26,10 @@ func r5vec(y0, y1, y2, y3, y4, x0, x1, x2, x3, x4 *complex128, n int, wt *[8][4]
 func r4stage(dst, src *complex128, m, s int, tw *complex128, mask *[4]uint64) { panicNoVec() }
 
 func scalevec(x *complex128, n int, s float64) { panicNoVec() }
+
+func interleave(z *complex128, a, b *float64, quads int)              { panicNoVec() }
+func deinterleave(a, b *float64, z *complex128, quads int, s float64) { panicNoVec() }
+func unpackRows(c0, c1, zl, zm *complex128, pairs int)                { panicNoVec() }
+func hermHalf(c, s0, sm *complex128, pairs int)                       { panicNoVec() }
+func packInv(zf, zr, g0, g1 *complex128, pairs int)                   { panicNoVec() }
+func conjRev(d, c *complex128, pairs int)                             { panicNoVec() }
