@@ -15,6 +15,8 @@ import (
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/optics"
+	"pdwave/model/site"
+	"pdwave/weights"
 )
 
 // compareOpts holds the flags of "pdwave compare".
@@ -125,11 +127,18 @@ func compareRun(cmd *cobra.Command, args []string) error {
 		}
 		weightsFrom = o.weights
 	default:
-		m, from, err := compareBuiltinWeights()
+		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: opt.DiversityPV, Patch: o.patch, Modes: o.modes, Basis: o.basis}
+		m, err := weights.For(want)
 		if err != nil {
 			notes = append(notes, "Built-in weights not used: "+err.Error())
-		} else if m != nil {
-			model, weightsFrom = m, from
+		} else {
+			model, weightsFrom = m, "built-in "+weights.DefaultName
+		}
+	}
+	if model != nil && o.weights != "" {
+		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: opt.DiversityPV}
+		if err := model.Meta.Compatible(want); err != nil {
+			notes = append(notes, fmt.Sprintf("The weights %s were made for other optics (%v); the learned estimates may be poor.", o.weights, err))
 		}
 	}
 
@@ -255,10 +264,16 @@ func compareSettings(path string) (compareContext, error) {
 	if path == "" {
 		return compareContext{}, nil
 	}
-	return compareContext{}, fmt.Errorf("compare: reading %s: site files are not supported by this build", path)
-}
-
-// compareBuiltinWeights returns the built-in weights, if any.
-func compareBuiltinWeights() (*net.Model, string, error) {
-	return nil, "", nil
+	s, err := site.Load(path)
+	if err != nil {
+		return compareContext{}, fmt.Errorf("compare: %s: %w", path, err)
+	}
+	return compareContext{
+		optics:    s.Optics(),
+		telescope: s.Telescope(),
+		r0:        s.R0Median(),
+		patch:     s.Sizes.Patch,
+		modes:     s.Sizes.Modes,
+		basis:     string(s.Sizes.Basis),
+	}, nil
 }
