@@ -88,3 +88,6 @@ func packInv(zf, zr, g0, g1 *complex128, pairs int)
 
 //go:noescape
 func conjRev(d, c *complex128, pairs int)
+
+//go:noescape
+func r8last(dst, src *complex128, s int, mask *[4]uint64)

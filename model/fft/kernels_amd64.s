@@ -665,3 +665,94 @@ crloop:
 	JNZ crloop
 	VZEROUPPER
 	RET
+
+DATA sqrthalf<>+0(SB)/8, $0.70710678118654752440
+GLOBL sqrthalf<>(SB), RODATA|NOPTR, $8
+
+// func r8last(dst, src *complex128, s int, mask *[4]uint64)
+//
+// A last radix-8 Stockham stage (m = 1, unit twiddles) for even s >= 2:
+// dst[q + s*k] = Σ_j src[q + s*j]·exp(∓2πi jk/8). With J = ∓i given by
+// mask (negodd: forward, negeven: inverse), the butterfly is two radix-4
+// butterflies on the even and odd inputs joined by 1, (1+J)/√2, J and
+// (J-1)/√2.
+TEXT ·r8last(SB), NOSPLIT, $0-32
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), R8
+	MOVQ s+16(FP), CX
+	MOVQ mask+24(FP), AX
+	VMOVUPD (AX), Y14
+	VBROADCASTSD sqrthalf<>(SB), Y13
+	SHLQ $4, CX // S = s*16 bytes
+	MOVQ CX, R9
+	LEAQ (R9)(R9*2), R10 // 3S
+	LEAQ (R9)(R9*4), R11 // 5S
+	LEAQ (R10)(R9*4), R12 // 7S
+	XORQ AX, AX
+
+r8loop:
+	LEAQ (R8)(AX*1), SI
+	LEAQ (DI)(AX*1), BX
+	VMOVUPD (SI), Y0
+	VMOVUPD (SI)(R9*1), Y1
+	VMOVUPD (SI)(R9*2), Y2
+	VMOVUPD (SI)(R10*1), Y3
+	VMOVUPD (SI)(R9*4), Y4
+	VMOVUPD (SI)(R11*1), Y5
+	VMOVUPD (SI)(R10*2), Y6
+	VMOVUPD (SI)(R12*1), Y7
+	// even half
+	VADDPD Y4, Y0, Y8 // e0
+	VSUBPD Y4, Y0, Y0 // e1
+	VADDPD Y6, Y2, Y4 // e2
+	VSUBPD Y6, Y2, Y2
+	VPERMILPD $5, Y2, Y2
+	VXORPD Y14, Y2, Y2 // e3 = J(a2-a6)
+	VADDPD Y4, Y8, Y6 // E0
+	VSUBPD Y4, Y8, Y8 // E2
+	VADDPD Y2, Y0, Y4 // E1
+	VSUBPD Y2, Y0, Y0 // E3
+	// odd half
+	VADDPD Y5, Y1, Y2 // o0
+	VSUBPD Y5, Y1, Y1 // o1
+	VADDPD Y7, Y3, Y5 // o2
+	VSUBPD Y7, Y3, Y3
+	VPERMILPD $5, Y3, Y3
+	VXORPD Y14, Y3, Y3 // o3
+	VADDPD Y5, Y2, Y7 // O0
+	VSUBPD Y5, Y2, Y2 // O2
+	VADDPD Y3, Y1, Y5 // O1
+	VSUBPD Y3, Y1, Y1 // O3
+	// O1 = (O1 + J O1)/√2, O2 = J O2, O3 = (J O3 - O3)/√2
+	VPERMILPD $5, Y5, Y3
+	VXORPD Y14, Y3, Y3
+	VADDPD Y3, Y5, Y5
+	VMULPD Y13, Y5, Y5
+	VPERMILPD $5, Y2, Y2
+	VXORPD Y14, Y2, Y2
+	VPERMILPD $5, Y1, Y3
+	VXORPD Y14, Y3, Y3
+	VSUBPD Y1, Y3, Y1
+	VMULPD Y13, Y1, Y1
+	// outputs
+	VADDPD Y7, Y6, Y3
+	VMOVUPD Y3, (BX)
+	VSUBPD Y7, Y6, Y3
+	VMOVUPD Y3, (BX)(R9*4)
+	VADDPD Y5, Y4, Y3
+	VMOVUPD Y3, (BX)(R9*1)
+	VSUBPD Y5, Y4, Y3
+	VMOVUPD Y3, (BX)(R11*1)
+	VADDPD Y2, Y8, Y3
+	VMOVUPD Y3, (BX)(R9*2)
+	VSUBPD Y2, Y8, Y3
+	VMOVUPD Y3, (BX)(R10*2)
+	VADDPD Y1, Y0, Y3
+	VMOVUPD Y3, (BX)(R10*1)
+	VSUBPD Y1, Y0, Y3
+	VMOVUPD Y3, (BX)(R12*1)
+	ADDQ $32, AX
+	CMPQ AX, CX
+	JLT r8loop
+	VZEROUPPER
+	RET

@@ -33,3 +33,5 @@ func unpackRows(c0, c1, zl, zm *complex128, pairs int)                { panicNoV
 func hermHalf(c, s0, sm *complex128, pairs int)                       { panicNoVec() }
 func packInv(zf, zr, g0, g1 *complex128, pairs int)                   { panicNoVec() }
 func conjRev(d, c *complex128, pairs int)                             { panicNoVec() }
+
+func r8last(dst, src *complex128, s int, mask *[4]uint64) { panicNoVec() }

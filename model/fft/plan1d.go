@@ -54,11 +54,17 @@ func vecTwiddles(tw []complex128, m int) []float64 {
 func factor(n int) []int {
 	var f []int
 	// For powers of two with odd log2, one radix-8 stage replaces a
-	// radix-4 and a radix-2 stage (one pass over the data fewer). More
-	// radix-8 stages measured no faster (register pressure). The vector
-	// kernels exist for radices 2 and 4 only.
-	if !useVec && n >= 8 && n&(n-1) == 0 && bits.TrailingZeros(uint(n))%2 == 1 {
-		f = append(f, 8)
+	// radix-4 and a radix-2 stage (one pass over the data fewer). The
+	// portable code puts it first (more radix-8 stages measured no faster:
+	// register pressure); the vector code has it as the last,
+	// twiddle-free stage.
+	last8 := false
+	if n >= 8 && n&(n-1) == 0 && bits.TrailingZeros(uint(n))%2 == 1 {
+		if useVec {
+			last8 = true
+		} else {
+			f = append(f, 8)
+		}
 		n /= 8
 	}
 	for n%4 == 0 {
@@ -77,6 +83,9 @@ func factor(n int) []int {
 	}
 	if n != 1 {
 		return nil
+	}
+	if last8 {
+		f = append(f, 8)
 	}
 	return f
 }
@@ -202,7 +211,15 @@ func (st *stage) apply(dst, src []complex128, v int, inv bool) {
 			radix4(dst, src, st.m, s, tw, inv)
 		}
 	case 8:
-		if s == 1 {
+		if useVec && st.m == 1 && s%2 == 0 {
+			_ = dst[8*s-1]
+			_ = src[8*s-1]
+			mask := &maskNegOdd
+			if inv {
+				mask = &maskNegEven
+			}
+			r8last(&dst[0], &src[0], s, mask)
+		} else if s == 1 {
 			radix8s1(dst, src, st.m, tw, inv)
 		} else {
 			radix8(dst, src, st.m, s, tw, inv)
