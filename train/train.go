@@ -189,7 +189,19 @@ func (t *Trainer) Step() (StepStats, error) {
 	if t.Done() {
 		return StepStats{}, fmt.Errorf("train: all %d steps taken", t.cfg.Steps)
 	}
-	st := StepStats{Step: t.step, Supervised: t.step < t.cfg.WarmStart, LR: t.cfg.LRAt(t.step)}
+	st, grads, err := t.lossGrad(t.step)
+	if err != nil {
+		return st, err
+	}
+	st.GradNorm = t.adamStep(grads, st.LR)
+	t.step++
+	return st, nil
+}
+
+// lossGrad evaluates the mean loss of the batch of step and its gradient
+// with respect to every weight tensor (returned slices belong to the graph).
+func (t *Trainer) lossGrad(step int) (StepStats, [][]float64, error) {
+	st := StepStats{Step: step, Supervised: step < t.cfg.WarmStart, LR: t.cfg.LRAt(step)}
 	s := t.prob.setup
 	B := t.cfg.Batch
 	per := len(t.x) / B
@@ -200,7 +212,7 @@ func (t *Trainer) Step() (StepStats, error) {
 		go func(w int) {
 			defer wg.Done()
 			for b := w; b < B; b += len(t.work) {
-				idx := uint64(t.step)*uint64(B) + uint64(b)
+				idx := uint64(step)*uint64(B) + uint64(b)
 				t.ok[b], t.errs[b] = false, nil
 				l, terms, err := t.work[w].burst(t, idx, st.Supervised, t.x[b*per:(b+1)*per], t.gin[b*nout:(b+1)*nout])
 				if err != nil {
@@ -209,7 +221,7 @@ func (t *Trainer) Step() (StepStats, error) {
 						clear(t.x[b*per : (b+1)*per])
 						continue
 					}
-					t.errs[b] = fmt.Errorf("burst %d of step %d: %w", b, t.step, err)
+					t.errs[b] = fmt.Errorf("burst %d of step %d: %w", b, step, err)
 					continue
 				}
 				t.loss[b], t.terms[b], t.ok[b] = l, terms, true
@@ -220,7 +232,7 @@ func (t *Trainer) Step() (StepStats, error) {
 	used := 0
 	for b := 0; b < B; b++ {
 		if t.errs[b] != nil {
-			return st, fmt.Errorf("train: %w", t.errs[b])
+			return st, nil, fmt.Errorf("train: %w", t.errs[b])
 		}
 		if t.ok[b] {
 			used++
@@ -231,7 +243,7 @@ func (t *Trainer) Step() (StepStats, error) {
 	}
 	st.Skipped = B - used
 	if used == 0 {
-		return st, fmt.Errorf("train: no burst of step %d has signal above the noise", t.step)
+		return st, nil, fmt.Errorf("train: no burst of step %d has signal above the noise", step)
 	}
 	st.Loss /= float64(used)
 	st.Metric /= float64(used)
@@ -242,11 +254,9 @@ func (t *Trainer) Step() (StepStats, error) {
 	}
 	grads, err := t.graph.Backward(t.x, t.gin, nil)
 	if err != nil {
-		return st, fmt.Errorf("train: step %d: %w", t.step, err)
+		return st, nil, fmt.Errorf("train: step %d: %w", step, err)
 	}
-	st.GradNorm = t.adamStep(grads, st.LR)
-	t.step++
-	return st, nil
+	return st, grads, nil
 }
 
 // burst computes the features, the loss and ∂loss/∂y of one burst into x and

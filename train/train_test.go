@@ -223,3 +223,62 @@ func TestLRSchedule(t *testing.T) {
 		}
 	}
 }
+
+// The whole chain — phase-diversity objective of model/pd, its gradient
+// w.r.t. the coefficients, the output scale, and back-propagation through
+// the network — gives the gradient of the batch loss w.r.t. the weights:
+// checked against central differences of the loss itself.
+func TestLossGradientMatchesFiniteDifferences(t *testing.T) {
+	for _, supervised := range []bool{false, true} {
+		ws := 0
+		if supervised {
+			ws = 1
+		}
+		tr, _ := newToyTrainer(t, Config{Steps: 1, Batch: 2, Seed: 3, Workers: 2, WarmStart: ws})
+		// Move away from the near-zero start so every layer matters.
+		for _, p := range tr.model.Params {
+			for i := range p.Data {
+				p.Data[i] *= 3
+			}
+		}
+		_, grads, err := tr.lossGrad(0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		g := make([][]float64, len(grads))
+		for i := range grads {
+			g[i] = append([]float64(nil), grads[i]...)
+		}
+		loss := func() float64 {
+			st, _, err := tr.lossGrad(0)
+			if err != nil {
+				t.Fatal(err)
+			}
+			return st.Loss
+		}
+		const h = 1e-5
+		checked := 0
+		worst := 0.0
+		for ti, p := range tr.model.Params {
+			for i := 0; i < len(p.Data); i += 1 + len(p.Data)/3 {
+				old := p.Data[i]
+				p.Data[i] = old + h
+				lp := loss()
+				p.Data[i] = old - h
+				lm := loss()
+				p.Data[i] = old
+				fd := (lp - lm) / (2 * h)
+				worst = math.Max(worst, math.Abs(fd-g[ti][i])/(1e-8+math.Abs(fd)))
+				if math.Abs(fd-g[ti][i]) > 1e-5*(1+math.Abs(fd)) {
+					t.Errorf("supervised=%v %s[%d]: back-propagated %.8g, central difference %.8g", supervised, p.Name, i, g[ti][i], fd)
+				}
+				checked++
+			}
+		}
+		if checked < 20 {
+			t.Fatalf("only %d weights checked", checked)
+		}
+		t.Logf("supervised=%v: %d weights, worst relative difference %.2g", supervised, checked, worst)
+		tr.Close()
+	}
+}
