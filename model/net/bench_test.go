@@ -84,3 +84,26 @@ func BenchmarkGraphStep(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkGraphBurst measures the gorgonia tape machine on one burst of 16
+// frames (forward and backward run together), to compare with the plain-Go
+// forward pass of BenchmarkForward.
+func BenchmarkGraphBurst(b *testing.B) {
+	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
+	if err != nil {
+		b.Fatal(err)
+	}
+	gr, err := NewGraph(m, 1, 16)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer gr.Close()
+	x := randInput(gr.InputLen(), 1)
+	gin := make([]float64, 16*36)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := gr.Backward(x, gin, nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
