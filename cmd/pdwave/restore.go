@@ -17,6 +17,7 @@ import (
 // restoreFlags holds the flags of "pdwave restore".
 var restoreFlags struct {
 	out, site, weights, dark, flat, shard string
+	offset                                string
 	patch, overlap, polish, workers       int
 	fit, resume, pairs, noAlign, quiet    bool
 }
@@ -29,7 +30,8 @@ var restoreCmd = &cobra.Command{
 Each burst (a 4-D FITS cube; with --pairs, a focused and a defocused 3-D file
 after each other) is calibrated ((frame − dark)/flat, the flat normalised to
 mean 1), the defocused channel is co-registered to the focused one (the
-measured sub-pixel offset is reported and removed), and the field is cut into
+sub-pixel offset, measured by cross-correlating the burst means or given with
+--offset, is reported and removed), and the field is cut into
 overlapping patches (--patch, --overlap; defaults from the site file and
 patch/4). In every patch the wavefront of each frame comes from the learned
 network (default when weights are available), optionally polished with
@@ -93,6 +95,7 @@ func init() {
 	f.IntVar(&o.workers, "workers", 0, "worker goroutines (default: all cores)")
 	f.BoolVar(&o.pairs, "pairs", false, "arguments are focused/defocused 3-D files, two by two")
 	f.BoolVar(&o.noAlign, "no-align", false, "measure but do not remove the offset between the channels")
+	f.StringVar(&o.offset, "offset", "", "known offset DX,DY (pixels) of the defocused channel, instead of measuring it")
 	f.BoolVar(&o.quiet, "quiet", false, "no progress line")
 	restoreMergeCmd.Flags().StringVar(&restoreMergeOut, "out", "", "output FITS file")
 	restoreCmd.AddCommand(restoreMergeCmd)
@@ -118,6 +121,14 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	}
 	if !o.quiet {
 		job.Progress = os.Stderr
+	}
+	if o.offset != "" {
+		var off restore.Offset
+		var rest string
+		if n, _ := fmt.Sscanf(o.offset, "%g,%g%s", &off.DX, &off.DY, &rest); n != 2 {
+			return fmt.Errorf("restore: --offset %q: want DX,DY in pixels, e.g. 0.4,-0.2", o.offset)
+		}
+		job.Offset = &off
 	}
 	switch {
 	case o.shard != "":

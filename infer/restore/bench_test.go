@@ -139,7 +139,7 @@ func BenchmarkPrepare(b *testing.B) {
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		bu := &burstLike{nx: 1024, ny: 1024, data: f.Data}
-		if _, _, err := prepareData(bu.nx, bu.ny, bu.data, nil, true, 0); err != nil {
+		if _, _, err := prepareData(bu.nx, bu.ny, bu.data, nil, nil, true, 0); err != nil {
 			b.Fatal(err)
 		}
 	}

@@ -36,6 +36,13 @@ func MeasureShift(ref, img []float64, nx, ny int) (dx, dy float64, err error) {
 // quarter of the image side and images without contrast are errors. Inputs
 // are not modified.
 func MeasureShiftFrames(ref, img [][]float64, nx, ny int) (dx, dy float64, err error) {
+	return restoreMeasure(ref, img, nx, ny, restoreLowPass)
+}
+
+// restoreMeasure is MeasureShiftFrames with the low-pass frequency as a
+// parameter; lowpass ≤ 0 means none (for images blurred alike: the peak of
+// the plain cross-correlation is then the least-squares alignment).
+func restoreMeasure(ref, img [][]float64, nx, ny int, lowpass float64) (dx, dy float64, err error) {
 	if nx < 4 || ny < 4 || len(ref) == 0 || len(ref) != len(img) {
 		return 0, 0, fmt.Errorf("restore: MeasureShift: need pairs of %d×%d images (have %d and %d)", nx, ny, len(ref), len(img))
 	}
@@ -44,7 +51,7 @@ func MeasureShiftFrames(ref, img [][]float64, nx, ny int) (dx, dy float64, err e
 			return 0, 0, fmt.Errorf("restore: MeasureShift: image pair %d has %d and %d pixels, want %d", j, len(ref[j]), len(img[j]), nx*ny)
 		}
 	}
-	m := &restoreShiftMeter{nx: nx, ny: ny, plan: fft.NewPlan(ny, nx),
+	m := &restoreShiftMeter{nx: nx, ny: ny, plan: fft.NewPlan(ny, nx), lowpass: lowpass,
 		A: make([][]complex128, len(ref)), B: make([]complex128, nx*ny), X: make([]complex128, nx*ny),
 		c: make([]float64, nx*ny), buf: make([]float64, nx*ny)}
 	for j, r := range ref {
@@ -88,6 +95,7 @@ type restoreShiftMeter struct {
 	B, X         []complex128
 	c, buf       []float64
 	lastX, lastY float64
+	lowpass      float64
 }
 
 // taper writes the mean-subtracted image multiplied by the edge taper moved
@@ -131,10 +139,10 @@ func restoreTaperAt(t float64, n int) float64 {
 func (m *restoreShiftMeter) peak() (dx, dy float64) {
 	nx, ny := m.nx, m.ny
 	X := m.X
-	for k := 0; k < ny; k++ {
+	for k := 0; k < ny && m.lowpass > 0; k++ {
 		fy := restoreFreq(k, ny)
 		for l := 0; l < nx; l++ {
-			f := math.Hypot(restoreFreq(l, nx), fy) / restoreLowPass
+			f := math.Hypot(restoreFreq(l, nx), fy) / m.lowpass
 			X[k*nx+l] *= complex(math.Exp(-f*f), 0)
 		}
 	}

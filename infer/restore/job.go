@@ -42,6 +42,7 @@ type Job struct {
 	Dark      string     // dark frame FITS; "" = none
 	Flat      string     // flat frame FITS; "" = none
 	NoAlign   bool       // measure but do not remove the channel offset
+	Offset    *Offset    // known channel offset (pixels) instead of measuring; nil = measure
 	Shard     Shard
 	Resume    bool
 	Workers   int
@@ -220,12 +221,16 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	if _, err := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap); err != nil {
 		return err
 	}
-	field, off, err := Prepare(b, cal, !j.NoAlign, j.Workers)
+	field, off, err := Prepare(b, cal, j.Offset, !j.NoAlign, j.Workers)
 	if err != nil {
 		return err
 	}
 	if j.Log != nil {
-		fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px%s\n", off.DX, off.DY, map[bool]string{true: " (not removed)", false: " removed"}[j.NoAlign])
+		how := "measured"
+		if j.Offset != nil {
+			how = "given"
+		}
+		fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px %s,%s\n", off.DX, off.DY, how, map[bool]string{true: " not removed", false: " removed"}[j.NoAlign])
 	}
 	phys, err := NewPhysics(cfg, method)
 	if err != nil {
@@ -244,6 +249,7 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		"prior":     strconv.FormatFloat(cfg.Prior, 'g', 6, 64),
 		"diversity": strconv.FormatFloat(cfg.DiversityPV[1], 'g', 6, 64),
 		"align":     strconv.FormatBool(!j.NoAlign),
+		"offset":    fmt.Sprintf("%.4f,%.4f", off.DX, off.DY),
 		"dark":      j.Dark,
 		"flat":      j.Flat,
 		"inputs":    strings.Join(inputs, ","),
