@@ -399,16 +399,12 @@ func TestValueGradAllocs(t *testing.T) {
 func BenchmarkValueGrad(b *testing.B) {
 	s, alpha, grad := benchSolver(b)
 	b.ReportAllocs()
-	for b.Loop() {
-		s.ValueGrad(grad, alpha)
-	}
+	cpuLoop(b, func() { s.ValueGrad(grad, alpha) })
 }
 
 // BenchmarkValue: the same, value only.
 func BenchmarkValue(b *testing.B) {
 	s, alpha, _ := benchSolver(b)
 	b.ReportAllocs()
-	for b.Loop() {
-		s.ValueGrad(nil, alpha)
-	}
+	cpuLoop(b, func() { s.ValueGrad(nil, alpha) })
 }
