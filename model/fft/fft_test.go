@@ -308,3 +308,96 @@ func TestPortablePath(t *testing.T) {
 	TestRealVsDirect(t)
 	TestRoundTripAndAliasing(t)
 }
+
+// separableDFT is the direct DFT computed as 1-D direct sums along x then
+// y, O(ny·nx·(ny+nx)): the same exact sum as naiveDFT, cheap enough for
+// pipeline-sized grids.
+func separableDFT(src []complex128, ny, nx int, sign float64) []complex128 {
+	wx := make([]complex128, nx)
+	for i := range wx {
+		s, c := math.Sincos(sign * 2 * math.Pi * float64(i) / float64(nx))
+		wx[i] = complex(c, s)
+	}
+	wy := make([]complex128, ny)
+	for i := range wy {
+		s, c := math.Sincos(sign * 2 * math.Pi * float64(i) / float64(ny))
+		wy[i] = complex(c, s)
+	}
+	tmp := make([]complex128, ny*nx)
+	for y := 0; y < ny; y++ {
+		for l := 0; l < nx; l++ {
+			var s complex128
+			for n := 0; n < nx; n++ {
+				s += src[y*nx+n] * wx[(l*n)%nx]
+			}
+			tmp[y*nx+l] = s
+		}
+	}
+	dst := make([]complex128, ny*nx)
+	for k := 0; k < ny; k++ {
+		for l := 0; l < nx; l++ {
+			var s complex128
+			for m := 0; m < ny; m++ {
+				s += tmp[m*nx+l] * wy[(k*m)%ny]
+			}
+			dst[k*nx+l] = s
+		}
+	}
+	return dst
+}
+
+// TestPipelineSizes checks the patch and pupil sizes used by the pipeline
+// (and sizes with a Bluestein factor) against the direct DFT, on every
+// code path in use (vector kernels and portable).
+func TestPipelineSizes(t *testing.T) {
+	sizes := [][2]int{{64, 64}, {128, 128}, {96, 96}, {100, 100}, {48, 80}, {97, 64}, {256, 32}}
+	if testing.Short() {
+		sizes = sizes[:3]
+	}
+	rng := rand.New(rand.NewPCG(13, 14))
+	paths := []bool{false}
+	if useVec {
+		paths = append(paths, true)
+	}
+	defer func(v bool) { useVec = v }(useVec)
+	for _, s := range sizes {
+		ny, nx := s[0], s[1]
+		x := randComplex(rng, ny*nx)
+		want := separableDFT(x, ny, nx, -1)
+		r := randReal(rng, ny*nx)
+		rc := make([]complex128, ny*nx)
+		for i, v := range r {
+			rc[i] = complex(v, 0)
+		}
+		wantR := separableDFT(rc, ny, nx, -1)
+		for _, vec := range paths {
+			useVec = vec
+			p := NewPlan(ny, nx)
+			got := make([]complex128, ny*nx)
+			p.Forward(got, x)
+			e := maxRelErr(got, want)
+			t.Logf("%d×%d vector=%v: Forward rel err %.2g", ny, nx, vec, e)
+			if e > tol(ny, nx) {
+				t.Errorf("%d×%d vector=%v: Forward rel err %.3g > %.3g", ny, nx, vec, e, tol(ny, nx))
+			}
+			p.ForwardReal(got, r)
+			if e := maxRelErr(got, wantR); e > tol(ny, nx) {
+				t.Errorf("%d×%d vector=%v: ForwardReal rel err %.3g", ny, nx, vec, e)
+			}
+			p.Inverse(got, want)
+			if e := maxRelErr(got, x); e > tol(ny, nx) {
+				t.Errorf("%d×%d vector=%v: Inverse rel err %.3g", ny, nx, vec, e)
+			}
+			back := make([]float64, ny*nx)
+			p.InverseReal(back, wantR)
+			var d, m float64
+			for i := range r {
+				d = math.Max(d, math.Abs(back[i]-r[i]))
+				m = math.Max(m, math.Abs(r[i]))
+			}
+			if d/m > tol(ny, nx) {
+				t.Errorf("%d×%d vector=%v: InverseReal rel err %.3g", ny, nx, vec, d/m)
+			}
+		}
+	}
+}
