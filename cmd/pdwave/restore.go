@@ -12,6 +12,7 @@ import (
 	"pdwave/infer/restore"
 	"pdwave/model/net"
 	"pdwave/model/site"
+	"pdwave/weights"
 )
 
 // restoreFlags holds the flags of "pdwave restore".
@@ -163,11 +164,11 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 			}
 			job.Model, job.ModelFrom = m, o.weights
 		default:
-			m, from, err := restoreBuiltinWeights()
+			m, err := weights.Default()
 			if err != nil {
 				fmt.Fprintf(os.Stderr, "restore: built-in weights not used: %v\n", err)
 			}
-			job.Model, job.ModelFrom = m, from
+			job.Model, job.ModelFrom, job.ModelOptional = m, "built-in ("+weights.DefaultName+")", true
 		}
 		if job.Model == nil {
 			fmt.Fprintln(os.Stderr, "restore: no network weights; using the classical fit in every patch")
@@ -176,10 +177,4 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
 	return job.Run(ctx)
-}
-
-// restoreBuiltinWeights returns the weights shipped with the program, or nil
-// if there are none.
-func restoreBuiltinWeights() (*net.Model, string, error) {
-	return nil, "", nil
 }

@@ -35,6 +35,9 @@ type Job struct {
 	Site      *site.Site // nil: optics from the burst headers, sizes and seeing defaults
 	Model     *net.Model // learned estimator; nil = none
 	ModelFrom string     // where the weights came from (provenance)
+	// ModelOptional marks built-in weights: if they do not fit the data,
+	// the classical fit is used (with a note on Log) instead of an error.
+	ModelOptional bool
 	Patch     int        // 0 = site (or 64)
 	Overlap   int        // < 0 = patch/4
 	Polish    int        // classical iterations after the learned estimate
@@ -161,14 +164,21 @@ func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error
 	if j.Fit || j.Model == nil {
 		return cfg, Method{Name: "fit"}, nil
 	}
-	cfg = LearnedConfig(j.Model, cfg)
+	lcfg := LearnedConfig(j.Model, cfg)
 	if j.Patch == 0 && j.Model.Meta.Patch > 0 {
-		cfg.Patch = j.Model.Meta.Patch
+		lcfg.Patch = j.Model.Meta.Patch
 	}
-	l, err := NewLearned(j.Model, cfg)
+	l, err := NewLearned(j.Model, lcfg)
 	if err != nil {
+		if j.ModelOptional {
+			if j.Log != nil {
+				fmt.Fprintf(j.Log, "restore: built-in weights not used (%v); classical fit in every patch\n", err)
+			}
+			return cfg, Method{Name: "fit"}, nil
+		}
 		return cfg, Method{}, err
 	}
+	cfg = lcfg
 	m := Method{Start: l, Polish: j.Polish, Name: "learned"}
 	if j.Polish > 0 {
 		m.Name = fmt.Sprintf("learned+polish %d", j.Polish)
