@@ -9,7 +9,7 @@ import (
 // interleaved sequences: element j of lane q is at index j*v+q. Lengths
 // whose prime factors are 2, 3 and 5 use a self-sorting mixed-radix
 // Stockham algorithm (Van Loan 1992, Computational Frameworks for the FFT,
-// §1.7); other lengths use Bluestein's chirp-z algorithm (Bluestein 1970,
+// ch. 1); other lengths use Bluestein's chirp-z algorithm (Bluestein 1970,
 // IEEE Trans. Audio Electroacoust. 18, 451) on a power-of-two plan.
 type plan1 struct {
 	n      int
@@ -240,7 +240,7 @@ func (st *stage) apply(dst, src []complex128, v int, inv bool) {
 //	dst[q + s*(r*p + k)] = w^{pk} Σ_j src[q + s*(p + j*m)] exp(∓2πi jk/r),
 //
 // w = exp(∓2πi/(r m)), the Stockham step derived from the Cooley–Tukey
-// index split n = r·m (Van Loan 1992, §1.7).
+// index split n = r·m (Van Loan 1992, ch. 1).
 
 func radix2(dst, src []complex128, m, s int, tw []complex128) {
 	for p := 0; p < m; p++ {
