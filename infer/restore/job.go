@@ -38,21 +38,21 @@ type Job struct {
 	// ModelOptional marks built-in weights: if they do not fit the data,
 	// the classical fit is used (with a note on Log) instead of an error.
 	ModelOptional bool
-	Patch     int        // 0 = site (or 64)
-	Overlap   int        // < 0 = patch/4
-	Polish    int        // classical iterations after the learned estimate
-	Fit       bool       // full classical fit instead of the learned estimate
-	Dark      string     // dark frame FITS; "" = none
-	Flat      string     // flat frame FITS; "" = none
-	NoAlign   bool       // measure but do not remove the channel offset
-	Offset    *Offset    // known channel offset (pixels) instead of measuring; nil = measure
-	Shard     Shard
-	Resume    bool
-	Workers   int
-	Progress  io.Writer // progress lines; nil = silent
-	Log       io.Writer // one-line reports (offset, timing); nil = silent
-	Version   string
-	Command   string
+	Patch         int     // 0 = site (or 64)
+	Overlap       int     // < 0 = patch/4
+	Polish        int     // classical iterations after the learned estimate
+	Fit           bool    // full classical fit instead of the learned estimate
+	Dark          string  // dark frame FITS; "" = none
+	Flat          string  // flat frame FITS; "" = none
+	NoAlign       bool    // measure but do not remove the channel offset
+	Offset        *Offset // known channel offset (pixels) instead of measuring; nil = measure
+	Shard         Shard
+	Resume        bool
+	Workers       int
+	Progress      io.Writer // progress lines; nil = silent
+	Log           io.Writer // one-line reports (offset, timing); nil = silent
+	Version       string
+	Command       string
 }
 
 // Run restores every burst of the job in turn.
