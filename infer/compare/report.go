@@ -8,6 +8,19 @@
 // every output into a folder atomically. The writers and figure makers only
 // read the Report, so they can be driven by synthetic reports in tests.
 //
+// The folder holds: coefficients.csv (one row per patch, frame and mode:
+// every method's coefficient, the truth for simulations, and the
+// differences), patches.csv (per patch: metric of every method, ratio to the
+// fit, restored contrast rms/mean, stage and cumulative seconds, iterations,
+// quality flags), modes.csv (per mode: rms and spread over patches of every
+// method, rms of every difference), spectra.csv, the same tables as JSON
+// (report.json holds everything; patches.json, modes.json), the PNG figures
+// and index.html with the figures embedded.
+//
+// NetEstimator adapts a trained model/net network to infer.Estimator (safe
+// for concurrent use); Config.TruthAt brings the per-patch truth of a
+// simulated field.
+//
 // Coefficients are in the native basis of the report (Report.Basis), radians,
 // frames × modes. The metric of every estimate is the objective the classical
 // fit minimises (model/pd Solver.ValueGrad: phase-diversity metric plus the
