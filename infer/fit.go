@@ -77,8 +77,8 @@ type Config struct {
 
 // DefaultConfig returns the settings the accuracy study found best for the
 // demo telescope (see the package README / study table): 64 px patches, 16
-// frames, 36 KL modes, D/r0 = 5, prior weight 0.01, noise filter, tilt
-// constraint, 1 wave of defocus in channel 1, 100 iterations or 1e-6
+// frames, 36 KL modes, D/r0 = 5, prior weight 0.001, noise filter, tilt
+// constraint, 1 wave of defocus in channel 1, 200 iterations or 1e-6
 // relative change. The telescope must still be filled in.
 func DefaultConfig() Config {
 	return Config{
@@ -88,9 +88,9 @@ func DefaultConfig() Config {
 		Basis:        modes.KindKL,
 		Modes:        36,
 		DOverR0:      5,
-		Prior:        0.01,
+		Prior:        0.001,
 		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3},
-		Stop:         Stop{Iterations: 100, RelChange: 1e-6},
+		Stop:         Stop{Iterations: 200, RelChange: 1e-6},
 		RegisterTilt: true,
 	}
 }

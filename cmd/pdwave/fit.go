@@ -18,6 +18,7 @@ import (
 	"pdwave/model/burst"
 	"pdwave/model/modes"
 	"pdwave/model/site"
+	"pdwave/simulate"
 )
 
 // fitOpts holds the flags of "pdwave fit".
@@ -65,8 +66,8 @@ var fitStudyOpts struct {
 var fitStudyCmd = &cobra.Command{
 	Use:   "study --site FILE --out DIR",
 	Short: "Measure the accuracy of the fit on simulated bursts with known wavefronts",
-	Long: `study simulates bursts with known wavefronts for the site's telescope and
-camera, fits them from zero with the default settings, and writes
+	Long: `study simulates bursts with known wavefronts for the site's telescope,
+seeing layers and camera, fits them from zero with the default settings, and writes
 DIR/fit-study.csv: the fraction of the true wavefront variance left as error
 (Noll 2–10 and 2–21, burst-mean tilt removed) against D/r0 (2…10), patch
 size (48…128 px), frames (4…32) and diversity (0.5…2 waves), one setting
@@ -433,7 +434,8 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 }
 
 // fitStudySource returns the study's burst source for the site: the
-// site's telescope and photon count, Kolmogorov wavefronts up to Noll 66.
+// simulator with the site's telescope, layers, outer scale and camera
+// (r0, patch, frames and diversity set per case).
 func fitStudySource(st *site.Site) infer.BurstSource {
-	return infer.SyntheticSource(infer.Synthetic{Telescope: st.Telescope(), JMax: 66, Photons: st.Camera.PhotonsPerPixel})
+	return infer.SimulatedSource(simulate.ConfigFromSite(st))
 }
