@@ -408,3 +408,53 @@ func BenchmarkValue(b *testing.B) {
 	b.ReportAllocs()
 	cpuLoop(b, func() { s.ValueGrad(nil, alpha) })
 }
+
+// TestNoiseEstimate: for white noise of variance σ² the windowed spectrum
+// has expected power σ²·Σw² at every frequency (Parseval), which SetData
+// must read beyond the cut-off; with the noise filter, images of pure noise
+// leave (almost) nothing in the mask, while a strong signal keeps its low
+// frequencies.
+func TestNoiseEstimate(t *testing.T) {
+	const n, frames, count = 64, 4, 10
+	pr := makeProblem(t, n, frames, []float64{0, 1}, modes.KindZernike, count, 0.3, false, 21)
+	const sigma = 0.05
+	rng := rand.New(rand.NewPCG(5, 6))
+	noise := make([][][]float64, 2)
+	for k := range noise {
+		noise[k] = make([][]float64, frames)
+		for j := range noise[k] {
+			im := make([]float64, n*n)
+			for i := range im {
+				im[i] = 1 + sigma*rng.NormFloat64()
+			}
+			noise[k][j] = im
+		}
+	}
+	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{NoiseFilter: true})
+	err := s.SetData(noise)
+	var w2 float64
+	for _, v := range Window(n, 0.125) {
+		w2 += v * v
+	}
+	want := sigma * sigma * w2
+	if got := s.Noise(); math.Abs(got/want-1) > 0.05 {
+		t.Errorf("noise power %.4g, want σ²Σw² = %.4g within 5 %%", got, want)
+	}
+	if err == nil && s.MaskSize() > 20 {
+		t.Errorf("pure noise left %d frequencies in the mask", s.MaskSize())
+	}
+	for k := range pr.data {
+		for j := range pr.data[k] {
+			for i := range pr.data[k][j] {
+				pr.data[k][j][i] = 100*pr.data[k][j][i] + sigma*rng.NormFloat64()
+			}
+		}
+	}
+	if err := s.SetData(pr.data); err != nil {
+		t.Fatal(err)
+	}
+	if s.MaskSize() < 100 {
+		t.Errorf("strong signal kept only %d frequencies", s.MaskSize())
+	}
+	t.Logf("mask: %d frequencies of signal data; noise %.3g", s.MaskSize(), s.Noise())
+}
