@@ -291,11 +291,12 @@ func (p *Plan) rows(x []complex128, n int, inverse bool) {
 
 // Shift performs an fftshift of the ny×nx real array src into dst: the
 // element at (y, x) moves to ((y+ny/2) mod ny, (x+nx/2) mod nx), so the
-// zero frequency lands on (ny/2, nx/2). For odd sizes this matches numpy's
-// fftshift. dst must not alias src. It panics if len(dst) or len(src) !=
+// zero frequency lands on (ny/2, nx/2). This is numpy's fftshift for even
+// and odd sizes (for odd sizes its inverse, ifftshift, differs). dst must
+// not alias src. It panics if ny < 1, nx < 1 or len(dst) or len(src) !=
 // ny*nx.
 func Shift(dst, src []float64, ny, nx int) {
-	if len(dst) != ny*nx || len(src) != ny*nx {
+	if ny < 1 || nx < 1 || len(dst) != ny*nx || len(src) != ny*nx {
 		panic(fmt.Sprintf("fft: Shift lengths %d, %d, want %d×%d", len(dst), len(src), ny, nx))
 	}
 	hy, hx := ny/2, nx/2
@@ -312,9 +313,10 @@ func Shift(dst, src []float64, ny, nx int) {
 }
 
 // ShiftComplex is Shift for complex arrays: zero frequency moves to
-// (ny/2, nx/2). dst must not alias src. It panics on wrong lengths.
+// (ny/2, nx/2). dst must not alias src. It panics on non-positive sizes
+// or wrong lengths.
 func ShiftComplex(dst, src []complex128, ny, nx int) {
-	if len(dst) != ny*nx || len(src) != ny*nx {
+	if ny < 1 || nx < 1 || len(dst) != ny*nx || len(src) != ny*nx {
 		panic(fmt.Sprintf("fft: ShiftComplex lengths %d, %d, want %d×%d", len(dst), len(src), ny, nx))
 	}
 	hy, hx := ny/2, nx/2

@@ -266,6 +266,8 @@ func TestPanics(t *testing.T) {
 	mustPanic("ForwardReal", func() { p.ForwardReal(make([]complex128, 16), make([]float64, 17)) })
 	mustPanic("InverseReal", func() { p.InverseReal(make([]float64, 1), make([]complex128, 16)) })
 	mustPanic("Shift", func() { Shift(make([]float64, 4), make([]float64, 4), 3, 3) })
+	mustPanic("Shift negative", func() { Shift(make([]float64, 4), make([]float64, 4), -1, -4) })
+	mustPanic("ShiftComplex", func() { ShiftComplex(make([]complex128, 4), make([]complex128, 4), -2, -2) })
 }
 
 func TestNoAllocs(t *testing.T) {
