@@ -7,6 +7,7 @@ package main
 import (
 	"fmt"
 	"os"
+	"strings"
 
 	"github.com/spf13/cobra"
 )
@@ -30,7 +31,10 @@ the classical multi-frame fit.`,
 
 func main() {
 	if err := root.Execute(); err != nil {
-		fmt.Fprintf(os.Stderr, "pdwave: %v\n", err)
+		// One line, whatever the error: multi-line messages (YAML
+		// decoders list one problem a line) are joined.
+		msg := strings.Join(strings.Fields(strings.ReplaceAll(err.Error(), "\n", "; ")), " ")
+		fmt.Fprintf(os.Stderr, "pdwave: %s\n", msg)
 		os.Exit(1)
 	}
 }

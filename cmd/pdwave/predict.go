@@ -86,6 +86,19 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		}
 		opt = opt.Fill(st.Optics())
 	}
+	var missing []string
+	for _, f := range []struct {
+		v    float64
+		name string
+	}{{opt.Wavelength, "wavelength (WAVELNTH)"}, {opt.PixelScale, "pixel scale (CDELT1/2)"},
+		{opt.Diameter, "aperture (TELDIAM)"}, {opt.DiversityPV, "diversity (DIVPV)"}} {
+		if f.v == 0 {
+			missing = append(missing, f.name)
+		}
+	}
+	if len(missing) > 0 {
+		return fmt.Errorf("predict: %s: optics unknown: %s; add the header keywords or give --site", args[0], strings.Join(missing, ", "))
+	}
 	want := net.Meta{Wavelength: opt.Wavelength, PixelScale: opt.PixelScale, Diameter: opt.Diameter,
 		Obscuration: opt.Obscuration, DiversityPV: opt.DiversityPV, Patch: b.Nx}
 	if b.Nx != b.Ny {

@@ -111,8 +111,8 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	if o.out == "" {
 		return fmt.Errorf("restore: --out is required")
 	}
-	if o.polish < 0 || o.workers < 0 {
-		return fmt.Errorf("restore: --polish and --workers must not be negative")
+	if o.polish < 0 || o.workers < 0 || o.patch < 0 || o.overlap < -1 {
+		return fmt.Errorf("restore: --patch, --overlap, --polish and --workers must not be negative")
 	}
 	job := &restore.Job{
 		Inputs: args, Pairs: o.pairs, Out: o.out, Patch: o.patch, Overlap: o.overlap,

@@ -1,0 +1,308 @@
+package main
+
+import (
+	"bytes"
+	"encoding/binary"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// The command line is tested as a user meets it: the test binary re-executes
+// itself as pdwave (TestMain below) so that a panic, a stack trace or an exit
+// code are seen exactly as in a shell.
+
+const cliEnv = "PDWAVE_CLI_MAIN"
+
+func TestMain(m *testing.M) {
+	if os.Getenv(cliEnv) == "1" {
+		os.Args = append([]string{"pdwave"}, os.Args[1:]...)
+		main()
+		os.Exit(0)
+	}
+	os.Exit(m.Run())
+}
+
+// runCLI runs pdwave with args in dir and returns its exit code and output.
+func runCLI(t *testing.T, dir string, args ...string) (code int, stdout, stderr string) {
+	t.Helper()
+	self, err := os.Executable()
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := exec.Command(self, args...)
+	c.Dir = dir
+	c.Env = append(os.Environ(), cliEnv+"=1")
+	var o, e bytes.Buffer
+	c.Stdout, c.Stderr = &o, &e
+	err = c.Run()
+	if err != nil {
+		if ee, ok := err.(*exec.ExitError); ok {
+			return ee.ExitCode(), o.String(), e.String()
+		}
+		t.Fatalf("running pdwave %v: %v", args, err)
+	}
+	return 0, o.String(), e.String()
+}
+
+// fitsCard formats one 80-character header card.
+func fitsCard(key string, value any) string {
+	var v string
+	switch x := value.(type) {
+	case string:
+		v = fmt.Sprintf("'%-8s'", x)
+	case bool:
+		v = "F"
+		if x {
+			v = "T"
+		}
+	case int:
+		v = fmt.Sprintf("%d", x)
+	case float64:
+		v = fmt.Sprintf("%.10G", x)
+	}
+	return fmt.Sprintf("%-8s= %20s", key, v)
+}
+
+// writeFITS writes a primary-HDU-only FITS file of float32 pixels with the
+// given axes and extra cards, laid out by the FITS Standard 4.0 (2880-byte
+// blocks, big-endian IEEE floats). truncate > 0 cuts the file to that many
+// bytes.
+func writeFITS(t *testing.T, path string, axes []int, pix []float32, extra [][2]any, truncate int) {
+	t.Helper()
+	cards := []string{fitsCard("SIMPLE", true), fitsCard("BITPIX", -32), fitsCard("NAXIS", len(axes))}
+	for i, n := range axes {
+		cards = append(cards, fitsCard(fmt.Sprintf("NAXIS%d", i+1), n))
+	}
+	for _, kv := range extra {
+		cards = append(cards, fitsCard(kv[0].(string), kv[1]))
+	}
+	cards = append(cards, "END")
+	var buf bytes.Buffer
+	for _, c := range cards {
+		buf.WriteString(fmt.Sprintf("%-80s", c))
+	}
+	for buf.Len()%2880 != 0 {
+		buf.WriteByte(' ')
+	}
+	for _, p := range pix {
+		binary.Write(&buf, binary.BigEndian, p)
+	}
+	for buf.Len()%2880 != 0 {
+		buf.WriteByte(0)
+	}
+	b := buf.Bytes()
+	if truncate > 0 {
+		b = b[:truncate]
+	}
+	if err := os.WriteFile(path, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// demoOptics are header cards describing the demo telescope
+// (testdata/demo-site.yaml).
+var demoOptics = [][2]any{
+	{"WAVELNTH", 600.0}, {"WAVEUNIT", -9},
+	{"CDELT1", 0.12}, {"CDELT2", 0.12}, {"CUNIT1", "arcsec"}, {"CUNIT2", "arcsec"},
+	{"TELDIAM", 0.5}, {"OBSCUR", 0.15}, {"DIVPV", 1.0},
+}
+
+// noise returns n pixels of a positive random image, seeded.
+func noise(n int, seed uint64) []float32 {
+	r := rand.New(rand.NewPCG(seed, 1))
+	p := make([]float32, n)
+	for i := range p {
+		p[i] = float32(1000 + 30*r.NormFloat64())
+	}
+	return p
+}
+
+// TestBadInput runs every command on malformed or impossible input. Each must
+// exit non-zero with one line on stderr starting "pdwave:", never panic, and
+// leave no output file or temporary file behind in the output folder.
+func TestBadInput(t *testing.T) {
+	if testing.Short() {
+		t.Log("short mode: running the table all the same (it takes seconds)")
+	}
+	repo, err := filepath.Abs(filepath.Join("..", ".."))
+	if err != nil {
+		t.Fatal(err)
+	}
+	demoSite := filepath.Join(repo, "testdata", "demo-site.yaml")
+	in := t.TempDir()
+	p := func(name string) string { return filepath.Join(in, name) }
+
+	const n, frames = 64, 4
+	good := noise(n*n*frames*2, 1)
+	writeFITS(t, p("good.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
+	writeFITS(t, p("truncated.fits"), []int{n, n, frames, 2}, good, demoOptics, 2880+1000)
+	writeFITS(t, p("notfits.fits"), nil, nil, nil, 0)
+	if err := os.WriteFile(p("notfits.fits"), []byte("this is not a FITS file\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	writeFITS(t, p("naxis3.fits"), []int{n, n, frames}, good[:n*n*frames], demoOptics, 0)
+	writeFITS(t, p("naxis4-3.fits"), []int{n, n, 2, 3}, good[:n*n*6], demoOptics, 0)
+	writeFITS(t, p("zero-frames.fits"), []int{n, n, 0, 2}, nil, demoOptics, 0)
+	writeFITS(t, p("one-channel.fits"), []int{n, n, frames, 1}, good[:n*n*frames], demoOptics, 0)
+	nan := append([]float32(nil), good...)
+	nan[n*n*frames+17] = float32(math.NaN())
+	writeFITS(t, p("nan.fits"), []int{n, n, frames, 2}, nan, demoOptics, 0)
+	inf := append([]float32(nil), good...)
+	inf[5] = float32(math.Inf(1))
+	writeFITS(t, p("inf.fits"), []int{n, n, frames, 2}, inf, demoOptics, 0)
+	writeFITS(t, p("no-optics.fits"), []int{n, n, frames, 2}, good, nil, 0)
+	writeFITS(t, p("focused.fits"), []int{n, n, frames}, good[:n*n*frames], demoOptics, 0)
+	writeFITS(t, p("defocused-small.fits"), []int{n / 2, n / 2, frames}, good[:n*n*frames/4], demoOptics, 0)
+	// A burst of a 0.7 m telescope: the built-in weights were made for the
+	// 0.5 m demo telescope and must be refused.
+	other := append([][2]any(nil), demoOptics...)
+	for i := range other {
+		if other[i][0] == "TELDIAM" {
+			other[i][1] = 0.7
+		}
+		if other[i][0] == "CDELT1" || other[i][0] == "CDELT2" {
+			other[i][1] = 0.085
+		}
+	}
+	writeFITS(t, p("other-optics.fits"), []int{n, n, frames, 2}, good, other, 0)
+
+	site, err := os.ReadFile(demoSite)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sites := map[string]string{
+		"malformed.yaml":      "telescope: [unclosed\n",
+		"unknown-key.yaml":    strings.Replace(string(site), "diameter_m:", "diametre_m:", 1),
+		"negative-d.yaml":     strings.Replace(string(site), "diameter_m: 0.50", "diameter_m: -0.50", 1),
+		"undersampled.yaml":   strings.Replace(string(site), "pixel_scale_arcsec: 0.120", "pixel_scale_arcsec: 0.300", 1),
+		"negative-patch.yaml": strings.Replace(string(site), "patch: 64", "patch: -64", 1),
+	}
+	for name, text := range sites {
+		if text == string(site) {
+			t.Fatalf("site variant %s did not change the demo site; update the test", name)
+		}
+		if err := os.WriteFile(p(name), []byte(text), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := os.WriteFile(p("garbage.safetensors"), []byte("\x10\x00\x00\x00\x00\x00\x00\x00{not json}"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+
+	type tc struct {
+		name string
+		args []string // "OUT" stands for the output path inside the case's folder
+		want string   // a fragment the error line must contain (case-insensitive)
+	}
+	cases := []tc{
+		// simulate
+		{"simulate no site", []string{"simulate", "--out", "OUT"}, "site"},
+		{"simulate malformed yaml", []string{"simulate", "--site", p("malformed.yaml"), "--out", "OUT"}, "yaml"},
+		{"simulate unknown key", []string{"simulate", "--site", p("unknown-key.yaml"), "--out", "OUT"}, "diametre_m"},
+		{"simulate negative diameter", []string{"simulate", "--site", p("negative-d.yaml"), "--out", "OUT"}, "diameter"},
+		{"simulate under-sampled", []string{"simulate", "--site", p("undersampled.yaml"), "--out", "OUT"}, "sampl"},
+		{"simulate negative patch", []string{"simulate", "--site", p("negative-patch.yaml"), "--out", "OUT"}, "patch"},
+		{"simulate missing site", []string{"simulate", "--site", p("nope.yaml"), "--out", "OUT"}, "nope.yaml"},
+		{"screen negative size", []string{"simulate", "screen", "--site", demoSite, "--out", "OUT/s.fits", "--size", "-8"}, "size"},
+		// fit
+		{"fit truncated", []string{"fit", p("truncated.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "truncated.fits"},
+		{"fit not fits", []string{"fit", p("notfits.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "notfits.fits"},
+		{"fit wrong naxis", []string{"fit", p("naxis3.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "naxis"},
+		{"fit naxis4 not 2", []string{"fit", p("naxis4-3.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "naxis4"},
+		{"fit zero frames", []string{"fit", p("zero-frames.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "frame"},
+		{"fit one channel", []string{"fit", p("one-channel.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "channel"},
+		{"fit NaN pixel", []string{"fit", p("nan.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "nan"},
+		{"fit Inf pixel", []string{"fit", p("inf.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "inf"},
+		{"fit malformed yaml", []string{"fit", p("good.fits"), "--site", p("malformed.yaml"), "--out", "OUT/f.fits"}, "yaml"},
+		{"fit missing burst", []string{"fit", p("missing.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "missing.fits"},
+		{"fit no args", []string{"fit", "--site", demoSite, "--out", "OUT/f.fits"}, ""},
+		{"fit negative modes", []string{"fit", p("good.fits"), "--site", demoSite, "--modes", "-3", "--out", "OUT/f.fits"}, "modes"},
+		{"fit bad basis", []string{"fit", p("good.fits"), "--site", demoSite, "--basis", "fourier", "--out", "OUT/f.fits"}, "basis"},
+		// predict
+		{"predict missing weights", []string{"predict", p("good.fits"), "--weights", p("none.safetensors"), "--out", "OUT/p.fits"}, "none.safetensors"},
+		{"predict garbage weights", []string{"predict", p("good.fits"), "--weights", p("garbage.safetensors"), "--out", "OUT/p.fits"}, "garbage.safetensors"},
+		{"predict other optics", []string{"predict", p("other-optics.fits"), "--out", "OUT/p.fits"}, "0.7"},
+		{"predict no optics", []string{"predict", p("no-optics.fits"), "--out", "OUT/p.fits"}, "optic"},
+		{"predict truncated", []string{"predict", p("truncated.fits"), "--out", "OUT/p.fits"}, "truncated.fits"},
+		// restore
+		{"restore truncated", []string{"restore", p("truncated.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "truncated.fits"},
+		{"restore NaN", []string{"restore", p("nan.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "nan"},
+		{"restore mismatched pair", []string{"restore", "--pairs", p("focused.fits"), p("defocused-small.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "32×32"},
+		{"restore odd pair count", []string{"restore", "--pairs", p("focused.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "pair"},
+		{"restore bad shard", []string{"restore", p("good.fits"), "--site", demoSite, "--shard", "3/2", "--out", "OUT/r.fits"}, "shard"},
+		{"restore negative patch", []string{"restore", p("good.fits"), "--site", demoSite, "--patch", "-64", "--out", "OUT/r.fits"}, "patch"},
+		{"restore under-sampled site", []string{"restore", p("no-optics.fits"), "--site", p("undersampled.yaml"), "--out", "OUT/r.fits"}, "sampl"},
+		{"restore foreign weights", []string{"restore", p("good.fits"), "--site", demoSite, "--weights", p("garbage.safetensors"), "--out", "OUT/r.fits"}, "garbage.safetensors"},
+		{"merge missing part", []string{"restore", "merge", p("nopart.part"), "--out", "OUT/m.fits"}, "nopart.part"},
+		// compare
+		{"compare wrong naxis", []string{"compare", p("naxis3.fits"), "--site", demoSite, "--out", "OUT/report"}, "naxis"},
+		{"compare malformed yaml", []string{"compare", p("good.fits"), "--site", p("malformed.yaml"), "--out", "OUT/report"}, "yaml"},
+		// train
+		{"train negative steps", []string{"train", "--site", demoSite, "--out", "OUT/w", "--steps", "-1"}, "steps"},
+		{"train malformed yaml", []string{"train", "--site", p("malformed.yaml"), "--out", "OUT/w"}, "yaml"},
+		{"train empty data folder", []string{"train", "--site", demoSite, "--data", t.TempDir(), "--out", "OUT/w", "--steps", "1"}, "no FITS"},
+		// demo
+		{"demo missing site", []string{"demo", "--site", p("nope.yaml"), "--out", "OUT/demo"}, "nope.yaml"},
+		// the command line itself
+		{"unknown command", []string{"sharpen"}, "unknown command"},
+		{"unknown flag", []string{"fit", "--sharpness", "3"}, "unknown flag"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			out := t.TempDir()
+			args := make([]string, len(c.args))
+			for i, a := range c.args {
+				args[i] = strings.Replace(a, "OUT", out, 1)
+			}
+			code, stdout, stderr := runCLI(t, repo, args...)
+			if code == 0 {
+				t.Fatalf("exit code 0; want non-zero\nstdout: %s\nstderr: %s", stdout, stderr)
+			}
+			if strings.Contains(stderr, "panic") || strings.Contains(stderr, "goroutine ") {
+				t.Fatalf("panicked:\n%s", stderr)
+			}
+			lines := strings.Split(strings.TrimRight(stderr, "\n"), "\n")
+			last := lines[len(lines)-1]
+			if !strings.HasPrefix(last, "pdwave: ") {
+				t.Fatalf("last stderr line %q does not start with \"pdwave: \"\nstderr: %s", last, stderr)
+			}
+			errLines := 0
+			for _, l := range lines {
+				if strings.HasPrefix(l, "pdwave: ") {
+					errLines++
+				}
+			}
+			if errLines != 1 {
+				t.Errorf("%d error lines; want one\nstderr: %s", errLines, stderr)
+			}
+			if c.want != "" && !strings.Contains(strings.ToLower(last), strings.ToLower(c.want)) {
+				t.Errorf("error line %q does not mention %q", last, c.want)
+			}
+			left, err := os.ReadDir(out)
+			if err != nil {
+				t.Fatal(err)
+			}
+			var names []string
+			for _, e := range left {
+				// An empty output folder created before the failure is
+				// harmless; any file is not.
+				if e.IsDir() {
+					sub, _ := os.ReadDir(filepath.Join(out, e.Name()))
+					if len(sub) == 0 {
+						continue
+					}
+				}
+				names = append(names, e.Name())
+			}
+			if len(names) > 0 {
+				t.Errorf("left output behind: %v", names)
+			}
+		})
+	}
+}
