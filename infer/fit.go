@@ -1,12 +1,3 @@
-// Package infer fits wavefront coefficients to phase-diversity patches with
-// the classical optimiser, restores the patch images, and defines the
-// Estimator interface through which the classical fit and a learned network
-// are interchangeable.
-//
-// A patch is data[channel][frame], each an N×N row-major image; channel 0
-// is the focused channel. Coefficients are frames × modes (native basis,
-// rad of phase at the observing wavelength) and come with their
-// Noll-equivalent (Noll j = 2, 3, …).
 package infer
 
 import (
