@@ -173,3 +173,13 @@ func WriteStudyCSV(w io.Writer, rows []StudyRow) error {
 	}
 	return nil
 }
+
+// WriteStudyFile writes the rows with WriteStudyCSV to path, through a
+// temporary file in the same folder that is renamed into place (no partial
+// file on error). Errors name the path.
+func WriteStudyFile(path string, rows []StudyRow) error {
+	if err := writeAtomic(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	return nil
+}

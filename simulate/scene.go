@@ -8,6 +8,8 @@ import (
 	"os"
 
 	"github.com/astrogo/fitsio"
+
+	"pdwave/model/burst"
 )
 
 // GranulationParams sets the look of a synthetic granulation scene. Zero
@@ -401,12 +403,12 @@ func imagePlane(img fitsio.Image, n int) ([]float64, error) {
 	}
 	scale, zero := 1.0, 0.0
 	if c := h.Get("BSCALE"); c != nil {
-		if v, ok := toFloat(c.Value); ok {
+		if v, ok := burst.Number(c.Value); ok {
 			scale = v
 		}
 	}
 	if c := h.Get("BZERO"); c != nil {
-		if v, ok := toFloat(c.Value); ok {
+		if v, ok := burst.Number(c.Value); ok {
 			zero = v
 		}
 	}
@@ -414,20 +416,4 @@ func imagePlane(img fitsio.Image, n int) ([]float64, error) {
 		out[i] = zero + scale*out[i]
 	}
 	return out, nil
-}
-
-func toFloat(v any) (float64, bool) {
-	switch x := v.(type) {
-	case float64:
-		return x, true
-	case float32:
-		return float64(x), true
-	case int:
-		return float64(x), true
-	case int64:
-		return float64(x), true
-	case int32:
-		return float64(x), true
-	}
-	return 0, false
 }

@@ -94,28 +94,23 @@ func compareRun(cmd *cobra.Command, args []string) error {
 		return err
 	}
 	var notes []string
-	ctx, err := compareSettings(o.site)
-	if err != nil {
-		return err
-	}
-	opt := b.Optics.Fill(ctx.optics)
-	var missing []string
-	for _, m := range []struct {
-		v    float64
-		name string
-	}{{opt.Wavelength, "wavelength"}, {opt.PixelScale, "pixel scale"}, {opt.Diameter, "telescope diameter"}, {opt.DiversityPV, "diversity"}} {
-		if !(m.v > 0) {
-			missing = append(missing, m.name)
+	var st *site.Site
+	if o.site != "" {
+		if st, err = site.Load(o.site); err != nil {
+			return fmt.Errorf("compare: %s: %w", o.site, err)
 		}
 	}
-	if len(missing) > 0 {
-		return fmt.Errorf("compare: %s unknown: neither the burst header nor a site file (--site) gives it", strings.Join(missing, ", "))
+	ov := infer.Overrides{Patch: o.patch, Modes: o.modes, DOverR0: o.dOverR0}
+	if o.basis != "" {
+		if ov.Basis, err = modes.ParseKind(o.basis); err != nil {
+			return fmt.Errorf("compare: %w", err)
+		}
 	}
-	tel := ctx.telescope
-	tel.Diameter, tel.Obscuration, tel.Wavelength, tel.PixelScale = opt.Diameter, opt.Obscuration, opt.Wavelength, opt.PixelScale
-	if tel.FocalRatio == 0 {
-		tel.FocalRatio = 1 // only used for focus-shift diversity, which compare does not use
+	fc, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
+	if err != nil {
+		return fmt.Errorf("compare: %w; give a site file (--site)", err)
 	}
+	tel, div := fc.Telescope, fc.DiversityPV[1]
 
 	// Weights: explicit file, else built-in, else none.
 	var model *net.Model
@@ -127,7 +122,7 @@ func compareRun(cmd *cobra.Command, args []string) error {
 		}
 		weightsFrom = o.weights
 	default:
-		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: opt.DiversityPV, Patch: o.patch, Modes: o.modes, Basis: o.basis}
+		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div, Patch: o.patch, Modes: o.modes, Basis: o.basis}
 		m, err := weights.For(want)
 		if err != nil {
 			notes = append(notes, "Built-in weights not used: "+err.Error())
@@ -136,48 +131,31 @@ func compareRun(cmd *cobra.Command, args []string) error {
 		}
 	}
 	if model != nil && o.weights != "" {
-		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: opt.DiversityPV}
+		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div}
 		if err := model.Meta.Compatible(want); err != nil {
 			notes = append(notes, fmt.Sprintf("The weights %s were made for other optics (%v); the learned estimates may be poor.", o.weights, err))
 		}
 	}
 
-	fc := infer.DefaultConfig()
-	fc.Telescope = tel
-	fc.DiversityPV = []float64{0, opt.DiversityPV}
-	fc.Frames = b.Frames
-	fc.Stop = infer.Stop{Iterations: o.iterations, RelChange: 1e-6}
-	pick := func(flag, fromWeights, fromSite, def int) int {
-		for _, v := range []int{flag, fromWeights, fromSite} {
-			if v > 0 {
-				return v
-			}
-		}
-		return def
-	}
-	var wPatch, wModes int
-	var wBasis string
+	// Sizes: flag, else the weights', else the site file's, else the defaults.
 	if model != nil {
-		wPatch, wModes, wBasis = model.Meta.Patch, model.Arch.Modes, model.Meta.Basis
-	}
-	fc.Patch = pick(o.patch, wPatch, ctx.patch, fc.Patch)
-	fc.Modes = pick(o.modes, wModes, ctx.modes, fc.Modes)
-	kind := fc.Basis
-	for _, s := range []string{o.basis, wBasis, ctx.basis} {
-		if s != "" {
-			if kind, err = modes.ParseKind(s); err != nil {
+		if ov.Patch <= 0 {
+			ov.Patch = model.Meta.Patch
+		}
+		if ov.Modes <= 0 {
+			ov.Modes = model.Arch.Modes
+		}
+		if ov.Basis == "" && model.Meta.Basis != "" {
+			if ov.Basis, err = modes.ParseKind(model.Meta.Basis); err != nil {
 				return fmt.Errorf("compare: %w", err)
 			}
-			break
+		}
+		if fc, err = infer.ConfigFor(st, b.Optics, b.Frames, ov); err != nil {
+			return fmt.Errorf("compare: %w", err)
 		}
 	}
-	fc.Basis = kind
-	switch {
-	case o.dOverR0 > 0:
-		fc.DOverR0 = o.dOverR0
-	case ctx.r0 > 0:
-		fc.DOverR0 = tel.Diameter / ctx.r0
-	default:
+	fc.Stop.Iterations = o.iterations
+	if st == nil && !(o.dOverR0 > 0) {
 		notes = append(notes, fmt.Sprintf("No site seeing given: the prior assumes D/r0 = %g.", fc.DOverR0))
 	}
 	if !(o.prior >= 0) {
@@ -187,7 +165,7 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if b.Nx < fc.Patch || b.Ny < fc.Patch {
 		return fmt.Errorf("compare: the %d×%d field is smaller than one %d px patch (set --patch)", b.Nx, b.Ny, fc.Patch)
 	}
-	if _, err := optics.NewPupil(tel, fc.Patch); err != nil {
+	if _, err := optics.NewPupil(fc.Telescope, fc.Patch); err != nil {
 		return fmt.Errorf("compare: %w", err)
 	}
 	fitter, err := infer.NewFitter(fc)
@@ -248,32 +226,4 @@ func compareWeightsMeta(m *net.Model) string {
 		s += ", pdwave " + mt.Version
 	}
 	return s + ")"
-}
-
-// compareContext is what the site file contributes.
-type compareContext struct {
-	optics       burst.Optics
-	telescope    optics.Telescope
-	r0           float64 // median r0 at the observing wavelength, m
-	patch, modes int
-	basis        string
-}
-
-// compareSettings reads the site file, if any.
-func compareSettings(path string) (compareContext, error) {
-	if path == "" {
-		return compareContext{}, nil
-	}
-	s, err := site.Load(path)
-	if err != nil {
-		return compareContext{}, fmt.Errorf("compare: %s: %w", path, err)
-	}
-	return compareContext{
-		optics:    s.Optics(),
-		telescope: s.Telescope(),
-		r0:        s.R0Median(),
-		patch:     s.Sizes.Patch,
-		modes:     s.Sizes.Modes,
-		basis:     string(s.Sizes.Basis),
-	}, nil
 }

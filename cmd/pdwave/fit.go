@@ -1,8 +1,6 @@
 package main
 
 import (
-	"bufio"
-	"errors"
 	"fmt"
 	"math"
 	"os"
@@ -21,8 +19,8 @@ import (
 	"pdwave/simulate"
 )
 
-// fitOpts holds the flags of "pdwave fit".
-var fitOpts struct {
+// fitFlags are the flags of "pdwave fit".
+type fitFlags struct {
 	site       string
 	out        string
 	basis      string
@@ -33,6 +31,9 @@ var fitOpts struct {
 	patch      int
 	wall       time.Duration
 }
+
+// fitOpts holds the flags of "pdwave fit".
+var fitOpts fitFlags
 
 var fitCmd = &cobra.Command{
 	Use:   "fit BURST --site FILE --out FILE.fits",
@@ -103,45 +104,30 @@ func init() {
 	root.AddCommand(fitCmd)
 }
 
-// fitConfig builds the fit configuration from the site file, the burst's
-// optics (header values override the site) and the flags.
-func fitConfig(st *site.Site, b *burst.Burst, n int) (infer.Config, error) {
-	o := b.Optics.Fill(st.Optics())
-	tel := st.Telescope()
-	tel.Wavelength, tel.PixelScale, tel.Diameter, tel.Obscuration = o.Wavelength, o.PixelScale, o.Diameter, o.Obscuration
-	cfg := infer.DefaultConfig()
-	cfg.Telescope = tel
-	cfg.DiversityPV = []float64{0, o.DiversityPV}
-	cfg.Patch, cfg.Frames = n, b.Frames
-	cfg.Modes = st.Sizes.Modes
-	if fitOpts.modes != 0 {
-		cfg.Modes = fitOpts.modes
+// fitOverrides checks the flags of "pdwave fit" and returns the ones that
+// override the site file and the burst header.
+func fitOverrides(o fitFlags, n int) (infer.Overrides, error) {
+	ov := infer.Overrides{Patch: n, Modes: o.modes, DOverR0: o.dOverR0}
+	if o.modes < 0 {
+		return ov, fmt.Errorf("--modes must not be negative, got %d", o.modes)
 	}
-	cfg.Basis = st.Sizes.Basis
-	if fitOpts.basis != "" {
-		k, err := modes.ParseKind(fitOpts.basis)
+	if o.basis != "" {
+		k, err := modes.ParseKind(o.basis)
 		if err != nil {
-			return cfg, err
+			return ov, err
 		}
-		cfg.Basis = k
+		ov.Basis = k
 	}
-	cfg.DOverR0 = tel.Diameter / st.R0Median()
-	if fitOpts.dOverR0 != 0 {
-		cfg.DOverR0 = fitOpts.dOverR0
+	if o.dOverR0 != 0 && (!(o.dOverR0 > 0) || math.IsInf(o.dOverR0, 0)) {
+		return ov, fmt.Errorf("--d-over-r0 must be positive, got %g", o.dOverR0)
 	}
-	if !(cfg.DOverR0 > 0) || math.IsInf(cfg.DOverR0, 0) {
-		return cfg, fmt.Errorf("--d-over-r0 must be positive, got %g", cfg.DOverR0)
+	if o.iterations < 1 {
+		return ov, fmt.Errorf("--iterations must be at least 1, got %d", o.iterations)
 	}
-	if fitOpts.iterations < 1 {
-		return cfg, fmt.Errorf("--iterations must be at least 1, got %d", fitOpts.iterations)
+	if o.prior < 0 || math.IsNaN(o.prior) {
+		return ov, fmt.Errorf("--prior must be ≥ 0, got %g", o.prior)
 	}
-	cfg.Stop.Iterations = fitOpts.iterations
-	cfg.Stop.WallTime = fitOpts.wall
-	if fitOpts.prior < 0 || math.IsNaN(fitOpts.prior) {
-		return cfg, fmt.Errorf("--prior must be ≥ 0, got %g", fitOpts.prior)
-	}
-	cfg.Prior = fitOpts.prior
-	return cfg, nil
+	return ov, nil
 }
 
 func fitRun(cmd *cobra.Command, args []string) error {
@@ -173,27 +159,22 @@ func fitRun(cmd *cobra.Command, args []string) error {
 		fmt.Fprintf(stderr, "burst is %d×%d pixels: fitting its central %d×%d patch at (%d, %d); restore full fields with \"pdwave restore\"\n",
 			b.Nx, b.Ny, n, n, x0, y0)
 	}
-	cfg, err := fitConfig(st, b, n)
+	ov, err := fitOverrides(o, n)
 	if err != nil {
 		return err
 	}
+	cfg, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
+	if err != nil {
+		return fmt.Errorf("%s: %w", args[0], err)
+	}
+	cfg.Stop.Iterations = o.iterations
+	cfg.Stop.WallTime = o.wall
+	cfg.Prior = o.prior
 	fitter, err := infer.NewFitter(cfg)
 	if err != nil {
 		return fmt.Errorf("%s: %w", args[0], err)
 	}
-	data := make([][][]float64, 2)
-	for c := range data {
-		data[c] = make([][]float64, b.Frames)
-		for j := range data[c] {
-			p := make([]float64, n*n)
-			src := b.Data[c][j]
-			for y := 0; y < n; y++ {
-				copy(p[y*n:(y+1)*n], src[(y+y0)*b.Nx+x0:(y+y0)*b.Nx+x0+n])
-			}
-			data[c][j] = p
-		}
-	}
-	res, err := fitter.Fit(data, nil)
+	res, err := fitter.Fit(b.Patch(x0, y0, n), nil)
 	if err != nil {
 		return fmt.Errorf("%s: %w", args[0], err)
 	}
@@ -231,29 +212,14 @@ func fitRun(cmd *cobra.Command, args []string) error {
 		burst.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
 		burst.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"},
 	)
-	cards = append(cards, fitCarriedCards(b.Cards, x0, y0)...)
-	frames := make([]int64, b.Frames)
-	for j := range frames {
-		frames[j] = int64(j + 1)
-	}
-	table := &burst.Table{
-		Name: "COEFFS",
-		Columns: []burst.Column{
-			{Name: "FRAME", Int: frames},
-			{Name: "NATIVE", Unit: "rad", Float: res.Coeffs},
-			{Name: "NOLL", Unit: "rad", Float: res.Noll},
-		},
-		Cards: []burst.Card{
-			{Key: "FITBASIS", Value: string(cfg.Basis), Comment: "basis of NATIVE"},
-			{Key: "NOLLJ0", Value: 2, Comment: "Noll index of the first NOLL element"},
-		},
-	}
+	cards = append(cards, burst.CutoutCards(b.Cards, x0, y0)...)
 	img := &burst.Image{Dims: []int{n, n}, Data: res.Restored, Cards: cards}
-	if err := burst.WriteFile(o.out, img, table); err != nil {
-		return err
+	table := &infer.CoefficientTable{
+		Basis: cfg.Basis, Native: res.Coeffs, Noll: res.Noll,
+		Title: "pdwave " + version + " fit", Settings: settings, Notes: res.Notes(),
 	}
-	csvPath := strings.TrimSuffix(o.out, filepath.Ext(o.out)) + ".csv"
-	if err := fitWriteCSV(csvPath, settings, res); err != nil {
+	csvPath, err := infer.WriteCoefficients(o.out, img, table)
+	if err != nil {
 		return err
 	}
 	fmt.Fprintf(stderr, "wrote %s and %s\n", o.out, csvPath)
@@ -268,120 +234,6 @@ func fitStatus(s string) string {
 	return s
 }
 
-// fitCarriedCards returns the burst's carried header cards with the
-// reference pixel moved to the patch (CRPIXi − offset).
-func fitCarriedCards(cards []burst.Card, x0, y0 int) []burst.Card {
-	out := make([]burst.Card, 0, len(cards))
-	for _, c := range cards {
-		switch c.Key {
-		case "CRPIX1", "CRPIX2":
-			v, ok := fitNumber(c.Value)
-			if !ok {
-				continue
-			}
-			if c.Key == "CRPIX1" {
-				v -= float64(x0)
-			} else {
-				v -= float64(y0)
-			}
-			c.Value = v
-		case "CRPIX3", "CRPIX4", "CTYPE3", "CTYPE4", "CDELT3", "CDELT4", "CRVAL3", "CRVAL4", "CUNIT3", "CUNIT4", "NAXIS3", "NAXIS4":
-			continue // the product is 2-D
-		}
-		out = append(out, c)
-	}
-	return out
-}
-
-func fitNumber(v any) (float64, bool) {
-	switch x := v.(type) {
-	case float64:
-		return x, true
-	case float32:
-		return float64(x), true
-	case int:
-		return float64(x), true
-	case int64:
-		return float64(x), true
-	case int32:
-		return float64(x), true
-	}
-	return 0, false
-}
-
-// fitWriteCSV writes the coefficients as CSV (one row per frame: native
-// coefficients, then Noll equivalents), preceded by "# key: value" lines
-// with the provenance and the metric; written to a temporary file in the
-// same folder and renamed.
-func fitWriteCSV(path string, settings map[string]string, r *infer.Result) (err error) {
-	dir := filepath.Dir(path)
-	f, err := os.CreateTemp(dir, filepath.Base(path)+".tmp-*")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-		}
-	}()
-	w := bufio.NewWriter(f)
-	fmt.Fprintf(w, "# pdwave %s fit\n", version)
-	keys := make([]string, 0, len(settings))
-	for k := range settings {
-		keys = append(keys, k)
-	}
-	sortStrings(keys)
-	for _, k := range keys {
-		fmt.Fprintf(w, "# %s: %s\n", k, settings[k])
-	}
-	fmt.Fprintf(w, "# metric_before: %.8g\n# metric_after: %.8g\n# data_metric_before: %.8g\n# data_metric_after: %.8g\n# iterations: %d\n# seconds: %.3f\n",
-		r.MetricStart, r.MetricEnd, r.DataStart, r.DataEnd, r.Iterations, r.Elapsed.Seconds())
-	m := 0
-	if len(r.Coeffs) > 0 {
-		m = len(r.Coeffs[0])
-	}
-	fmt.Fprint(w, "frame")
-	for k := 0; k < m; k++ {
-		fmt.Fprintf(w, ",native_%d", k+1)
-	}
-	for k := 0; k < m; k++ {
-		fmt.Fprintf(w, ",noll_%d", k+2)
-	}
-	fmt.Fprintln(w)
-	for j := range r.Coeffs {
-		fmt.Fprintf(w, "%d", j+1)
-		for _, v := range r.Coeffs[j] {
-			fmt.Fprintf(w, ",%.6g", v)
-		}
-		for _, v := range r.Noll[j] {
-			fmt.Fprintf(w, ",%.6g", v)
-		}
-		fmt.Fprintln(w)
-	}
-	if err := w.Flush(); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err := f.Sync(); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err := f.Close(); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err := os.Rename(f.Name(), path); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
-}
-
-func sortStrings(s []string) {
-	for i := 1; i < len(s); i++ {
-		for j := i; j > 0 && s[j] < s[j-1]; j-- {
-			s[j], s[j-1] = s[j-1], s[j]
-		}
-	}
-}
-
 func fitStudyRun(cmd *cobra.Command, args []string) error {
 	o := fitStudyOpts
 	if o.bursts < 1 {
@@ -394,10 +246,11 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 	if err := os.MkdirAll(o.out, 0o755); err != nil {
 		return fmt.Errorf("creating %s: %w", o.out, err)
 	}
-	cfg := infer.DefaultConfig()
-	cfg.Telescope = st.Telescope()
-	cfg.Basis = st.Sizes.Basis
-	cfg.Modes = st.Sizes.Modes
+	// The study sets patch, frames, diversity and D/r0 per case.
+	cfg, err := infer.ConfigFor(st, burst.Optics{}, 0, infer.Overrides{})
+	if err != nil {
+		return err
+	}
 	src := fitStudySource(st)
 	cases := infer.StudyGrid()
 	if o.quick {
@@ -416,18 +269,8 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 		return err
 	}
 	path := filepath.Join(o.out, "fit-study.csv")
-	tmp, err := os.CreateTemp(o.out, "fit-study.csv.tmp-*")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	werr := infer.WriteStudyCSV(tmp, rows)
-	cerr := tmp.Close()
-	if err := errors.Join(werr, cerr); err != nil {
-		os.Remove(tmp.Name())
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err := os.Rename(tmp.Name(), path); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
+	if err := infer.WriteStudyFile(path, rows); err != nil {
+		return err
 	}
 	fmt.Fprintf(stderr, "wrote %s\n", path)
 	return nil

@@ -223,7 +223,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 			defer wg.Done()
 			plan := fft.NewPlan(n, n)
 			for jb := range ch {
-				data := extract(b, jb.x, jb.y, n)
+				data := b.Patch(jb.x, jb.y, n)
 				outs[jb.idx] = runPatch(data, jb.idx, jb.x, jb.y, learned, polisher, fitter, cfg.FromZero, methods, truths[jb.idx], constrain, win, plan)
 			}
 		}()
@@ -427,23 +427,6 @@ func tiles(size, n, stride int) []int {
 		out = append(out, size-n)
 	}
 	return out
-}
-
-// extract copies the n×n patch at (x, y) of every frame and channel.
-func extract(b *burst.Burst, x, y, n int) [][][]float64 {
-	data := make([][][]float64, 2)
-	for c := range data {
-		data[c] = make([][]float64, b.Frames)
-		for f := range data[c] {
-			im := make([]float64, n*n)
-			src := b.Data[c][f]
-			for r := 0; r < n; r++ {
-				copy(im[r*n:(r+1)*n], src[(y+r)*b.Nx+x:(y+r)*b.Nx+x+n])
-			}
-			data[c][f] = im
-		}
-	}
-	return data
 }
 
 // truthNative converts a truth table to frames × Count native coefficients

@@ -7,6 +7,8 @@ import (
 	"os"
 
 	"github.com/astrogo/fitsio"
+
+	"pdwave/model/burst"
 )
 
 // Calibration is what Calibrate does to each frame: d ← (d − Dark)/Gain.
@@ -121,12 +123,12 @@ func ReadFrame(path string) (data []float64, nx, ny int, err error) {
 	}
 	zero, scale := 0.0, 1.0
 	if c := hdr.Get("BZERO"); c != nil {
-		if v, ok := restoreCardFloat(c.Value); ok {
+		if v, ok := burst.Number(c.Value); ok {
 			zero = v
 		}
 	}
 	if c := hdr.Get("BSCALE"); c != nil {
-		if v, ok := restoreCardFloat(c.Value); ok && v != 0 {
+		if v, ok := burst.Number(c.Value); ok && v != 0 {
 			scale = v
 		}
 	}
@@ -191,20 +193,4 @@ func restoreConv[T byte | int16 | int32 | int64 | float32](v []T) []float64 {
 		out[i] = float64(x)
 	}
 	return out
-}
-
-func restoreCardFloat(v any) (float64, bool) {
-	switch x := v.(type) {
-	case float64:
-		return x, true
-	case float32:
-		return float64(x), true
-	case int:
-		return float64(x), true
-	case int64:
-		return float64(x), true
-	case int32:
-		return float64(x), true
-	}
-	return 0, false
 }

@@ -1,9 +1,7 @@
 package restore
 
 import (
-	"errors"
 	"fmt"
-	"math"
 	"sync"
 
 	"pdwave/infer"
@@ -15,32 +13,29 @@ import (
 
 // FitConfig returns the classical fit configuration for restoring bursts
 // with the given optics (header values of the burst, zero where unknown) on
-// site s: the site's telescope, with wavelength, pixel scale, diameter,
-// obscuration and diversity taken from the header where present (DESIGN
-// §4); r0 is the site's median, rescaled as λ^(6/5) to the burst's
-// wavelength (Roddier 1981); basis, modes and patch from the site unless
-// patch > 0; frames as given; everything else from infer.DefaultConfig.
+// site s: infer.ConfigFor with the patch side as the only override (patch ≤ 0
+// = the site's), then the sampling check for that patch.
 func FitConfig(s *site.Site, o burst.Optics, frames, patch int) (infer.Config, error) {
-	cfg := infer.DefaultConfig()
-	def := s.Optics()
-	o = o.Fill(def)
-	tel := s.Telescope()
-	tel.Wavelength, tel.PixelScale, tel.Diameter, tel.Obscuration = o.Wavelength, o.PixelScale, o.Diameter, o.Obscuration
-	cfg.Telescope = tel
-	cfg.DiversityPV = []float64{0, o.DiversityPV}
-	if patch <= 0 {
-		patch = s.Sizes.Patch
+	return restoreConfig(s, o, frames, patch)
+}
+
+// HeaderConfig is FitConfig without a site file: optics from the burst
+// header (all of wavelength, pixel scale, diameter and diversity must be
+// present), 64 px patches unless patch > 0, 36 KL modes and an expected
+// D/r0 of 5 for the prior (infer.ConfigFor with a nil site).
+func HeaderConfig(o burst.Optics, frames, patch int) (infer.Config, error) {
+	return restoreConfig(nil, o, frames, patch)
+}
+
+func restoreConfig(s *site.Site, o burst.Optics, frames, patch int) (infer.Config, error) {
+	cfg, err := infer.ConfigFor(s, o, frames, infer.Overrides{Patch: patch})
+	if err != nil {
+		if s == nil {
+			return cfg, fmt.Errorf("restore: %w; give a site file (--site)", err)
+		}
+		return cfg, fmt.Errorf("restore: %w", err)
 	}
-	cfg.Patch = patch
-	cfg.Frames = frames
-	cfg.Basis = s.Sizes.Basis
-	cfg.Modes = s.Sizes.Modes
-	r0 := s.MedianR0() * math.Pow(o.Wavelength/def.Wavelength, 1.2)
-	if !(r0 > 0) {
-		return cfg, errors.New("restore: site gives no r0")
-	}
-	cfg.DOverR0 = tel.Diameter / r0
-	if err := tel.CheckSampling(patch); err != nil {
+	if err := cfg.Telescope.CheckSampling(cfg.Patch); err != nil {
 		return cfg, fmt.Errorf("restore: %w", err)
 	}
 	return cfg, nil

@@ -186,37 +186,6 @@ func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error
 	return cfg, m, nil
 }
 
-// HeaderConfig is FitConfig without a site file: optics from the burst
-// header (all of wavelength, pixel scale, diameter and diversity must be
-// present), 64 px patches unless patch > 0, 36 KL modes and an expected
-// D/r0 of 5 for the prior (common practice for moderate daytime seeing).
-func HeaderConfig(o burst.Optics, frames, patch int) (infer.Config, error) {
-	cfg := infer.DefaultConfig()
-	var missing []string
-	for _, c := range []struct {
-		v    float64
-		name string
-	}{{o.Wavelength, "wavelength (WAVELNTH)"}, {o.PixelScale, "pixel scale (CDELT1)"}, {o.Diameter, "diameter (TELDIAM)"}, {o.DiversityPV, "diversity (DIVPV)"}} {
-		if !(c.v > 0) {
-			missing = append(missing, c.name)
-		}
-	}
-	if len(missing) > 0 {
-		return cfg, fmt.Errorf("restore: the burst header lacks %s; give a site file (--site)", strings.Join(missing, ", "))
-	}
-	cfg.Telescope.Wavelength, cfg.Telescope.PixelScale = o.Wavelength, o.PixelScale
-	cfg.Telescope.Diameter, cfg.Telescope.Obscuration = o.Diameter, o.Obscuration
-	cfg.DiversityPV = []float64{0, o.DiversityPV}
-	if patch > 0 {
-		cfg.Patch = patch
-	}
-	cfg.Frames = frames
-	if err := cfg.Telescope.CheckSampling(cfg.Patch); err != nil {
-		return cfg, fmt.Errorf("restore: %w", err)
-	}
-	return cfg, nil
-}
-
 // one restores one burst into out.
 func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out string) error {
 	t0 := time.Now()

@@ -419,7 +419,7 @@ func checkVersion(h *fitsio.Header) error {
 	if c == nil {
 		return nil
 	}
-	v, ok := number(c.Value)
+	v, ok := Number(c.Value)
 	if !ok {
 		return fmt.Errorf("BURSTVER = %v is not a number", c.Value)
 	}
@@ -429,23 +429,35 @@ func checkVersion(h *fitsio.Header) error {
 	return nil
 }
 
-// number converts a numeric header value to float64.
-func number(v any) (float64, bool) {
+// Number converts a numeric header value (float64, float32, int, int64 or
+// int32, as read by fitsio or set in a Card) to float64. It reports false
+// for any other type (strings, booleans, nil); it does not check for NaN or
+// Inf.
+func Number(v any) (float64, bool) {
 	switch x := v.(type) {
-	case int:
-		return float64(x), true
 	case float64:
 		return x, true
+	case float32:
+		return float64(x), true
+	case int:
+		return float64(x), true
+	case int64:
+		return float64(x), true
+	case int32:
+		return float64(x), true
 	}
 	return 0, false
 }
+
+// Float returns the card's value as float64 if it is numeric (see Number).
+func (c Card) Float() (float64, bool) { return Number(c.Value) }
 
 func numberKey(h *fitsio.Header, key string) (float64, bool, error) {
 	c := h.Get(key)
 	if c == nil || c.Value == nil {
 		return 0, false, nil
 	}
-	v, ok := number(c.Value)
+	v, ok := Number(c.Value)
 	if !ok || math.IsNaN(v) || math.IsInf(v, 0) {
 		return 0, false, fmt.Errorf("keyword %s = %v is not a finite number", key, c.Value)
 	}
@@ -551,7 +563,7 @@ func opticsFrom(h *fitsio.Header) (Optics, error) {
 		exp := 0.0
 		unitGiven := false
 		if c := h.Get("WAVEUNIT"); c != nil && c.Value != nil {
-			e, ok := number(c.Value)
+			e, ok := Number(c.Value)
 			if !ok || e != math.Trunc(e) || math.Abs(e) > 30 {
 				return o, fmt.Errorf("WAVEUNIT = %v is not a power-of-ten exponent (e.g. -9 for nm)", c.Value)
 			}
@@ -865,4 +877,57 @@ func floats(v any, n int) ([]float64, error) {
 		}
 	}
 	return out, nil
+}
+
+// Patch copies the n×n cut-out with first column x0 and first row y0 of
+// every frame of both channels into new slices, returned as
+// data[channel][frame] (row-major n×n, x fastest), the layout of
+// infer.Fitter.Fit. It panics if the cut-out does not lie inside the
+// Nx×Ny frames.
+func (b *Burst) Patch(x0, y0, n int) [][][]float64 {
+	if x0 < 0 || y0 < 0 || n < 1 || x0+n > b.Nx || y0+n > b.Ny {
+		panic(fmt.Sprintf("burst: patch %d px at (%d, %d) outside the %d×%d frames", n, x0, y0, b.Nx, b.Ny))
+	}
+	data := make([][][]float64, 2)
+	for c := range data {
+		data[c] = make([][]float64, b.Frames)
+		for f := range data[c] {
+			im := make([]float64, n*n)
+			src := b.Data[c][f]
+			for r := 0; r < n; r++ {
+				copy(im[r*n:(r+1)*n], src[(y0+r)*b.Nx+x0:(y0+r)*b.Nx+x0+n])
+			}
+			data[c][f] = im
+		}
+	}
+	return data
+}
+
+// CutoutCards returns the carried header cards for a 2-D cut-out of the
+// frames whose first column is x0 and first row y0 (0-based): the reference
+// pixels CRPIX1 and CRPIX2 are moved by the offset (a non-numeric one is
+// dropped), and the keywords of the third and fourth axes (CRPIX3/4,
+// CTYPE3/4, CDELT3/4, CRVAL3/4, CUNIT3/4, NAXIS3/4) are dropped. cards is
+// not modified.
+func CutoutCards(cards []Card, x0, y0 int) []Card {
+	out := make([]Card, 0, len(cards))
+	for _, c := range cards {
+		switch c.Key {
+		case "CRPIX1", "CRPIX2":
+			v, ok := c.Float()
+			if !ok {
+				continue
+			}
+			if c.Key == "CRPIX1" {
+				v -= float64(x0)
+			} else {
+				v -= float64(y0)
+			}
+			c.Value = v
+		case "CRPIX3", "CRPIX4", "CTYPE3", "CTYPE4", "CDELT3", "CDELT4", "CRVAL3", "CRVAL4", "CUNIT3", "CUNIT4", "NAXIS3", "NAXIS4":
+			continue // the product is 2-D
+		}
+		out = append(out, c)
+	}
+	return out
 }

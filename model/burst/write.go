@@ -170,7 +170,7 @@ func burstCards(b *Burst) ([]Card, error) {
 				}
 			}
 			if c.Key == "CDELT"+strconv.Itoa(i) {
-				if v, ok := number(c.Value); ok && v < 0 {
+				if v, ok := Number(c.Value); ok && v < 0 {
 					sign[i] = -1
 				}
 			}

@@ -1,0 +1,162 @@
+package infer
+
+import (
+	"bufio"
+	"errors"
+	"fmt"
+	"io"
+	"maps"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+
+	"pdwave/model/burst"
+	"pdwave/model/modes"
+)
+
+// CoefficientTable is the per-frame wavefront table of a fit or prediction,
+// written by WriteCoefficients (FITS binary table COEFFS with columns FRAME,
+// NATIVE, NOLL) and WriteCSV.
+type CoefficientTable struct {
+	Basis  modes.Kind  // basis of Native
+	Native [][]float64 // frames × modes, native basis, rad
+	Noll   [][]float64 // frames × modes, Noll equivalents (Noll j = 2 + index), rad
+
+	// The CSV starts with comment lines: "# Title", then "# key: value" for
+	// every setting in key order, then "# line" for every note.
+	Title    string
+	Settings map[string]string
+	Notes    []string
+}
+
+// HDU returns the FITS binary table COEFFS: FRAME (1-based, integer), NATIVE
+// and NOLL (rad, one vector of modes per frame), with the cards FITBASIS
+// (basis of NATIVE) and NOLLJ0 = 2 (Noll index of the first NOLL element).
+// The table shares the coefficient slices of t.
+func (t *CoefficientTable) HDU() *burst.Table {
+	frames := make([]int64, len(t.Native))
+	for j := range frames {
+		frames[j] = int64(j + 1)
+	}
+	return &burst.Table{
+		Name: "COEFFS",
+		Columns: []burst.Column{
+			{Name: "FRAME", Int: frames},
+			{Name: "NATIVE", Unit: "rad", Float: t.Native},
+			{Name: "NOLL", Unit: "rad", Float: t.Noll},
+		},
+		Cards: []burst.Card{
+			{Key: "FITBASIS", Value: string(t.Basis), Comment: "basis of NATIVE"},
+			{Key: "NOLLJ0", Value: 2, Comment: "Noll index of the first NOLL element"},
+		},
+	}
+}
+
+// WriteCSV writes the table as CSV to path: the comment lines (see
+// CoefficientTable), a header "frame,native_1,…,native_M,noll_2,…,noll_M+1"
+// and one row per frame (frame number from 1, values %.6g in rad). The file
+// is written to a temporary name in the same folder and renamed, so no
+// partial file is left on error.
+func (t *CoefficientTable) WriteCSV(path string) error {
+	var b strings.Builder
+	fmt.Fprintf(&b, "# %s\n", t.Title)
+	for _, k := range slices.Sorted(maps.Keys(t.Settings)) {
+		fmt.Fprintf(&b, "# %s: %s\n", k, t.Settings[k])
+	}
+	for _, n := range t.Notes {
+		fmt.Fprintf(&b, "# %s\n", n)
+	}
+	m := 0
+	if len(t.Native) > 0 {
+		m = len(t.Native[0])
+	}
+	b.WriteString("frame")
+	for k := 0; k < m; k++ {
+		fmt.Fprintf(&b, ",native_%d", k+1)
+	}
+	for k := 0; k < m; k++ {
+		fmt.Fprintf(&b, ",noll_%d", k+2)
+	}
+	b.WriteByte('\n')
+	for j := range t.Native {
+		fmt.Fprintf(&b, "%d", j+1)
+		for _, v := range t.Native[j] {
+			fmt.Fprintf(&b, ",%.6g", v)
+		}
+		for _, v := range t.Noll[j] {
+			fmt.Fprintf(&b, ",%.6g", v)
+		}
+		b.WriteByte('\n')
+	}
+	if err := writeAtomic(path, func(w io.Writer) error {
+		_, err := io.WriteString(w, b.String())
+		return err
+	}); err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
+	return nil
+}
+
+// CSVPath returns the name of the CSV written next to the FITS file
+// fitsPath: its extension replaced by ".csv".
+func CSVPath(fitsPath string) string {
+	return strings.TrimSuffix(fitsPath, filepath.Ext(fitsPath)) + ".csv"
+}
+
+// WriteCoefficients writes the FITS product fitsPath (primary image, then the
+// COEFFS table of t.HDU) and the same coefficients as CSV to CSVPath(fitsPath)
+// (t.WriteCSV). Both files are written atomically; if the CSV fails, the FITS
+// file is removed again. It returns the CSV path.
+func WriteCoefficients(fitsPath string, primary *burst.Image, t *CoefficientTable) (csvPath string, err error) {
+	if err := burst.WriteFile(fitsPath, primary, t.HDU()); err != nil {
+		return "", err
+	}
+	csvPath = CSVPath(fitsPath)
+	if err := t.WriteCSV(csvPath); err != nil {
+		os.Remove(fitsPath)
+		return "", err
+	}
+	return csvPath, nil
+}
+
+// Notes returns the CSV comment lines that summarise a fit: the objective and
+// the normalised metric before and after (%.8g), the iterations and the wall
+// time in seconds.
+func (r *Result) Notes() []string {
+	return []string{
+		fmt.Sprintf("metric_before: %.8g", r.MetricStart),
+		fmt.Sprintf("metric_after: %.8g", r.MetricEnd),
+		fmt.Sprintf("data_metric_before: %.8g", r.DataStart),
+		fmt.Sprintf("data_metric_after: %.8g", r.DataEnd),
+		fmt.Sprintf("iterations: %d", r.Iterations),
+		fmt.Sprintf("seconds: %.3f", r.Elapsed.Seconds()),
+	}
+}
+
+// writeAtomic calls write on a buffered temporary file in path's folder,
+// then flushes, syncs, closes and renames it to path; on any error the
+// temporary file is removed and path is left as it was.
+func writeAtomic(path string, write func(io.Writer) error) (err error) {
+	f, err := os.CreateTemp(filepath.Dir(path), filepath.Base(path)+".tmp-*")
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if err != nil {
+			os.Remove(f.Name())
+		}
+	}()
+	w := bufio.NewWriter(f)
+	werr := write(w)
+	if werr == nil {
+		werr = w.Flush()
+	}
+	if werr == nil {
+		werr = f.Sync()
+	}
+	if err := errors.Join(werr, f.Close()); err != nil {
+		return err
+	}
+	return os.Rename(f.Name(), path)
+}
