@@ -1,107 +1,18 @@
 package compare
 
 import (
-	"fmt"
-	"strings"
-	"sync"
-
+	"pdwave/infer"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 )
 
-// NetEstimator runs a trained network (model/net) on patches. It
-// implements infer.Estimator and is safe for concurrent use: every
-// concurrent call takes its own Featurizer and Predictor from a pool.
-type NetEstimator struct {
-	m     *net.Model
-	basis *modes.Basis
-	mu    sync.Mutex
-	free  []*netWorker
-}
+// NetEstimator is infer.NetEstimator: a trained network run on patches,
+// safe for concurrent use.
+type NetEstimator = infer.NetEstimator
 
-type netWorker struct {
-	f *net.Featurizer
-	p *net.Predictor
-	x []float64
-	y []float64
-}
-
-// NewNetEstimator checks that m was made for the basis (kind, mode count)
-// and patch size of b and returns an estimator. It returns an error on a
-// mismatch, naming both sides.
+// NewNetEstimator is infer.NewNetEstimator: it checks that m was made for
+// the basis (kind, mode count) and patch size of b and returns an estimator,
+// or an error naming both sides of a mismatch.
 func NewNetEstimator(m *net.Model, b *modes.Basis) (*NetEstimator, error) {
-	if m == nil {
-		return nil, fmt.Errorf("learned estimator: no model")
-	}
-	if m.Arch.Modes != b.Count || (m.Meta.Modes != 0 && m.Meta.Modes != b.Count) {
-		return nil, fmt.Errorf("learned estimator: weights predict %d modes, the comparison uses %d", m.Arch.Modes, b.Count)
-	}
-	if m.Meta.Basis != "" && !strings.EqualFold(m.Meta.Basis, string(b.Kind)) {
-		return nil, fmt.Errorf("learned estimator: weights are for the %s basis, the comparison uses %s", m.Meta.Basis, b.Kind)
-	}
-	if m.Meta.Patch != 0 && m.Meta.Patch != b.N {
-		return nil, fmt.Errorf("learned estimator: weights are for %d px patches, the comparison uses %d", m.Meta.Patch, b.N)
-	}
-	if _, err := net.NewFeaturizer(m); err != nil {
-		return nil, fmt.Errorf("learned estimator: %w", err)
-	}
-	return &NetEstimator{m: m, basis: b}, nil
-}
-
-// Basis returns the basis the coefficients refer to.
-func (e *NetEstimator) Basis() *modes.Basis { return e.basis }
-
-// Estimate predicts frames × modes native coefficients (rad) for
-// data[channel][frame] (two channels, N×N images). It does not modify data.
-func (e *NetEstimator) Estimate(data [][][]float64) ([][]float64, error) {
-	if len(data) != 2 {
-		return nil, fmt.Errorf("learned estimator: %d channels, want 2", len(data))
-	}
-	frames := len(data[0])
-	w, err := e.get()
-	if err != nil {
-		return nil, err
-	}
-	defer e.put(w)
-	nf := w.f.Len(frames)
-	if cap(w.x) < nf {
-		w.x = make([]float64, nf)
-	}
-	w.x = w.x[:nf]
-	if err := w.f.Burst(w.x, [2][][]float64{data[0], data[1]}); err != nil {
-		return nil, fmt.Errorf("learned estimator: %w", err)
-	}
-	m := e.m.Arch.Modes
-	if cap(w.y) < frames*m {
-		w.y = make([]float64, frames*m)
-	}
-	w.y = w.y[:frames*m]
-	w.p.Forward(w.y, w.x, frames)
-	out := make([][]float64, frames)
-	for j := range out {
-		out[j] = append([]float64(nil), w.y[j*m:(j+1)*m]...)
-	}
-	return out, nil
-}
-
-func (e *NetEstimator) get() (*netWorker, error) {
-	e.mu.Lock()
-	if n := len(e.free); n > 0 {
-		w := e.free[n-1]
-		e.free = e.free[:n-1]
-		e.mu.Unlock()
-		return w, nil
-	}
-	e.mu.Unlock()
-	f, err := net.NewFeaturizer(e.m)
-	if err != nil {
-		return nil, fmt.Errorf("learned estimator: %w", err)
-	}
-	return &netWorker{f: f, p: net.NewPredictor(e.m)}, nil
-}
-
-func (e *NetEstimator) put(w *netWorker) {
-	e.mu.Lock()
-	e.free = append(e.free, w)
-	e.mu.Unlock()
+	return infer.NewNetEstimator(m, b)
 }

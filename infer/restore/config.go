@@ -2,7 +2,6 @@ package restore
 
 import (
 	"fmt"
-	"sync"
 
 	"pdwave/infer"
 	"pdwave/model/burst"
@@ -41,27 +40,17 @@ func restoreConfig(s *site.Site, o burst.Optics, frames, patch int) (infer.Confi
 	return cfg, nil
 }
 
-// Learned is an infer.Estimator backed by a trained network (model/net). It
-// keeps a pool of featurizer/predictor pairs, one per concurrent caller, so
-// it is safe for concurrent use.
+// Learned is an infer.Estimator backed by a trained network (model/net):
+// an infer.NetEstimator whose weights were checked against the optics and
+// sizes of a fit configuration. It is safe for concurrent use.
 type Learned struct {
-	model *net.Model
-	basis *modes.Basis
-	mu    sync.Mutex
-	free  []*restoreNetWorker
-}
-
-type restoreNetWorker struct {
-	f   *net.Featurizer
-	p   *net.Predictor
-	x   []float64
-	out []float64
+	*infer.NetEstimator
 }
 
 // NewLearned wraps model m for patches of the fit configuration cfg. It
 // errors if the weights were made for other optics, another basis, mode
-// count or patch size (net.Meta.Compatible), and returns the basis the
-// coefficients refer to (built for cfg).
+// count or patch size (net.Meta.Compatible); the estimator's basis (the one
+// the coefficients refer to) is built for cfg.
 func NewLearned(m *net.Model, cfg infer.Config) (*Learned, error) {
 	want := net.Meta{Basis: string(cfg.Basis), Modes: cfg.Modes, Patch: cfg.Patch,
 		Diameter: cfg.Telescope.Diameter, Obscuration: cfg.Telescope.Obscuration,
@@ -79,11 +68,11 @@ func NewLearned(m *net.Model, cfg infer.Config) (*Learned, error) {
 	if err != nil {
 		return nil, err
 	}
-	l := &Learned{model: m, basis: fit.Basis()}
-	if _, err := l.get(); err != nil {
-		return nil, err
+	est, err := infer.NewNetEstimator(m, fit.Basis())
+	if err != nil {
+		return nil, fmt.Errorf("restore: %w", err)
 	}
-	return l, nil
+	return &Learned{est}, nil
 }
 
 // LearnedConfig adjusts cfg to the weights' basis and mode count, so that a
@@ -96,60 +85,4 @@ func LearnedConfig(m *net.Model, cfg infer.Config) infer.Config {
 		cfg.Modes = m.Arch.Modes
 	}
 	return cfg
-}
-
-func (l *Learned) get() (*restoreNetWorker, error) {
-	l.mu.Lock()
-	if n := len(l.free); n > 0 {
-		w := l.free[n-1]
-		l.free = l.free[:n-1]
-		l.mu.Unlock()
-		return w, nil
-	}
-	l.mu.Unlock()
-	f, err := net.NewFeaturizer(l.model)
-	if err != nil {
-		return nil, fmt.Errorf("restore: %w", err)
-	}
-	return &restoreNetWorker{f: f, p: net.NewPredictor(l.model)}, nil
-}
-
-func (l *Learned) put(w *restoreNetWorker) {
-	l.mu.Lock()
-	l.free = append(l.free, w)
-	l.mu.Unlock()
-}
-
-// Basis implements infer.Estimator.
-func (l *Learned) Basis() *modes.Basis { return l.basis }
-
-// Estimate implements infer.Estimator: the network's coefficients for every
-// frame (frames × modes, rad). data is data[channel][frame] with two
-// channels.
-func (l *Learned) Estimate(data [][][]float64) ([][]float64, error) {
-	if len(data) != 2 {
-		return nil, fmt.Errorf("restore: learned estimator needs 2 channels, got %d", len(data))
-	}
-	w, err := l.get()
-	if err != nil {
-		return nil, err
-	}
-	defer l.put(w)
-	frames := len(data[0])
-	if n := w.f.Len(frames); len(w.x) != n {
-		w.x = make([]float64, n)
-	}
-	if err := w.f.Burst(w.x, [2][][]float64{data[0], data[1]}); err != nil {
-		return nil, fmt.Errorf("restore: %w", err)
-	}
-	m := l.model.Arch.Modes
-	if len(w.out) != frames*m {
-		w.out = make([]float64, frames*m)
-	}
-	w.p.Forward(w.out, w.x, frames)
-	c := make([][]float64, frames)
-	for j := range c {
-		c[j] = append([]float64(nil), w.out[j*m:(j+1)*m]...)
-	}
-	return c, nil
 }
