@@ -208,6 +208,11 @@ func (f *Fitter) Basis() *modes.Basis { return f.basis }
 // Pupil returns the pupil on the patch grid.
 func (f *Fitter) Pupil() *optics.Pupil { return f.pupil }
 
+// Diversity returns the diversity phase maps of the channels (rad, N×N,
+// optics.Pupil.Defocus of each DiversityPV; nil for a channel without
+// diversity). The maps are the fitter's own: callers must not modify them.
+func (f *Fitter) Diversity() [][]float64 { return f.div }
+
 // Config returns the configuration (PriorWeight filled in).
 func (f *Fitter) Config() Config { return f.cfg }
 

@@ -136,13 +136,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 
 	// Diversity maps, a constraint-only solver and the truth.
 	pupil := fitter.Pupil()
-	div := make([][]float64, len(fc.DiversityPV))
-	for k, pv := range fc.DiversityPV {
-		if pv != 0 {
-			div[k] = make([]float64, n*n)
-			pupil.Defocus(div[k], pv)
-		}
-	}
+	div := fitter.Diversity()
 	cons := pd.NewSolver(pupil, basis, div, fc.Frames, fitter.Config().Metric)
 	constrain := func(c [][]float64) [][]float64 {
 		m := basis.Count

@@ -61,16 +61,7 @@ func NewPhysics(cfg infer.Config, m Method) (*Physics, error) {
 			}
 		}
 	}
-	pup := p.full.Pupil()
-	for _, pv := range cfg.DiversityPV {
-		if pv == 0 {
-			p.div = append(p.div, nil)
-			continue
-		}
-		d := make([]float64, cfg.Patch*cfg.Patch)
-		pup.Defocus(d, pv)
-		p.div = append(p.div, d)
-	}
+	p.div = p.full.Diversity()
 	p.sigma2 = p.full.PriorVariance()
 	p.win = pd.Window(cfg.Patch, cfg.Metric.Window)
 	for _, w := range p.win {
