@@ -161,15 +161,7 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 			}
 		}
 	})
-	b.Object = make([]float64, nx*ny)
-	var sum float64
-	for y := 0; y < ny; y++ {
-		copy(b.Object[y*nx:y*nx+nx], obj[(off+y)*mx+off:])
-	}
-	for _, v := range b.Object {
-		sum += v
-	}
-	scale := s.cfg.Camera.Photons / (sum / float64(nx*ny))
+	scale := s.setObject(b, obj, mx, off, off)
 	s.finish(b, seeds, scale, workers)
 	return res, nil
 }

@@ -330,6 +330,23 @@ func parallel(n, w int, fn func(worker, i int)) {
 	wg.Wait()
 }
 
+// setObject sets b.Object to the b.Nx×b.Ny window with first column x0 and
+// first row y0 of the object canvas obj (row length stride) and returns the
+// factor that brings the window's mean to the camera's mean photons per
+// pixel.
+func (s *Simulator) setObject(b *burst.Burst, obj []float64, stride, x0, y0 int) float64 {
+	nx, ny := b.Nx, b.Ny
+	b.Object = make([]float64, nx*ny)
+	var sum float64
+	for y := 0; y < ny; y++ {
+		copy(b.Object[y*nx:y*nx+nx], obj[(y0+y)*stride+x0:])
+	}
+	for _, v := range b.Object {
+		sum += v
+	}
+	return s.cfg.Camera.Photons / (sum / float64(nx*ny))
+}
+
 // finish turns expected images (mean ≈ 1 in object units) into camera
 // data in place: scale to photo-electrons by scale, then expose; the
 // object truth gets the same scale divided by the gain.
@@ -466,15 +483,7 @@ func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 			}
 		}
 	})
-	b.Object = make([]float64, n*n)
-	var sum float64
-	for y := 0; y < n; y++ {
-		copy(b.Object[y*n:y*n+n], obj[(c0+y)*m+c0:])
-	}
-	for _, v := range b.Object {
-		sum += v
-	}
-	scale := s.cfg.Camera.Photons / (sum / float64(n*n))
+	scale := s.setObject(b, obj, m, c0, c0)
 	s.finish(b, seeds, scale, workers)
 	b.Truth = s.Truth(phases)
 	if o.KeepPhases {
