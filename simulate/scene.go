@@ -353,67 +353,9 @@ func ReadObject(path string) (data []float64, nx, ny int, err error) {
 // imagePlane returns the first n values of img as float64, with BZERO and
 // BSCALE applied.
 func imagePlane(img fitsio.Image, n int) ([]float64, error) {
-	h := img.Header()
-	total := 1
-	for _, a := range h.Axes() {
-		total *= a
-	}
-	out := make([]float64, n)
-	var err error
-	switch h.Bitpix() {
-	case 8:
-		v := make([]byte, total)
-		err = img.Read(&v)
-		for i := range out {
-			out[i] = float64(v[i])
-		}
-	case 16:
-		v := make([]int16, total)
-		err = img.Read(&v)
-		for i := range out {
-			out[i] = float64(v[i])
-		}
-	case 32:
-		v := make([]int32, total)
-		err = img.Read(&v)
-		for i := range out {
-			out[i] = float64(v[i])
-		}
-	case 64:
-		v := make([]int64, total)
-		err = img.Read(&v)
-		for i := range out {
-			out[i] = float64(v[i])
-		}
-	case -32:
-		v := make([]float32, total)
-		err = img.Read(&v)
-		for i := range out {
-			out[i] = float64(v[i])
-		}
-	case -64:
-		v := make([]float64, total)
-		err = img.Read(&v)
-		copy(out, v)
-	default:
-		return nil, fmt.Errorf("unsupported BITPIX %d", h.Bitpix())
-	}
+	v, err := burst.ImagePixels(img)
 	if err != nil {
 		return nil, err
 	}
-	scale, zero := 1.0, 0.0
-	if c := h.Get("BSCALE"); c != nil {
-		if v, ok := burst.Number(c.Value); ok {
-			scale = v
-		}
-	}
-	if c := h.Get("BZERO"); c != nil {
-		if v, ok := burst.Number(c.Value); ok {
-			zero = v
-		}
-	}
-	for i := range out {
-		out[i] = zero + scale*out[i]
-	}
-	return out, nil
+	return v[:n], nil
 }

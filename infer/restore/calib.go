@@ -117,25 +117,14 @@ func ReadFrame(path string) (data []float64, nx, ny int, err error) {
 	if nx < 1 || ny < 1 || nz < 1 {
 		return nil, 0, 0, fmt.Errorf("reading %s: empty image %v", path, axes)
 	}
-	raw, err := restoreReadPixels(img, hdr.Bitpix())
+	raw, err := burst.ImagePixels(img)
 	if err != nil {
 		return nil, 0, 0, fmt.Errorf("reading %s: %w", path, err)
-	}
-	zero, scale := 0.0, 1.0
-	if c := hdr.Get("BZERO"); c != nil {
-		if v, ok := burst.Number(c.Value); ok {
-			zero = v
-		}
-	}
-	if c := hdr.Get("BSCALE"); c != nil {
-		if v, ok := burst.Number(c.Value); ok && v != 0 {
-			scale = v
-		}
 	}
 	data = make([]float64, nx*ny)
 	for z := 0; z < nz; z++ {
 		for i := range data {
-			v := zero + scale*raw[z*nx*ny+i]
+			v := raw[z*nx*ny+i]
 			if math.IsNaN(v) || math.IsInf(v, 0) {
 				return nil, 0, 0, fmt.Errorf("reading %s: non-finite pixel %d", path, i)
 			}
@@ -143,54 +132,4 @@ func ReadFrame(path string) (data []float64, nx, ny int, err error) {
 		}
 	}
 	return data, nx, ny, nil
-}
-
-func restoreReadPixels(img fitsio.Image, bitpix int) ([]float64, error) {
-	switch bitpix {
-	case 8:
-		var v []byte
-		if err := img.Read(&v); err != nil {
-			return nil, err
-		}
-		return restoreConv(v), nil
-	case 16:
-		var v []int16
-		if err := img.Read(&v); err != nil {
-			return nil, err
-		}
-		return restoreConv(v), nil
-	case 32:
-		var v []int32
-		if err := img.Read(&v); err != nil {
-			return nil, err
-		}
-		return restoreConv(v), nil
-	case 64:
-		var v []int64
-		if err := img.Read(&v); err != nil {
-			return nil, err
-		}
-		return restoreConv(v), nil
-	case -32:
-		var v []float32
-		if err := img.Read(&v); err != nil {
-			return nil, err
-		}
-		return restoreConv(v), nil
-	case -64:
-		var v []float64
-		if err := img.Read(&v); err != nil {
-			return nil, err
-		}
-		return v, nil
-	}
-	return nil, fmt.Errorf("unsupported BITPIX %d", bitpix)
-}
-
-func restoreConv[T byte | int16 | int32 | int64 | float32](v []T) []float64 {
-	out := make([]float64, len(v))
-	for i, x := range v {
-		out[i] = float64(x)
-	}
-	return out
 }
