@@ -210,7 +210,7 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 		msg := fmt.Sprintf("wrote %s (%s %d×%d, %d frames, r0 = %.3f m, D/r0 = %.1f)", name, kind, b.Nx, b.Ny, b.Frames, res.R0, cfg.Telescope.Diameter/res.R0)
 		if o.screens {
 			sname := filepath.Join(o.out, fmt.Sprintf("burst-%04d-screens.fits", i))
-			if err := burst.WriteFile(sname, simulateScreenHDUs(res, sim, prov)...); err != nil {
+			if err := burst.WriteFile(sname, res.ScreenHDUs(sim, prov)...); err != nil {
 				return err
 			}
 			msg += " and " + sname
@@ -218,42 +218,6 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 		fmt.Fprintln(cmd.OutOrStdout(), msg)
 	}
 	return nil
-}
-
-// simulateScreenHDUs lays out the screens file of one burst: one image per
-// layer, then the per-frame pupil wavefronts of a patch.
-func simulateScreenHDUs(res *simulate.Result, sim *simulate.Simulator, prov []burst.Card) []burst.HDU {
-	atm := res.Atmosphere
-	var hdus []burst.HDU
-	for i, s := range atm.Screens {
-		l := atm.Layers[i]
-		cards := []burst.Card{
-			{Key: "BUNIT", Value: "rad", Comment: "phase at the observing wavelength"},
-			{Key: "SCRPIX", Value: s.Dx, Comment: "screen pixel size, m"},
-			{Key: "LAYERH", Value: l.Height, Comment: "layer height, m"},
-			{Key: "LAYERW", Value: l.Weight, Comment: "share of r0^(-5/3)"},
-			{Key: "LAYERR0", Value: simulate.LayerR0(res.R0, l.Weight), Comment: "layer r0, m"},
-			{Key: "WINDV", Value: l.Speed, Comment: "wind speed, m/s"},
-			{Key: "WINDDIR", Value: l.Direction * 180 / math.Pi, Comment: "wind direction, deg from +x towards +y"},
-		}
-		if i == 0 {
-			cards = append(cards, prov...)
-		}
-		hdus = append(hdus, &burst.Image{Name: fmt.Sprintf("LAYER%d", i+1), Dims: []int{s.N, s.N}, Data: s.Data, Cards: cards})
-	}
-	if res.Phases != nil {
-		n := sim.Config().Patch
-		data := make([]float64, 0, n*n*len(res.Phases))
-		for _, p := range res.Phases {
-			data = append(data, p...)
-		}
-		hdus = append(hdus, &burst.Image{Name: "PHASE", Dims: []int{n, n, len(res.Phases)}, Data: data, Cards: []burst.Card{
-			{Key: "BUNIT", Value: "rad", Comment: "wavefront on the pupil grid per frame"},
-			{Key: "SCRPIX", Value: sim.PupilPixel(), Comment: "pupil grid pixel size, m"},
-			{Key: "PUPRAD", Value: sim.Pupil().Radius, Comment: "pupil radius, pixels; centre (N/2, N/2)"},
-		}})
-	}
-	return hdus
 }
 
 func simulateScreenRun(cmd *cobra.Command, _ []string) error {
@@ -274,43 +238,22 @@ func simulateScreenRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return err
 	}
-	cfg := simulate.ConfigFromSite(st)
-	p := simulate.ScreenParams{N: o.size, Dx: o.pixel, R0: o.r0, L0: cfg.Turbulence.L0, Subharmonics: !o.noSub}
-	if p.R0 == 0 {
-		p.R0 = cfg.Turbulence.R0
-	}
-	if p.Dx == 0 {
-		sim, err := simulate.New(cfg)
-		if err != nil {
-			return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
-		}
-		p.Dx = sim.PupilPixel()
-	}
-	if p.Subharmonics {
-		p.Levels = simulate.LevelsFor(p.N, p.Dx, p.L0)
+	p, err := simulate.ScreenParamsFor(simulate.ConfigFromSite(st), o.size, o.pixel, o.r0, !o.noSub)
+	if err != nil {
+		return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
 	}
 	s, err := simulate.NewScreen(rand.New(rand.NewPCG(o.seed, 0)), p)
 	if err != nil {
 		return fmt.Errorf("simulate screen: %w", err)
 	}
-	l0 := p.L0
-	if math.IsInf(l0, 0) || l0 < 0 {
-		l0 = 0
-	}
-	cards := []burst.Card{
-		{Key: "BUNIT", Value: "rad", Comment: "phase at the observing wavelength"},
-		{Key: "SCRPIX", Value: p.Dx, Comment: "screen pixel size, m"},
-		{Key: "SCRR0", Value: p.R0, Comment: "Fried parameter r0, m"},
-		{Key: "SCRL0", Value: l0, Comment: "outer scale L0, m (0 = Kolmogorov)"},
-		{Key: "SCRLEV", Value: p.Levels, Comment: "subharmonic levels (0 = none)"},
-	}
-	cards = append(cards, burst.Provenance(version, map[string]string{
+	prov := burst.Provenance(version, map[string]string{
 		"verb": "simulate screen", "site": o.site, "seed": strconv.FormatUint(o.seed, 10),
 		"size": strconv.Itoa(o.size),
-	})...)
-	if err := burst.WriteFile(o.out, &burst.Image{Dims: []int{p.N, p.N}, Data: s.Data, Cards: cards}); err != nil {
+	})
+	if err := burst.WriteFile(o.out, simulate.ScreenImage(s, p, prov)); err != nil {
 		return err
 	}
+	l0 := p.OuterScale()
 	fmt.Fprintf(cmd.OutOrStdout(), "wrote %s (%d×%d px of %.4g m, r0 = %.3f m, L0 = %g m, %d subharmonic levels)\n", o.out, p.N, p.N, p.Dx, p.R0, l0, p.Levels)
 	return nil
 }
