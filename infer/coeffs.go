@@ -25,9 +25,9 @@ type CoefficientTable struct {
 
 	// The CSV starts with comment lines: "# Title", then "# key: value" for
 	// every setting in key order, then "# line" for every note.
-	Title    string
-	Settings map[string]string
-	Notes    []string
+	Title    string            // first comment line, e.g. "pdwave 0.1 fit"
+	Settings map[string]string // "# key: value" lines, in key order
+	Notes    []string          // further comment lines, e.g. Result.Notes
 }
 
 // HDU returns the FITS binary table COEFFS: FRAME (1-based, integer), NATIVE

@@ -55,7 +55,7 @@ type Config struct {
 	// Metric holds the remaining metric settings; its PriorWeight is
 	// replaced by Prior.
 	Metric pd.Settings
-	Stop   Stop
+	Stop   Stop // when the optimiser stops
 	// RegisterTilt starts fits from zero with the tip/tilt of each frame
 	// measured by cross-correlating the frames of the least-defocused
 	// channel (fits from given coefficients keep theirs).

@@ -20,11 +20,11 @@ type StudyCase struct {
 // StudyRow is the result for one StudyCase over several bursts.
 type StudyRow struct {
 	StudyCase
-	Bursts     int
+	Bursts     int     // bursts fitted for this case
 	Err10      float64 // mean fraction of the wavefront variance left as error, Noll 2–10 (burst-mean tilt removed)
 	Err10SD    float64 // its standard deviation over bursts
 	Err21      float64 // the same over Noll 2–21
-	Err21SD    float64
+	Err21SD    float64 // its standard deviation over bursts
 	Err10Start float64 // the same for the starting point (registered tilts, else zero): what the fit gained
 	Seconds    float64 // mean wall time per fit, s
 	Iterations float64 // mean L-BFGS iterations

@@ -21,12 +21,12 @@ import (
 // noise. It has no anisoplanatism, no temporal correlation between frames
 // and no modes above JMax; simulate's bursts are the realistic ones.
 type Synthetic struct {
-	N, Frames   int
-	Telescope   optics.Telescope
-	DiversityPV []float64 // per channel, waves PV
-	DOverR0     float64   // at the observing wavelength
-	JMax        int       // highest Noll index in the wavefront (≥ 3)
-	Photons     float64   // mean photons per pixel; 0 = noiseless
+	N, Frames   int              // patch side (pixels) and frames per channel
+	Telescope   optics.Telescope // optics of the pupil and the sampling
+	DiversityPV []float64        // per channel, waves PV
+	DOverR0     float64          // at the observing wavelength
+	JMax        int              // highest Noll index in the wavefront (≥ 3)
+	Photons     float64          // mean photons per pixel; 0 = noiseless
 }
 
 // SyntheticBurst is one generated burst.
@@ -75,6 +75,7 @@ func (s Synthetic) Burst(rng *rand.Rand) (*SyntheticBurst, error) {
 	}
 	z := make([]float64, nm)
 	phase := make([]float64, n2*n2)
+	ph := make([]float64, n2*n2) // phase plus diversity of one channel
 	otf := make([]complex128, n2*n2)
 	img := make([]float64, n2*n2)
 	for j := 0; j < s.Frames; j++ {
@@ -92,7 +93,6 @@ func (s Synthetic) Burst(rng *rand.Rand) (*SyntheticBurst, error) {
 		b.Noll[j] = c
 		zb.Phase(phase, c)
 		for k := range s.DiversityPV {
-			ph := make([]float64, n2*n2)
 			for i := range ph {
 				ph[i] = phase[i] + divs[k][i]
 			}

@@ -90,10 +90,10 @@ type Extent struct {
 // Screen values between pixels are bilinearly interpolated. The screens
 // are read-only after NewAtmosphere: Phase is safe for concurrent use.
 type Atmosphere struct {
-	N       int     // pupil grid side, px
-	Dx      float64 // pupil grid pixel size, m
-	Layers  []Layer // normalised weights
-	Screens []*Screen
+	N       int       // pupil grid side, px
+	Dx      float64   // pupil grid pixel size, m
+	Layers  []Layer   // normalised weights
+	Screens []*Screen // one phase screen per layer, rad at the observing wavelength
 	origin  [][2]float64
 }
 

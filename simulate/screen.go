@@ -77,7 +77,7 @@ func StructureFunction(r, r0 float64) float64 {
 
 // Screen is a periodic phase screen in radians, N×N, row-major.
 type Screen struct {
-	N    int
+	N    int       // side, pixels
 	Dx   float64   // pixel size, m
 	Data []float64 // N*N, rad
 }

@@ -16,15 +16,15 @@ import (
 
 // Config is everything physical a Simulator needs, in SI units.
 type Config struct {
-	Telescope     optics.Telescope
-	DiversityPV   float64    // defocus of channel 2, peak-to-valley waves (DESIGN §3)
-	Turbulence    Turbulence // R0 is the default; Options.R0 overrides per burst
-	FrameInterval float64    // s between frames
-	Camera        Camera
-	Patch         int        // patch and pupil grid side N, px
-	Frames        int        // frames per burst
-	Basis         modes.Kind // basis of the truth coefficients
-	Modes         int        // number of modes, piston excluded
+	Telescope     optics.Telescope // pupil and sampling
+	DiversityPV   float64          // defocus of channel 2, peak-to-valley waves (DESIGN §3)
+	Turbulence    Turbulence       // R0 is the default; Options.R0 overrides per burst
+	FrameInterval float64          // s between frames
+	Camera        Camera           // photons, noise and quantisation
+	Patch         int              // patch and pupil grid side N, px
+	Frames        int              // frames per burst
+	Basis         modes.Kind       // basis of the truth coefficients
+	Modes         int              // number of modes, piston excluded
 }
 
 // Validate reports whether the configuration is usable.
@@ -60,12 +60,12 @@ type Options struct {
 	R0             float64           // Fried parameter at the observing wavelength, m; 0 = Config.Turbulence.R0
 	Scene          GranulationParams // look of the granulation; its Contrast is set at the diffraction limit (see Simulator)
 	Object         []float64         // user object map (row-major ObjectNx×ObjectNy, any positive scale); nil = granulation
-	ObjectNx       int
-	ObjectNy       int
-	NoSubharmonics bool // draw screens without subharmonics
-	KeepPhases     bool // Patch: return each frame's wavefront in Result.Phases
-	NodeSpacing    int  // Field: spacing of the PSF grid, px; 0 = Patch/2
-	Workers        int  // goroutines; 0 = GOMAXPROCS
+	ObjectNx       int               // columns of Object
+	ObjectNy       int               // rows of Object
+	NoSubharmonics bool              // draw screens without subharmonics
+	KeepPhases     bool              // Patch: return each frame's wavefront in Result.Phases
+	NodeSpacing    int               // Field: spacing of the PSF grid, px; 0 = Patch/2
+	Workers        int               // goroutines; 0 = GOMAXPROCS
 }
 
 // Result is one simulated burst with what produced it. For Field bursts,
@@ -73,11 +73,11 @@ type Options struct {
 // the pixel scale; Atmosphere.Phase at that angle and Times[f] gives the
 // wavefront there (see Simulator.TruthAt).
 type Result struct {
-	Burst      *burst.Burst
-	R0         float64     // Fried parameter used, m, at the observing wavelength
-	Atmosphere *Atmosphere // the layers (screens) used
-	Phases     [][]float64 // Patch with KeepPhases: per frame, N*N wavefront on the pupil grid, rad
-	Times      []float64   // time of each frame, s (frame f at f·FrameInterval)
+	Burst      *burst.Burst // the simulated data with truth (patches) and object
+	R0         float64      // Fried parameter used, m, at the observing wavelength
+	Atmosphere *Atmosphere  // the layers (screens) used
+	Phases     [][]float64  // Patch with KeepPhases: per frame, N*N wavefront on the pupil grid, rad
+	Times      []float64    // time of each frame, s (frame f at f·FrameInterval)
 }
 
 // Simulator makes bursts for one Config. It holds the pupil, basis and

@@ -21,9 +21,9 @@ import (
 // Figure is one rendered PNG figure of a report.
 type Figure struct {
 	Name    string // file name, e.g. "coefficients.png"
-	Title   string
+	Title   string // heading shown above it
 	Caption string // how to read it
-	PNG     []byte
+	PNG     []byte // encoded image
 }
 
 // seriesColor gives every series a fixed colour across figures.

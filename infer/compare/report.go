@@ -45,7 +45,7 @@ const (
 
 // Estimate is one method's result on one patch.
 type Estimate struct {
-	Method string `json:"method"`
+	Method string `json:"method"` // Learned, Polished, Fitted or Truth
 	// Coeffs holds frames × modes coefficients in the report basis (rad).
 	Coeffs [][]float64 `json:"coeffs"`
 	// Metric is the fit objective at Coeffs (dimensionless: the metric is
@@ -65,7 +65,7 @@ type Estimate struct {
 
 // Patch is one patch of the field with the estimates of every method.
 type Patch struct {
-	Index int `json:"index"`
+	Index int `json:"index"` // position in Report.Patches
 	// X, Y locate the patch's first pixel (column, row) in the field.
 	X int `json:"x"`
 	Y int `json:"y"`
@@ -97,12 +97,12 @@ type BasisInfo struct {
 // side-by-side figure. Images are N×N row-major; PSFs are centred (zero
 // offset at pixel (N/2, N/2)) and normalised to unit sum.
 type Example struct {
-	Patch  int         `json:"patch"`
-	Frame  int         `json:"frame"`
-	N      int         `json:"n"`
-	Series []string    `json:"series"`
-	Pupil  []float64   `json:"-"` // pupil transmission, N*N
-	Phase  [][]float64 `json:"-"` // per series, rad, N*N
+	Patch  int         `json:"patch"`  // Patch.Index of the patch shown
+	Frame  int         `json:"frame"`  // frame shown, 0-based
+	N      int         `json:"n"`      // patch side, pixels
+	Series []string    `json:"series"` // method of each Phase and PSF entry
+	Pupil  []float64   `json:"-"`      // pupil transmission, N*N
+	Phase  [][]float64 `json:"-"`      // per series, rad, N*N
 	// PSF[channel][series]: channel 0 focused, 1 defocused.
 	PSF [2][][]float64 `json:"-"`
 }
@@ -126,13 +126,13 @@ type Spectra struct {
 
 // Report is the whole comparison.
 type Report struct {
-	Version  string    `json:"version"`
-	Created  string    `json:"created"` // RFC 3339, UTC
-	Source   string    `json:"source"`
-	Settings []Setting `json:"settings"`
-	Basis    BasisInfo `json:"basis"`
-	Frames   int       `json:"frames"`
-	Modes    int       `json:"modes"`
+	Version  string    `json:"version"`  // pdwave version that made it
+	Created  string    `json:"created"`  // RFC 3339, UTC
+	Source   string    `json:"source"`   // the burst file compared
+	Settings []Setting `json:"settings"` // provenance
+	Basis    BasisInfo `json:"basis"`    // basis of every coefficient
+	Frames   int       `json:"frames"`   // frames per patch
+	Modes    int       `json:"modes"`    // coefficients per frame
 	// PatchSize is the side of the square patches, pixels.
 	PatchSize int `json:"patch_size"`
 	// FieldNx, FieldNy give the field size, pixels.
@@ -144,10 +144,10 @@ type Report struct {
 	// Notes are free remarks shown in the report (for example a missing
 	// estimator).
 	Notes   []string `json:"notes"`
-	Patches []Patch  `json:"patches"`
-	Example *Example `json:"example,omitempty"`
-	Spectra *Spectra `json:"spectra,omitempty"`
-	Summary Summary  `json:"summary"`
+	Patches []Patch  `json:"patches"`           // every patch compared
+	Example *Example `json:"example,omitempty"` // wavefront/PSF figure data; nil if none
+	Spectra *Spectra `json:"spectra,omitempty"` // power spectra; nil if none
+	Summary Summary  `json:"summary"`           // figures derived by Summarise
 }
 
 // Pair names a coefficient difference A − B.
@@ -175,17 +175,17 @@ type ModeStat struct {
 
 // Ratio is the metric ratio of one method to the fit on one patch.
 type Ratio struct {
-	Patch int     `json:"patch"`
-	X     int     `json:"x"`
-	Y     int     `json:"y"`
-	Value float64 `json:"value"`
+	Patch int     `json:"patch"` // Patch.Index
+	X     int     `json:"x"`     // patch origin (column) in the field, pixels
+	Y     int     `json:"y"`     // patch origin (row) in the field, pixels
+	Value float64 `json:"value"` // metric(method)/metric(fitted)
 }
 
 // Summary holds everything derived from the per-patch numbers.
 type Summary struct {
-	Series []string   `json:"series"`
-	Pairs  []Pair     `json:"pairs"`
-	Modes  []ModeStat `json:"modes"`
+	Series []string   `json:"series"` // methods with coefficients, in Report.Methods order
+	Pairs  []Pair     `json:"pairs"`  // coefficient differences summarised
+	Modes  []ModeStat `json:"modes"`  // one entry per mode of the report basis
 	// Ratios[m] holds metric(m)/metric(fitted) per patch for each method m
 	// in RatioMethods (every method but the fit, the truth included).
 	RatioMethods []string  `json:"ratio_methods"`

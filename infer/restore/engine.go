@@ -27,8 +27,8 @@ type Method struct {
 // classical fit configuration (telescope, patch, frames, basis, prior,
 // metric settings, stopping rule of the full fit) and the wavefront method.
 type Physics struct {
-	Config infer.Config
-	Method Method
+	Config infer.Config // the full fit's configuration
+	Method Method       // learned start and polish, or the full fit
 
 	full, polish *infer.Fitter // safe for concurrent use
 	div          [][]float64

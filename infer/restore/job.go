@@ -27,7 +27,7 @@ type Job struct {
 	// Inputs are burst files: 4-D cubes, or (with Pairs) focused/defocused
 	// 3-D files alternating.
 	Inputs []string
-	Pairs  bool
+	Pairs  bool // Inputs are focused/defocused pairs of 3-D files
 	// Out is the output FITS file for a single burst, or a directory (made
 	// if needed) for several: DIR/<input name>_restored.fits. Shard runs
 	// write partial files instead (same names with .part).
@@ -38,21 +38,21 @@ type Job struct {
 	// ModelOptional marks built-in weights: if they do not fit the data,
 	// the classical fit is used (with a note on Log) instead of an error.
 	ModelOptional bool
-	Patch         int     // 0 = site (or 64)
-	Overlap       int     // < 0 = patch/4
-	Polish        int     // classical iterations after the learned estimate
-	Fit           bool    // full classical fit instead of the learned estimate
-	Dark          string  // dark frame FITS; "" = none
-	Flat          string  // flat frame FITS; "" = none
-	NoAlign       bool    // measure but do not remove the channel offset
-	Offset        *Offset // known channel offset (pixels) instead of measuring; nil = measure
-	Shard         Shard
-	Resume        bool
-	Workers       int
+	Patch         int       // 0 = site (or 64)
+	Overlap       int       // < 0 = patch/4
+	Polish        int       // classical iterations after the learned estimate
+	Fit           bool      // full classical fit instead of the learned estimate
+	Dark          string    // dark frame FITS; "" = none
+	Flat          string    // flat frame FITS; "" = none
+	NoAlign       bool      // measure but do not remove the channel offset
+	Offset        *Offset   // known channel offset (pixels) instead of measuring; nil = measure
+	Shard         Shard     // share of the patches to restore; zero = all
+	Resume        bool      // continue from the journal next to Out
+	Workers       int       // goroutines; 0 = all cores
 	Progress      io.Writer // progress lines; nil = silent
 	Log           io.Writer // one-line reports (offset, timing); nil = silent
-	Version       string
-	Command       string
+	Version       string    // program version for the provenance cards
+	Command       string    // command line for the provenance cards
 }
 
 // Run restores every burst of the job in turn.

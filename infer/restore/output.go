@@ -19,17 +19,17 @@ import (
 // Product is a finished restoration: the blended field and the per-patch
 // results (tiles dropped) in id order.
 type Product struct {
-	Meta    *Meta
-	Image   []float64 // Nx·Ny restored field
-	Patches []PatchResult
+	Meta    *Meta         // sizes, settings and header cards of the restoration
+	Image   []float64     // Nx·Ny restored field
+	Patches []PatchResult // per-patch results without tiles, in id order
 }
 
 // Collector is the Sink of a full (unsharded) restoration: it blends tiles
 // into a Mosaic in the order it receives them and keeps the per-patch
 // results without their tiles.
 type Collector struct {
-	Mosaic  *Mosaic
-	Patches []PatchResult
+	Mosaic  *Mosaic       // the blended field so far
+	Patches []PatchResult // results received so far, tiles dropped
 }
 
 // NewCollector returns an empty collector for grid g.
@@ -232,16 +232,16 @@ func (p *Product) writeCSV(w io.Writer) error {
 
 // Summary is the JSON summary of a restoration.
 type Summary struct {
-	Nx, Ny, Frames, Patch, Overlap, Patches int
-	Basis, Estimator                        string
-	Modes                                   int
-	ShiftX, ShiftY                          float64
-	Inputs                                  []string
-	Settings                                map[string]string
-	Flagged                                 map[string]int // patches per flag name
-	MedianContrast, MedianRawContrast       float64
-	MedianMetricRatio, MedianCoeffRMS       float64
-	MedianRinging                           float64
+	Nx, Ny, Frames, Patch, Overlap, Patches int               // field size, frames, patch side and overlap (pixels), patch count
+	Basis, Estimator                        string            // as in Meta
+	Modes                                   int               // coefficients per frame
+	ShiftX, ShiftY                          float64           // defocused channel offset removed, pixels
+	Inputs                                  []string          // input file names
+	Settings                                map[string]string // provenance settings
+	Flagged                                 map[string]int    // patches per flag name
+	MedianContrast, MedianRawContrast       float64           // median rms/mean contrast over patches, restored and raw (−1 if none)
+	MedianMetricRatio, MedianCoeffRMS       float64           // median PatchResult.MetricRatio and CoeffRMS (−1 if none)
+	MedianRinging                           float64           // median PatchResult.Ringing (−1 if none)
 }
 
 // Summary computes the summary figures.

@@ -16,13 +16,13 @@ import (
 // the patches. It travels in partial files, so a merge writes the same output
 // as a single run.
 type Meta struct {
-	Key              string // identity of inputs and settings (see Options.Key)
-	Nx, Ny, Frames   int
-	Patch, Overlap   int
-	Basis            string // native basis of the coefficients ("kl", "zernike", "" if none)
-	Modes            int    // coefficients per frame
-	Estimator        string // how the coefficients were obtained
-	ShiftX, ShiftY   float64
+	Key              string            // identity of inputs and settings (see Options.Key)
+	Nx, Ny, Frames   int               // field size, pixels, and frames per channel
+	Patch, Overlap   int               // patch side and overlap, pixels
+	Basis            string            // native basis of the coefficients ("kl", "zernike", "" if none)
+	Modes            int               // coefficients per frame
+	Estimator        string            // how the coefficients were obtained
+	ShiftX, ShiftY   float64           // defocused channel offset removed, pixels
 	Cards            []burst.Card      // header cards of the input to carry over
 	Settings         map[string]string // provenance settings
 	Mean             []float64         // burst-mean focused calibrated image, Nx·Ny

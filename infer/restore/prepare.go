@@ -10,7 +10,7 @@ import (
 
 // Offset is the measured translation of the defocused channel relative to
 // the focused one, in pixels: defocused(x, y) ≈ focused(x−DX, y−DY).
-type Offset struct{ DX, DY float64 }
+type Offset struct{ DX, DY float64 } // pixels along x and y
 
 // Prepare turns a burst into a restorable Field: it calibrates every frame
 // of b in place with cal (nil = none), takes the offset of the defocused

@@ -13,7 +13,7 @@ import (
 
 // Field is a calibrated, co-registered burst over the whole field of view.
 type Field struct {
-	Nx, Ny, Frames int
+	Nx, Ny, Frames int // field size, pixels, and frames per channel
 	// Data[channel][frame] is an Nx·Ny row-major image; channel 0 focused,
 	// channel 1 defocused. Run only reads it.
 	Data [2][][]float64
@@ -71,7 +71,7 @@ const (
 
 // PatchResult is the outcome for one patch.
 type PatchResult struct {
-	ID     int
+	ID     int       // patch id in Grid order
 	X0, Y0 int       // patch origin in the field, pixels
 	Tile   []float64 // Patch² restored intensities (same units as the focused frames), before blending
 	// Coeffs holds the wavefront coefficients in the native basis, frame-major
@@ -104,18 +104,18 @@ type Engine interface {
 
 // Options controls Run.
 type Options struct {
-	Patch, Overlap int
+	Patch, Overlap int // patch side and overlap of neighbours, pixels
 	// Workers is the number of goroutines, each with its own Engine; 0 means
 	// runtime.NumCPU().
 	Workers int
 	// NewEngine makes one Engine per worker.
 	NewEngine func() (Engine, error)
-	Shard     Shard
+	Shard     Shard // share of the patches to process; zero = all
 	// Journal is a directory where finished patches are recorded in batches
 	// (each batch file written atomically); "" disables it. With Resume, the
 	// patches recorded there are replayed instead of recomputed.
 	Journal string
-	Resume  bool
+	Resume  bool // replay the patches recorded in Journal
 	// Key identifies the inputs and settings; a journal written under another
 	// key is refused.
 	Key string
@@ -434,7 +434,7 @@ func restoreRinging(t []float64, n, band int) float64 {
 // Mosaic accumulates blended tiles into a field. Add the tiles in a fixed
 // order (Run's sinks see increasing ids) for bit-identical results.
 type Mosaic struct {
-	Grid        *Grid
+	Grid        *Grid     // patch layout and blending weights
 	Sum, Weight []float64 // Nx·Ny accumulators
 	w           []float64
 }

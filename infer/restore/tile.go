@@ -132,7 +132,7 @@ func (g *Grid) Weight(dst []float64, id int) {
 // the contiguous id range [Index·P/Count, (Index+1)·P/Count) of P patches.
 // The zero value (Count 0) and Count 1 both mean all patches.
 type Shard struct {
-	Index, Count int
+	Index, Count int // 0 ≤ Index < Count
 }
 
 // Range returns the half-open id range [lo, hi) of the shard among total

@@ -29,8 +29,8 @@ type Image struct {
 // (EXTNAME). Every column has the same number of rows.
 type Table struct {
 	Name    string
-	Columns []Column
-	Cards   []Card
+	Columns []Column // in table order
+	Cards   []Card   // added after the structural keywords
 }
 
 // Column is one table column; exactly one of Float, Int, Text is non-nil.

@@ -43,10 +43,10 @@ import (
 // Site is a parsed and validated site file. Field values are in the units
 // of the YAML file; the methods convert to SI.
 type Site struct {
-	Tel    TelescopeSpec `yaml:"telescope"`
-	Seeing Seeing        `yaml:"seeing"`
-	Camera Camera        `yaml:"camera"`
-	Sizes  Sizes         `yaml:"sizes"`
+	Tel    TelescopeSpec `yaml:"telescope"` // optics
+	Seeing Seeing        `yaml:"seeing"`    // r0 distribution, outer scale, layers
+	Camera Camera        `yaml:"camera"`    // frame rate, photons, noise
+	Sizes  Sizes         `yaml:"sizes"`     // patch, frames, modes, basis
 }
 
 // TelescopeSpec is the "telescope" section.
