@@ -1,0 +1,11 @@
+//go:build !amd64 || purego
+
+package net
+
+// useVec is false where no vector kernel exists; convTileVec only satisfies
+// the compiler and is never called.
+var useVec = false
+
+func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bias *[4]float64, relu bool) {
+	panic("net: internal error: vector kernel called without vector support")
+}
