@@ -1,8 +1,6 @@
 package infer
 
 import (
-	"bufio"
-	"errors"
 	"fmt"
 	"io"
 	"maps"
@@ -89,7 +87,7 @@ func (t *CoefficientTable) WriteCSV(path string) error {
 		}
 		b.WriteByte('\n')
 	}
-	if err := writeAtomic(path, func(w io.Writer) error {
+	if err := burst.WriteAtomic(path, func(w io.Writer) error {
 		_, err := io.WriteString(w, b.String())
 		return err
 	}); err != nil {
@@ -132,31 +130,4 @@ func (r *Result) Notes() []string {
 		fmt.Sprintf("iterations: %d", r.Iterations),
 		fmt.Sprintf("seconds: %.3f", r.Elapsed.Seconds()),
 	}
-}
-
-// writeAtomic calls write on a buffered temporary file in path's folder,
-// then flushes, syncs, closes and renames it to path; on any error the
-// temporary file is removed and path is left as it was.
-func writeAtomic(path string, write func(io.Writer) error) (err error) {
-	f, err := os.CreateTemp(filepath.Dir(path), filepath.Base(path)+".tmp-*")
-	if err != nil {
-		return err
-	}
-	defer func() {
-		if err != nil {
-			os.Remove(f.Name())
-		}
-	}()
-	w := bufio.NewWriter(f)
-	werr := write(w)
-	if werr == nil {
-		werr = w.Flush()
-	}
-	if werr == nil {
-		werr = f.Sync()
-	}
-	if err := errors.Join(werr, f.Close()); err != nil {
-		return err
-	}
-	return os.Rename(f.Name(), path)
 }

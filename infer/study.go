@@ -7,6 +7,8 @@ import (
 	"math"
 	"math/rand/v2"
 	"strconv"
+
+	"pdwave/model/burst"
 )
 
 // StudyCase is one point of the accuracy study.
@@ -178,7 +180,7 @@ func WriteStudyCSV(w io.Writer, rows []StudyRow) error {
 // temporary file in the same folder that is renamed into place (no partial
 // file on error). Errors name the path.
 func WriteStudyFile(path string, rows []StudyRow) error {
-	if err := writeAtomic(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
+	if err := burst.WriteAtomic(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
 		return fmt.Errorf("writing %s: %w", path, err)
 	}
 	return nil

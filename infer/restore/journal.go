@@ -10,6 +10,8 @@ import (
 	"path/filepath"
 	"sort"
 	"strings"
+
+	"pdwave/model/burst"
 )
 
 // The journal is a sidecar directory holding
@@ -143,38 +145,11 @@ func (j *restoreJournal) flush() error {
 	return nil
 }
 
-// restoreWriteAtomic writes path through fn into a temporary file in the
-// same directory, syncs it and renames it into place.
-func restoreWriteAtomic(path string, fn func(io.Writer) error) (err error) {
-	dir, base := filepath.Split(path)
-	if dir == "" {
-		dir = "."
-	}
-	f, err := os.CreateTemp(dir, "."+base+".tmp*")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	tmp := f.Name()
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(tmp)
-		}
-	}()
-	bw := bufio.NewWriterSize(f, 1<<20)
-	if err = fn(bw); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err = bw.Flush(); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err = f.Sync(); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err = f.Close(); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err = os.Rename(tmp, path); err != nil {
+// restoreWriteAtomic writes path through fn with burst.WriteAtomic (a
+// temporary file in the same directory, synced and renamed into place) and
+// names the path in errors.
+func restoreWriteAtomic(path string, fn func(io.Writer) error) error {
+	if err := burst.WriteAtomic(path, fn); err != nil {
 		return fmt.Errorf("writing %s: %w", path, err)
 	}
 	return nil

@@ -4,9 +4,8 @@ import (
 	"bufio"
 	"encoding/binary"
 	"fmt"
+	"io"
 	"math"
-	"os"
-	"path/filepath"
 	"regexp"
 	"strconv"
 	"strings"
@@ -489,59 +488,28 @@ func encodeTable(t *Table) (dataUnit, error) {
 	}}, nil
 }
 
-// writeAtomic writes the units to path through a temporary file in the
-// same directory ("<path>.tmp-XXXX"), synced and renamed over path; the
-// temporary file is removed on any error, so path is either the old file
-// or the complete new one.
-func writeAtomic(path string, units []dataUnit) (err error) {
-	dir, base := filepath.Split(path)
-	if dir == "" {
-		dir = "."
-	}
-	f, err := os.CreateTemp(dir, base+".tmp-*")
-	if err != nil {
-		return err
-	}
-	tmp := f.Name()
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(tmp)
+// writeAtomic writes the units to path with WriteAtomic: path is either the
+// old file or the complete new one.
+func writeAtomic(path string, units []dataUnit) error {
+	return WriteAtomic(path, func(iw io.Writer) error {
+		w, ok := iw.(*bufio.Writer) // WriteAtomic passes a buffered writer
+		if !ok {
+			w = bufio.NewWriter(iw)
 		}
-	}()
-	w := bufio.NewWriterSize(f, 1<<16)
-	zeros := make([]byte, blockSize)
-	for _, u := range units {
-		if _, err = w.Write(u.hdr); err != nil {
-			return err
-		}
-		if err = u.put(w); err != nil {
-			return err
-		}
-		if p := roundBlock(u.size) - u.size; p > 0 {
-			if _, err = w.Write(zeros[:p]); err != nil {
+		zeros := make([]byte, blockSize)
+		for _, u := range units {
+			if _, err := w.Write(u.hdr); err != nil {
 				return err
 			}
+			if err := u.put(w); err != nil {
+				return err
+			}
+			if p := roundBlock(u.size) - u.size; p > 0 {
+				if _, err := w.Write(zeros[:p]); err != nil {
+					return err
+				}
+			}
 		}
-	}
-	if err = w.Flush(); err != nil {
-		return err
-	}
-	if err = f.Chmod(0o644); err != nil {
-		return err
-	}
-	if err = f.Sync(); err != nil {
-		return err
-	}
-	if err = f.Close(); err != nil {
-		return err
-	}
-	if err = os.Rename(tmp, path); err != nil {
-		return err
-	}
-	if d, e := os.Open(dir); e == nil {
-		d.Sync() // best effort: make the rename durable
-		d.Close()
-	}
-	return nil
+		return w.Flush()
+	})
 }
