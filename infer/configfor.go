@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"strconv"
 	"strings"
 
 	"pdwave/model/burst"
@@ -88,4 +89,31 @@ func ConfigFor(s *site.Site, o burst.Optics, frames int, ov Overrides) (Config, 
 		cfg.DOverR0 = ov.DOverR0
 	}
 	return cfg, nil
+}
+
+// Settings describes the configuration for provenance (FITS HISTORY cards
+// via burst.Provenance, "# key: value" lines of a coefficient CSV): basis,
+// modes, frames, iterations, prior, d_over_r0, diversity (waves PV of the
+// second channel), wavelength (nm), pixel_scale (arcsec), diameter (m) and
+// obscuration, as text with units. The caller adds its own keys (command,
+// input files, patch position).
+func (c Config) Settings() map[string]string {
+	div := 0.0
+	if len(c.DiversityPV) > 1 {
+		div = c.DiversityPV[1]
+	}
+	g6 := func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
+	return map[string]string{
+		"basis":       string(c.Basis),
+		"modes":       strconv.Itoa(c.Modes),
+		"frames":      strconv.Itoa(c.Frames),
+		"iterations":  strconv.Itoa(c.Stop.Iterations),
+		"prior":       strconv.FormatFloat(c.Prior, 'g', -1, 64),
+		"d_over_r0":   g6(c.DOverR0),
+		"diversity":   g6(div) + " waves PV",
+		"wavelength":  g6(c.Telescope.Wavelength*1e9) + " nm",
+		"pixel_scale": g6(c.Telescope.PixelScale*206264.806) + " arcsec",
+		"diameter":    g6(c.Telescope.Diameter) + " m",
+		"obscuration": g6(c.Telescope.Obscuration),
+	}
 }

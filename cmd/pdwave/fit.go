@@ -6,7 +6,6 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
-	"strconv"
 	"strings"
 	"time"
 
@@ -182,23 +181,11 @@ func fitRun(cmd *cobra.Command, args []string) error {
 		b.Frames, cfg.Modes, cfg.Basis, res.Iterations, res.Elapsed.Round(time.Millisecond),
 		res.MetricStart, res.MetricEnd, res.Status)
 
-	settings := map[string]string{
-		"command":     "fit",
-		"burst":       filepath.Base(args[0]),
-		"site":        filepath.Base(o.site),
-		"basis":       string(cfg.Basis),
-		"modes":       strconv.Itoa(cfg.Modes),
-		"patch":       fmt.Sprintf("%d px at (%d, %d) of %d×%d", n, x0, y0, b.Nx, b.Ny),
-		"frames":      strconv.Itoa(cfg.Frames),
-		"iterations":  strconv.Itoa(cfg.Stop.Iterations),
-		"prior":       strconv.FormatFloat(cfg.Prior, 'g', -1, 64),
-		"d_over_r0":   strconv.FormatFloat(cfg.DOverR0, 'g', 6, 64),
-		"diversity":   strconv.FormatFloat(cfg.DiversityPV[1], 'g', 6, 64) + " waves PV",
-		"wavelength":  strconv.FormatFloat(cfg.Telescope.Wavelength*1e9, 'g', 6, 64) + " nm",
-		"pixel_scale": strconv.FormatFloat(cfg.Telescope.PixelScale*206264.806, 'g', 6, 64) + " arcsec",
-		"diameter":    strconv.FormatFloat(cfg.Telescope.Diameter, 'g', 6, 64) + " m",
-		"obscuration": strconv.FormatFloat(cfg.Telescope.Obscuration, 'g', 6, 64),
-	}
+	settings := cfg.Settings()
+	settings["command"] = "fit"
+	settings["burst"] = filepath.Base(args[0])
+	settings["site"] = filepath.Base(o.site)
+	settings["patch"] = fmt.Sprintf("%d px at (%d, %d) of %d×%d", n, x0, y0, b.Nx, b.Ny)
 	cards := burst.Provenance(version, settings)
 	cards = append(cards,
 		burst.Card{Key: "FITBASIS", Value: string(cfg.Basis), Comment: "modal basis of the coefficients"},
