@@ -46,17 +46,15 @@ type Featurizer struct {
 	cutoff       float64
 	plan         *fft.Plan
 	window       []float64
-	zs           [][]complex128 // per frame Z spectrum (see transform)
-	mean         []complex128   // burst mean of the focused spectra
-	meanZ        []complex128   // burst mean of Z
-	p1, p2, pm   []float64
-	cr, ci       []float64
-	tr, ti       []float64
-	inside       []bool  // per output block: centre inside the cut-off
-	outside      []int   // spectrum indices beyond 1.05 r_c, for the noise floor
-	block        []int32 // per spectrum index: output block of the centred spectrum
-	mirror       []int32 // per spectrum index: index of −u
-	colBlock     []int32 // per image column: output column
+	z            []complex128 // Z spectrum of the current frame (see transform)
+	mean         []complex128 // burst mean M of the focused spectra
+	sum          []float64    // pixel sum of the focused images, then its windowed deviation
+	fsum         [2][]float64 // per channel and frame: pixel sum
+	pm           []float64    // per output block: Σ|M|²
+	in           []int32      // output blocks whose centre is inside the cut-off
+	outside      []int        // spectrum indices beyond 1.05 r_c, for the noise floor
+	unshift      []int32      // centred index c → spectrum index (c − n/2) mod n
+	neg          []int32      // spectrum index k → index of −k, (n − k) mod n
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -70,37 +68,25 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 	f := &Featurizer{n: n, size: size, bin: n / size, cutoff: m.Meta.CutoffRadius()}
 	f.plan = fft.NewPlan(n, n)
 	f.window = EdgeWindow(n, n/8)
+	f.z = make([]complex128, n*n)
 	f.mean = make([]complex128, n*n)
-	f.meanZ = make([]complex128, n*n)
-	f.block = make([]int32, n*n)
-	f.mirror = make([]int32, n*n)
-	f.colBlock = make([]int32, n)
-	for x := range f.colBlock {
-		f.colBlock[x] = int32(x / f.bin)
-	}
-	for ky := 0; ky < n; ky++ {
-		cy := (ky + n/2) % n
-		for kx := 0; kx < n; kx++ {
-			cx := (kx + n/2) % n
-			f.block[ky*n+kx] = int32((cy/f.bin)*size + cx/f.bin)
-			f.mirror[ky*n+kx] = int32(((n-ky)%n)*n + (n-kx)%n)
-		}
-	}
+	f.sum = make([]float64, n*n)
 	f.pm = make([]float64, size*size)
-	f.tr = make([]float64, size*size)
-	f.ti = make([]float64, size*size)
-	f.p1 = make([]float64, size*size)
-	f.p2 = make([]float64, size*size)
-	f.cr = make([]float64, size*size)
-	f.ci = make([]float64, size*size)
-	f.inside = make([]bool, size*size)
+	f.unshift = make([]int32, n)
+	f.neg = make([]int32, n)
+	for k := 0; k < n; k++ {
+		f.unshift[(k+n/2)%n] = int32(k)
+		f.neg[k] = int32((n - k) % n)
+	}
 	c := float64(n / 2)
 	for by := 0; by < size; by++ {
 		for bx := 0; bx < size; bx++ {
 			// Block centre in centred frequency pixels.
 			y := (float64(by)+0.5)*float64(f.bin) - 0.5 - c
 			x := (float64(bx)+0.5)*float64(f.bin) - 0.5 - c
-			f.inside[by*size+bx] = math.Hypot(x, y) <= f.cutoff
+			if math.Hypot(x, y) <= f.cutoff {
+				f.in = append(f.in, int32(by*size+bx))
+			}
 		}
 	}
 	for ky := 0; ky < n; ky++ {
@@ -149,10 +135,11 @@ func EdgeWindow(n, edge int) []float64 {
 // Len returns the feature length of a burst of the given frame count.
 func (f *Featurizer) Len(frames int) int { return frames * FeatureChannels * f.size * f.size }
 
-// Burst writes the features of one burst into dst (frames × 5 × Size × Size,
-// frame-major). data[channel][frame] are the N×N images, channel 0 focused,
-// 1 defocused, as in burst.Burst.Data. It returns an error if the sizes do not
-// match or the focused images are constant or not finite.
+// Burst writes the features of one burst into dst (frames × FeatureChannels
+// × Size × Size, frame-major). data[channel][frame] are the N×N images,
+// channel 0 focused, 1 defocused, as in burst.Burst.Data. It returns an error
+// if the sizes do not match or the focused images are constant or not
+// finite. After the first call for a frame count it allocates nothing.
 func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	frames := len(data[0])
 	if frames < 1 || len(data[1]) != frames {
@@ -162,70 +149,145 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 		return fmt.Errorf("net: feature buffer has length %d, want %d", len(dst), f.Len(frames))
 	}
 	n, s := f.n, f.size
-	var mean [2]float64
 	for c := 0; c < 2; c++ {
 		for j, im := range data[c] {
 			if len(im) != n*n {
 				return fmt.Errorf("net: channel %d frame %d has %d pixels, want %d×%d", c+1, j+1, len(im), n, n)
 			}
-			for _, v := range im {
-				mean[c] += v
-			}
 		}
-		mean[c] /= float64(frames * n * n)
+		if cap(f.fsum[c]) < frames {
+			f.fsum[c] = make([]float64, frames)
+		}
+		f.fsum[c] = f.fsum[c][:frames]
 	}
+	// Frame sums; the focused images are also summed pixel by pixel for the
+	// burst mean spectrum.
+	clear(f.sum)
+	var mean [2]float64
+	for j := 0; j < frames; j++ {
+		f.fsum[0][j] = sumAdd(f.sum, data[0][j])
+		f.fsum[1][j] = sum(data[1][j])
+		mean[0] += f.fsum[0][j]
+		mean[1] += f.fsum[1][j]
+	}
+	npix := float64(n * n)
+	mean[0] /= float64(frames) * npix
+	mean[1] /= float64(frames) * npix
 	ss := 0.0
 	for _, im := range data[0] {
-		for _, v := range im {
-			d := v - mean[0]
-			ss += d * d
-		}
+		ss += sumSq(im, mean[0])
 	}
-	sd := math.Sqrt(ss / float64(frames*n*n))
+	sd := math.Sqrt(ss / (float64(frames) * npix))
 	if !(sd > 0) || math.IsInf(sd, 0) || math.IsNaN(mean[1]) || math.IsInf(mean[1], 0) {
 		return fmt.Errorf("net: focused images have standard deviation %g; need finite, varying data", sd)
 	}
+	// The transform is linear: M = F{w·Σ_j (d1_j − mean d1_j)}/frames.
+	m1 := 0.0
+	for _, v := range f.fsum[0] {
+		m1 += v
+	}
+	m1 /= npix
+	invF := 1 / float64(frames)
+	for i, w := range f.window {
+		f.sum[i] = w * (f.sum[i] - m1) * invF
+	}
+	f.plan.ForwardReal(f.mean, f.sum)
+	f.blockPower()
 	plane := s * s
 	inv := 1 / (sd * float64(f.bin*f.bin))
-	for len(f.zs) < frames {
-		f.zs = append(f.zs, make([]complex128, n*n))
-	}
-	clear(f.meanZ)
-	for j := 0; j < frames; j++ {
-		z := f.zs[j]
-		f.transform(z, data[0][j], data[1][j])
-		for i, v := range z {
-			f.meanZ[i] += v
-		}
-	}
-	// The split is linear: the mean of D1 is the split of the mean of Z.
-	invF := 1 / float64(frames)
-	for i, v := range f.meanZ {
-		d1, _ := split(v, f.meanZ[f.mirror[i]])
-		f.mean[i] = complex(real(d1)*invF, imag(d1)*invF)
-	}
 	for j := 0; j < frames; j++ {
 		out := dst[j*FeatureChannels*plane : (j+1)*FeatureChannels*plane]
 		for c := 0; c < 2; c++ {
 			f.binImage(out[c*plane:(c+1)*plane], data[c][j], mean[c], inv)
 		}
-		f.spectral(out[2*plane:7*plane], f.zs[j], f.mean)
+		f.transform(data[0][j], data[1][j], f.fsum[0][j]/npix, f.fsum[1][j]/npix)
+		f.spectral(out[2*plane : 7*plane])
 	}
 	return nil
+}
+
+// sum returns Σ x (four partial sums).
+func sum(x []float64) float64 {
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(x); i += 4 {
+		v := (*[4]float64)(x[i : i+4])
+		s0 += v[0]
+		s1 += v[1]
+		s2 += v[2]
+		s3 += v[3]
+	}
+	for ; i < len(x); i++ {
+		s0 += x[i]
+	}
+	return (s0 + s1) + (s2 + s3)
+}
+
+// sumAdd returns Σ x and adds x to acc (len(acc) == len(x)).
+func sumAdd(acc, x []float64) float64 {
+	acc = acc[:len(x)]
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(x); i += 4 {
+		v := (*[4]float64)(x[i : i+4])
+		a := (*[4]float64)(acc[i : i+4])
+		s0 += v[0]
+		s1 += v[1]
+		s2 += v[2]
+		s3 += v[3]
+		a[0] += v[0]
+		a[1] += v[1]
+		a[2] += v[2]
+		a[3] += v[3]
+	}
+	for ; i < len(x); i++ {
+		s0 += x[i]
+		acc[i] += x[i]
+	}
+	return (s0 + s1) + (s2 + s3)
+}
+
+// sumSq returns Σ (x − m)² (four partial sums).
+func sumSq(x []float64, m float64) float64 {
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(x); i += 4 {
+		v := (*[4]float64)(x[i : i+4])
+		d0, d1, d2, d3 := v[0]-m, v[1]-m, v[2]-m, v[3]-m
+		s0 += d0 * d0
+		s1 += d1 * d1
+		s2 += d2 * d2
+		s3 += d3 * d3
+	}
+	for ; i < len(x); i++ {
+		d := x[i] - m
+		s0 += d * d
+	}
+	return (s0 + s1) + (s2 + s3)
 }
 
 // binImage writes (block sum of (d − m))·inv.
 func (f *Featurizer) binImage(dst, im []float64, m, inv float64) {
 	n, s, b := f.n, f.size, f.bin
-	for i := range dst {
-		dst[i] = 0
+	if b == 2 {
+		for by := 0; by < s; by++ {
+			r0 := im[2*by*n : 2*by*n+n]
+			r1 := im[(2*by+1)*n : (2*by+1)*n+n]
+			row := dst[by*s : by*s+s]
+			for bx := range row {
+				v0 := (*[2]float64)(r0[2*bx : 2*bx+2])
+				v1 := (*[2]float64)(r1[2*bx : 2*bx+2])
+				row[bx] = ((v0[0] - m) + (v0[1] - m) + (v1[0] - m) + (v1[1] - m)) * inv
+			}
+		}
+		return
 	}
-	cb := f.colBlock
+	clear(dst)
 	for y := 0; y < n; y++ {
 		row := dst[(y/b)*s : (y/b+1)*s]
 		src := im[y*n : (y+1)*n]
 		for x, v := range src {
-			row[cb[x]] += v - m
+			row[x/b] += v - m
 		}
 	}
 	for i := range dst {
@@ -233,61 +295,47 @@ func (f *Featurizer) binImage(dst, im []float64, m, inv float64) {
 	}
 }
 
-// transform computes Z = F{w·(d1 − mean d1) + i w·(d2 − mean d2)} into z.
-// Both real images go through one complex FFT: D1(u) = (Z(u) + Z*(−u))/2 and
-// D2(u) = (Z(u) − Z*(−u))/(2i).
-func (f *Featurizer) transform(z []complex128, d1, d2 []float64) {
-	n := f.n
-	var m1, m2 float64
-	for i := range d1 {
-		m1 += d1[i]
-		m2 += d2[i]
-	}
-	m1 /= float64(n * n)
-	m2 /= float64(n * n)
-	for i, w := range f.window {
+// transform computes Z = F{w·(d1 − m1) + i w·(d2 − m2)} into f.z, m1 and m2
+// the frame means. Both real images go through one complex FFT:
+// D1(u) = (Z(u) + Z*(−u))/2 and D2(u) = (Z(u) − Z*(−u))/(2i).
+func (f *Featurizer) transform(d1, d2 []float64, m1, m2 float64) {
+	z := f.z
+	d1, d2 = d1[:len(z)], d2[:len(z)]
+	for i, w := range f.window[:len(z)] {
 		z[i] = complex(w*(d1[i]-m1), w*(d2[i]-m2))
 	}
 	f.plan.Forward(z, z)
 }
 
-// split returns D1(u) and D2(u) from Z at index k and its mirror km (−u).
-func split(z, zm complex128) (d1, d2 complex128) {
-	zr, zi := real(z), imag(z)
-	wr, wi := real(zm), -imag(zm) // conj Z(−u)
-	d1 = complex(0.5*(zr+wr), 0.5*(zi+wi))
-	// (Z − conj Z(−u))/(2i): (p + iq)/(2i) = (q − ip)/2
-	d2 = complex(0.5*(zi-wi), -0.5*(zr-wr))
-	return d1, d2
+// blockPower sets f.pm to the block sums of |M|² over the inside blocks.
+func (f *Featurizer) blockPower() {
+	n, s, b := f.n, f.size, f.bin
+	for _, k := range f.in {
+		by, bx := int(k)/s, int(k)%s
+		p := 0.0
+		for dy := 0; dy < b; dy++ {
+			row := f.mean[int(f.unshift[by*b+dy])*n:][:n]
+			for dx := 0; dx < b; dx++ {
+				m := row[f.unshift[bx*b+dx]]
+				p += real(m)*real(m) + imag(m)*imag(m)
+			}
+		}
+		f.pm[k] = p
+	}
 }
 
 // spectral writes the five ratio channels of one frame from its Z spectrum
-// and the burst mean M of the focused spectra.
-func (f *Featurizer) spectral(dst []float64, z, mean []complex128) {
-	s, b := f.size, f.bin
-	for i := 0; i < s*s; i++ {
-		f.p1[i], f.p2[i], f.cr[i], f.ci[i], f.pm[i], f.tr[i], f.ti[i] = 0, 0, 0, 0, 0, 0, 0
-	}
-	mean = mean[:len(z)]
-	mirror, block := f.mirror[:len(z)], f.block[:len(z)]
-	for i, zi := range z {
-		{
-			d1, d2 := split(zi, z[mirror[i]])
-			ar, ai := real(d1), imag(d1)
-			br, bi := real(d2), imag(d2)
-			m := mean[i]
-			mr, mi := real(m), imag(m)
-			k := block[i]
-			f.p1[k] += ar*ar + ai*ai
-			f.p2[k] += br*br + bi*bi
-			// D1 D2* = (ar + i ai)(br − i bi)
-			f.cr[k] += ar*br + ai*bi
-			f.ci[k] += ai*br - ar*bi
-			f.pm[k] += mr*mr + mi*mi
-			f.tr[k] += ar*mr + ai*mi
-			f.ti[k] += ai*mr - ar*mi
-		}
-	}
+// (f.z) and the burst mean M of the focused spectra. With Z₋ = Z(−u),
+// S = Z + Z₋* = 2 D1 and the relations of transform,
+//
+//	|D1|² − |D2|² = Re(Z Z₋),  2 D1 D2* = Im(Z Z₋) + i(|Z|² − |Z₋|²)/2,
+//	|D1|² + |D2|² = (|Z|² + |Z₋|²)/2,  2 D1 M* = S M*,
+//
+// so the block sums need no per-frequency split. Only blocks inside the
+// cut-off are summed; the others are zero.
+func (f *Featurizer) spectral(dst []float64) {
+	n, s, b := f.n, f.size, f.bin
+	z, mean := f.z, f.mean[:len(f.z)]
 	noise := 0.0
 	if f.outside != nil {
 		for _, i := range f.outside {
@@ -298,19 +346,39 @@ func (f *Featurizer) spectral(dst []float64, z, mean []complex128) {
 	}
 	reg := 2 * noise * float64(b*b)
 	plane := s * s
-	for k := 0; k < plane; k++ {
-		q := f.p1[k] + f.p2[k] + reg
-		r := f.p1[k] + f.pm[k] + reg
-		if !f.inside[k] || q <= 0 || r <= 0 {
-			for c := 0; c < 5; c++ {
-				dst[c*plane+k] = 0
+	clear(dst[:5*plane])
+	for _, kb := range f.in {
+		k := int(kb)
+		by, bx := k/s, k%s
+		var a1, a2, p1, re, im, tr, ti float64
+		for dy := 0; dy < b; dy++ {
+			ky := int(f.unshift[by*b+dy])
+			zr := z[ky*n:][:n]
+			zn := z[int(f.neg[ky])*n:][:n]
+			mr := mean[ky*n:][:n]
+			for dx := 0; dx < b; dx++ {
+				kx := f.unshift[bx*b+dx]
+				u, v, m := zr[kx], zn[f.neg[kx]], mr[kx]
+				ur, ui, vr, vi := real(u), imag(u), real(v), imag(v)
+				a1 += ur*ur + ui*ui
+				a2 += vr*vr + vi*vi
+				re += ur*vr - ui*vi
+				im += ur*vi + ui*vr
+				sr, si := ur+vr, ui-vi
+				p1 += sr*sr + si*si
+				tr += sr*real(m) + si*imag(m)
+				ti += si*real(m) - sr*imag(m)
 			}
+		}
+		q := 0.5*(a1+a2) + reg
+		r := 0.25*p1 + f.pm[k] + reg
+		if q <= 0 || r <= 0 {
 			continue
 		}
-		dst[k] = (f.p1[k] - f.p2[k]) / q
-		dst[plane+k] = 2 * f.cr[k] / q
-		dst[2*plane+k] = 2 * f.ci[k] / q
-		dst[3*plane+k] = 2 * f.tr[k] / r
-		dst[4*plane+k] = 2 * f.ti[k] / r
+		dst[k] = re / q
+		dst[plane+k] = im / q
+		dst[2*plane+k] = 0.5 * (a1 - a2) / q
+		dst[3*plane+k] = tr / r
+		dst[4*plane+k] = ti / r
 	}
 }
