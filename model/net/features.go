@@ -55,6 +55,7 @@ type Featurizer struct {
 	outside      []int        // spectrum indices beyond 1.05 r_c, for the noise floor
 	unshift      []int32      // centred index c → spectrum index (c − n/2) mod n
 	neg          []int32      // spectrum index k → index of −k, (n − k) mod n
+	pair         bool         // bins of 2 pixels and n/2 even (see spectral)
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -66,6 +67,7 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 		return nil, fmt.Errorf("net: patch size %d is not a multiple of the network input size %d", n, size)
 	}
 	f := &Featurizer{n: n, size: size, bin: n / size, cutoff: m.Meta.CutoffRadius()}
+	f.pair = f.bin == 2 && n%4 == 0
 	f.plan = fft.NewPlan(n, n)
 	f.window = EdgeWindow(n, n/8)
 	f.z = make([]complex128, n*n)
@@ -350,35 +352,52 @@ func (f *Featurizer) spectral(dst []float64) {
 	for _, kb := range f.in {
 		k := int(kb)
 		by, bx := k/s, k%s
-		var a1, a2, p1, re, im, tr, ti float64
+		var a blockSums
 		for dy := 0; dy < b; dy++ {
 			ky := int(f.unshift[by*b+dy])
 			zr := z[ky*n:][:n]
 			zn := z[int(f.neg[ky])*n:][:n]
 			mr := mean[ky*n:][:n]
+			if f.pair {
+				// Bins of 2 with n/2 even: the two columns of a block
+				// are adjacent and only the first can be 0.
+				kx := int(f.unshift[bx*2])
+				u := (*[2]complex128)(zr[kx : kx+2])
+				m := (*[2]complex128)(mr[kx : kx+2])
+				a.add(u[0], zn[(n-kx)%n], m[0])
+				a.add(u[1], zn[n-kx-1], m[1])
+				continue
+			}
 			for dx := 0; dx < b; dx++ {
 				kx := f.unshift[bx*b+dx]
-				u, v, m := zr[kx], zn[f.neg[kx]], mr[kx]
-				ur, ui, vr, vi := real(u), imag(u), real(v), imag(v)
-				a1 += ur*ur + ui*ui
-				a2 += vr*vr + vi*vi
-				re += ur*vr - ui*vi
-				im += ur*vi + ui*vr
-				sr, si := ur+vr, ui-vi
-				p1 += sr*sr + si*si
-				tr += sr*real(m) + si*imag(m)
-				ti += si*real(m) - sr*imag(m)
+				a.add(zr[kx], zn[f.neg[kx]], mr[kx])
 			}
 		}
-		q := 0.5*(a1+a2) + reg
-		r := 0.25*p1 + f.pm[k] + reg
+		q := 0.5*(a.a1+a.a2) + reg
+		r := 0.25*a.p1 + f.pm[k] + reg
 		if q <= 0 || r <= 0 {
 			continue
 		}
-		dst[k] = re / q
-		dst[plane+k] = im / q
-		dst[2*plane+k] = 0.5 * (a1 - a2) / q
-		dst[3*plane+k] = tr / r
-		dst[4*plane+k] = ti / r
+		dst[k] = a.re / q
+		dst[plane+k] = a.im / q
+		dst[2*plane+k] = 0.5 * (a.a1 - a.a2) / q
+		dst[3*plane+k] = a.tr / r
+		dst[4*plane+k] = a.ti / r
 	}
+}
+
+// blockSums accumulates, over the frequencies u of a block, |Z|², |Z₋|²,
+// Re and Im of Z Z₋, |S|² and Re, Im of S M* (see spectral).
+type blockSums struct{ a1, a2, re, im, p1, tr, ti float64 }
+
+func (a *blockSums) add(u, v, m complex128) {
+	ur, ui, vr, vi := real(u), imag(u), real(v), imag(v)
+	a.a1 += ur*ur + ui*ui
+	a.a2 += vr*vr + vi*vi
+	a.re += ur*vr - ui*vi
+	a.im += ur*vi + ui*vr
+	sr, si := ur+vr, ui-vi
+	a.p1 += sr*sr + si*si
+	a.tr += sr*real(m) + si*imag(m)
+	a.ti += si*real(m) - sr*imag(m)
 }

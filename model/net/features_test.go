@@ -228,14 +228,14 @@ func refFeatures(n, size int, cutoff float64, data [2][][]float64) []float64 {
 
 // The Featurizer equals the reference from the definitions to 1e-9 for the
 // demo optics (cut-off 31 px of 32), a tighter cut-off (blocks outside set
-// to zero, a noise floor), bins of 1, 2 and 4 pixels, and changing frame
-// counts.
+// to zero, a noise floor), bins of 1, 2 and 4 pixels, an odd half-patch, and
+// changing frame counts.
 func TestFeaturesMatchReference(t *testing.T) {
 	cases := []struct {
 		patch, size int
 		pixScale    float64 // fraction of the demo pixel scale
 	}{
-		{64, 32, 1}, {64, 32, 0.6}, {32, 32, 0.5}, {64, 16, 0.8}, {48, 24, 0.7},
+		{64, 32, 1}, {64, 32, 0.6}, {32, 32, 0.5}, {64, 16, 0.8}, {48, 24, 0.7}, {30, 15, 0.7},
 	}
 	for ci, c := range cases {
 		md := demoMeta()

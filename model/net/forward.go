@@ -30,6 +30,10 @@ type Predictor struct {
 	cat    []float64 // frames × 2·Hidden
 	hid    []float64 // frames × Head
 	y      []float64 // frames × Modes
+	xp     []float64 // dense input packed in 4-row panels (vector path)
+	dtmp   []float64 // dense output, rows rounded up to 4 (vector path)
+	offEnc []int     // byte offsets κ·Hidden·8 of the encoder weight rows
+	offH1  []int     // byte offsets κ·Head·8 of the head1 weight rows
 }
 
 // convLayer holds the layout and buffers of one 3×3, stride 2, padding 1
@@ -60,7 +64,19 @@ func NewPredictor(m *Model) *Predictor {
 		p.layers = append(p.layers, convLayer{cin: cin, cout: cout, s: s, o: o, k: 9 * cin})
 		s, cin = o, cout
 	}
+	a := m.Arch
+	p.offEnc = rowOffsets(a.flat(), a.Hidden)
+	p.offH1 = rowOffsets(2*a.Hidden, a.Head)
 	return p
+}
+
+// rowOffsets returns the byte offsets of the rows of an in × out matrix.
+func rowOffsets(in, out int) []int {
+	off := make([]int, in)
+	for k := range off {
+		off[k] = 8 * k * out
+	}
+	return off
 }
 
 // check verifies that the tensors match the architecture.
@@ -168,7 +184,7 @@ func (p *Predictor) Raw(dst, x []float64, frames int) {
 	}
 	nl := len(a.Conv)
 	flat := a.flat()
-	dense(p.enc, p.flat, ps[2*nl].Data, ps[2*nl+1].Data, frames, flat, a.Hidden, true)
+	p.denseVec(p.enc, p.flat, ps[2*nl].Data, ps[2*nl+1].Data, frames, flat, a.Hidden, p.offEnc)
 	// Burst summary: mean over frames, appended to every frame's features.
 	h := a.Hidden
 	for f := 0; f < frames; f++ {
@@ -185,7 +201,7 @@ func (p *Predictor) Raw(dst, x []float64, frames int) {
 			p.cat[f*2*h+h+j] = s
 		}
 	}
-	dense(p.hid, p.cat, ps[2*nl+2].Data, ps[2*nl+3].Data, frames, 2*h, a.Head, true)
+	p.denseVec(p.hid, p.cat, ps[2*nl+2].Data, ps[2*nl+3].Data, frames, 2*h, a.Head, p.offH1)
 	dense(dst, p.hid, ps[2*nl+4].Data, ps[2*nl+5].Data, frames, a.Head, a.Modes, false)
 }
 
@@ -229,6 +245,9 @@ func (p *Predictor) layout(frames int) {
 	p.enc = make([]float64, frames*a.Hidden)
 	p.cat = make([]float64, frames*2*a.Hidden)
 	p.hid = make([]float64, frames*a.Head)
+	panels := (frames + 3) / 4
+	p.xp = make([]float64, panels*4*max(a.flat(), 2*a.Hidden))
+	p.dtmp = make([]float64, panels*4*max(a.Hidden, a.Head))
 }
 
 // putRow writes row y (s values) of input channel ci of frame f into the
@@ -240,9 +259,11 @@ func (L *convLayer) putRow(ci, f, y int, row []float64) {
 	n := len(row) / 2
 	ev := L.in[base : base+n+len(row)&1]
 	od := L.in[base+o1*L.rs : base+o1*L.rs+n]
+	ev2 := ev[:len(od)]
 	for i := range od {
-		ev[i] = row[2*i]
-		od[i] = row[2*i+1]
+		v := (*[2]float64)(row[2*i : 2*i+2])
+		ev2[i] = v[0]
+		od[i] = v[1]
 	}
 	if len(row)&1 == 1 {
 		ev[n] = row[2*n]
@@ -337,6 +358,41 @@ func (L *convLayer) flatten(dst []float64, frames int) {
 				d := dst[f*per+(ch*o+oy)*o:]
 				copy(d[:o], row[f*o1:f*o1+o])
 			}
+		}
+	}
+}
+
+// denseVec is dense with ReLU through the tile kernel when it applies (vector
+// path, out a multiple of 8): x is packed into panels of 4 rows, which take
+// the place of the filter panels, and the weight rows (offsets off) the place
+// of the input strips; the bias is added afterwards.
+func (p *Predictor) denseVec(dst, x, w, b []float64, rows, in, out int, off []int) {
+	if !useVec || out%8 != 0 {
+		dense(dst, x, w, b, rows, in, out, true)
+		return
+	}
+	for r := 0; r < rows; r++ {
+		xp := p.xp[(r/4)*4*in:]
+		i := r % 4
+		for k, v := range x[r*in : (r+1)*in] {
+			xp[4*k+i] = v
+		}
+	}
+	var zero [4]float64
+	for pb := 0; pb < (rows+3)/4; pb++ {
+		for j := 0; j < out; j += 8 {
+			convTileVec(&p.dtmp[pb*4*out+j], out, &w[j], &off[0], &p.xp[pb*4*in], in, &zero, false)
+		}
+	}
+	for r := 0; r < rows; r++ {
+		row := dst[r*out : (r+1)*out]
+		t := p.dtmp[r*out : (r+1)*out]
+		for j := range row {
+			v := t[j] + b[j]
+			if v < 0 {
+				v = 0
+			}
+			row[j] = v
 		}
 	}
 }
