@@ -56,6 +56,8 @@ type Featurizer struct {
 	unshift      []int32      // centred index c → spectrum index (c − n/2) mod n
 	neg          []int32      // spectrum index k → index of −k, (n − k) mod n
 	pair         bool         // bins of 2 pixels and n/2 even (see spectral)
+	runs         [][3]int     // (block row, first, end) of runs of inside blocks
+	vs           []float64    // lane sums of the vector kernel, 28 per block
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -88,9 +90,15 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 			x := (float64(bx)+0.5)*float64(f.bin) - 0.5 - c
 			if math.Hypot(x, y) <= f.cutoff {
 				f.in = append(f.in, int32(by*size+bx))
+				if r := len(f.runs) - 1; r >= 0 && f.runs[r][0] == by && f.runs[r][2] == bx {
+					f.runs[r][2]++
+				} else {
+					f.runs = append(f.runs, [3]int{by, bx, bx + 1})
+				}
 			}
 		}
 	}
+	f.vs = make([]float64, 28*size)
 	for ky := 0; ky < n; ky++ {
 		for kx := 0; kx < n; kx++ {
 			u, v := ky, kx
@@ -336,8 +344,8 @@ func (f *Featurizer) blockPower() {
 // so the block sums need no per-frequency split. Only blocks inside the
 // cut-off are summed; the others are zero.
 func (f *Featurizer) spectral(dst []float64) {
-	n, s, b := f.n, f.size, f.bin
-	z, mean := f.z, f.mean[:len(f.z)]
+	s, b := f.size, f.bin
+	z := f.z
 	noise := 0.0
 	if f.outside != nil {
 		for _, i := range f.outside {
@@ -349,40 +357,92 @@ func (f *Featurizer) spectral(dst []float64) {
 	reg := 2 * noise * float64(b*b)
 	plane := s * s
 	clear(dst[:5*plane])
+	if f.pair && useVec {
+		f.spectralPairs(dst, reg)
+		return
+	}
 	for _, kb := range f.in {
 		k := int(kb)
-		by, bx := k/s, k%s
-		var a blockSums
-		for dy := 0; dy < b; dy++ {
-			ky := int(f.unshift[by*b+dy])
-			zr := z[ky*n:][:n]
-			zn := z[int(f.neg[ky])*n:][:n]
-			mr := mean[ky*n:][:n]
-			if f.pair {
-				// Bins of 2 with n/2 even: the two columns of a block
-				// are adjacent and only the first can be 0.
-				kx := int(f.unshift[bx*2])
-				u := (*[2]complex128)(zr[kx : kx+2])
-				m := (*[2]complex128)(mr[kx : kx+2])
-				a.add(u[0], zn[(n-kx)%n], m[0])
-				a.add(u[1], zn[n-kx-1], m[1])
+		f.finish(dst, k, f.blockScalar(k/s, k%s), reg)
+	}
+}
+
+// blockScalar returns the sums of block (by, bx).
+func (f *Featurizer) blockScalar(by, bx int) blockSums {
+	n, b := f.n, f.bin
+	z, mean := f.z, f.mean[:len(f.z)]
+	var a blockSums
+	for dy := 0; dy < b; dy++ {
+		ky := int(f.unshift[by*b+dy])
+		zr := z[ky*n:][:n]
+		zn := z[int(f.neg[ky])*n:][:n]
+		mr := mean[ky*n:][:n]
+		for dx := 0; dx < b; dx++ {
+			kx := f.unshift[bx*b+dx]
+			a.add(zr[kx], zn[f.neg[kx]], mr[kx])
+		}
+	}
+	return a
+}
+
+// finish writes the five ratios of block k from its sums.
+func (f *Featurizer) finish(dst []float64, k int, a blockSums, reg float64) {
+	plane := f.size * f.size
+	q := 0.5*(a.a1+a.a2) + reg
+	r := 0.25*a.p1 + f.pm[k] + reg
+	if q <= 0 || r <= 0 {
+		return
+	}
+	iq, ir := 1/q, 1/r
+	dst[k] = a.re * iq
+	dst[plane+k] = a.im * iq
+	dst[2*plane+k] = 0.5 * (a.a1 - a.a2) * iq
+	dst[3*plane+k] = a.tr * ir
+	dst[4*plane+k] = a.ti * ir
+}
+
+// spectralPairs is the inside-block loop of spectral for bins of 2 with n/2
+// even, through the vector kernel. In a block row the blocks left and right
+// of the zero-frequency column (bx = Size/2, summed by blockScalar) have
+// adjacent spectrum columns kx, kx+1 whose mirrors n−kx, n−kx−1 are
+// adjacent too, so whole runs of blocks go through blockSums2Vec.
+func (f *Featurizer) spectralPairs(dst []float64, reg float64) {
+	n, s := f.n, f.size
+	z, mean := f.z, f.mean[:len(f.z)]
+	dc := s / 2
+	for _, run := range f.runs {
+		by := run[0]
+		ky0 := int(f.unshift[2*by])
+		ky1 := ky0 + 1
+		kn0, kn1 := int(f.neg[ky0]), int(f.neg[ky1])
+		for _, seg := range [2][2]int{{run[1], min(run[2], dc)}, {max(run[1], dc+1), run[2]}} {
+			lo, hi := seg[0], seg[1]
+			if lo >= hi {
 				continue
 			}
-			for dx := 0; dx < b; dx++ {
-				kx := f.unshift[bx*b+dx]
-				a.add(zr[kx], zn[f.neg[kx]], mr[kx])
+			kx := int(f.unshift[2*lo])
+			nb := hi - lo
+			_ = z[ky1*n+kx+2*nb-1] + mean[ky1*n+kx+2*nb-1] // the kernel's reach in every row
+			_ = z[kn0*n+n-kx] + z[kn1*n+n-kx] + z[kn0*n+n-kx-2*nb+1] + z[kn1*n+n-kx-2*nb+1]
+			blockSums2Vec(&f.vs[0], &z[ky0*n+kx], &z[ky1*n+kx], &z[kn0*n+n-kx-1], &z[kn1*n+n-kx-1],
+				&mean[ky0*n+kx], &mean[ky1*n+kx], nb)
+			for i := 0; i < nb; i++ {
+				o := (*[28]float64)(f.vs[28*i : 28*i+28])
+				a := blockSums{
+					a1: (o[0] + o[1]) + (o[2] + o[3]),
+					a2: (o[4] + o[5]) + (o[6] + o[7]),
+					re: (o[8] - o[9]) + (o[10] - o[11]),
+					im: (o[12] + o[13]) + (o[14] + o[15]),
+					p1: (o[16] + o[17]) + (o[18] + o[19]),
+					tr: (o[20] + o[21]) + (o[22] + o[23]),
+					ti: (o[25] - o[24]) + (o[27] - o[26]),
+				}
+				f.finish(dst, by*s+lo+i, a, reg)
 			}
 		}
-		q := 0.5*(a.a1+a.a2) + reg
-		r := 0.25*a.p1 + f.pm[k] + reg
-		if q <= 0 || r <= 0 {
-			continue
+		if run[1] <= dc && dc < run[2] {
+			f.finish(dst, by*s+dc, f.blockScalar(by, dc), reg)
 		}
-		dst[k] = a.re / q
-		dst[plane+k] = a.im / q
-		dst[2*plane+k] = 0.5 * (a.a1 - a.a2) / q
-		dst[3*plane+k] = a.tr / r
-		dst[4*plane+k] = a.ti / r
 	}
 }
 

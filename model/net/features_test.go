@@ -229,7 +229,7 @@ func refFeatures(n, size int, cutoff float64, data [2][][]float64) []float64 {
 // The Featurizer equals the reference from the definitions to 1e-9 for the
 // demo optics (cut-off 31 px of 32), a tighter cut-off (blocks outside set
 // to zero, a noise floor), bins of 1, 2 and 4 pixels, an odd half-patch, and
-// changing frame counts.
+// changing frame counts, on the vector and the portable path.
 func TestFeaturesMatchReference(t *testing.T) {
 	cases := []struct {
 		patch, size int
@@ -237,6 +237,8 @@ func TestFeaturesMatchReference(t *testing.T) {
 	}{
 		{64, 32, 1}, {64, 32, 0.6}, {32, 32, 0.5}, {64, 16, 0.8}, {48, 24, 0.7}, {30, 15, 0.7},
 	}
+	vecAvail := useVec
+	defer func() { useVec = vecAvail }()
 	for ci, c := range cases {
 		md := demoMeta()
 		md.Patch = c.patch
@@ -252,6 +254,7 @@ func TestFeaturesMatchReference(t *testing.T) {
 			t.Fatal(err)
 		}
 		for _, frames := range []int{5, 1, 16} {
+			useVec = vecAvail && frames != 5 // the portable path too
 			d := randomBurst(frames, c.patch, uint64(31*ci+frames))
 			// A common object makes the spectra correlated, as in real data.
 			for j := 0; j < frames; j++ {

@@ -35,3 +35,9 @@ func haveAVX2FMA() bool {
 //
 //go:noescape
 func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bias *[4]float64, relu bool)
+
+// blockSums2Vec computes the lane-wise spectral sums of nb consecutive 2×2
+// blocks (see Featurizer.spectralPairs); nb ≥ 1.
+//
+//go:noescape
+func blockSums2Vec(out *float64, u0, u1, v0, v1, m0, m1 *complex128, nb int)

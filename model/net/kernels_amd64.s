@@ -108,3 +108,78 @@ store:
 	VMOVUPD Y7, 32(DI)
 	VZEROUPPER
 	RET
+
+// Sign mask negating the odd (imaginary) lanes: conj of two complex128.
+DATA negodd<>+0(SB)/8, $0x0000000000000000
+DATA negodd<>+8(SB)/8, $0x8000000000000000
+DATA negodd<>+16(SB)/8, $0x0000000000000000
+DATA negodd<>+24(SB)/8, $0x8000000000000000
+GLOBL negodd<>(SB), RODATA|NOPTR, $32
+
+// func blockSums2Vec(out *float64, u0, u1, v0, v1, m0, m1 *complex128, nb int)
+//
+// Per block, rows r = 0, 1: U = (u_r[0], u_r[1]), V = (v_r[1], v_r[0])
+// (the mirrored pair, stored in reverse), M = (m_r[0], m_r[1]),
+// S = U + conj V; the lane-wise sums over both rows of U·U, V·V, U·V,
+// U·swap(V), S·S, S·M, S·swap(M) are stored, 7 × 4 values. u and m advance
+// by one pair per block, v goes back by one.
+TEXT ·blockSums2Vec(SB), NOSPLIT, $0-64
+	MOVQ out+0(FP), DI
+	MOVQ u0+8(FP), R8
+	MOVQ u1+16(FP), R9
+	MOVQ v0+24(FP), R10
+	MOVQ v1+32(FP), R11
+	MOVQ m0+40(FP), R12
+	MOVQ m1+48(FP), R13
+	MOVQ nb+56(FP), CX
+	VMOVUPD negodd<>(SB), Y15
+
+bloop:
+	VMOVUPD (R8), Y0
+	VPERMPD $0x4e, (R10), Y1
+	VMOVUPD (R12), Y2
+	VMULPD Y0, Y0, Y3
+	VMULPD Y1, Y1, Y4
+	VMULPD Y1, Y0, Y5
+	VPERMILPD $5, Y1, Y11
+	VMULPD Y11, Y0, Y6
+	VXORPD Y15, Y1, Y12
+	VADDPD Y12, Y0, Y12
+	VMULPD Y12, Y12, Y8
+	VMULPD Y2, Y12, Y9
+	VPERMILPD $5, Y2, Y13
+	VMULPD Y13, Y12, Y10
+
+	VMOVUPD (R9), Y0
+	VPERMPD $0x4e, (R11), Y1
+	VMOVUPD (R13), Y2
+	VFMADD231PD Y0, Y0, Y3
+	VFMADD231PD Y1, Y1, Y4
+	VFMADD231PD Y1, Y0, Y5
+	VPERMILPD $5, Y1, Y11
+	VFMADD231PD Y11, Y0, Y6
+	VXORPD Y15, Y1, Y12
+	VADDPD Y12, Y0, Y12
+	VFMADD231PD Y12, Y12, Y8
+	VFMADD231PD Y2, Y12, Y9
+	VPERMILPD $5, Y2, Y13
+	VFMADD231PD Y13, Y12, Y10
+
+	VMOVUPD Y3, 0(DI)
+	VMOVUPD Y4, 32(DI)
+	VMOVUPD Y5, 64(DI)
+	VMOVUPD Y6, 96(DI)
+	VMOVUPD Y8, 128(DI)
+	VMOVUPD Y9, 160(DI)
+	VMOVUPD Y10, 192(DI)
+	ADDQ $224, DI
+	ADDQ $32, R8
+	ADDQ $32, R9
+	ADDQ $32, R12
+	ADDQ $32, R13
+	SUBQ $32, R10
+	SUBQ $32, R11
+	DECQ CX
+	JNZ bloop
+	VZEROUPPER
+	RET

@@ -9,3 +9,7 @@ var useVec = false
 func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bias *[4]float64, relu bool) {
 	panic("net: internal error: vector kernel called without vector support")
 }
+
+func blockSums2Vec(out *float64, u0, u1, v0, v1, m0, m1 *complex128, nb int) {
+	panic("net: internal error: vector kernel called without vector support")
+}
