@@ -205,9 +205,9 @@ func (p *Predictor) Raw(dst, x []float64, frames int) {
 	dense(dst, p.hid, ps[2*nl+4].Data, ps[2*nl+5].Data, frames, a.Head, a.Modes, false)
 }
 
-// layout sizes the buffers for the given frame count and sets the offset
-// tables. The padding of the phase planes is zeroed here once; later calls
-// write only the data positions.
+// layout sizes the buffers for the given frame count (reusing their memory
+// where large enough) and sets the offset tables. The padding of the phase
+// planes is zeroed here once; later calls write only the data positions.
 func (p *Predictor) layout(frames int) {
 	if frames == p.frames {
 		return
@@ -219,9 +219,11 @@ func (p *Predictor) layout(frames int) {
 		o1 := L.o + 1
 		L.lpad = (frames*o1 + 7) &^ 7
 		L.rs = L.lpad + 1
-		L.in = make([]float64, L.cin*4*o1*L.rs)
-		L.off = make([]int, L.k)
-		L.offB = make([]int, L.k)
+		L.in = zeroed(L.in, L.cin*4*o1*L.rs)
+		if L.off == nil {
+			L.off = make([]int, L.k)
+			L.offB = make([]int, L.k)
+		}
 		for ci := 0; ci < L.cin; ci++ {
 			for ky := 0; ky < 3; ky++ {
 				// Input row 2·oy+ky−1: ky = 0 is odd-phase row oy−1 (padded
@@ -237,17 +239,27 @@ func (p *Predictor) layout(frames int) {
 			}
 		}
 		panels := (L.cout + 3) / 4
-		L.wp = make([]float64, panels*4*L.k)
-		L.bp = make([]float64, panels*4)
-		L.out = make([]float64, panels*4*L.o*L.lpad)
+		L.wp = zeroed(L.wp, panels*4*L.k)
+		L.bp = zeroed(L.bp, panels*4)
+		L.out = zeroed(L.out, panels*4*L.o*L.lpad)
 	}
-	p.flat = make([]float64, frames*a.flat())
-	p.enc = make([]float64, frames*a.Hidden)
-	p.cat = make([]float64, frames*2*a.Hidden)
-	p.hid = make([]float64, frames*a.Head)
+	p.flat = zeroed(p.flat, frames*a.flat())
+	p.enc = zeroed(p.enc, frames*a.Hidden)
+	p.cat = zeroed(p.cat, frames*2*a.Hidden)
+	p.hid = zeroed(p.hid, frames*a.Head)
 	panels := (frames + 3) / 4
-	p.xp = make([]float64, panels*4*max(a.flat(), 2*a.Hidden))
-	p.dtmp = make([]float64, panels*4*max(a.Hidden, a.Head))
+	p.xp = zeroed(p.xp, panels*4*max(a.flat(), 2*a.Hidden))
+	p.dtmp = zeroed(p.dtmp, panels*4*max(a.Hidden, a.Head))
+}
+
+// zeroed returns b resliced to n zeros, reallocated if too small.
+func zeroed(b []float64, n int) []float64 {
+	if cap(b) < n {
+		return make([]float64, n)
+	}
+	b = b[:n]
+	clear(b)
+	return b
 }
 
 // putRow writes row y (s values) of input channel ci of frame f into the
