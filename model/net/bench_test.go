@@ -27,6 +27,25 @@ func BenchmarkPredict(b *testing.B) {
 	})
 }
 
+// BenchmarkEstimator measures Estimator.Burst (features, forward pass, Noll
+// equivalents, removal of the mean tip/tilt) for 16 frames of 64×64.
+func BenchmarkEstimator(b *testing.B) {
+	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
+	if err != nil {
+		b.Fatal(err)
+	}
+	e, err := NewEstimator(m)
+	if err != nil {
+		b.Fatal(err)
+	}
+	d := randomBurst(16, 64, 1)
+	cpuLoop(b, func() {
+		if _, _, err := e.Burst(d); err != nil {
+			b.Fatal(err)
+		}
+	})
+}
+
 // BenchmarkForward measures the plain-Go forward pass alone (16 frames).
 func BenchmarkForward(b *testing.B) {
 	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)

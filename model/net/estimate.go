@@ -81,10 +81,13 @@ func (e *Estimator) Burst(data [2][][]float64) (native, noll [][]float64, err er
 	}
 	e.y = e.y[:frames*nm]
 	e.pred.Forward(e.y, e.x, frames)
+	// One backing array per result: the caller owns them.
+	nollAll := make([]float64, frames*nm)
+	nativeAll := make([]float64, frames*nm)
 	noll = make([][]float64, frames)
 	var mean [2]float64
 	for j := range noll {
-		noll[j] = make([]float64, nm)
+		noll[j] = nollAll[j*nm : (j+1)*nm : (j+1)*nm]
 		e.basis.NollEquivalent(noll[j], e.y[j*nm:(j+1)*nm])
 		for k := 0; k < 2 && k < nm; k++ {
 			mean[k] += noll[j][k] / float64(frames)
@@ -92,7 +95,8 @@ func (e *Estimator) Burst(data [2][][]float64) (native, noll [][]float64, err er
 	}
 	native = make([][]float64, frames)
 	for j := range native {
-		native[j] = append([]float64(nil), e.y[j*nm:(j+1)*nm]...)
+		native[j] = nativeAll[j*nm : (j+1)*nm : (j+1)*nm]
+		copy(native[j], e.y[j*nm:(j+1)*nm])
 		for k := 0; k < 2 && k < nm; k++ {
 			noll[j][k] -= mean[k]
 			// native −= ToNoll⁻¹ · (mean tilt in Noll)
