@@ -1,18 +1,17 @@
 package main
 
 import (
-	"bytes"
 	"fmt"
 	"os"
 	"path/filepath"
-	"sort"
-	"strconv"
 	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
 
+	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/weights"
@@ -119,92 +118,27 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	elapsed := time.Since(start)
 	settings := map[string]string{"verb": "predict", "burst": filepath.Base(args[0]), "weights": from,
 		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds())}
-	csv := predictCSV(settings, native, noll)
+	table := &infer.CoefficientTable{Basis: modes.Kind(m.Meta.Basis), Native: native, Noll: noll,
+		Title: "pdwave " + version + " predict", Settings: settings}
 	if strings.EqualFold(filepath.Ext(o.out), ".csv") {
-		if err := predictWriteAtomic(o.out, csv); err != nil {
+		if err := table.WriteCSV(o.out); err != nil {
 			return err
 		}
 	} else {
-		frames := make([]int64, len(native))
-		for j := range frames {
-			frames[j] = int64(j + 1)
-		}
-		nm := len(native[0])
-		table := &burst.Table{Name: "COEFFS", Columns: []burst.Column{
-			{Name: "FRAME", Int: frames},
-			{Name: "NATIVE", Unit: "rad", Float: native},
-			{Name: "NOLL", Unit: "rad", Float: noll},
-		}, Cards: []burst.Card{
-			{Key: "FITBASIS", Value: m.Meta.Basis, Comment: "basis of NATIVE"},
-			{Key: "NOLLJ0", Value: 2, Comment: "Noll index of the first NOLL element"},
-			{Key: "NMODES", Value: nm, Comment: "modes per frame, piston excluded"},
-			{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
-		}}
-		prov := burst.Provenance(version, settings)
-		primary := &burst.Image{Cards: prov}
-		if err := burst.WriteFile(o.out, primary, table); err != nil {
+		hdu := table.HDU()
+		hdu.Cards = append(hdu.Cards,
+			burst.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
+			burst.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"})
+		primary := &burst.Image{Cards: burst.Provenance(version, settings)}
+		if err := burst.WriteFile(o.out, primary, hdu); err != nil {
 			return err
 		}
-		if err := predictWriteAtomic(strings.TrimSuffix(o.out, filepath.Ext(o.out))+".csv", csv); err != nil {
+		if err := table.WriteCSV(infer.CSVPath(o.out)); err != nil {
+			os.Remove(o.out)
 			return err
 		}
 	}
 	fmt.Fprintf(os.Stderr, "predicted %d frames × %d %s modes in %s with weights %s\n",
 		len(native), len(native[0]), m.Meta.Basis, elapsed.Round(time.Microsecond), from)
-	return nil
-}
-
-// predictCSV formats the coefficients as "pdwave fit" does: "# key: value"
-// lines, then one row per frame with the native coefficients and the Noll
-// equivalents (rad).
-func predictCSV(settings map[string]string, native, noll [][]float64) []byte {
-	var b bytes.Buffer
-	fmt.Fprintf(&b, "# pdwave %s predict\n", version)
-	keys := make([]string, 0, len(settings))
-	for k := range settings {
-		keys = append(keys, k)
-	}
-	sort.Strings(keys)
-	for _, k := range keys {
-		fmt.Fprintf(&b, "# %s: %s\n", k, settings[k])
-	}
-	b.WriteString("frame")
-	for k := range native[0] {
-		fmt.Fprintf(&b, ",native_%d", k+1)
-	}
-	for k := range noll[0] {
-		fmt.Fprintf(&b, ",noll_%d", k+2)
-	}
-	b.WriteByte('\n')
-	for j := range native {
-		b.WriteString(strconv.Itoa(j + 1))
-		for _, v := range native[j] {
-			b.WriteString("," + strconv.FormatFloat(v, 'g', 8, 64))
-		}
-		for _, v := range noll[j] {
-			b.WriteString("," + strconv.FormatFloat(v, 'g', 8, 64))
-		}
-		b.WriteByte('\n')
-	}
-	return b.Bytes()
-}
-
-// predictWriteAtomic writes data to a temporary file beside path and renames it.
-func predictWriteAtomic(path string, data []byte) error {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	_, werr := tmp.Write(data)
-	if cerr := tmp.Close(); werr == nil {
-		werr = cerr
-	}
-	if werr == nil {
-		werr = os.Rename(tmp.Name(), path)
-	}
-	if werr != nil {
-		os.Remove(tmp.Name())
-		return fmt.Errorf("writing %s: %w", path, werr)
-	}
 	return nil
 }
