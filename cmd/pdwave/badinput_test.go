@@ -239,6 +239,8 @@ func TestBadInput(t *testing.T) {
 		{"restore negative patch", []string{"restore", p("good.fits"), "--site", demoSite, "--patch", "-64", "--out", "OUT/r.fits"}, "patch"},
 		{"restore under-sampled site", []string{"restore", p("no-optics.fits"), "--site", p("undersampled.yaml"), "--out", "OUT/r.fits"}, "sampl"},
 		{"restore foreign weights", []string{"restore", p("good.fits"), "--site", demoSite, "--weights", p("garbage.safetensors"), "--out", "OUT/r.fits"}, "garbage.safetensors"},
+		{"restore truncated dark", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("truncated.fits"), "--out", "OUT/r.fits"}, "truncated.fits"},
+		{"restore flat of another size", []string{"restore", p("good.fits"), "--site", demoSite, "--flat", p("defocused-small.fits"), "--out", "OUT/r.fits"}, "defocused-small.fits"},
 		{"merge missing part", []string{"restore", "merge", p("nopart.part"), "--out", "OUT/m.fits"}, "nopart.part"},
 		// compare
 		{"compare wrong naxis", []string{"compare", p("naxis3.fits"), "--site", demoSite, "--out", "OUT/report"}, "naxis"},
@@ -305,4 +307,72 @@ func TestBadInput(t *testing.T) {
 			}
 		})
 	}
+}
+
+// TestCommandsEndToEnd runs every command once on small simulated data, as a
+// user would chain them, and checks that each succeeds and writes what its
+// help text promises. It guards the paths the bad-input table does not reach
+// (a dark and flat in restore, sharding and merging, the report folder).
+func TestCommandsEndToEnd(t *testing.T) {
+	repo, err := filepath.Abs(filepath.Join("..", ".."))
+	if err != nil {
+		t.Fatal(err)
+	}
+	site := filepath.Join(repo, "testdata", "demo-site.yaml")
+	dir := t.TempDir()
+	p := func(name string) string { return filepath.Join(dir, name) }
+	run := func(args ...string) {
+		t.Helper()
+		code, stdout, stderr := runCLI(t, repo, args...)
+		if code != 0 {
+			t.Fatalf("pdwave %s: exit %d\nstdout: %s\nstderr: %s", strings.Join(args, " "), code, stdout, stderr)
+		}
+	}
+	exists := func(names ...string) {
+		t.Helper()
+		for _, n := range names {
+			if fi, err := os.Stat(p(n)); err != nil || fi.Size() == 0 {
+				t.Errorf("%s missing or empty after the step (%v)", n, err)
+			}
+		}
+	}
+
+	run("simulate", "--site", site, "--out", p("patch"), "--frames", "4", "--seed", "3")
+	run("simulate", "--site", site, "--out", p("field"), "--frames", "4", "--field", "128", "--seed", "4")
+	run("simulate", "screen", "--site", site, "--out", p("screen.fits"), "--size", "64")
+	exists("patch/burst-0001.fits", "field/burst-0001.fits", "screen.fits")
+
+	run("fit", p("patch/burst-0001.fits"), "--site", site, "--out", p("fit.fits"), "--iterations", "5")
+	run("predict", p("patch/burst-0001.fits"), "--out", p("pred.fits"))
+	exists("fit.fits", "fit.csv", "pred.fits", "pred.csv")
+	for _, f := range []string{"fit.csv", "pred.csv"} {
+		b, err := os.ReadFile(p(f))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !strings.Contains(string(b), "frame,native_1,") || strings.Count(string(b), "\n4,") != 1 {
+			t.Errorf("%s lacks the coefficient table header or the row of frame 4", f)
+		}
+	}
+
+	// A dark of 50 counts and a flat of mean one with a gentle gradient.
+	const n = 128
+	dark := make([]float32, n*n)
+	flat := make([]float32, n*n)
+	for i := range dark {
+		dark[i] = 50
+		flat[i] = float32(0.95 + 0.1*float64(i%n)/n)
+	}
+	writeFITS(t, p("dark.fits"), []int{n, n}, dark, nil, 0)
+	writeFITS(t, p("flat.fits"), []int{n, n}, flat, nil, 0)
+	field := p("field/burst-0001.fits")
+	run("restore", field, "--site", site, "--out", p("restored.fits"), "--dark", p("dark.fits"), "--flat", p("flat.fits"), "--polish", "1", "--quiet")
+	exists("restored.fits", "restored_preview.png", "restored_patches.csv", "restored_summary.json")
+	run("restore", field, "--site", site, "--out", p("part0"), "--shard", "0/2", "--quiet")
+	run("restore", field, "--site", site, "--out", p("part1"), "--shard", "1/2", "--quiet")
+	run("restore", "merge", p("part0"), p("part1"), "--out", p("merged.fits"))
+	exists("merged.fits")
+
+	run("compare", p("patch/burst-0001.fits"), "--site", site, "--out", p("report"), "--polish", "1", "--iterations", "5")
+	exists("report/index.html", "report/patches.csv", "report/coefficients.png")
 }
