@@ -321,26 +321,33 @@ func (L *convLayer) run() {
 
 // convTile computes one 4-channel × 8-position tile: for i < 4, j < 8,
 // c[i·cs+j] = bias[i] + Σ_κ w[4κ+i]·p[off[κ]+j], then max(0, ·) if relu.
+// It runs in four 4 × 2 sub-tiles whose eight sums stay in registers.
 func convTile(c []float64, cs int, p []float64, off []int, w []float64, bias *[4]float64, relu bool) {
-	var acc [4][8]float64
-	for kk, o := range off {
-		in := (*[8]float64)(p[o : o+8])
-		wk := (*[4]float64)(w[4*kk : 4*kk+4])
-		for i := range acc {
-			wi := wk[i]
-			for j := range acc[i] {
-				acc[i][j] += wi * in[j]
-			}
+	w = w[:4*len(off)]
+	for j := 0; j < 8; j += 2 {
+		var a0, a1, b0, b1, c0, c1, d0, d1 float64
+		for kk, o := range off {
+			in := (*[2]float64)(p[o+j : o+j+2])
+			wk := (*[4]float64)(w[4*kk : 4*kk+4])
+			x0, x1 := in[0], in[1]
+			a0 += wk[0] * x0
+			a1 += wk[0] * x1
+			b0 += wk[1] * x0
+			b1 += wk[1] * x1
+			c0 += wk[2] * x0
+			c1 += wk[2] * x1
+			d0 += wk[3] * x0
+			d1 += wk[3] * x1
 		}
-	}
-	for i := range acc {
-		row := (*[8]float64)(c[i*cs : i*cs+8])
-		for j, v := range acc[i] {
-			v += bias[i]
-			if relu && v < 0 {
-				v = 0
+		for i, v := range [4][2]float64{{a0, a1}, {b0, b1}, {c0, c1}, {d0, d1}} {
+			row := (*[2]float64)(c[i*cs+j : i*cs+j+2])
+			for q, x := range v {
+				x += bias[i]
+				if relu && x < 0 {
+					x = 0
+				}
+				row[q] = x
 			}
-			row[j] = v
 		}
 	}
 }
