@@ -16,8 +16,9 @@
 // The burst summary makes the frames a set: the result for a frame does not
 // depend on the order of the other frames, and any frame count works.
 //
-// Two implementations share one Model: Predictor, a plain-Go forward pass with
-// preallocated buffers for fast prediction, and Graph, a gorgonia graph of a
+// Two implementations share one Model: Predictor, a forward pass without
+// gorgonia (Go, with AVX2+FMA kernels on amd64 and a pure-Go fallback or
+// -tags purego) and with preallocated buffers for fast prediction, and Graph, a gorgonia graph of a
 // fixed batch used by training to back-propagate an outside gradient
 // ∂L/∂α into the weights.
 package net
