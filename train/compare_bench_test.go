@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math/rand/v2"
 	"os"
+	"slices"
 	"testing"
 	"time"
 
@@ -24,6 +25,8 @@ import (
 // (default 8):
 //
 //	ratio        mean learned objective / mean fitted objective (≥ 1 expected)
+//	within1.5    fraction of bursts whose learned objective is ≤ 1.5× the fitted one
+//	ratio-med    median over bursts of learned objective / fitted objective
 //	learn-e10    learned error over Noll 2–10 as a fraction of the true variance
 //	fit-e10      fitted error over Noll 2–10
 //	learn-e21    learned error over Noll 2–21
@@ -76,6 +79,7 @@ func BenchmarkLearnedVsFitted(b *testing.B) {
 	for b.Loop() {
 		var eL, eF, l10, f10, l21, f21 float64
 		var tL, tF time.Duration
+		ratios := make([]float64, 0, n)
 		for i := 0; i < n; i++ {
 			res, err := sim.Patch(rand.New(rand.NewPCG(0xbe7c4, uint64(i))), simulate.Options{})
 			if err != nil {
@@ -105,6 +109,7 @@ func BenchmarkLearnedVsFitted(b *testing.B) {
 			}
 			eL += el
 			eF += ef
+			ratios = append(ratios, el/ef)
 			for _, c := range []struct {
 				est [][]float64
 				j   int
@@ -118,6 +123,15 @@ func BenchmarkLearnedVsFitted(b *testing.B) {
 			}
 		}
 		b.ReportMetric(eL/eF, "ratio")
+		slices.Sort(ratios)
+		within := 0
+		for _, r := range ratios {
+			if r <= 1.5 {
+				within++
+			}
+		}
+		b.ReportMetric(float64(within)/float64(n), "within1.5")
+		b.ReportMetric(ratios[n/2], "ratio-med")
 		b.ReportMetric(l10, "learn-e10")
 		b.ReportMetric(f10, "fit-e10")
 		b.ReportMetric(l21, "learn-e21")
