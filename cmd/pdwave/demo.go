@@ -89,22 +89,27 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 		}
 	}()
 
-	burstDir := filepath.Join(tmp, "burst")
-	burstFile := filepath.Join(burstDir, "burst-0001.fits")
+	// The steps run inside the folder being assembled, with paths relative
+	// to it, so that what they print holds for the final folder too.
+	site, err := filepath.Abs(o.site)
+	if err != nil {
+		return fmt.Errorf("demo: %w", err)
+	}
+	burstFile := filepath.Join("burst", "burst-0001.fits")
 	steps := [][]string{
-		{"simulate", "--site", o.site, "--out", burstDir, "--field", strconv.Itoa(o.field),
+		{"simulate", "--site", site, "--out", "burst", "--field", strconv.Itoa(o.field),
 			"--frames", strconv.Itoa(o.frames), "--seed", strconv.FormatUint(o.seed, 10)},
-		{"restore", burstFile, "--site", o.site, "--out", filepath.Join(tmp, "restored.fits"),
+		{"restore", burstFile, "--site", site, "--out", "restored.fits",
 			"--polish", strconv.Itoa(o.polish), "--quiet"},
-		{"compare", burstFile, "--site", o.site, "--out", filepath.Join(tmp, "report"),
+		{"compare", burstFile, "--site", site, "--out", "report",
 			"--polish", strconv.Itoa(o.polish)},
 	}
 	log := cmd.ErrOrStderr()
 	start := time.Now()
 	for i, args := range steps {
-		fmt.Fprintf(log, "demo step %d/%d: pdwave %s\n", i+1, len(steps), demoShow(args, tmp, out))
+		fmt.Fprintf(log, "demo step %d/%d (in %s): pdwave %s\n", i+1, len(steps), out, strings.Join(args, " "))
 		t0 := time.Now()
-		if err := demoExec(self, args, log); err != nil {
+		if err := demoExec(self, tmp, args, log); err != nil {
 			return fmt.Errorf("demo step %d (pdwave %s): %w", i+1, args[0], err)
 		}
 		fmt.Fprintf(log, "demo step %d/%d: done in %.1f s\n", i+1, len(steps), time.Since(t0).Seconds())
@@ -121,10 +126,11 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 	return nil
 }
 
-// demoExec runs one pdwave step as a child process, passing its output
-// through, and reports its last error line if it fails.
-func demoExec(self string, args []string, log io.Writer) error {
+// demoExec runs one pdwave step as a child process in dir, passing its
+// output through, and reports its last error line if it fails.
+func demoExec(self, dir string, args []string, log io.Writer) error {
 	c := exec.Command(self, args...)
+	c.Dir = dir
 	c.Stdout = log
 	var errBuf strings.Builder
 	c.Stderr = io.MultiWriter(log, &errBuf)
@@ -133,14 +139,4 @@ func demoExec(self string, args []string, log io.Writer) error {
 		return fmt.Errorf("%v: %s", err, lines[len(lines)-1])
 	}
 	return nil
-}
-
-// demoShow prints a step's arguments with the temporary folder replaced by
-// the final one, as the user would type them.
-func demoShow(args []string, tmp, out string) string {
-	s := make([]string, len(args))
-	for i, a := range args {
-		s[i] = strings.ReplaceAll(a, tmp, out)
-	}
-	return strings.Join(s, " ")
 }
