@@ -375,4 +375,8 @@ func TestCommandsEndToEnd(t *testing.T) {
 
 	run("compare", p("patch/burst-0001.fits"), "--site", site, "--out", p("report"), "--polish", "1", "--iterations", "5")
 	exists("report/index.html", "report/patches.csv", "report/coefficients.png")
+
+	// The README's first command, on a smaller field.
+	run("demo", "--out", p("demo"), "--field", "128", "--frames", "4", "--polish", "1")
+	exists("demo/burst/burst-0001.fits", "demo/restored.fits", "demo/restored_preview.png", "demo/report/index.html")
 }
