@@ -80,7 +80,10 @@ func Resume(dir string, src Source, workers int) (*Resumed, error) {
 	if workers > 0 {
 		st.Config.Workers = workers
 	}
-	prob, err := newProblem(st.Setup, st.Config.PriorWeight)
+	if st.Config.Gamma == 0 {
+		st.Config.Gamma = 1e-6 // checkpoints from before the setting
+	}
+	prob, err := newProblem(st.Setup, st.Config.PriorWeight, st.Config.Gamma)
 	if err != nil {
 		return nil, err
 	}

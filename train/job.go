@@ -3,11 +3,13 @@ package train
 import (
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"time"
 
 	"pdwave/model/modes"
+	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/simulate"
 )
@@ -27,6 +29,8 @@ type Job struct {
 	Workers    int           // 0 = all cores
 	LR         float64       // 0 uses 3e-3
 	Prior      float64       // prior weight; 0 uses 0.01
+	Gamma      float64       // noise-filter regulariser of the metric; 0 uses 1e-6 (the fitter uses 1e-3)
+	Init       string        // weights file to start from (fine-tuning); "" = fresh weights from Seed
 	Reuse      int           // uses of each simulated burst under flips/rotations (1–8); 0 uses 4
 	Validation int           // validation bursts (simulated at the median r0, with truth); 0 uses 32, < 0 none
 	MaxWall    time.Duration // stop after this much wall time (checkpointed; resume later); 0 = none
@@ -55,6 +59,9 @@ func (j Job) Run() (Validation, error) {
 	if j.Reuse < 1 || j.Reuse > 8 {
 		return Validation{}, fmt.Errorf("train: reuse %d outside 1–8", j.Reuse)
 	}
+	if j.Gamma < 0 || math.IsNaN(j.Gamma) || math.IsInf(j.Gamma, 0) {
+		return Validation{}, fmt.Errorf("train: --gamma %g must be a positive number (0 = default)", j.Gamma)
+	}
 	if j.Validation == 0 {
 		j.Validation = 32
 	}
@@ -71,6 +78,15 @@ func (j Job) Run() (Validation, error) {
 	setup, simCfg, err := FromSite(st, j.Modes, kind)
 	if err != nil {
 		return Validation{}, err
+	}
+	var init *net.Model
+	if j.Init != "" && !j.Resume {
+		if init, err = net.Load(j.Init); err != nil {
+			return Validation{}, err
+		}
+		if err := init.Meta.Compatible(setup.Meta()); err != nil {
+			return Validation{}, fmt.Errorf("train: starting weights %s: %w", j.Init, err)
+		}
 	}
 	if err := os.MkdirAll(j.Out, 0o755); err != nil {
 		return Validation{}, fmt.Errorf("train: output folder: %w", err)
@@ -115,7 +131,8 @@ func (j Job) Run() (Validation, error) {
 		}
 	} else {
 		cfg := Config{Steps: j.Steps, Batch: j.Batch, LR: j.LR, PriorWeight: j.Prior, WarmStart: j.WarmStart,
-			Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse}
+			Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse, Gamma: j.Gamma}
+		cfg.Init = init
 		if t, err = New(setup, cfg, src); err != nil {
 			return Validation{}, err
 		}
@@ -135,6 +152,9 @@ func (j Job) Run() (Validation, error) {
 	}
 	m.Meta.Training["data"] = data
 	m.Meta.Training["reuse"] = fmt.Sprint(j.Reuse)
+	if j.Init != "" {
+		m.Meta.Training["init"] = filepath.Base(j.Init)
+	}
 	if j.Validation > 0 {
 		vsrc, err := NewSimSource(sim, setup, j.Seed^0x7a11da7e, nil)
 		if err != nil {

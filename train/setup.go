@@ -77,7 +77,7 @@ type problem struct {
 	settings  pd.Settings
 }
 
-func newProblem(s Setup, priorWeight float64) (*problem, error) {
+func newProblem(s Setup, priorWeight, gamma float64) (*problem, error) {
 	if err := s.Validate(); err != nil {
 		return nil, err
 	}
@@ -96,7 +96,7 @@ func newProblem(s Setup, priorWeight float64) (*problem, error) {
 		setup: s, pupil: pupil, basis: basis,
 		diversity: [][]float64{nil, div},
 		prior:     pd.KolmogorovPrior(basis, dr),
-		settings:  pd.Settings{PriorWeight: priorWeight, NoiseFilter: true, TiltConstrain: true},
+		settings:  pd.Settings{PriorWeight: priorWeight, NoiseFilter: true, TiltConstrain: true, Gamma: gamma},
 	}
 	f := math.Pow(dr, 5.0/3)
 	p.scale = make([]float64, s.Modes)

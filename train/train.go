@@ -13,18 +13,20 @@ import (
 
 // Config sets up a training run.
 type Config struct {
-	Steps       int       // optimiser steps in all (warm start included)
-	Batch       int       // bursts per step
-	LR          float64   // peak Adam step size; 0 uses 1e-3
-	Warmup      int       // steps of linear warm-up; 0 uses min(100, Steps/10)
-	MinLR       float64   // final step size as a fraction of LR (cosine decay); 0 uses 0.05
-	ClipNorm    float64   // clip the global gradient norm to this; 0 = no clipping
-	PriorWeight float64   // weight of the Kolmogorov prior against the normalised metric; 0 uses 1
-	WarmStart   int       // first steps supervised on simulated truth (needs truth); 0 = none
-	Seed        uint64    // weights, data order
-	Workers     int       // goroutines for the per-burst work; 0 = all cores
-	Arch        *net.Arch // nil uses net.DefaultArch(Modes)
-	Reuse       int       // uses of each simulated burst (Job's data stream; recorded for resume)
+	Steps       int        // optimiser steps in all (warm start included)
+	Batch       int        // bursts per step
+	LR          float64    // peak Adam step size; 0 uses 1e-3
+	Warmup      int        // steps of linear warm-up; 0 uses min(100, Steps/10)
+	MinLR       float64    // final step size as a fraction of LR (cosine decay); 0 uses 0.05
+	ClipNorm    float64    // clip the global gradient norm to this; 0 = no clipping
+	PriorWeight float64    // weight of the Kolmogorov prior against the normalised metric; 0 uses 1
+	WarmStart   int        // first steps supervised on simulated truth (needs truth); 0 = none
+	Seed        uint64     // weights, data order
+	Workers     int        // goroutines for the per-burst work; 0 = all cores
+	Arch        *net.Arch  // nil uses net.DefaultArch(Modes); ignored with Init
+	Init        *net.Model // start from these weights (fine-tuning) instead of drawing them from Seed; must match the setup
+	Gamma       float64    // noise-filter regulariser of the metric (pd.Settings.Gamma); 0 uses 1e-6
+	Reuse       int        // uses of each simulated burst (Job's data stream; recorded for resume)
 }
 
 func (c *Config) fill() error {
@@ -43,10 +45,13 @@ func (c *Config) fill() error {
 	if c.PriorWeight == 0 {
 		c.PriorWeight = 0.01
 	}
+	if c.Gamma == 0 {
+		c.Gamma = 1e-6
+	}
 	if c.Workers <= 0 {
 		c.Workers = runtime.GOMAXPROCS(0)
 	}
-	if !(c.LR > 0) || c.Warmup < 0 || c.MinLR < 0 || c.MinLR > 1 || c.ClipNorm < 0 || c.PriorWeight < 0 || c.WarmStart < 0 {
+	if !(c.LR > 0) || c.Warmup < 0 || c.MinLR < 0 || c.MinLR > 1 || c.ClipNorm < 0 || c.PriorWeight < 0 || !(c.Gamma > 0) || c.WarmStart < 0 {
 		return fmt.Errorf("train: invalid settings %+v", *c)
 	}
 	return nil
@@ -112,14 +117,29 @@ type adamState struct {
 	M, V [][]float64
 }
 
-// New starts a run with fresh weights drawn from cfg.Seed.
+// New starts a run with fresh weights drawn from cfg.Seed, or from cfg.Init
+// (whose optics, patch, basis and mode count must match setup; the weights
+// are trained in place).
 func New(setup Setup, cfg Config, src Source) (*Trainer, error) {
 	if err := cfg.fill(); err != nil {
 		return nil, err
 	}
-	prob, err := newProblem(setup, cfg.PriorWeight)
+	prob, err := newProblem(setup, cfg.PriorWeight, cfg.Gamma)
 	if err != nil {
 		return nil, err
+	}
+	if m := cfg.Init; m != nil {
+		if err := m.Meta.Compatible(setup.Meta()); err != nil {
+			return nil, fmt.Errorf("train: starting weights: %w", err)
+		}
+		if m.Arch.Modes != setup.Modes {
+			return nil, fmt.Errorf("train: starting weights have %d outputs, the setup %d modes", m.Arch.Modes, setup.Modes)
+		}
+		cfg.Init = nil // the checkpoints hold the weights from here on
+		tr := m.Meta.Training
+		m.Meta = setup.Meta()
+		m.Meta.Training = tr
+		return newTrainer(prob, cfg, m, src)
 	}
 	arch := net.DefaultArch(setup.Modes)
 	if cfg.Arch != nil {

@@ -5,6 +5,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"pdwave/model/fft"
@@ -280,5 +281,85 @@ func TestLossGradientMatchesFiniteDifferences(t *testing.T) {
 		}
 		t.Logf("supervised=%v: %d weights, worst relative difference %.2g", supervised, checked, worst)
 		tr.Close()
+	}
+}
+
+// Fine-tuning: a run started from saved weights (Config.Init) scores exactly
+// as those weights do before its first step, continues to learn, and weights
+// made for other optics are refused.
+func TestInitContinuesFromWeights(t *testing.T) {
+	first, src := newToyTrainer(t, Config{Steps: 40, Batch: 4, LR: 1e-2, Warmup: 5, Seed: 1, Workers: 2})
+	defer first.Close()
+	val, err := FetchSet(toySource{prob: src.prob, seed: 99}, 12)
+	if err != nil {
+		t.Fatal(err)
+	}
+	untrained, err := first.Validate(val)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	if _, err := first.Run(RunOptions{Out: dir}); err != nil {
+		t.Fatal(err)
+	}
+	trained, err := first.Validate(val)
+	if err != nil {
+		t.Fatal(err)
+	}
+	init, err := net.Load(filepath.Join(dir, WeightsFile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg := Config{Steps: 20, Batch: 4, LR: 3e-3, Warmup: 2, Seed: 4, Workers: 2, Init: init}
+	second, err := New(testSetup(), cfg, toySource{prob: src.prob, seed: 5})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer second.Close()
+	start, err := second.Validate(val)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if start.Loss != trained.Loss {
+		t.Fatalf("fine-tuning starts at loss %v, the saved weights score %v", start.Loss, trained.Loss)
+	}
+	if untrained.Loss == trained.Loss {
+		t.Fatal("fresh weights score like the trained ones; the test cannot tell them apart")
+	}
+	end, err := second.Run(RunOptions{Out: t.TempDir(), Validation: val})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("fresh %.4f, after 40 steps %.4f, after 20 more %.4f", untrained.Loss, trained.Loss, end.Loss)
+	if !(end.Loss < untrained.Loss) {
+		t.Errorf("fine-tuned loss %.4f not below fresh weights' %.4f", end.Loss, untrained.Loss)
+	}
+
+	other := testSetup()
+	other.Telescope.Wavelength = 700e-9
+	if _, err := New(other, Config{Steps: 1, Batch: 1, Init: init}, nil); err == nil || !strings.Contains(err.Error(), "wavelength") {
+		t.Errorf("weights for 600 nm accepted for a 700 nm setup (err %v)", err)
+	}
+}
+
+// The metric's noise-filter regulariser reaches the loss: the same batch
+// scores differently under Gamma 1e-6 and 1e-2.
+func TestGammaReachesLoss(t *testing.T) {
+	var loss [2]float64
+	for i, g := range []float64{1e-6, 1e-2} {
+		tr, _ := newToyTrainer(t, Config{Steps: 1, Batch: 4, Seed: 2, Workers: 1, Gamma: g})
+		val, err := FetchSet(toySource{prob: tr.prob, seed: 9}, 4)
+		if err != nil {
+			t.Fatal(err)
+		}
+		v, err := tr.Validate(val)
+		tr.Close()
+		if err != nil {
+			t.Fatal(err)
+		}
+		loss[i] = v.Loss
+	}
+	if loss[0] == loss[1] || math.IsNaN(loss[0]) || math.IsNaN(loss[1]) {
+		t.Errorf("loss %v under Gamma 1e-6 and %v under 1e-2", loss[0], loss[1])
 	}
 }

@@ -248,6 +248,9 @@ func TestBadInput(t *testing.T) {
 		// train
 		{"train negative steps", []string{"train", "--site", demoSite, "--out", "OUT/w", "--steps", "-1"}, "steps"},
 		{"train malformed yaml", []string{"train", "--site", p("malformed.yaml"), "--out", "OUT/w"}, "yaml"},
+		{"train missing starting weights", []string{"train", "--site", demoSite, "--init", p("none.safetensors"), "--out", "OUT/w", "--steps", "1"}, "none.safetensors"},
+		{"train garbage starting weights", []string{"train", "--site", demoSite, "--init", p("garbage.safetensors"), "--out", "OUT/w", "--steps", "1"}, "garbage.safetensors"},
+		{"train negative gamma", []string{"train", "--site", demoSite, "--gamma", "-1", "--out", "OUT/w", "--steps", "1"}, "gamma"},
 		{"train empty data folder", []string{"train", "--site", demoSite, "--data", t.TempDir(), "--out", "OUT/w", "--steps", "1"}, "no FITS"},
 		// demo
 		{"demo missing site", []string{"demo", "--site", p("nope.yaml"), "--out", "OUT/demo"}, "nope.yaml"},

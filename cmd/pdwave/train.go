@@ -54,6 +54,8 @@ func init() {
 	f.IntVar(&o.Workers, "workers", 0, "worker goroutines (default: all cores)")
 	f.Float64Var(&o.LR, "lr", 3e-3, "peak learning rate (Adam)")
 	f.Float64Var(&o.Prior, "prior", 0.01, "weight of the turbulence prior in the loss")
+	f.Float64Var(&o.Gamma, "gamma", 1e-6, "noise-filter regulariser of the metric, relative to the image count (the fitter uses 1e-3)")
+	f.StringVar(&o.Init, "init", "", "weights file to start from (fine-tuning, e.g. on your own bursts with --data); default: fresh weights from --seed")
 	f.IntVar(&o.Reuse, "reuse", 4, "uses of each simulated burst under flips and rotations (1–8)")
 	f.IntVar(&o.Validation, "validation", 32, "validation bursts simulated at the median seeing (-1 = none)")
 	f.DurationVar(&o.MaxWall, "max-wall", 0, "stop after this much wall time, checkpointed (e.g. 55m); 0 = no limit")
