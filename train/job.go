@@ -34,9 +34,14 @@ type Job struct {
 	Reuse      int           // uses of each simulated burst under flips/rotations (1–8); 0 uses 4
 	Validation int           // validation bursts (simulated at the median r0, with truth); 0 uses 32, < 0 none
 	MaxWall    time.Duration // stop after this much wall time (checkpointed; resume later); 0 = none
-	Progress   io.Writer     // progress lines; nil = none
-	Command    string        // command line, recorded in the weights
-	Version    string        // program version, recorded in the weights
+	// Referee, if set, builds the classical fit that validation scores the
+	// network against on the first RefereeBursts validation bursts (0 uses
+	// 8; < 0 none).
+	Referee       func(Setup) (Referee, error)
+	RefereeBursts int
+	Progress      io.Writer // progress lines; nil = none
+	Command       string    // command line, recorded in the weights
+	Version       string    // program version, recorded in the weights
 }
 
 // Run executes the job and returns the last validation.
@@ -87,9 +92,6 @@ func (j Job) Run() (Validation, error) {
 		if err := init.Meta.Compatible(setup.Meta()); err != nil {
 			return Validation{}, fmt.Errorf("train: starting weights %s: %w", j.Init, err)
 		}
-	}
-	if err := os.MkdirAll(j.Out, 0o755); err != nil {
-		return Validation{}, fmt.Errorf("train: output folder: %w", err)
 	}
 	sim, err := simulate.New(simCfg)
 	if err != nil {
@@ -166,10 +168,19 @@ func (j Job) Run() (Validation, error) {
 		if opts.Validation, err = FetchSet(vsrc, j.Validation); err != nil {
 			return Validation{}, err
 		}
+		if j.Referee != nil && j.RefereeBursts >= 0 {
+			if opts.Referee, err = j.Referee(setup); err != nil {
+				return Validation{}, err
+			}
+			opts.RefereeBursts = j.RefereeBursts
+		}
 	}
 	if j.Progress != nil && res == nil {
 		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
 			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
+	}
+	if err := os.MkdirAll(j.Out, 0o755); err != nil {
+		return Validation{}, fmt.Errorf("train: output folder: %w", err)
 	}
 	return t.Run(opts)
 }

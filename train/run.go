@@ -29,6 +29,8 @@ type RunOptions struct {
 	History         []StepStats   // record carried over from a resumed run
 	Vals            []Validation
 	Seconds         float64 // wall time already spent (resumed runs)
+	Referee         Referee // classical fit to score the network against on part of Validation; nil = none
+	RefereeBursts   int     // validation bursts fitted for the referee; 0 uses 8
 }
 
 // Run trains until all steps are taken (or MaxWall is reached), writing
@@ -55,6 +57,19 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 		last = vals[len(vals)-1]
 	}
 	elapsed := func() float64 { return o.Seconds + time.Since(start).Seconds() }
+	var ref *refereeSet
+	if o.Referee != nil && o.Validation != nil {
+		if o.RefereeBursts <= 0 {
+			o.RefereeBursts = 8
+		}
+		if o.Progress != nil {
+			fmt.Fprintf(o.Progress, "fitting %d validation bursts classically, to score the network against\n", min(o.RefereeBursts, len(o.Validation)))
+		}
+		var err error
+		if ref, err = newRefereeSet(o.Referee, o.Validation, o.RefereeBursts); err != nil {
+			return last, err
+		}
+	}
 	validate := func() error {
 		if o.Validation == nil {
 			return nil
@@ -62,6 +77,11 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 		v, err := t.Validate(o.Validation)
 		if err != nil {
 			return err
+		}
+		if ref != nil {
+			if err := ref.score(t, &v); err != nil {
+				return err
+			}
 		}
 		vals = append(vals, v)
 		last = v
@@ -140,6 +160,7 @@ func (t *Trainer) recordSettings(v Validation, seconds float64) {
 	m.Training["min_lr"] = f(c.MinLR)
 	m.Training["clip_norm"] = f(c.ClipNorm)
 	m.Training["prior_weight"] = f(c.PriorWeight)
+	m.Training["gamma"] = f(c.Gamma)
 	m.Training["warm_start"] = strconv.Itoa(c.WarmStart)
 	m.Training["seed"] = strconv.FormatUint(c.Seed, 10)
 	m.Training["r0_median_m"] = f(t.prob.setup.R0)
@@ -152,6 +173,11 @@ func (t *Trainer) recordSettings(v Validation, seconds float64) {
 		}
 		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
 			m.Training["val_err_noll_2_21"] = f(e)
+		}
+		if v.FitBursts > 0 {
+			m.Training["val_fit_bursts"] = strconv.Itoa(v.FitBursts)
+			m.Training["val_fit_ratio_median"] = f(v.FitRatioMedian)
+			m.Training["val_fit_within_1.5"] = f(v.FitWithin)
 		}
 	}
 }
@@ -172,6 +198,10 @@ func (v Validation) Summary() string {
 	} else {
 		s += ")"
 	}
+	if v.FitBursts > 0 {
+		s += fmt.Sprintf("; against the classical fit (%d bursts): objective ×%.2f (median), %.0f %% within ×%.1f",
+			v.FitBursts, v.FitRatioMedian, 100*v.FitWithin, RefereeTolerance)
+	}
 	return s
 }
 
@@ -188,7 +218,7 @@ func recentLoss(h []StepStats, n int) float64 {
 
 func historyCSV(h []StepStats, vals []Validation) []byte {
 	var b bytes.Buffer
-	b.WriteString("step,supervised,loss,metric,prior,lr,grad_norm,skipped,val_loss,val_loss_zero,val_loss_truth,val_err_2_10,val_err_2_21\n")
+	b.WriteString("step,supervised,loss,metric,prior,lr,grad_norm,skipped,val_loss,val_loss_zero,val_loss_truth,val_err_2_10,val_err_2_21,val_fit_ratio_median,val_fit_within\n")
 	vi := 0
 	for _, st := range h {
 		fmt.Fprintf(&b, "%d,%t,%.6g,%.6g,%.6g,%.4g,%.4g,%d", st.Step+1, st.Supervised, st.Loss, st.Metric, st.Prior, st.LR, st.GradNorm, st.Skipped)
@@ -197,9 +227,14 @@ func historyCSV(h []StepStats, vals []Validation) []byte {
 		}
 		if vi < len(vals) && vals[vi].Step == st.Step+1 {
 			v := vals[vi]
-			fmt.Fprintf(&b, ",%.6g,%.6g,%.6g,%.4g,%.4g\n", v.Loss, v.LossZero, v.LossTruth, v.ErrFrac(2, 10), v.ErrFrac(2, 21))
+			fmt.Fprintf(&b, ",%.6g,%.6g,%.6g,%.4g,%.4g", v.Loss, v.LossZero, v.LossTruth, v.ErrFrac(2, 10), v.ErrFrac(2, 21))
+			if v.FitBursts > 0 {
+				fmt.Fprintf(&b, ",%.4g,%.4g\n", v.FitRatioMedian, v.FitWithin)
+			} else {
+				b.WriteString(",,\n")
+			}
 		} else {
-			b.WriteString(",,,,,\n")
+			b.WriteString(",,,,,,,\n")
 		}
 	}
 	return b.Bytes()

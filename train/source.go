@@ -70,7 +70,13 @@ func NewFolderSource(dir string, patch, frames int, seed uint64) (*FolderSource,
 		return nil, fmt.Errorf("burst folder %s holds no FITS files (.fits, .fit, .fts)", dir)
 	}
 	sort.Strings(files)
-	return &FolderSource{Files: files, Patch: patch, Frames: frames, Seed: seed, cache: map[string]*burst.Burst{}}, nil
+	s := &FolderSource{Files: files, Patch: patch, Frames: frames, Seed: seed, cache: map[string]*burst.Burst{}}
+	// The first file is read now, so that a folder of the wrong kind of
+	// bursts is reported before any output is written.
+	if _, err := s.read(files[0]); err != nil {
+		return nil, err
+	}
+	return s, nil
 }
 
 func (s *FolderSource) read(path string) (*burst.Burst, error) {

@@ -137,9 +137,11 @@ func TestFolderSource(t *testing.T) {
 	if _, err := NewFolderSource(t.TempDir(), 16, 3, 1); err == nil {
 		t.Error("empty folder accepted")
 	}
-	small, _ := NewFolderSource(dir, 32, 3, 1)
-	if _, err := small.Get(0); err == nil {
-		t.Error("burst smaller than the patch accepted")
+	if _, err := NewFolderSource(dir, 32, 3, 1); err == nil {
+		t.Error("bursts smaller than the patch accepted")
+	}
+	if _, err := NewFolderSource(dir, 16, 99, 1); err == nil {
+		t.Error("bursts with fewer frames than training uses accepted")
 	}
 }
 

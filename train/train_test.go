@@ -1,6 +1,7 @@
 package train
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -361,5 +362,97 @@ func TestGammaReachesLoss(t *testing.T) {
 	}
 	if loss[0] == loss[1] || math.IsNaN(loss[0]) || math.IsNaN(loss[1]) {
 		t.Errorf("loss %v under Gamma 1e-6 and %v under 1e-2", loss[0], loss[1])
+	}
+}
+
+// truthReferee stands in for the classical fit: it "fits" a burst by
+// returning its true coefficients and scores with the training metric, so
+// that its ratios can be checked against Validation.Loss / LossTruth.
+type truthReferee struct {
+	t    *Trainer
+	set  []*Sample
+	w    *worker
+	flat []float64
+}
+
+func (r *truthReferee) Fit(data [][][]float64) ([][]float64, error) {
+	for _, s := range r.set {
+		if &s.Data[0][0][0] != &data[0][0][0] {
+			continue
+		}
+		if err := r.w.truthNative(r.t.prob, s.Noll); err != nil {
+			return nil, err
+		}
+		nm := r.t.prob.setup.Modes
+		out := make([][]float64, len(s.Noll))
+		for j := range out {
+			out[j] = append([]float64(nil), r.w.target[j*nm:(j+1)*nm]...)
+		}
+		return out, nil
+	}
+	return nil, fmt.Errorf("burst not in the set")
+}
+
+func (r *truthReferee) Objective(data [][][]float64, coeffs [][]float64) (float64, error) {
+	r.flat = r.flat[:0]
+	for _, c := range coeffs {
+		r.flat = append(r.flat, c...)
+	}
+	if err := r.w.solver.SetData(data); err != nil {
+		return 0, err
+	}
+	return r.w.solver.ValueGrad(nil, r.flat), nil
+}
+
+// The score against a referee is the per-burst objective ratio: on a single
+// burst it equals the validation loss over the loss at the truth, and it
+// falls as the network learns.
+func TestRefereeScore(t *testing.T) {
+	tr, src := newToyTrainer(t, Config{Steps: 40, Batch: 4, LR: 1e-2, Warmup: 5, Seed: 1, Workers: 2})
+	defer tr.Close()
+	set, err := FetchSet(toySource{prob: src.prob, seed: 99}, 6)
+	if err != nil {
+		t.Fatal(err)
+	}
+	one := set[:1]
+	ref := &truthReferee{t: tr, set: set, w: &worker{solver: tr.prob.newSolver(), target: make([]float64, len(tr.work[0].target))}}
+	rs, err := newRefereeSet(ref, one, 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	v, err := tr.Validate(one)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := rs.score(tr, &v); err != nil {
+		t.Fatal(err)
+	}
+	if want := v.Loss / v.LossTruth; v.FitBursts != 1 || math.Abs(v.FitRatioMedian-want) > 1e-12*want {
+		t.Fatalf("ratio on one burst %v (%d bursts), want Loss/LossTruth = %v", v.FitRatioMedian, v.FitBursts, want)
+	}
+	after, err := tr.Run(RunOptions{Out: t.TempDir(), Validation: set, Referee: ref, RefereeBursts: 4, ValidateEvery: 40})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if after.FitBursts != 4 {
+		t.Fatalf("referee scored %d bursts, want 4", after.FitBursts)
+	}
+	t.Logf("after training: objective ×%.3f of the truth's (median), %.0f %% within ×1.5", after.FitRatioMedian, 100*after.FitWithin)
+	untrained, _ := newToyTrainer(t, Config{Steps: 1, Batch: 4, Seed: 1, Workers: 2})
+	defer untrained.Close()
+	u, err := untrained.Validate(set)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rs4, err := newRefereeSet(ref, set, 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := rs4.score(untrained, &u); err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("untrained: objective ×%.3f of the truth's (median)", u.FitRatioMedian)
+	if !(after.FitRatioMedian < u.FitRatioMedian) {
+		t.Errorf("median objective ratio %.3f after training, %.3f before", after.FitRatioMedian, u.FitRatioMedian)
 	}
 }

@@ -21,6 +21,13 @@ type Validation struct {
 	// the burst mean of tip and tilt (j = 2, 3) from both, since the metric
 	// cannot see it. Empty without truth.
 	SqErr, SqTrue []float64
+	// Against the classical fit (RunOptions.Referee), on the first
+	// FitBursts bursts: the median over bursts of the network's objective
+	// divided by the fitted one, and the fraction of bursts where that ratio
+	// is at most RefereeTolerance. Zero without a referee.
+	FitBursts      int
+	FitRatioMedian float64
+	FitWithin      float64
 }
 
 // ErrFrac returns the wavefront error over Noll j = lo..hi as a fraction of

@@ -141,6 +141,8 @@ func TestBadInput(t *testing.T) {
 	const n, frames = 64, 4
 	good := noise(n*n*frames*2, 1)
 	writeFITS(t, p("good.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
+	fewFrames := t.TempDir() // a folder of one 4-frame burst, for training that needs 16
+	writeFITS(t, filepath.Join(fewFrames, "four.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
 	writeFITS(t, p("truncated.fits"), []int{n, n, frames, 2}, good, demoOptics, 2880+1000)
 	writeFITS(t, p("notfits.fits"), nil, nil, nil, 0)
 	if err := os.WriteFile(p("notfits.fits"), []byte("this is not a FITS file\n"), 0o644); err != nil {
@@ -251,6 +253,8 @@ func TestBadInput(t *testing.T) {
 		{"train missing starting weights", []string{"train", "--site", demoSite, "--init", p("none.safetensors"), "--out", "OUT/w", "--steps", "1"}, "none.safetensors"},
 		{"train garbage starting weights", []string{"train", "--site", demoSite, "--init", p("garbage.safetensors"), "--out", "OUT/w", "--steps", "1"}, "garbage.safetensors"},
 		{"train negative gamma", []string{"train", "--site", demoSite, "--gamma", "-1", "--out", "OUT/w", "--steps", "1"}, "gamma"},
+		{"train negative fit check", []string{"train", "--site", demoSite, "--fit-check", "-2", "--out", "OUT/w", "--steps", "1"}, "fit-check"},
+		{"train bursts with too few frames", []string{"train", "--site", demoSite, "--data", fewFrames, "--out", "OUT/w", "--steps", "1"}, "4 frames"},
 		{"train empty data folder", []string{"train", "--site", demoSite, "--data", t.TempDir(), "--out", "OUT/w", "--steps", "1"}, "no FITS"},
 		// demo
 		{"demo missing site", []string{"demo", "--site", p("nope.yaml"), "--out", "OUT/demo"}, "nope.yaml"},
@@ -357,6 +361,19 @@ func TestCommandsEndToEnd(t *testing.T) {
 			t.Errorf("%s lacks the coefficient table header or the row of frame 4", f)
 		}
 	}
+
+	// Fine-tuning the built-in weights for two steps on the simulated
+	// bursts, scored against the classical fit of one validation burst.
+	run("simulate", "--site", site, "--out", p("bursts16"), "--bursts", "2", "--seed", "5")
+	code, _, stderr := runCLI(t, repo, "train", "--site", site, "--data", p("bursts16"), "--init", filepath.Join(repo, "weights", "demo.safetensors"),
+		"--out", p("run"), "--steps", "2", "--batch", "1", "--validation", "2", "--fit-check", "1", "--lr", "1e-6")
+	if code != 0 {
+		t.Fatalf("pdwave train: exit %d\n%s", code, stderr)
+	}
+	if !strings.Contains(stderr, "against the classical fit (1 bursts)") {
+		t.Errorf("train did not report the score against the classical fit:\n%s", stderr)
+	}
+	exists("run/weights.safetensors", "run/loss.png", "run/history.csv")
 
 	// A dark of 50 counts and a flat of mean one with a gentle gradient.
 	const n = 128

@@ -7,6 +7,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"pdwave/infer"
 	"pdwave/train"
 )
 
@@ -33,7 +34,8 @@ writes into DIR:
 A killed run continues exactly where it stopped with --resume (same DIR,
 site and --data). A fixed set of bursts simulated at the site's median seeing
 scores the network as it learns (error per wavefront mode as a fraction of
-the true variance).`,
+the true variance); the first --fit-check of them are also fitted classically
+once, and each validation reports the network's objective against the fit's.`,
 	Args: cobra.NoArgs,
 	RunE: trainRun,
 }
@@ -58,6 +60,7 @@ func init() {
 	f.StringVar(&o.Init, "init", "", "weights file to start from (fine-tuning, e.g. on your own bursts with --data); default: fresh weights from --seed")
 	f.IntVar(&o.Reuse, "reuse", 4, "uses of each simulated burst under flips and rotations (1–8)")
 	f.IntVar(&o.Validation, "validation", 32, "validation bursts simulated at the median seeing (-1 = none)")
+	f.IntVar(&o.RefereeBursts, "fit-check", 8, "validation bursts also fitted classically, to score the network's objective against (0 = none)")
 	f.DurationVar(&o.MaxWall, "max-wall", 0, "stop after this much wall time, checkpointed (e.g. 55m); 0 = no limit")
 	root.AddCommand(trainCmd)
 }
@@ -70,6 +73,13 @@ func trainRun(cmd *cobra.Command, args []string) error {
 	if o.Out == "" {
 		return fmt.Errorf("train: --out is required")
 	}
+	if o.RefereeBursts < 0 {
+		return fmt.Errorf("train: --fit-check %d is negative", o.RefereeBursts)
+	}
+	if o.RefereeBursts == 0 {
+		o.RefereeBursts = -1 // none
+	}
+	o.Referee = newFitReferee
 	o.Progress = os.Stderr
 	o.Command = "pdwave " + strings.Join(os.Args[1:], " ")
 	o.Version = version
@@ -82,4 +92,34 @@ func trainRun(cmd *cobra.Command, args []string) error {
 	}
 	fmt.Fprintf(os.Stderr, "weights written to %s\n", o.Out+string(os.PathSeparator)+train.WeightsFile)
 	return nil
+}
+
+// fitReferee scores training against the classical fit: infer.Fitter with
+// its default settings (those of "pdwave fit"), started from zero.
+type fitReferee struct{ f *infer.Fitter }
+
+func newFitReferee(s train.Setup) (train.Referee, error) {
+	cfg := infer.DefaultConfig()
+	cfg.Telescope = s.Telescope
+	cfg.DiversityPV = []float64{0, s.DiversityPV}
+	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = s.Patch, s.Frames, s.Modes, s.Basis
+	cfg.DOverR0 = s.Telescope.Diameter / s.R0
+	f, err := infer.NewFitter(cfg)
+	if err != nil {
+		return nil, fmt.Errorf("train: classical fit for validation: %w", err)
+	}
+	return fitReferee{f}, nil
+}
+
+func (r fitReferee) Fit(data [][][]float64) ([][]float64, error) {
+	res, err := r.f.Fit(data, nil)
+	if err != nil {
+		return nil, err
+	}
+	return res.Coeffs, nil
+}
+
+func (r fitReferee) Objective(data [][][]float64, coeffs [][]float64) (float64, error) {
+	e, _, err := r.f.Objective(data, coeffs)
+	return e, err
 }
