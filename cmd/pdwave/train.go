@@ -111,6 +111,7 @@ func newFitReferee(s train.Setup) (train.Referee, error) {
 	return fitReferee{f}, nil
 }
 
+// Fit fits the burst classically from zero (train.Referee).
 func (r fitReferee) Fit(data [][][]float64) ([][]float64, error) {
 	res, err := r.f.Fit(data, nil)
 	if err != nil {
@@ -119,6 +120,7 @@ func (r fitReferee) Fit(data [][][]float64) ([][]float64, error) {
 	return res.Coeffs, nil
 }
 
+// Objective is the fitter's objective at coeffs (train.Referee).
 func (r fitReferee) Objective(data [][][]float64, coeffs [][]float64) (float64, error) {
 	e, _, err := r.f.Objective(data, coeffs)
 	return e, err
