@@ -172,3 +172,159 @@ func BenchmarkLearnedVsFitted(b *testing.B) {
 		b.ReportMetric(float64(tF)/float64(tL), "speed-up")
 	}
 }
+
+// BenchmarkLearnedVsFittedField is BenchmarkLearnedVsFitted on the patches
+// of simulated fields instead of single isoplanatic patches: PDWAVE_FIELDS
+// (default 2) fields of 256 × 256 px at the site's median seeing, with
+// anisoplanatism and a scene that runs across the patch edges, cut into
+// 64 px patches without overlap (16 per field), as restore and compare cut
+// real data. Each patch is fitted from zero, independently of the network;
+// the truth is the wavefront at the patch centre. Same metrics as
+// BenchmarkLearnedVsFitted, per patch.
+func BenchmarkLearnedVsFittedField(b *testing.B) {
+	st, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		b.Fatal(err)
+	}
+	var m *net.Model
+	if p := os.Getenv("PDWAVE_WEIGHTS"); p != "" {
+		m, err = net.Load(p)
+	} else {
+		m, err = weights.Default()
+	}
+	if err != nil {
+		b.Fatal(err)
+	}
+	setup, sc, err := train.FromSite(st, m.Arch.Modes, "")
+	if err != nil {
+		b.Fatal(err)
+	}
+	sim, err := simulate.New(sc)
+	if err != nil {
+		b.Fatal(err)
+	}
+	cfg := infer.DefaultConfig()
+	cfg.Telescope = setup.Telescope
+	cfg.DiversityPV = []float64{0, setup.DiversityPV}
+	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
+	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
+	fitter, err := infer.NewFitter(cfg)
+	if err != nil {
+		b.Fatal(err)
+	}
+	est, err := net.NewEstimator(m)
+	if err != nil {
+		b.Fatal(err)
+	}
+	fields := 2
+	if s := os.Getenv("PDWAVE_FIELDS"); s != "" {
+		if _, err := fmt.Sscan(s, &fields); err != nil {
+			b.Fatal(err)
+		}
+	}
+	const size = 256
+	n := setup.Patch
+	type patch struct {
+		data  [2][][]float64
+		truth *burst.Truth
+	}
+	var patches []patch
+	for f := 0; f < fields; f++ {
+		res, err := sim.Field(rand.New(rand.NewPCG(0xf1e1d, uint64(f))), size, size, simulate.Options{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		bu := res.Burst
+		for y0 := 0; y0+n <= size; y0 += n {
+			for x0 := 0; x0+n <= size; x0 += n {
+				var p patch
+				for c := 0; c < 2; c++ {
+					for _, im := range bu.Data[c] {
+						crop := make([]float64, n*n)
+						for y := 0; y < n; y++ {
+							copy(crop[y*n:(y+1)*n], im[(y0+y)*size+x0:(y0+y)*size+x0+n])
+						}
+						p.data[c] = append(p.data[c], crop)
+					}
+				}
+				p.truth = sim.TruthAt(res, float64(x0)+float64(n)/2, float64(y0)+float64(n)/2)
+				patches = append(patches, p)
+			}
+		}
+	}
+	np := len(patches)
+	for b.Loop() {
+		learned := make([][2][][]float64, np)
+		fits := make([]*infer.Result, np)
+		t0 := time.Now()
+		for i, p := range patches {
+			native, noll, err := est.Burst(p.data)
+			if err != nil {
+				b.Fatal(err)
+			}
+			learned[i] = [2][][]float64{native, noll}
+		}
+		tL := time.Since(t0)
+		t0 = time.Now()
+		for i, p := range patches {
+			fr, err := fitter.Fit([][][]float64{p.data[0], p.data[1]}, nil)
+			if err != nil {
+				b.Fatal(err)
+			}
+			fits[i] = fr
+		}
+		tF := time.Since(t0)
+		var l10, f10, l21, f21 float64
+		ratios := make([]float64, 0, np)
+		truthRatios := make([]float64, 0, np)
+		for i, p := range patches {
+			data := [][][]float64{p.data[0], p.data[1]}
+			el, _, err := fitter.Objective(data, learned[i][0])
+			if err != nil {
+				b.Fatal(err)
+			}
+			ef, _, err := fitter.Objective(data, fits[i].Coeffs)
+			if err != nil {
+				b.Fatal(err)
+			}
+			et, _, err := fitter.Objective(data, p.truth.Coeffs)
+			if err != nil {
+				b.Fatal(err)
+			}
+			ratios = append(ratios, el/ef)
+			truthRatios = append(truthRatios, et/ef)
+			for _, c := range []struct {
+				est [][]float64
+				j   int
+				acc *float64
+			}{{learned[i][1], 10, &l10}, {fits[i].Noll, 10, &f10}, {learned[i][1], 21, &l21}, {fits[i].Noll, 21, &f21}} {
+				r, err := infer.ResidualFraction(c.est, p.truth.Noll, c.j)
+				if err != nil {
+					b.Fatal(err)
+				}
+				*c.acc += r / float64(np)
+			}
+		}
+		slices.Sort(ratios)
+		slices.Sort(truthRatios)
+		within := 0
+		for _, r := range ratios {
+			if r <= 1.5 {
+				within++
+			}
+		}
+		b.ReportMetric(float64(np), "patches")
+		b.ReportMetric(float64(within)/float64(np), "within1.5")
+		b.ReportMetric(ratios[np/2], "ratio-med")
+		b.ReportMetric(ratios[(9*np)/10], "ratio-p90")
+		b.ReportMetric(ratios[np-1], "ratio-max")
+		b.ReportMetric(truthRatios[np/2], "truth-med")
+		b.ReportMetric(l10, "learn-e10")
+		b.ReportMetric(f10, "fit-e10")
+		b.ReportMetric(l21, "learn-e21")
+		b.ReportMetric(f21, "fit-e21")
+		b.ReportMetric(float64(tL.Microseconds())/1e3/float64(np), "learn-ms")
+		b.ReportMetric(float64(tF.Microseconds())/1e3/float64(np), "fit-ms")
+		b.ReportMetric(float64(tF)/float64(tL), "speed-up")
+	}
+}

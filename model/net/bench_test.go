@@ -126,3 +126,28 @@ func BenchmarkGraphBurst(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkEstimatorStream is BenchmarkEstimator over 64 different bursts in
+// turn (64 MB of images, more than the caches hold), as when a restoration
+// streams patches: each burst's images come from main memory.
+func BenchmarkEstimatorStream(b *testing.B) {
+	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
+	if err != nil {
+		b.Fatal(err)
+	}
+	e, err := NewEstimator(m)
+	if err != nil {
+		b.Fatal(err)
+	}
+	var ds [64][2][][]float64
+	for i := range ds {
+		ds[i] = randomBurst(16, 64, uint64(i+1))
+	}
+	i := 0
+	cpuLoop(b, func() {
+		if _, _, err := e.Burst(ds[i%len(ds)]); err != nil {
+			b.Fatal(err)
+		}
+		i++
+	})
+}
