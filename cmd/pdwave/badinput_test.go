@@ -141,6 +141,7 @@ func TestBadInput(t *testing.T) {
 	const n, frames = 64, 4
 	good := noise(n*n*frames*2, 1)
 	writeFITS(t, p("good.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
+	writeFITS(t, p("small.fits"), []int{32, 32, frames, 2}, good[:32*32*frames*2], demoOptics, 0)
 	fewFrames := t.TempDir() // a folder of one 4-frame burst, for training that needs 16
 	writeFITS(t, filepath.Join(fewFrames, "four.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
 	writeFITS(t, p("truncated.fits"), []int{n, n, frames, 2}, good, demoOptics, 2880+1000)
@@ -231,6 +232,7 @@ func TestBadInput(t *testing.T) {
 		{"predict garbage weights", []string{"predict", p("good.fits"), "--weights", p("garbage.safetensors"), "--out", "OUT/p.fits"}, "garbage.safetensors"},
 		{"predict other optics", []string{"predict", p("other-optics.fits"), "--out", "OUT/p.fits"}, "0.7"},
 		{"predict no optics", []string{"predict", p("no-optics.fits"), "--out", "OUT/p.fits"}, "optic"},
+		{"predict burst smaller than a patch", []string{"predict", p("small.fits"), "--out", "OUT/p.fits"}, "smaller than"},
 		{"predict truncated", []string{"predict", p("truncated.fits"), "--out", "OUT/p.fits"}, "truncated.fits"},
 		// restore
 		{"restore truncated", []string{"restore", p("truncated.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "truncated.fits"},
@@ -351,7 +353,8 @@ func TestCommandsEndToEnd(t *testing.T) {
 
 	run("fit", p("patch/burst-0001.fits"), "--site", site, "--out", p("fit.fits"), "--iterations", "5")
 	run("predict", p("patch/burst-0001.fits"), "--out", p("pred.fits"))
-	exists("fit.fits", "fit.csv", "pred.fits", "pred.csv")
+	run("predict", p("field/burst-0001.fits"), "--out", p("predfield.csv")) // the central patch of a field
+	exists("fit.fits", "fit.csv", "pred.fits", "pred.csv", "predfield.csv")
 	for _, f := range []string{"fit.csv", "pred.csv"} {
 		b, err := os.ReadFile(p(f))
 		if err != nil {

@@ -27,10 +27,12 @@ var predictOpts struct {
 var predictCmd = &cobra.Command{
 	Use:   "predict BURST --out FILE",
 	Short: "Read the wavefront of every frame of a burst with the trained network",
-	Long: `predict runs the trained network on one burst FITS file (one patch: its
-size must be the patch size the weights were trained for) and writes the
+	Long: `predict runs the trained network on one burst FITS file and writes the
 wavefront coefficients of every frame, in rad, with the burst mean of tip and
-tilt removed (the phase-diversity data cannot show it).
+tilt removed (the phase-diversity data cannot show it). The network reads
+patches of the size its weights were trained for; of a larger burst it reads
+the central patch, as "pdwave fit" does (full fields are the job of
+"pdwave restore").
 
 FILE receives a FITS table COEFFS in the layout of "pdwave fit" (columns
 FRAME, NATIVE = basis coefficients, NOLL = Noll Zernike equivalents j = 2..)
@@ -99,25 +101,33 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		return fmt.Errorf("predict: %s: optics unknown: %s; add the header keywords or give --site", args[0], strings.Join(missing, ", "))
 	}
 	want := net.Meta{Wavelength: opt.Wavelength, PixelScale: opt.PixelScale, Diameter: opt.Diameter,
-		Obscuration: opt.Obscuration, DiversityPV: opt.DiversityPV, Patch: b.Nx}
-	if b.Nx != b.Ny {
-		return fmt.Errorf("predict: %s is %d×%d px; the network reads square %d px patches (use restore for fields)", args[0], b.Nx, b.Ny, m.Meta.Patch)
-	}
+		Obscuration: opt.Obscuration, DiversityPV: opt.DiversityPV}
 	if err := m.Meta.Compatible(want); err != nil {
 		return fmt.Errorf("predict: %s: %w", args[0], err)
 	}
+	n := m.Meta.Patch
+	if b.Nx < n || b.Ny < n {
+		return fmt.Errorf("predict: %s is %d×%d px, smaller than the %d px patches the weights read", args[0], b.Nx, b.Ny, n)
+	}
+	x0, y0 := (b.Nx-n)/2, (b.Ny-n)/2
+	if b.Nx > n || b.Ny > n {
+		fmt.Fprintf(os.Stderr, "burst is %d×%d pixels: reading its central %d×%d patch at (%d, %d); restore full fields with \"pdwave restore\"\n",
+			b.Nx, b.Ny, n, n, x0, y0)
+	}
+	p := b.Patch(x0, y0, n)
 	est, err := net.NewEstimator(m)
 	if err != nil {
 		return err
 	}
 	start := time.Now()
-	native, noll, err := est.Burst(b.Data)
+	native, noll, err := est.Burst([2][][]float64{p[0], p[1]})
 	if err != nil {
 		return fmt.Errorf("predict: %s: %w", args[0], err)
 	}
 	elapsed := time.Since(start)
 	settings := map[string]string{"verb": "predict", "burst": filepath.Base(args[0]), "weights": from,
-		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds())}
+		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds()),
+		"patch": fmt.Sprintf("%d px at (%d, %d) of %d×%d", n, x0, y0, b.Nx, b.Ny)}
 	table := &infer.CoefficientTable{Basis: modes.Kind(m.Meta.Basis), Native: native, Noll: noll,
 		Title: "pdwave " + version + " predict", Settings: settings}
 	if strings.EqualFold(filepath.Ext(o.out), ".csv") {
@@ -128,7 +138,9 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		hdu := table.HDU()
 		hdu.Cards = append(hdu.Cards,
 			burst.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
-			burst.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"})
+			burst.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
+			burst.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
+			burst.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
 		primary := &burst.Image{Cards: burst.Provenance(version, settings)}
 		if err := burst.WriteFile(o.out, primary, hdu); err != nil {
 			return err
@@ -138,7 +150,7 @@ func predictRun(cmd *cobra.Command, args []string) error {
 			return err
 		}
 	}
-	fmt.Fprintf(os.Stderr, "predicted %d frames × %d %s modes in %s with weights %s\n",
+	fmt.Fprintf(os.Stderr, "predicted %d frames × %d %s modes in %s (one burst, set-up included) with weights %s\n",
 		len(native), len(native[0]), m.Meta.Basis, elapsed.Round(time.Microsecond), from)
 	return nil
 }
