@@ -206,6 +206,11 @@ func BenchmarkLearnedVsFittedField(b *testing.B) {
 	cfg.DiversityPV = []float64{0, setup.DiversityPV}
 	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
 	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
+	if s := os.Getenv("PDWAVE_FIT_ITER"); s != "" {
+		if _, err := fmt.Sscan(s, &cfg.Stop.Iterations); err != nil || cfg.Stop.Iterations < 1 {
+			b.Fatalf("PDWAVE_FIT_ITER=%q: want a positive iteration count", s)
+		}
+	}
 	fitter, err := infer.NewFitter(cfg)
 	if err != nil {
 		b.Fatal(err)
