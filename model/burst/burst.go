@@ -332,7 +332,7 @@ func decodeBurst(data []byte) (*Burst, error) {
 	ax := ff.hdr.Axes()
 	switch {
 	case len(ax) == 3 || (len(ax) == 4 && ax[3] == 1):
-		return nil, fmt.Errorf("the primary image has one channel only (NAXIS = %d, axes %v); a burst file needs NAXIS = 4 with NAXIS4 = 2 (focused, defocused); for one file per channel use ReadPair", len(ax), ax)
+		return nil, fmt.Errorf("the primary image has one channel only (NAXIS = %d, axes %v); a burst file needs NAXIS = 4 with NAXIS4 = 2 (focused, defocused); files with one channel each are read as a pair (restore --pairs F D)", len(ax), ax)
 	case len(ax) != 4:
 		return nil, fmt.Errorf("the primary image has NAXIS = %d (axes %v); a burst file needs NAXIS = 4: nx, ny, frames, 2 channels", len(ax), ax)
 	case ax[3] != 2:
