@@ -19,12 +19,12 @@ type Config struct {
 	Warmup      int        // steps of linear warm-up; 0 uses min(100, Steps/10)
 	MinLR       float64    // final step size as a fraction of LR (cosine decay); 0 uses 0.05
 	ClipNorm    float64    // clip the global gradient norm to this; 0 = no clipping
-	PriorWeight float64    // weight of the Kolmogorov prior against the normalised metric; 0 uses 1
+	PriorWeight float64    // weight of the Kolmogorov prior against the normalised metric; 0 uses 0.01
 	WarmStart   int        // first steps supervised on simulated truth (needs truth); 0 = none
 	Seed        uint64     // weights, data order
 	Workers     int        // goroutines for the per-burst work; 0 = all cores
 	Arch        *net.Arch  // nil uses net.DefaultArch(Modes); ignored with Init
-	Init        *net.Model // start from these weights (fine-tuning) instead of drawing them from Seed; must match the setup
+	Init        *net.Model `json:"-"` // start from these weights (fine-tuning) instead of drawing them from Seed; must match the setup; not kept in checkpoints (they hold the weights)
 	Gamma       float64    // noise-filter regulariser of the metric (pd.Settings.Gamma); 0 uses 1e-6
 	Reuse       int        // uses of each simulated burst (Job's data stream; recorded for resume)
 }
