@@ -414,9 +414,12 @@ func TestResumeEqualsUninterruptedRun(t *testing.T) {
 	if _, err := Run(context.Background(), f, o, c.Add); err != nil {
 		t.Fatal(err)
 	}
+	// Patches 0..19 had started before the kill; patches already handed to
+	// a worker (Run keeps at most 4 per worker in flight) may have finished
+	// and been journalled too. Everything else is recomputed.
 	redone := int(calls.Load())
-	if redone >= g.Count() || redone < g.Count()-20 {
-		t.Errorf("resume computed %d of %d patches; the journal held up to 20", redone, g.Count())
+	if held := 20 + 4*opt.Workers; redone >= g.Count() || redone < g.Count()-held {
+		t.Errorf("resume computed %d of %d patches; the journal held up to %d", redone, g.Count(), held)
 	}
 	t.Logf("resume recomputed %d of %d patches", redone, g.Count())
 	sameProducts(t, "resumed vs uninterrupted", full, c.Product(fakeMeta(f, opt.Patch, opt.Overlap)))
