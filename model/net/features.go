@@ -401,6 +401,38 @@ func (f *Featurizer) finish(dst []float64, k int, a blockSums, reg float64) {
 	dst[4*plane+k] = a.ti * ir
 }
 
+// finishRun is finish for the nb blocks k0..k0+nb−1 of one block row, from
+// the lane sums the vector kernel left in f.vs (28 per block). The planes
+// are sliced once per run and both ratios share one division
+// (1/q = r/(qr), 1/r = q/(qr)).
+func (f *Featurizer) finishRun(dst []float64, k0, nb int, reg float64) {
+	plane := f.size * f.size
+	d0 := dst[k0 : k0+nb]
+	d1 := dst[plane+k0 : plane+k0+nb]
+	d2 := dst[2*plane+k0 : 2*plane+k0+nb]
+	d3 := dst[3*plane+k0 : 3*plane+k0+nb]
+	d4 := dst[4*plane+k0 : 4*plane+k0+nb]
+	pm := f.pm[k0 : k0+nb]
+	vs := f.vs[:28*nb]
+	for i := range d0 {
+		o := (*[28]float64)(vs[28*i : 28*i+28])
+		a1 := (o[0] + o[1]) + (o[2] + o[3])
+		a2 := (o[4] + o[5]) + (o[6] + o[7])
+		q := 0.5*(a1+a2) + reg
+		r := 0.25*((o[16]+o[17])+(o[18]+o[19])) + pm[i] + reg
+		if q <= 0 || r <= 0 {
+			continue
+		}
+		inv := 1 / (q * r)
+		iq, ir := r*inv, q*inv
+		d0[i] = ((o[8] - o[9]) + (o[10] - o[11])) * iq
+		d1[i] = ((o[12] + o[13]) + (o[14] + o[15])) * iq
+		d2[i] = 0.5 * (a1 - a2) * iq
+		d3[i] = ((o[20] + o[21]) + (o[22] + o[23])) * ir
+		d4[i] = ((o[25] - o[24]) + (o[27] - o[26])) * ir
+	}
+}
+
 // spectralPairs is the inside-block loop of spectral for bins of 2 with n/2
 // even, through the vector kernel. In a block row the blocks left and right
 // of the zero-frequency column (bx = Size/2, summed by blockScalar) have
@@ -426,19 +458,7 @@ func (f *Featurizer) spectralPairs(dst []float64, reg float64) {
 			_ = z[kn0*n+n-kx] + z[kn1*n+n-kx] + z[kn0*n+n-kx-2*nb+1] + z[kn1*n+n-kx-2*nb+1]
 			blockSums2Vec(&f.vs[0], &z[ky0*n+kx], &z[ky1*n+kx], &z[kn0*n+n-kx-1], &z[kn1*n+n-kx-1],
 				&mean[ky0*n+kx], &mean[ky1*n+kx], nb)
-			for i := 0; i < nb; i++ {
-				o := (*[28]float64)(f.vs[28*i : 28*i+28])
-				a := blockSums{
-					a1: (o[0] + o[1]) + (o[2] + o[3]),
-					a2: (o[4] + o[5]) + (o[6] + o[7]),
-					re: (o[8] - o[9]) + (o[10] - o[11]),
-					im: (o[12] + o[13]) + (o[14] + o[15]),
-					p1: (o[16] + o[17]) + (o[18] + o[19]),
-					tr: (o[20] + o[21]) + (o[22] + o[23]),
-					ti: (o[25] - o[24]) + (o[27] - o[26]),
-				}
-				f.finish(dst, by*s+lo+i, a, reg)
-			}
+			f.finishRun(dst, by*s+lo, nb, reg)
 		}
 		if run[1] <= dc && dc < run[2] {
 			f.finish(dst, by*s+dc, f.blockScalar(by, dc), reg)
