@@ -273,10 +273,19 @@ func (L *convLayer) putRow(ci, f, y int, row []float64) {
 	ev := L.in[base : base+n+len(row)&1]
 	od := L.in[base+o1*L.rs : base+o1*L.rs+n]
 	ev2 := ev[:len(od)]
-	for i := range od {
-		v := (*[2]float64)(row[2*i : 2*i+2])
-		ev2[i] = v[0]
-		od[i] = v[1]
+	i := 0
+	for ; i+4 <= len(od); i += 4 {
+		v := (*[8]float64)(row[2*i : 2*i+8])
+		e := (*[4]float64)(ev2[i : i+4])
+		d := (*[4]float64)(od[i : i+4])
+		e[0], d[0] = v[0], v[1]
+		e[1], d[1] = v[2], v[3]
+		e[2], d[2] = v[4], v[5]
+		e[3], d[3] = v[6], v[7]
+	}
+	for ; i < len(od); i++ {
+		ev2[i] = row[2*i]
+		od[i] = row[2*i+1]
 	}
 	if len(row)&1 == 1 {
 		ev[n] = row[2*n]
