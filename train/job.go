@@ -31,6 +31,9 @@ type Job struct {
 	Prior      float64       // prior weight; 0 uses 0.01
 	Gamma      float64       // noise-filter regulariser of the metric; 0 uses 1e-6 (the fitter uses 1e-3)
 	Init       string        // weights file to start from (fine-tuning); "" = fresh weights from Seed
+	Conv       []int         // channels of the convolutions; nil = net.DefaultArch's (ignored with Init)
+	Hidden     int           // per-frame feature count; 0 = net.DefaultArch's
+	Head       int           // head width; 0 = net.DefaultArch's
 	Reuse      int           // uses of each simulated burst under flips/rotations (1–8); 0 uses 4
 	Validation int           // validation bursts (simulated at the median r0, with truth); 0 uses 32, < 0 none
 	MaxWall    time.Duration // stop after this much wall time (checkpointed; resume later); 0 = none
@@ -135,6 +138,22 @@ func (j Job) Run() (Validation, error) {
 		cfg := Config{Steps: j.Steps, Batch: j.Batch, LR: j.LR, PriorWeight: j.Prior, WarmStart: j.WarmStart,
 			Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse, Gamma: j.Gamma}
 		cfg.Init = init
+		if j.Conv != nil || j.Hidden != 0 || j.Head != 0 {
+			a := net.DefaultArch(setup.Modes)
+			if j.Conv != nil {
+				a.Conv = j.Conv
+			}
+			if j.Hidden != 0 {
+				a.Hidden = j.Hidden
+			}
+			if j.Head != 0 {
+				a.Head = j.Head
+			}
+			if err := a.Validate(); err != nil {
+				return Validation{}, fmt.Errorf("train: %w", err)
+			}
+			cfg.Arch = &a
+		}
 		if t, err = New(setup, cfg, src); err != nil {
 			return Validation{}, err
 		}

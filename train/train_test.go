@@ -456,3 +456,28 @@ func TestRefereeScore(t *testing.T) {
 		t.Errorf("median objective ratio %.3f after training, %.3f before", after.FitRatioMedian, u.FitRatioMedian)
 	}
 }
+
+// A job with --conv/--hidden/--head trains and saves that architecture.
+func TestJobArchitecture(t *testing.T) {
+	dir := t.TempDir()
+	j := Job{Site: "../testdata/demo-site.yaml", Out: dir, Steps: 1, Batch: 1, Validation: -1,
+		Conv: []int{4, 6, 8}, Hidden: 12, Head: 10, Modes: 10, Workers: 1}
+	if _, err := j.Run(); err != nil {
+		t.Fatal(err)
+	}
+	m, err := net.Load(filepath.Join(dir, WeightsFile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	a := m.Arch
+	if fmt.Sprint(a.Conv) != "[4 6 8]" || a.Hidden != 12 || a.Head != 10 || a.Modes != 10 {
+		t.Errorf("saved architecture %+v", a)
+	}
+	j.Out, j.Conv = filepath.Join(dir, "bad"), []int{4, 0}
+	if _, err := j.Run(); err == nil {
+		t.Error("a convolution with 0 channels was accepted")
+	}
+	if _, err := os.Stat(j.Out); err == nil {
+		t.Error("the refused job left its output folder behind")
+	}
+}

@@ -255,6 +255,7 @@ func TestBadInput(t *testing.T) {
 		{"train missing starting weights", []string{"train", "--site", demoSite, "--init", p("none.safetensors"), "--out", "OUT/w", "--steps", "1"}, "none.safetensors"},
 		{"train garbage starting weights", []string{"train", "--site", demoSite, "--init", p("garbage.safetensors"), "--out", "OUT/w", "--steps", "1"}, "garbage.safetensors"},
 		{"train negative gamma", []string{"train", "--site", demoSite, "--gamma", "-1", "--out", "OUT/w", "--steps", "1"}, "gamma"},
+		{"train zero-channel convolution", []string{"train", "--site", demoSite, "--conv", "8,0", "--out", "OUT/w", "--steps", "1"}, "0 channels"},
 		{"train negative fit check", []string{"train", "--site", demoSite, "--fit-check", "-2", "--out", "OUT/w", "--steps", "1"}, "fit-check"},
 		{"train bursts with too few frames", []string{"train", "--site", demoSite, "--data", fewFrames, "--out", "OUT/w", "--steps", "1"}, "4 frames"},
 		{"train empty data folder", []string{"train", "--site", demoSite, "--data", t.TempDir(), "--out", "OUT/w", "--steps", "1"}, "no FITS"},
