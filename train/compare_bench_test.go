@@ -42,40 +42,7 @@ import (
 //
 // Run with: go test ./train -run X -bench LearnedVsFitted -benchtime 1x
 func BenchmarkLearnedVsFitted(b *testing.B) {
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		b.Fatal(err)
-	}
-	var m *net.Model
-	if p := os.Getenv("PDWAVE_WEIGHTS"); p != "" {
-		m, err = net.Load(p)
-	} else {
-		m, err = weights.Default()
-	}
-	if err != nil {
-		b.Fatal(err)
-	}
-	setup, sc, err := train.FromSite(st, m.Arch.Modes, "")
-	if err != nil {
-		b.Fatal(err)
-	}
-	sim, err := simulate.New(sc)
-	if err != nil {
-		b.Fatal(err)
-	}
-	cfg := infer.DefaultConfig()
-	cfg.Telescope = setup.Telescope
-	cfg.DiversityPV = []float64{0, setup.DiversityPV}
-	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
-	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
-	fitter, err := infer.NewFitter(cfg)
-	if err != nil {
-		b.Fatal(err)
-	}
-	est, err := net.NewEstimator(m)
-	if err != nil {
-		b.Fatal(err)
-	}
+	_, sim, fitter, est := benchParts(b, 200)
 	n := 8
 	if s := os.Getenv("PDWAVE_BURSTS"); s != "" {
 		if _, err := fmt.Sscan(s, &n); err != nil {
@@ -180,45 +147,13 @@ func BenchmarkLearnedVsFitted(b *testing.B) {
 // the truth is the wavefront at the patch centre. Same metrics as
 // BenchmarkLearnedVsFitted, per patch.
 func BenchmarkLearnedVsFittedField(b *testing.B) {
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		b.Fatal(err)
-	}
-	var m *net.Model
-	if p := os.Getenv("PDWAVE_WEIGHTS"); p != "" {
-		m, err = net.Load(p)
-	} else {
-		m, err = weights.Default()
-	}
-	if err != nil {
-		b.Fatal(err)
-	}
-	setup, sc, err := train.FromSite(st, m.Arch.Modes, "")
-	if err != nil {
-		b.Fatal(err)
-	}
-	sim, err := simulate.New(sc)
-	if err != nil {
-		b.Fatal(err)
-	}
-	cfg := infer.DefaultConfig()
-	cfg.Telescope = setup.Telescope
-	cfg.DiversityPV = []float64{0, setup.DiversityPV}
-	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
-	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
+	iter := 200
 	if s := os.Getenv("PDWAVE_FIT_ITER"); s != "" {
-		if _, err := fmt.Sscan(s, &cfg.Stop.Iterations); err != nil || cfg.Stop.Iterations < 1 {
+		if _, err := fmt.Sscan(s, &iter); err != nil || iter < 1 {
 			b.Fatalf("PDWAVE_FIT_ITER=%q: want a positive iteration count", s)
 		}
 	}
-	fitter, err := infer.NewFitter(cfg)
-	if err != nil {
-		b.Fatal(err)
-	}
-	est, err := net.NewEstimator(m)
-	if err != nil {
-		b.Fatal(err)
-	}
+	setup, sim, fitter, est := benchParts(b, iter)
 	fields := 2
 	if s := os.Getenv("PDWAVE_FIELDS"); s != "" {
 		if _, err := fmt.Sscan(s, &fields); err != nil {
@@ -360,4 +295,47 @@ func timeInterleaved(b *testing.B, n int, predict, fit func(i int)) (perPredict,
 		tF += time.Since(t0)
 	}
 	return tL / time.Duration(chunks*n), tF / time.Duration(n)
+}
+
+// benchParts loads the demo site and the weights under test (PDWAVE_WEIGHTS,
+// else the built-in ones) and returns the training setup, a simulator at
+// the site's median seeing, the classical fitter with the defaults of
+// "pdwave fit" (iteration limit iter) and the network estimator.
+func benchParts(b *testing.B, iter int) (train.Setup, *simulate.Simulator, *infer.Fitter, *net.Estimator) {
+	st, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		b.Fatal(err)
+	}
+	var m *net.Model
+	if p := os.Getenv("PDWAVE_WEIGHTS"); p != "" {
+		m, err = net.Load(p)
+	} else {
+		m, err = weights.Default()
+	}
+	if err != nil {
+		b.Fatal(err)
+	}
+	setup, sc, err := train.FromSite(st, m.Arch.Modes, "")
+	if err != nil {
+		b.Fatal(err)
+	}
+	sim, err := simulate.New(sc)
+	if err != nil {
+		b.Fatal(err)
+	}
+	cfg := infer.DefaultConfig()
+	cfg.Telescope = setup.Telescope
+	cfg.DiversityPV = []float64{0, setup.DiversityPV}
+	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
+	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
+	cfg.Stop.Iterations = iter
+	fitter, err := infer.NewFitter(cfg)
+	if err != nil {
+		b.Fatal(err)
+	}
+	est, err := net.NewEstimator(m)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return setup, sim, fitter, est
 }
