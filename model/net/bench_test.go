@@ -30,14 +30,7 @@ func BenchmarkPredict(b *testing.B) {
 // BenchmarkEstimator measures Estimator.Burst (features, forward pass, Noll
 // equivalents, removal of the mean tip/tilt) for 16 frames of 64×64.
 func BenchmarkEstimator(b *testing.B) {
-	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
-	if err != nil {
-		b.Fatal(err)
-	}
-	e, err := NewEstimator(m)
-	if err != nil {
-		b.Fatal(err)
-	}
+	e := benchEstimator(b)
 	d := randomBurst(16, 64, 1)
 	cpuLoop(b, func() {
 		if _, _, err := e.Burst(d); err != nil {
@@ -131,14 +124,7 @@ func BenchmarkGraphBurst(b *testing.B) {
 // turn (64 MB of images, more than the caches hold), as when a restoration
 // streams patches: each burst's images come from main memory.
 func BenchmarkEstimatorStream(b *testing.B) {
-	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
-	if err != nil {
-		b.Fatal(err)
-	}
-	e, err := NewEstimator(m)
-	if err != nil {
-		b.Fatal(err)
-	}
+	e := benchEstimator(b)
 	var ds [64][2][][]float64
 	for i := range ds {
 		ds[i] = randomBurst(16, 64, uint64(i+1))
@@ -150,4 +136,18 @@ func BenchmarkEstimatorStream(b *testing.B) {
 		}
 		i++
 	})
+}
+
+// benchEstimator returns an Estimator for the default architecture (36
+// modes, demo optics) with weights drawn from seed 1.
+func benchEstimator(b *testing.B) *Estimator {
+	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
+	if err != nil {
+		b.Fatal(err)
+	}
+	e, err := NewEstimator(m)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return e
 }
