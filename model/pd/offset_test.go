@@ -182,3 +182,37 @@ func TestChannelOffsetRecovery(t *testing.T) {
 		})
 	}
 }
+
+// TestOffsetLayout: with FitChannelOffset the parameter vector has
+// 2·(channels−1) more entries, Constrain leaves them alone, ChannelOffset
+// reads them, and a single channel panics (programming error).
+func TestOffsetLayout(t *testing.T) {
+	const n, frames, count = 32, 3, 10
+	pr := makeProblem(t, n, frames, []float64{0, 1, -0.5}, modes.KindKL, count, 0.3, false, 2)
+	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{TiltConstrain: true, FitChannelOffset: true})
+	if got, want := s.NumParams(), frames*count+4; got != want {
+		t.Fatalf("NumParams = %d, want %d", got, want)
+	}
+	a := make([]float64, s.NumParams())
+	for i := range a {
+		a[i] = 0.1 * float64(i%7+1)
+	}
+	nt := frames * count
+	a[nt], a[nt+1], a[nt+2], a[nt+3] = 0.7, -0.4, 0.2, 0.1
+	s.Constrain(a)
+	if dx, dy := s.ChannelOffset(a, 1); dx != 0.7 || dy != -0.4 {
+		t.Errorf("channel 1 offset after Constrain = (%g, %g), want (0.7, −0.4)", dx, dy)
+	}
+	if dx, dy := s.ChannelOffset(a, 2); dx != 0.2 || dy != 0.1 {
+		t.Errorf("channel 2 offset after Constrain = (%g, %g), want (0.2, 0.1)", dx, dy)
+	}
+	if p := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{}); p.NumParams() != nt {
+		t.Errorf("without offsets NumParams = %d, want %d", p.NumParams(), nt)
+	}
+	defer func() {
+		if recover() == nil {
+			t.Error("FitChannelOffset with one channel did not panic")
+		}
+	}()
+	NewSolver(pr.pupil, pr.basis, pr.div[:1], frames, Settings{FitChannelOffset: true})
+}

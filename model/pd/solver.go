@@ -121,10 +121,45 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	if frames < 1 || len(diversity) < 1 {
 		panic(fmt.Sprintf("pd: need frames ≥ 1 and channels ≥ 1, got %d, %d", frames, len(diversity)))
 	}
+	s = withDefaults(s, len(diversity))
+	npix := n * n
+	sv := &Solver{
+		n: n, npix: npix, frames: frames, nch: len(diversity),
+		nimg: frames * len(diversity), count: basis.Count,
+		plan: fft.NewPlan(n, n), set: s,
+	}
+	sv.gamma = s.Gamma * float64(sv.nimg)
+	// Pupil cut-off: the OTF (autocorrelation of the pupil) reaches twice
+	// the pupil radius.
+	sv.cutoff = 2 * pupil.Radius
+	sv.initPupil(pupil, basis, diversity)
+	sv.neg = make([]int, npix)
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			sv.neg[y*n+x] = ((n-y)%n)*n + (n-x)%n
+		}
+	}
+	sv.invVar = make([]float64, basis.Count)
+	sv.tiltModes = TiltModes(basis)
+	sv.tilt = tiltDirections(basis)
+	sv.win = Window(n, s.Window)
+	for _, v := range sv.win {
+		sv.winSum += v
+	}
+	sv.allocBuffers()
+	if s.FitChannelOffset {
+		sv.initOffsets()
+	}
+	return sv
+}
+
+// withDefaults checks s (panicking on a negative prior weight, or on
+// FitChannelOffset with fewer than two channels) and fills in the defaults.
+func withDefaults(s Settings, channels int) Settings {
 	if s.PriorWeight < 0 || math.IsNaN(s.PriorWeight) {
 		panic(fmt.Sprintf("pd: negative prior weight %g", s.PriorWeight))
 	}
-	if s.FitChannelOffset && len(diversity) < 2 {
+	if s.FitChannelOffset && channels < 2 {
 		panic("pd: FitChannelOffset needs at least two channels")
 	}
 	if s.Gamma <= 0 {
@@ -139,104 +174,90 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	if s.Window > 0.5 {
 		s.Window = 0.5
 	}
-	npix := n * n
-	sv := &Solver{
-		n: n, npix: npix, frames: frames, nch: len(diversity),
-		nimg: frames * len(diversity), count: basis.Count,
-		plan: fft.NewPlan(n, n), set: s,
-	}
-	sv.gamma = s.Gamma * float64(sv.nimg)
-	// Pupil cut-off: the OTF (autocorrelation of the pupil) reaches twice
-	// the pupil radius.
-	sv.cutoff = 2 * pupil.Radius
+	return s
+}
+
+// initPupil gathers the transmitting pupil pixels, their amplitude, the
+// modes and the diversities there, and c = Σ A²/N². It panics on an empty
+// pupil or grids of the wrong size.
+func (s *Solver) initPupil(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64) {
+	npix := s.npix
 	for _, i := range pupil.Index {
 		if pupil.Amp[i] > 0 {
-			sv.pidx = append(sv.pidx, i)
-			sv.amp = append(sv.amp, pupil.Amp[i])
-			sv.c += pupil.Amp[i] * pupil.Amp[i]
+			s.pidx = append(s.pidx, i)
+			s.amp = append(s.amp, pupil.Amp[i])
+			s.c += pupil.Amp[i] * pupil.Amp[i]
 		}
 	}
-	if len(sv.pidx) == 0 {
+	if len(s.pidx) == 0 {
 		panic("pd: empty pupil")
 	}
-	sv.c /= float64(npix)
-	np := len(sv.pidx)
-	sv.modes = make([][]float64, basis.Count)
-	for m := range sv.modes {
+	s.c /= float64(npix)
+	np := len(s.pidx)
+	s.modes = make([][]float64, basis.Count)
+	for m := range s.modes {
 		if len(basis.Modes[m]) != npix {
 			panic(fmt.Sprintf("pd: mode %d has %d pixels, want %d", m, len(basis.Modes[m]), npix))
 		}
-		sv.modes[m] = make([]float64, np)
-		for p, i := range sv.pidx {
-			sv.modes[m][p] = basis.Modes[m][i]
+		s.modes[m] = make([]float64, np)
+		for p, i := range s.pidx {
+			s.modes[m][p] = basis.Modes[m][i]
 		}
 	}
-	sv.div = make([][]float64, sv.nch)
+	s.div = make([][]float64, s.nch)
 	for k, d := range diversity {
-		sv.div[k] = make([]float64, np)
+		s.div[k] = make([]float64, np)
 		if d == nil {
 			continue
 		}
 		if len(d) != npix {
 			panic(fmt.Sprintf("pd: diversity %d has %d pixels, want %d", k, len(d), npix))
 		}
-		for p, i := range sv.pidx {
-			sv.div[k][p] = d[i]
+		for p, i := range s.pidx {
+			s.div[k][p] = d[i]
 		}
 	}
-	sv.neg = make([]int, npix)
-	for y := 0; y < n; y++ {
-		for x := 0; x < n; x++ {
-			sv.neg[y*n+x] = ((n-y)%n)*n + (n-x)%n
-		}
+}
+
+// allocBuffers allocates every work buffer, the mask buffers sized for the
+// largest possible mask (the cut-off disc).
+func (s *Solver) allocBuffers() {
+	n, npix, np := s.n, s.npix, len(s.pidx)
+	s.ap = make([]float64, s.frames*s.count)
+	s.scratchGrad = make([]float64, s.frames*s.count)
+	s.phi = make([]float64, np)
+	s.pup = make([][]complex128, s.nimg)
+	s.h = make([][]complex128, s.nimg)
+	s.dm = make([][]complex128, s.nimg)
+	s.sm = make([][]complex128, s.nimg)
+	for i := range s.pup {
+		s.pup[i] = make([]complex128, np)
+		s.h[i] = make([]complex128, npix)
 	}
-	sv.invVar = make([]float64, basis.Count)
-	sv.tiltModes = TiltModes(basis)
-	sv.tilt = tiltDirections(basis)
-	sv.win = Window(n, s.Window)
-	for _, v := range sv.win {
-		sv.winSum += v
+	s.work = make([]complex128, npix)
+	s.work2 = make([]complex128, npix)
+	s.qacc = make([][]float64, s.frames)
+	for j := range s.qacc {
+		s.qacc[j] = make([]float64, np)
 	}
-	sv.ap = make([]float64, frames*basis.Count)
-	sv.scratchGrad = make([]float64, frames*basis.Count)
-	sv.phi = make([]float64, np)
-	sv.pup = make([][]complex128, sv.nimg)
-	sv.h = make([][]complex128, sv.nimg)
-	sv.dm = make([][]complex128, sv.nimg)
-	sv.sm = make([][]complex128, sv.nimg)
-	for i := range sv.pup {
-		sv.pup[i] = make([]complex128, np)
-		sv.h[i] = make([]complex128, npix)
-	}
-	sv.work = make([]complex128, npix)
-	sv.work2 = make([]complex128, npix)
-	sv.qacc = make([][]float64, frames)
-	for j := range sv.qacc {
-		sv.qacc[j] = make([]float64, np)
-	}
-	sv.pw = make([]float64, npix)
-	sv.pw2 = make([]float64, npix)
-	// Mask buffers sized for the largest possible mask (the cut-off disc).
+	s.pw = make([]float64, npix)
+	s.pw2 = make([]float64, npix)
 	maxMask := 0
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
-			if sv.freqRadius(y, x) < sv.cutoff {
+			if s.freqRadius(y, x) < s.cutoff {
 				maxMask++
 			}
 		}
 	}
-	sv.mask = make([]int, 0, maxMask)
-	sv.filt = make([]float64, 0, maxMask)
-	for i := range sv.dm {
-		sv.dm[i] = make([]complex128, 0, maxMask)
-		sv.sm[i] = make([]complex128, maxMask)
+	s.mask = make([]int, 0, maxMask)
+	s.filt = make([]float64, 0, maxMask)
+	for i := range s.dm {
+		s.dm[i] = make([]complex128, 0, maxMask)
+		s.sm[i] = make([]complex128, maxMask)
 	}
-	sv.fhat = make([]complex128, maxMask)
-	sv.bden = make([]float64, maxMask)
-	if s.FitChannelOffset {
-		sv.initOffsets()
-	}
-	return sv
+	s.fhat = make([]complex128, maxMask)
+	s.bden = make([]float64, maxMask)
 }
 
 // initOffsets draws the shift ramps at the pupil pixels and sizes the
@@ -489,13 +510,47 @@ var ErrNoSignal = errors.New("pd: no frequency above the noise floor")
 // SetData loads one patch: data[channel][frame], each N×N row-major. Each
 // image is reduced by its window-weighted mean m (so that w·(d−m) has no
 // zero-frequency component), multiplied by the apodisation window w and
-// transformed; the mean is not added back (DESIGN §3). The noise power is
-// the mean power beyond the diffraction cut-off (zero if the grid has no
-// such frequencies); the metric mask follows Settings.NoiseFilter. It
-// returns an error, leaving the solver without data, if the sizes are wrong,
-// a value is not finite, or the mask is empty. It allocates nothing.
+// transformed; the mean is not added back (adding it back would put a
+// frame-independent image into every frame). The noise power is the mean
+// power beyond the diffraction cut-off plus one frequency pixel (zero if the
+// grid has no such frequencies); the metric mask follows
+// Settings.NoiseFilter. It returns an error, leaving the solver without
+// data, if the sizes are wrong, a value is not finite, or the mask is
+// empty. It allocates nothing.
 func (s *Solver) SetData(data [][][]float64) error {
 	s.hasData = false
+	if err := s.checkData(data); err != nil {
+		return err
+	}
+	s.spectra(data)
+	s.measureNoise()
+	s.smoothPower()
+	s.selectMask()
+	if len(s.mask) == 0 {
+		return ErrNoSignal
+	}
+	s.dpow = 0
+	for i := range s.dm {
+		spec := s.h[i]
+		s.dm[i] = s.dm[i][:len(s.mask)]
+		for q, u := range s.mask {
+			// Exact Hermitian symmetry at the mask.
+			z := 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
+			s.dm[i][q] = z
+			s.dpow += real(z)*real(z) + imag(z)*imag(z)
+		}
+	}
+	if !(s.dpow > 0) {
+		return ErrNoSignal
+	}
+	s.norm = s.dpow / float64(s.nimg)
+	s.hasData = true
+	return nil
+}
+
+// checkData returns an error naming the first wrong size or non-finite
+// value of data.
+func (s *Solver) checkData(data [][][]float64) error {
 	if len(data) != s.nch {
 		return fmt.Errorf("pd: data has %d channels, want %d", len(data), s.nch)
 	}
@@ -514,14 +569,15 @@ func (s *Solver) SetData(data [][][]float64) error {
 			}
 		}
 	}
-	n := s.n
-	// Spectra of all images into h (used here as scratch) and power.
-	for i := range s.pw {
-		s.pw[i] = 0
-	}
+	return nil
+}
+
+// spectra stores the spectra of the windowed, mean-subtracted images in
+// s.h (used here as scratch), their summed power in s.pw and the mean
+// level in s.level.
+func (s *Solver) spectra(data [][][]float64) {
+	clear(s.pw)
 	var level float64
-	var noise float64
-	nNoise := 0
 	for j := 0; j < s.frames; j++ {
 		for k := 0; k < s.nch; k++ {
 			im := data[k][j]
@@ -537,12 +593,19 @@ func (s *Solver) SetData(data [][][]float64) error {
 			}
 			s.plan.Forward(buf, buf)
 			for u, z := range buf {
-				p := real(z)*real(z) + imag(z)*imag(z)
-				s.pw[u] += p
+				s.pw[u] += real(z)*real(z) + imag(z)*imag(z)
 			}
 		}
 	}
 	s.level = level / float64(s.nimg)
+}
+
+// measureNoise sets s.noise, the mean power per image beyond the cut-off
+// plus one frequency pixel.
+func (s *Solver) measureNoise() {
+	n := s.n
+	var noise float64
+	nNoise := 0
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
 			if s.freqRadius(y, x) > s.cutoff+1 {
@@ -556,7 +619,12 @@ func (s *Solver) SetData(data [][][]float64) error {
 	} else {
 		s.noise = 0
 	}
-	// Mean power per image, 3×3 smoothed with wrap-around.
+}
+
+// smoothPower stores in s.pw2 the mean power per image, 3×3 smoothed with
+// wrap-around.
+func (s *Solver) smoothPower() {
+	n := s.n
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
 			var t float64
@@ -569,6 +637,13 @@ func (s *Solver) SetData(data [][][]float64) error {
 			s.pw2[y*n+x] = t / 9 / float64(s.nimg)
 		}
 	}
+}
+
+// selectMask fills s.mask with the non-zero frequencies inside the cut-off
+// (above the noise threshold with NoiseFilter) and s.filt with the
+// restoration filter there.
+func (s *Solver) selectMask() {
+	n := s.n
 	s.mask = s.mask[:0]
 	s.filt = s.filt[:0]
 	thr := s.set.NoiseThreshold * s.noise
@@ -595,26 +670,6 @@ func (s *Solver) SetData(data [][][]float64) error {
 			s.filt = append(s.filt, f)
 		}
 	}
-	if len(s.mask) == 0 {
-		return ErrNoSignal
-	}
-	s.dpow = 0
-	for i := range s.dm {
-		spec := s.h[i]
-		s.dm[i] = s.dm[i][:len(s.mask)]
-		for q, u := range s.mask {
-			// Exact Hermitian symmetry at the mask.
-			z := 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
-			s.dm[i][q] = z
-			s.dpow += real(z)*real(z) + imag(z)*imag(z)
-		}
-	}
-	if !(s.dpow > 0) {
-		return ErrNoSignal
-	}
-	s.norm = s.dpow / float64(s.nimg)
-	s.hasData = true
-	return nil
 }
 
 // Noise returns the noise power per frequency of one windowed image

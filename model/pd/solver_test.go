@@ -245,7 +245,7 @@ func TestMetricZeroAtTruth(t *testing.T) {
 
 // TestCommonTiltInvisible: a tip/tilt common to all frames shifts every
 // PSF by the same amount, S → S·exp(iφ(u)), which the common object absorbs;
-// the metric is invariant (DESIGN §3, last bullet). With TiltConstrain the
+// the metric is invariant (Paxman, Schulz & Fienup 1992). With TiltConstrain the
 // objective is flat along that direction also when a prior is active.
 func TestCommonTiltInvisible(t *testing.T) {
 	const n, frames, count = 32, 4, 10
