@@ -23,7 +23,9 @@
 // projector that removes the burst mean of the tip/tilt component, which the
 // metric cannot see (a tilt common to all frames only shifts the object).
 //
-// The gradient follows DESIGN §3: with G = −M F̂ R*, R = D − F̂ S,
+// The gradient follows from the chain rule through S = F{s}, s = |h|²/c and
+// h = F⁻¹{P} (Paxman, Schulz & Fienup 1992, in these FFT conventions): with
+// G = −M F̂ R*, R = D − F̂ S,
 // g = F{G}, W = F{Re(g)·h}, h = F⁻¹{P}, c = Σ|h|²,
 //
 //	∂L/∂α_m = −4/(c·N²) · Σ_x ψ_m(x) · Im[ P(x) · W*(x) ]
@@ -37,4 +39,15 @@
 // PSFs s_a + i s_b give both OTFs from one complex FFT, and since G is
 // Hermitian, F{G_a + i G_b} = g_a + i g_b. Value and gradient thus cost three
 // FFTs per image instead of four.
+//
+// With Settings.FitChannelOffset the parameters also hold a fixed image
+// shift (δx, δy) in pixels of each channel k ≥ 1 relative to channel 0,
+// common to all frames (camera misregistration). It enters channel k's
+// pupil as the phase ramp θ = −2π(δx·x + δy·y)/N (ShiftPhase), which moves
+// that channel's model images by +δ in the Fourier sense; its gradient is
+// the channel's phase density projected on the ramp, summed over frames.
+// The parameter layout is given by NumParams.
+//
+// An independent numpy implementation (testdata/pdref.py) checks the
+// objective, gradient, noise measurement, mask and object estimate.
 package pd

@@ -42,6 +42,16 @@ type Settings struct {
 	// window, as a fraction of the patch side, per edge; the centre is flat.
 	// 0 uses 0.125; values are clamped to (0, 0.5].
 	Window float64
+	// FitChannelOffset adds a fixed image shift of every channel k ≥ 1
+	// relative to channel 0, common to all frames (the misregistration of
+	// the cameras), to the parameters: the vector becomes frames·modes
+	// wavefront coefficients followed by (δx, δy) in pixels for channels
+	// 1, 2, … (2·(channels−1) values; see NumParams). The shift enters the
+	// pupil of channel k as the phase ramp of ShiftPhase, so it moves that
+	// channel's model images by (δx, δy) pixels (+x = increasing column,
+	// +y = increasing row). There is no prior on the offsets. NewSolver
+	// panics if it is set with fewer than two channels.
+	FitChannelOffset bool
 }
 
 // Solver evaluates the phase-diversity objective for one patch size, basis,
@@ -88,6 +98,10 @@ type Solver struct {
 	tiltModes    [2]int
 	scratchGrad  []float64
 	lastL, lastP float64
+	nOff         int       // number of offset parameters (0 without FitChannelOffset)
+	rx, ry       []float64 // phase per pixel of image shift in x, y at pidx (rad/px)
+	off          []float64 // current channel offsets (px), [2·(k−1) + 0/1]
+	offGrad      []float64 // ∂L/∂offset accumulator (scaled like qacc)
 }
 
 // NewSolver returns a solver for frames frames seen through len(diversity)
@@ -107,21 +121,7 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	if frames < 1 || len(diversity) < 1 {
 		panic(fmt.Sprintf("pd: need frames ≥ 1 and channels ≥ 1, got %d, %d", frames, len(diversity)))
 	}
-	if s.PriorWeight < 0 || math.IsNaN(s.PriorWeight) {
-		panic(fmt.Sprintf("pd: negative prior weight %g", s.PriorWeight))
-	}
-	if s.Gamma <= 0 {
-		s.Gamma = 1e-6
-	}
-	if s.NoiseThreshold <= 0 {
-		s.NoiseThreshold = 3
-	}
-	if s.Window <= 0 {
-		s.Window = 0.125
-	}
-	if s.Window > 0.5 {
-		s.Window = 0.5
-	}
+	s = withDefaults(s, len(diversity))
 	npix := n * n
 	sv := &Solver{
 		n: n, npix: npix, frames: frames, nch: len(diversity),
@@ -132,41 +132,7 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	// Pupil cut-off: the OTF (autocorrelation of the pupil) reaches twice
 	// the pupil radius.
 	sv.cutoff = 2 * pupil.Radius
-	for _, i := range pupil.Index {
-		if pupil.Amp[i] > 0 {
-			sv.pidx = append(sv.pidx, i)
-			sv.amp = append(sv.amp, pupil.Amp[i])
-			sv.c += pupil.Amp[i] * pupil.Amp[i]
-		}
-	}
-	if len(sv.pidx) == 0 {
-		panic("pd: empty pupil")
-	}
-	sv.c /= float64(npix)
-	np := len(sv.pidx)
-	sv.modes = make([][]float64, basis.Count)
-	for m := range sv.modes {
-		if len(basis.Modes[m]) != npix {
-			panic(fmt.Sprintf("pd: mode %d has %d pixels, want %d", m, len(basis.Modes[m]), npix))
-		}
-		sv.modes[m] = make([]float64, np)
-		for p, i := range sv.pidx {
-			sv.modes[m][p] = basis.Modes[m][i]
-		}
-	}
-	sv.div = make([][]float64, sv.nch)
-	for k, d := range diversity {
-		sv.div[k] = make([]float64, np)
-		if d == nil {
-			continue
-		}
-		if len(d) != npix {
-			panic(fmt.Sprintf("pd: diversity %d has %d pixels, want %d", k, len(d), npix))
-		}
-		for p, i := range sv.pidx {
-			sv.div[k][p] = d[i]
-		}
-	}
+	sv.initPupil(pupil, basis, diversity)
 	sv.neg = make([]int, npix)
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
@@ -180,43 +146,138 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	for _, v := range sv.win {
 		sv.winSum += v
 	}
-	sv.ap = make([]float64, frames*basis.Count)
-	sv.scratchGrad = make([]float64, frames*basis.Count)
-	sv.phi = make([]float64, np)
-	sv.pup = make([][]complex128, sv.nimg)
-	sv.h = make([][]complex128, sv.nimg)
-	sv.dm = make([][]complex128, sv.nimg)
-	sv.sm = make([][]complex128, sv.nimg)
-	for i := range sv.pup {
-		sv.pup[i] = make([]complex128, np)
-		sv.h[i] = make([]complex128, npix)
+	sv.allocBuffers()
+	if s.FitChannelOffset {
+		sv.initOffsets()
 	}
-	sv.work = make([]complex128, npix)
-	sv.work2 = make([]complex128, npix)
-	sv.qacc = make([][]float64, frames)
-	for j := range sv.qacc {
-		sv.qacc[j] = make([]float64, np)
+	return sv
+}
+
+// withDefaults checks s (panicking on a negative prior weight, or on
+// FitChannelOffset with fewer than two channels) and fills in the defaults.
+func withDefaults(s Settings, channels int) Settings {
+	if s.PriorWeight < 0 || math.IsNaN(s.PriorWeight) {
+		panic(fmt.Sprintf("pd: negative prior weight %g", s.PriorWeight))
 	}
-	sv.pw = make([]float64, npix)
-	sv.pw2 = make([]float64, npix)
-	// Mask buffers sized for the largest possible mask (the cut-off disc).
+	if s.FitChannelOffset && channels < 2 {
+		panic("pd: FitChannelOffset needs at least two channels")
+	}
+	if s.Gamma <= 0 {
+		s.Gamma = 1e-6
+	}
+	if s.NoiseThreshold <= 0 {
+		s.NoiseThreshold = 3
+	}
+	if s.Window <= 0 {
+		s.Window = 0.125
+	}
+	if s.Window > 0.5 {
+		s.Window = 0.5
+	}
+	return s
+}
+
+// initPupil gathers the transmitting pupil pixels, their amplitude, the
+// modes and the diversities there, and c = Σ A²/N². It panics on an empty
+// pupil or grids of the wrong size.
+func (s *Solver) initPupil(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64) {
+	npix := s.npix
+	for _, i := range pupil.Index {
+		if pupil.Amp[i] > 0 {
+			s.pidx = append(s.pidx, i)
+			s.amp = append(s.amp, pupil.Amp[i])
+			s.c += pupil.Amp[i] * pupil.Amp[i]
+		}
+	}
+	if len(s.pidx) == 0 {
+		panic("pd: empty pupil")
+	}
+	s.c /= float64(npix)
+	np := len(s.pidx)
+	s.modes = make([][]float64, basis.Count)
+	for m := range s.modes {
+		if len(basis.Modes[m]) != npix {
+			panic(fmt.Sprintf("pd: mode %d has %d pixels, want %d", m, len(basis.Modes[m]), npix))
+		}
+		s.modes[m] = make([]float64, np)
+		for p, i := range s.pidx {
+			s.modes[m][p] = basis.Modes[m][i]
+		}
+	}
+	s.div = make([][]float64, s.nch)
+	for k, d := range diversity {
+		s.div[k] = make([]float64, np)
+		if d == nil {
+			continue
+		}
+		if len(d) != npix {
+			panic(fmt.Sprintf("pd: diversity %d has %d pixels, want %d", k, len(d), npix))
+		}
+		for p, i := range s.pidx {
+			s.div[k][p] = d[i]
+		}
+	}
+}
+
+// allocBuffers allocates every work buffer, the mask buffers sized for the
+// largest possible mask (the cut-off disc).
+func (s *Solver) allocBuffers() {
+	n, npix, np := s.n, s.npix, len(s.pidx)
+	s.ap = make([]float64, s.frames*s.count)
+	s.scratchGrad = make([]float64, s.frames*s.count)
+	s.phi = make([]float64, np)
+	s.pup = make([][]complex128, s.nimg)
+	s.h = make([][]complex128, s.nimg)
+	s.dm = make([][]complex128, s.nimg)
+	s.sm = make([][]complex128, s.nimg)
+	for i := range s.pup {
+		s.pup[i] = make([]complex128, np)
+		s.h[i] = make([]complex128, npix)
+	}
+	s.work = make([]complex128, npix)
+	s.work2 = make([]complex128, npix)
+	s.qacc = make([][]float64, s.frames)
+	for j := range s.qacc {
+		s.qacc[j] = make([]float64, np)
+	}
+	s.pw = make([]float64, npix)
+	s.pw2 = make([]float64, npix)
 	maxMask := 0
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
-			if sv.freqRadius(y, x) < sv.cutoff {
+			if s.freqRadius(y, x) < s.cutoff {
 				maxMask++
 			}
 		}
 	}
-	sv.mask = make([]int, 0, maxMask)
-	sv.filt = make([]float64, 0, maxMask)
-	for i := range sv.dm {
-		sv.dm[i] = make([]complex128, 0, maxMask)
-		sv.sm[i] = make([]complex128, maxMask)
+	s.mask = make([]int, 0, maxMask)
+	s.filt = make([]float64, 0, maxMask)
+	for i := range s.dm {
+		s.dm[i] = make([]complex128, 0, maxMask)
+		s.sm[i] = make([]complex128, maxMask)
 	}
-	sv.fhat = make([]complex128, maxMask)
-	sv.bden = make([]float64, maxMask)
-	return sv
+	s.fhat = make([]complex128, maxMask)
+	s.bden = make([]float64, maxMask)
+}
+
+// initOffsets draws the shift ramps at the pupil pixels and sizes the
+// offset buffers. The ramp is taken about the pupil centre (N/2, N/2), the
+// same centre as optics.NewPupil, which makes it free of piston.
+func (s *Solver) initOffsets() {
+	s.nOff = 2 * (s.nch - 1)
+	s.off = make([]float64, s.nOff)
+	s.offGrad = make([]float64, s.nOff)
+	s.rx = make([]float64, len(s.pidx))
+	s.ry = make([]float64, len(s.pidx))
+	ph := make([]float64, s.npix)
+	ShiftPhase(ph, s.n, 1, 0)
+	for p, i := range s.pidx {
+		s.rx[p] = ph[i]
+	}
+	ShiftPhase(ph, s.n, 0, 1)
+	for p, i := range s.pidx {
+		s.ry[p] = ph[i]
+	}
 }
 
 // freqRadius is the distance of frequency pixel (y, x) from zero frequency,
@@ -237,6 +298,13 @@ func (s *Solver) freqRadius(y, x int) float64 {
 func (s *Solver) Size() (n, frames, channels, modes int) {
 	return s.n, s.frames, s.nch, s.count
 }
+
+// NumParams returns the length of the parameter vector taken by ValueGrad,
+// Restore and Constrain: frames·modes wavefront coefficients (rad, frame-
+// major, alpha[j*modes+m]), followed with Settings.FitChannelOffset by the
+// channel offsets (pixels): alpha[frames*modes + 2(k−1)] = δx and
+// alpha[frames*modes + 2(k−1) + 1] = δy of channel k = 1 … channels−1.
+func (s *Solver) NumParams() int { return s.frames*s.count + s.nOff }
 
 // Settings returns the settings in use, defaults filled in.
 func (s *Solver) Settings() Settings { return s.set }
@@ -401,17 +469,18 @@ func tiltDirections(b *modes.Basis) [][]float64 {
 }
 
 // Constrain removes, in place, the burst mean of the tip/tilt component
-// from alpha (frames×modes, frame-major): for each orthonormal tilt
-// direction t, α_j ← α_j − t·(1/J)Σ_j' t·α_j'. It does nothing if the
-// solver was built without TiltConstrain. It panics on a wrong length.
+// from the wavefront part of alpha (length NumParams; the channel offsets
+// are left alone): for each orthonormal tilt direction t,
+// α_j ← α_j − t·(1/J)Σ_j' t·α_j'. It does nothing if the solver was built
+// without TiltConstrain. It panics on a wrong length.
 func (s *Solver) Constrain(alpha []float64) {
-	if len(alpha) != s.frames*s.count {
-		panic(fmt.Sprintf("pd: alpha has length %d, want %d", len(alpha), s.frames*s.count))
+	if len(alpha) != s.NumParams() {
+		panic(fmt.Sprintf("pd: alpha has length %d, want %d", len(alpha), s.NumParams()))
 	}
 	if !s.set.TiltConstrain {
 		return
 	}
-	s.project(alpha)
+	s.project(alpha[:s.frames*s.count])
 }
 
 func (s *Solver) project(a []float64) {
@@ -441,13 +510,47 @@ var ErrNoSignal = errors.New("pd: no frequency above the noise floor")
 // SetData loads one patch: data[channel][frame], each N×N row-major. Each
 // image is reduced by its window-weighted mean m (so that w·(d−m) has no
 // zero-frequency component), multiplied by the apodisation window w and
-// transformed; the mean is not added back (DESIGN §3). The noise power is
-// the mean power beyond the diffraction cut-off (zero if the grid has no
-// such frequencies); the metric mask follows Settings.NoiseFilter. It
-// returns an error, leaving the solver without data, if the sizes are wrong,
-// a value is not finite, or the mask is empty. It allocates nothing.
+// transformed; the mean is not added back (adding it back would put a
+// frame-independent image into every frame). The noise power is the mean
+// power beyond the diffraction cut-off plus one frequency pixel (zero if the
+// grid has no such frequencies); the metric mask follows
+// Settings.NoiseFilter. It returns an error, leaving the solver without
+// data, if the sizes are wrong, a value is not finite, or the mask is
+// empty. It allocates nothing.
 func (s *Solver) SetData(data [][][]float64) error {
 	s.hasData = false
+	if err := s.checkData(data); err != nil {
+		return err
+	}
+	s.spectra(data)
+	s.measureNoise()
+	s.smoothPower()
+	s.selectMask()
+	if len(s.mask) == 0 {
+		return ErrNoSignal
+	}
+	s.dpow = 0
+	for i := range s.dm {
+		spec := s.h[i]
+		s.dm[i] = s.dm[i][:len(s.mask)]
+		for q, u := range s.mask {
+			// Exact Hermitian symmetry at the mask.
+			z := 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
+			s.dm[i][q] = z
+			s.dpow += real(z)*real(z) + imag(z)*imag(z)
+		}
+	}
+	if !(s.dpow > 0) {
+		return ErrNoSignal
+	}
+	s.norm = s.dpow / float64(s.nimg)
+	s.hasData = true
+	return nil
+}
+
+// checkData returns an error naming the first wrong size or non-finite
+// value of data.
+func (s *Solver) checkData(data [][][]float64) error {
 	if len(data) != s.nch {
 		return fmt.Errorf("pd: data has %d channels, want %d", len(data), s.nch)
 	}
@@ -466,14 +569,15 @@ func (s *Solver) SetData(data [][][]float64) error {
 			}
 		}
 	}
-	n := s.n
-	// Spectra of all images into h (used here as scratch) and power.
-	for i := range s.pw {
-		s.pw[i] = 0
-	}
+	return nil
+}
+
+// spectra stores the spectra of the windowed, mean-subtracted images in
+// s.h (used here as scratch), their summed power in s.pw and the mean
+// level in s.level.
+func (s *Solver) spectra(data [][][]float64) {
+	clear(s.pw)
 	var level float64
-	var noise float64
-	nNoise := 0
 	for j := 0; j < s.frames; j++ {
 		for k := 0; k < s.nch; k++ {
 			im := data[k][j]
@@ -489,12 +593,19 @@ func (s *Solver) SetData(data [][][]float64) error {
 			}
 			s.plan.Forward(buf, buf)
 			for u, z := range buf {
-				p := real(z)*real(z) + imag(z)*imag(z)
-				s.pw[u] += p
+				s.pw[u] += real(z)*real(z) + imag(z)*imag(z)
 			}
 		}
 	}
 	s.level = level / float64(s.nimg)
+}
+
+// measureNoise sets s.noise, the mean power per image beyond the cut-off
+// plus one frequency pixel.
+func (s *Solver) measureNoise() {
+	n := s.n
+	var noise float64
+	nNoise := 0
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
 			if s.freqRadius(y, x) > s.cutoff+1 {
@@ -508,7 +619,12 @@ func (s *Solver) SetData(data [][][]float64) error {
 	} else {
 		s.noise = 0
 	}
-	// Mean power per image, 3×3 smoothed with wrap-around.
+}
+
+// smoothPower stores in s.pw2 the mean power per image, 3×3 smoothed with
+// wrap-around.
+func (s *Solver) smoothPower() {
+	n := s.n
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
 			var t float64
@@ -521,6 +637,13 @@ func (s *Solver) SetData(data [][][]float64) error {
 			s.pw2[y*n+x] = t / 9 / float64(s.nimg)
 		}
 	}
+}
+
+// selectMask fills s.mask with the non-zero frequencies inside the cut-off
+// (above the noise threshold with NoiseFilter) and s.filt with the
+// restoration filter there.
+func (s *Solver) selectMask() {
+	n := s.n
 	s.mask = s.mask[:0]
 	s.filt = s.filt[:0]
 	thr := s.set.NoiseThreshold * s.noise
@@ -547,26 +670,6 @@ func (s *Solver) SetData(data [][][]float64) error {
 			s.filt = append(s.filt, f)
 		}
 	}
-	if len(s.mask) == 0 {
-		return ErrNoSignal
-	}
-	s.dpow = 0
-	for i := range s.dm {
-		spec := s.h[i]
-		s.dm[i] = s.dm[i][:len(s.mask)]
-		for q, u := range s.mask {
-			// Exact Hermitian symmetry at the mask.
-			z := 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
-			s.dm[i][q] = z
-			s.dpow += real(z)*real(z) + imag(z)*imag(z)
-		}
-	}
-	if !(s.dpow > 0) {
-		return ErrNoSignal
-	}
-	s.norm = s.dpow / float64(s.nimg)
-	s.hasData = true
-	return nil
 }
 
 // Noise returns the noise power per frequency of one windowed image
@@ -584,42 +687,65 @@ func (s *Solver) DataPower() float64 { return s.norm }
 func (s *Solver) LastTerms() (metric, prior float64) { return s.lastL, s.lastP }
 
 // otfs computes the pupil fields, amplitude PSFs and the OTFs at the mask
-// for the projected coefficients s.ap, then the object estimate F̂ and the
-// denominators, and returns L (unnormalised).
+// for the projected coefficients s.ap (and offsets s.off), then the object
+// estimate F̂ and the denominators, and returns L (unnormalised).
 func (s *Solver) otfs() float64 {
-	m := s.count
-	np := len(s.pidx)
 	for j := 0; j < s.frames; j++ {
-		a := s.ap[j*m : (j+1)*m]
-		phi := s.phi
-		for p := range phi {
-			phi[p] = 0
-		}
-		for k, c := range a {
-			if c == 0 {
-				continue
-			}
-			md := s.modes[k]
-			for p := range phi {
-				phi[p] += c * md[p]
-			}
-		}
+		s.framePhase(j)
 		for k := 0; k < s.nch; k++ {
-			i := j*s.nch + k
-			pf := s.pup[i]
-			dv := s.div[k]
-			h := s.h[i]
-			clear(h)
-			for p := 0; p < np; p++ {
-				sn, cs := math.Sincos(phi[p] + dv[p])
-				z := complex(s.amp[p]*cs, s.amp[p]*sn)
-				pf[p] = z
-				h[s.pidx[p]] = z
-			}
-			s.plan.Inverse(h, h)
+			s.pupilField(j*s.nch+k, k)
 		}
 	}
-	// OTFs, two images per FFT: F{s_a + i s_b}.
+	s.maskedOTFs()
+	return s.estimate()
+}
+
+// framePhase stores in s.phi the wavefront of frame j at the pupil pixels.
+func (s *Solver) framePhase(j int) {
+	m := s.count
+	a := s.ap[j*m : (j+1)*m]
+	phi := s.phi
+	clear(phi)
+	for k, c := range a {
+		if c == 0 {
+			continue
+		}
+		md := s.modes[k]
+		for p := range phi {
+			phi[p] += c * md[p]
+		}
+	}
+}
+
+// pupilField fills the pupil field of image i (channel k) from s.phi, the
+// diversity and, for k ≥ 1 with offsets, the shift ramp, and transforms it
+// into the amplitude PSF s.h[i].
+func (s *Solver) pupilField(i, k int) {
+	pf, dv, h, phi := s.pup[i], s.div[k], s.h[i], s.phi
+	clear(h)
+	if s.nOff > 0 && k > 0 {
+		ox, oy := s.off[2*(k-1)], s.off[2*(k-1)+1]
+		rx, ry := s.rx[:len(phi)], s.ry[:len(phi)]
+		for p := range phi {
+			sn, cs := math.Sincos(phi[p] + dv[p] + ox*rx[p] + oy*ry[p])
+			z := complex(s.amp[p]*cs, s.amp[p]*sn)
+			pf[p] = z
+			h[s.pidx[p]] = z
+		}
+	} else {
+		for p := range phi {
+			sn, cs := math.Sincos(phi[p] + dv[p])
+			z := complex(s.amp[p]*cs, s.amp[p]*sn)
+			pf[p] = z
+			h[s.pidx[p]] = z
+		}
+	}
+	s.plan.Inverse(h, h)
+}
+
+// maskedOTFs computes the OTFs at the mask, two images per FFT:
+// F{s_a + i s_b}, with exact Hermitian symmetry at the mask.
+func (s *Solver) maskedOTFs() {
 	nm := len(s.mask)
 	ic := 1 / s.c
 	for a := 0; a < s.nimg; a += 2 {
@@ -652,7 +778,12 @@ func (s *Solver) otfs() float64 {
 			}
 		}
 	}
-	// A = Σ D* S (stored conjugated in fhat), B = γ + Σ|S|².
+}
+
+// estimate forms A = Σ D* S (stored conjugated in fhat), B = γ + Σ|S|²,
+// then F̂ = conj(A)/B in fhat, and returns L = Σ|D|² − Σ|A|²/B.
+func (s *Solver) estimate() float64 {
+	nm := len(s.mask)
 	fh := s.fhat[:nm]
 	bd := s.bden[:nm]
 	for q := range fh {
@@ -676,26 +807,36 @@ func (s *Solver) otfs() float64 {
 	return s.dpow - expl
 }
 
+// load copies the parameters into s.ap (projected if TiltConstrain) and
+// s.off. It panics, naming the caller, on a wrong length.
+func (s *Solver) load(alpha []float64, who string) {
+	if len(alpha) != s.NumParams() {
+		panic(fmt.Sprintf("pd: %s: alpha has length %d, want %d", who, len(alpha), s.NumParams()))
+	}
+	nt := s.frames * s.count
+	copy(s.ap, alpha[:nt])
+	copy(s.off, alpha[nt:])
+	if s.set.TiltConstrain {
+		s.project(s.ap)
+	}
+}
+
 // ValueGrad returns the objective E(α) (see the package comment) and, if
 // grad is not nil, stores ∂E/∂α in grad. alpha and grad have length
-// frames·modes, frame-major (alpha[j*modes+m]); grad may not alias alpha.
-// It panics if SetData has not succeeded or on wrong lengths. It allocates
-// nothing.
+// NumParams: frames·modes coefficients, frame-major (alpha[j*modes+m]),
+// then the channel offsets in pixels with Settings.FitChannelOffset; grad
+// may not alias alpha. It panics if SetData has not succeeded or on wrong
+// lengths. It allocates nothing.
 func (s *Solver) ValueGrad(grad, alpha []float64) float64 {
 	if !s.hasData {
 		panic("pd: ValueGrad before a successful SetData")
 	}
-	nt := s.frames * s.count
-	if len(alpha) != nt || (grad != nil && len(grad) != nt) {
-		panic(fmt.Sprintf("pd: alpha/grad length %d/%d, want %d", len(alpha), len(grad), nt))
+	if grad != nil && len(grad) != s.NumParams() {
+		panic(fmt.Sprintf("pd: grad has length %d, want %d", len(grad), s.NumParams()))
 	}
-	copy(s.ap, alpha)
-	if s.set.TiltConstrain {
-		s.project(s.ap)
-	}
+	s.load(alpha, "ValueGrad")
 	L := s.otfs()
-	inorm := 1 / s.norm
-	s.lastL = L * inorm
+	s.lastL = L / s.norm
 	var prior float64
 	w := s.set.PriorWeight
 	m := s.count
@@ -709,60 +850,18 @@ func (s *Solver) ValueGrad(grad, alpha []float64) float64 {
 		prior *= 0.5 * w
 	}
 	s.lastP = prior
-	if grad == nil {
-		return s.lastL + prior
+	if grad != nil {
+		s.gradient(grad)
 	}
-	np := len(s.pidx)
-	nm := len(s.mask)
-	for j := range s.qacc {
-		clear(s.qacc[j])
-	}
-	fh := s.fhat[:nm]
-	scale := -4 / (s.c * float64(s.npix)) * inorm
-	for a := 0; a < s.nimg; a += 2 {
-		b := a + 1
-		clear(s.work)
-		da, sa := s.dm[a], s.sm[a][:nm]
-		if b < s.nimg {
-			db, sb := s.dm[b], s.sm[b][:nm]
-			for q, u := range s.mask {
-				f := fh[q]
-				ga := -f * cmplx.Conj(da[q]-f*sa[q])
-				gb := -f * cmplx.Conj(db[q]-f*sb[q])
-				s.work[u] = ga + complex(-imag(gb), real(gb)) // ga + i·gb
-			}
-		} else {
-			for q, u := range s.mask {
-				f := fh[q]
-				s.work[u] = -f * cmplx.Conj(da[q]-f*sa[q])
-			}
-		}
-		s.plan.Forward(s.work, s.work) // g_a + i g_b (both real)
-		for _, i := range [2]int{a, b} {
-			if i >= s.nimg {
-				break
-			}
-			h := s.h[i]
-			if i == a {
-				for x, z := range h {
-					s.work2[x] = z * complex(real(s.work[x]), 0)
-				}
-			} else {
-				for x, z := range h {
-					s.work2[x] = z * complex(imag(s.work[x]), 0)
-				}
-			}
-			s.plan.Forward(s.work2, s.work2)
-			q := s.qacc[i/s.nch]
-			pf := s.pup[i]
-			for p := 0; p < np; p++ {
-				W := s.work2[s.pidx[p]]
-				P := pf[p]
-				// Im(P·W*) = Im(P)Re(W) − Re(P)Im(W)
-				q[p] += scale * (imag(P)*real(W) - real(P)*imag(W))
-			}
-		}
-	}
+	return s.lastL + prior
+}
+
+// gradient stores ∂E/∂α in grad after otfs: the phase densities from
+// densities, projected on the modes and offset ramps, plus the prior.
+func (s *Solver) gradient(grad []float64) {
+	s.densities()
+	m := s.count
+	w := s.set.PriorWeight
 	for j := 0; j < s.frames; j++ {
 		q := s.qacc[j]
 		g := grad[j*m : (j+1)*m]
@@ -782,29 +881,106 @@ func (s *Solver) ValueGrad(grad, alpha []float64) float64 {
 		}
 	}
 	if s.set.TiltConstrain {
-		s.project(grad)
+		s.project(grad[:s.frames*m])
 	}
-	return s.lastL + prior
+	copy(grad[s.frames*m:], s.offGrad)
 }
 
-// Restore stores in dst (N×N) the object estimate for coefficients alpha:
-// the inverse transform of H·F̂ over the metric's frequencies, where H is
-// the noise filter 1 − noise/power clipped to [0, 1] (1 without a noise
-// measurement), plus the mean data level. The result estimates the
-// apodised object w·(o − m) + m, so it equals the object in the flat centre
-// of the window and fades to the mean level at the edges. It panics if
-// SetData has not succeeded or on wrong lengths; allocates nothing.
+// densities accumulates in s.qacc[j] the derivative of L/P̄ with respect to
+// the phase of frame j at each pupil pixel, summed over channels, and in
+// s.offGrad the derivatives with respect to the channel offsets:
+// ∂L/∂φ = −4/(c·N²)·Im[P·W*] with W = F{Re(F{G})·h}, G = −M F̂ R*.
+func (s *Solver) densities() {
+	nm := len(s.mask)
+	for j := range s.qacc {
+		clear(s.qacc[j])
+	}
+	clear(s.offGrad)
+	fh := s.fhat[:nm]
+	scale := -4 / (s.c * float64(s.npix)) / s.norm
+	for a := 0; a < s.nimg; a += 2 {
+		b := a + 1
+		clear(s.work)
+		da, sa := s.dm[a], s.sm[a][:nm]
+		if b < s.nimg {
+			db, sb := s.dm[b], s.sm[b][:nm]
+			for q, u := range s.mask {
+				f := fh[q]
+				ga := -f * cmplx.Conj(da[q]-f*sa[q])
+				gb := -f * cmplx.Conj(db[q]-f*sb[q])
+				s.work[u] = ga + complex(-imag(gb), real(gb)) // ga + i·gb
+			}
+		} else {
+			for q, u := range s.mask {
+				f := fh[q]
+				s.work[u] = -f * cmplx.Conj(da[q]-f*sa[q])
+			}
+		}
+		s.plan.Forward(s.work, s.work) // g_a + i g_b (both real)
+		s.imageDensity(a, scale, false)
+		if b < s.nimg {
+			s.imageDensity(b, scale, true)
+		}
+	}
+}
+
+// imageDensity adds image i's phase density to its frame's accumulator,
+// taking Re (or Im, if useImag) of s.work as g; for channels k ≥ 1 with
+// offsets it also adds the density's projection on the shift ramps.
+func (s *Solver) imageDensity(i int, scale float64, useImag bool) {
+	h := s.h[i]
+	if useImag {
+		for x, z := range h {
+			s.work2[x] = z * complex(imag(s.work[x]), 0)
+		}
+	} else {
+		for x, z := range h {
+			s.work2[x] = z * complex(real(s.work[x]), 0)
+		}
+	}
+	s.plan.Forward(s.work2, s.work2)
+	q := s.qacc[i/s.nch]
+	pf := s.pup[i]
+	pix := s.pidx[:len(pf)]
+	if k := i % s.nch; s.nOff > 0 && k > 0 {
+		var gx, gy float64
+		rx, ry := s.rx[:len(pf)], s.ry[:len(pf)]
+		for p, P := range pf {
+			W := s.work2[pix[p]]
+			t := scale * (imag(P)*real(W) - real(P)*imag(W))
+			q[p] += t
+			gx += t * rx[p]
+			gy += t * ry[p]
+		}
+		s.offGrad[2*(k-1)] += gx
+		s.offGrad[2*(k-1)+1] += gy
+		return
+	}
+	for p, P := range pf {
+		W := s.work2[pix[p]]
+		// Im(P·W*) = Im(P)Re(W) − Re(P)Im(W)
+		q[p] += scale * (imag(P)*real(W) - real(P)*imag(W))
+	}
+}
+
+// Restore stores in dst (N×N) the object estimate for parameters alpha
+// (length NumParams): the inverse transform of H·F̂ over the metric's
+// frequencies, where H is the noise filter 1 − noise/power clipped to
+// [0, 1] (1 without a noise measurement), plus the mean data level. Its
+// spectrum is exactly zero outside the mask (MaskSize frequencies). The
+// result estimates the apodised object w·(o − m) + m, so it equals the
+// object in the flat centre of the window and fades to the mean level at
+// the edges; with channel offsets it lies on channel 0's pixel grid. It
+// panics if SetData has not succeeded or on wrong lengths; allocates
+// nothing.
 func (s *Solver) Restore(dst, alpha []float64) {
 	if !s.hasData {
 		panic("pd: Restore before a successful SetData")
 	}
-	if len(dst) != s.npix || len(alpha) != s.frames*s.count {
-		panic(fmt.Sprintf("pd: Restore dst/alpha length %d/%d, want %d/%d", len(dst), len(alpha), s.npix, s.frames*s.count))
+	if len(dst) != s.npix {
+		panic(fmt.Sprintf("pd: Restore dst length %d, want %d", len(dst), s.npix))
 	}
-	copy(s.ap, alpha)
-	if s.set.TiltConstrain {
-		s.project(s.ap)
-	}
+	s.load(alpha, "Restore")
 	s.otfs()
 	clear(s.work)
 	for q, u := range s.mask {

@@ -130,10 +130,12 @@ func makeProblem(t testing.TB, n, frames int, pv []float64, kind modes.Kind, cou
 	return pr
 }
 
-// TestGradientFiniteDifference checks the analytic gradient of DESIGN §3
-// against central differences. Source of the check: the derivation in
-// DESIGN §3 (numpy FFT conventions); tolerance 1e-6 relative, as the issue
-// requires (central differences with step 1e-5 rad are accurate to ~1e-9).
+// TestGradientFiniteDifference checks the analytic gradient (Paxman,
+// Schulz & Fienup 1992 chain rule, numpy FFT conventions) against central
+// differences, including the channel-offset parameters. Tolerance 1e-6
+// relative (common practice: central differences with step 1e-5 are
+// accurate to ~1e-9 here); the offsets are checked on their own scale so a
+// wrong offset gradient cannot hide below the largest mode gradient.
 func TestGradientFiniteDifference(t *testing.T) {
 	cases := []struct {
 		name   string
@@ -145,6 +147,8 @@ func TestGradientFiniteDifference(t *testing.T) {
 		{"zernike-2ch", modes.KindZernike, []float64{0, 1}, Settings{}, 3},
 		{"kl-3ch-prior-tilt", modes.KindKL, []float64{0, 1, -0.5}, Settings{PriorWeight: 0.05, TiltConstrain: true, NoiseFilter: true}, 2},
 		{"zernike-1ch", modes.KindZernike, []float64{0.7}, Settings{Gamma: 1e-3}, 3},
+		{"zernike-2ch-offset", modes.KindZernike, []float64{0, 1}, Settings{FitChannelOffset: true}, 3},
+		{"kl-3ch-offset-prior-tilt", modes.KindKL, []float64{0, 1, -0.5}, Settings{PriorWeight: 0.05, TiltConstrain: true, NoiseFilter: true, FitChannelOffset: true}, 2},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -164,14 +168,21 @@ func TestGradientFiniteDifference(t *testing.T) {
 			if err := s.SetData(pr.data); err != nil {
 				t.Fatal(err)
 			}
-			alpha := make([]float64, len(pr.truth))
+			alpha := make([]float64, s.NumParams())
 			for i := range alpha {
-				alpha[i] = pr.truth[i] + 0.3*rng.NormFloat64()
+				alpha[i] = 0.3 * rng.NormFloat64()
+				if i < len(pr.truth) {
+					alpha[i] += pr.truth[i]
+				}
 			}
 			grad := make([]float64, len(alpha))
 			s.ValueGrad(grad, alpha)
+			nt := len(pr.truth)
+			if len(alpha)-nt != 2*(len(c.pv)-1) && c.set.FitChannelOffset {
+				t.Fatalf("NumParams = %d, want %d + 2·(channels−1)", len(alpha), nt)
+			}
 			const h = 1e-5
-			var gmax, emax float64
+			var gmax, emax, omax, oemax float64
 			for i := range alpha {
 				a0 := alpha[i]
 				alpha[i] = a0 + h
@@ -180,17 +191,26 @@ func TestGradientFiniteDifference(t *testing.T) {
 				fm := s.ValueGrad(nil, alpha)
 				alpha[i] = a0
 				fd := (fp - fm) / (2 * h)
-				gmax = math.Max(gmax, math.Abs(grad[i]))
-				emax = math.Max(emax, math.Abs(fd-grad[i]))
+				if i < nt {
+					gmax = math.Max(gmax, math.Abs(grad[i]))
+					emax = math.Max(emax, math.Abs(fd-grad[i]))
+				} else {
+					omax = math.Max(omax, math.Abs(grad[i]))
+					oemax = math.Max(oemax, math.Abs(fd-grad[i]))
+				}
 			}
 			if gmax == 0 {
 				t.Fatal("zero gradient")
 			}
 			if emax/gmax > 1e-6 {
-				t.Errorf("max |fd − analytic| / max|grad| = %.3g, want ≤ 1e-6", emax/gmax)
-			} else {
-				t.Logf("max relative gradient error %.2g (max |grad| %.3g)", emax/gmax, gmax)
+				t.Errorf("modes: max |fd − analytic| / max|grad| = %.3g, want ≤ 1e-6", emax/gmax)
 			}
+			if len(alpha) > nt {
+				if omax == 0 || oemax/omax > 1e-6 {
+					t.Errorf("offsets: max |fd − analytic| = %.3g, max |grad| = %.3g, want ratio ≤ 1e-6", oemax, omax)
+				}
+			}
+			t.Logf("max relative gradient error: modes %.2g (max |grad| %.3g), offsets %.2g (max |grad| %.3g)", emax/gmax, gmax, oemax/math.Max(omax, 1e-300), omax)
 		})
 	}
 }
@@ -225,7 +245,7 @@ func TestMetricZeroAtTruth(t *testing.T) {
 
 // TestCommonTiltInvisible: a tip/tilt common to all frames shifts every
 // PSF by the same amount, S → S·exp(iφ(u)), which the common object absorbs;
-// the metric is invariant (DESIGN §3, last bullet). With TiltConstrain the
+// the metric is invariant (Paxman, Schulz & Fienup 1992). With TiltConstrain the
 // objective is flat along that direction also when a prior is active.
 func TestCommonTiltInvisible(t *testing.T) {
 	const n, frames, count = 32, 4, 10
@@ -342,7 +362,10 @@ func TestRestoreCompactObject(t *testing.T) {
 	}
 }
 
-func benchSolver(tb testing.TB) (*Solver, []float64, []float64) {
+func benchSolver(tb testing.TB) (*Solver, []float64, []float64) { return benchSolverWith(tb, false) }
+
+// benchSolverWith is benchSolver, with channel-offset parameters if offset.
+func benchSolverWith(tb testing.TB, offset bool) (*Solver, []float64, []float64) {
 	const n, frames, count = 64, 16, 36
 	tel := optics.Telescope{Diameter: 0.5, Obscuration: 0.15, FocalRatio: 40, Wavelength: 600e-9,
 		PixelScale: 0.120 / 206264.806}
@@ -356,7 +379,7 @@ func benchSolver(tb testing.TB) (*Solver, []float64, []float64) {
 	}
 	div := [][]float64{nil, make([]float64, n*n)}
 	pup.Defocus(div[1], 1)
-	s := NewSolver(pup, b, div, frames, Settings{PriorWeight: 0.1, NoiseFilter: true, TiltConstrain: true})
+	s := NewSolver(pup, b, div, frames, Settings{PriorWeight: 0.1, NoiseFilter: true, TiltConstrain: true, FitChannelOffset: offset})
 	s.SetPrior(KolmogorovPrior(b, 5))
 	rng := rand.New(rand.NewPCG(1, 2))
 	data := make([][][]float64, 2)
@@ -374,30 +397,41 @@ func benchSolver(tb testing.TB) (*Solver, []float64, []float64) {
 	if err := s.SetData(data); err != nil {
 		tb.Fatal(err)
 	}
-	alpha := make([]float64, frames*count)
+	alpha := make([]float64, s.NumParams())
 	for i := range alpha {
 		alpha[i] = 0.2 * rng.NormFloat64()
 	}
-	return s, alpha, make([]float64, frames*count)
+	return s, alpha, make([]float64, s.NumParams())
 }
 
 // TestValueGradAllocs: value and gradient for 64×64, 16 frames, 2 channels,
-// 36 modes allocate nothing after warm-up (issue requirement).
+// 36 modes allocate nothing after warm-up (issue requirement), with and
+// without the channel-offset parameters.
 func TestValueGradAllocs(t *testing.T) {
-	s, alpha, grad := benchSolver(t)
-	s.ValueGrad(grad, alpha)
-	if a := testing.AllocsPerRun(3, func() { s.ValueGrad(grad, alpha) }); a != 0 {
-		t.Errorf("ValueGrad allocates %v times per call, want 0", a)
-	}
-	dst := make([]float64, 64*64)
-	if a := testing.AllocsPerRun(2, func() { s.Restore(dst, alpha) }); a != 0 {
-		t.Errorf("Restore allocates %v times per call, want 0", a)
+	for _, offset := range []bool{false, true} {
+		s, alpha, grad := benchSolverWith(t, offset)
+		s.ValueGrad(grad, alpha)
+		if a := testing.AllocsPerRun(3, func() { s.ValueGrad(grad, alpha) }); a != 0 {
+			t.Errorf("offset %v: ValueGrad allocates %v times per call, want 0", offset, a)
+		}
+		dst := make([]float64, 64*64)
+		if a := testing.AllocsPerRun(2, func() { s.Restore(dst, alpha) }); a != 0 {
+			t.Errorf("offset %v: Restore allocates %v times per call, want 0", offset, a)
+		}
 	}
 }
 
 // BenchmarkValueGrad: 64×64, 16 frames × 2 channels, 36 KL modes.
 func BenchmarkValueGrad(b *testing.B) {
 	s, alpha, grad := benchSolver(b)
+	b.ReportAllocs()
+	cpuLoop(b, func() { s.ValueGrad(grad, alpha) })
+}
+
+// BenchmarkValueGradOffset: BenchmarkValueGrad with the channel offset
+// fitted (two more parameters).
+func BenchmarkValueGradOffset(b *testing.B) {
+	s, alpha, grad := benchSolverWith(b, true)
 	b.ReportAllocs()
 	cpuLoop(b, func() { s.ValueGrad(grad, alpha) })
 }
