@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"runtime"
+	"strings"
 	"sync"
 	"time"
 
@@ -60,6 +61,10 @@ type Config struct {
 	// measured by cross-correlating the frames of the least-defocused
 	// channel (fits from given coefficients keep theirs).
 	RegisterTilt bool
+	// Chi2Limit is the guard against fits worse than no correction: a fit
+	// whose PriorChi2 exceeds it is refitted with a stronger prior and, if
+	// still above, dropped (see Result.Flags). 0 turns the guard off.
+	Chi2Limit float64
 	// Stages lists increasing numbers of free modes for a coarse-to-fine
 	// fit (each stage starts where the previous ended; the final stage
 	// frees all modes). Empty: one stage.
@@ -83,6 +88,7 @@ func DefaultConfig() Config {
 		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3},
 		Stop:         Stop{Iterations: 200, RelChange: 1e-6},
 		RegisterTilt: true,
+		Chi2Limit:    3,
 	}
 }
 
@@ -100,7 +106,44 @@ type Result struct {
 	Evaluations int           // value+gradient evaluations
 	Elapsed     time.Duration // wall time of the fit
 	Status      string        // why the optimiser stopped
+	Chi2        float64       // PriorChi2 of Coeffs (0 when the guard is off)
+	// ChannelOffset is the fitted image shift (x, y) of channel 2 relative
+	// to channel 1, pixels, with Metric.FitChannelOffset (else zero).
+	ChannelOffset [2]float64
+	Flags       FitFlags      // what the guard found and did
 }
+
+// FitFlags records what the fit's guard (Config.Chi2Limit) found.
+type FitFlags uint8
+
+// The guard's flags.
+const (
+	// FlagImplausible: the first fit's wavefront had PriorChi2 above the limit.
+	FlagImplausible FitFlags = 1 << iota
+	// FlagRefitted: the patch was fitted again with a ten times stronger prior.
+	FlagRefitted
+	// FlagRejected: the refit was still implausible; the correction was
+	// dropped (zero coefficients but the registered tilts).
+	FlagRejected
+)
+
+// String names the flags, "+"-separated ("" for none).
+func (g FitFlags) String() string {
+	var out []string
+	for _, c := range []struct {
+		f    FitFlags
+		name string
+	}{{FlagImplausible, "implausible"}, {FlagRefitted, "refitted"}, {FlagRejected, "rejected"}} {
+		if g&c.f != 0 {
+			out = append(out, c.name)
+		}
+	}
+	return strings.Join(out, "+")
+}
+
+// refitPrior is the weakest prior weight of a guard refit (common practice
+// to start an order of magnitude above the usual weights).
+const refitPrior = 0.01
 
 // Fitter fits patches for one Config. It is safe for concurrent use: each
 // concurrent call takes its own pd.Solver from an internal pool (one
@@ -231,7 +274,7 @@ func (f *Fitter) get() *worker {
 	f.mu.Unlock()
 	s := pd.NewSolver(f.pupil, f.basis, f.div, f.cfg.Frames, f.cfg.Metric)
 	s.SetPrior(f.sigma2)
-	nt := f.cfg.Frames * f.basis.Count
+	nt := s.NumParams()
 	win := f.cfg.Metric.Window
 	if win <= 0 {
 		win = 0.125
@@ -307,6 +350,7 @@ func (f *Fitter) flatten(dst []float64, c [][]float64) error {
 	if len(c) != f.cfg.Frames {
 		return fmt.Errorf("coefficients for %d frames, want %d", len(c), f.cfg.Frames)
 	}
+	clear(dst[f.cfg.Frames*m:]) // channel offsets start at zero
 	for j, row := range c {
 		if len(row) != m {
 			return fmt.Errorf("frame %d has %d coefficients, want %d", j, len(row), m)
@@ -338,13 +382,14 @@ func (f *Fitter) eval(w *worker, x []float64) {
 		}
 	}
 	m := f.basis.Count
+	nc := f.cfg.Frames * m
 	for i, v := range x {
-		w.alpha[i] = v * f.scale[i%m]
+		w.alpha[i] = v * f.scaleAt(i)
 	}
 	w.cacheF = w.s.ValueGrad(w.grad, w.alpha)
 	for i, g := range w.grad {
-		if i%m < w.active {
-			w.cacheG[i] = g * f.scale[i%m]
+		if i >= nc || i%m < w.active {
+			w.cacheG[i] = g * f.scaleAt(i)
 		} else {
 			w.cacheG[i] = 0
 		}
@@ -373,19 +418,42 @@ func (f *Fitter) fit(data [][][]float64, start [][]float64, restore bool) (*Resu
 		}
 	}
 	w.s.Constrain(w.alpha)
-	m := f.basis.Count
-	res := &Result{StartNoll: make([][]float64, f.cfg.Frames)}
-	for j := range res.StartNoll {
-		res.StartNoll[j] = make([]float64, m)
-		f.basis.NollEquivalent(res.StartNoll[j], w.alpha[j*m:(j+1)*m])
-	}
+	res := &Result{StartNoll: f.nollRows(w.alpha)}
 	x0 := make([]float64, len(w.alpha))
+	m := f.basis.Count
 	for i, a := range w.alpha {
-		x0[i] = a / f.scale[i%m]
+		x0[i] = a / f.scaleAt(i)
 	}
-	w.valid, w.evals = false, 0
+	w.evals = 0
 	res.MetricStart = w.s.ValueGrad(nil, w.alpha)
 	res.DataStart, _ = w.s.LastTerms()
+	xBest := f.minimise(w, x0, res)
+	f.setAlpha(w, xBest)
+	if lim := f.cfg.Chi2Limit; lim > 0 {
+		f.guard(w, x0, res, lim)
+	}
+	res.MetricEnd = w.s.ValueGrad(nil, w.alpha)
+	res.DataEnd, _ = w.s.LastTerms()
+	res.Evaluations = w.evals
+	res.Coeffs = make([][]float64, f.cfg.Frames)
+	for j := range res.Coeffs {
+		res.Coeffs[j] = append([]float64(nil), w.alpha[j*m:(j+1)*m]...)
+	}
+	res.Noll = f.nollRows(w.alpha)
+	if f.cfg.Metric.FitChannelOffset {
+		res.ChannelOffset[0], res.ChannelOffset[1] = w.s.ChannelOffset(w.alpha, 1)
+	}
+	if restore {
+		res.Restored = make([]float64, f.cfg.Patch*f.cfg.Patch)
+		w.s.Restore(res.Restored, w.alpha)
+	}
+	res.Elapsed = time.Since(t0)
+	return res, nil
+}
+
+// minimise runs the optimisation stages from the scaled start x0 and
+// returns the best scaled point; it records iterations and status in res.
+func (f *Fitter) minimise(w *worker, x0 []float64, res *Result) []float64 {
 	prob := optimize.Problem{
 		Func: func(x []float64) float64 { f.eval(w, x); return w.cacheF },
 		Grad: func(g, x []float64) { f.eval(w, x); copy(g, w.cacheG) },
@@ -399,8 +467,10 @@ func (f *Fitter) fit(data [][][]float64, start [][]float64, restore bool) (*Resu
 	if st.RelChange > 0 {
 		set.Converger = &optimize.FunctionConverge{Relative: st.RelChange, Iterations: 3}
 	}
+	w.valid = false
 	xBest := x0
-	fBest := res.MetricStart
+	f.setAlpha(w, x0)
+	fBest := w.s.ValueGrad(nil, w.alpha)
 	status := "start"
 	for _, act := range f.stages() {
 		w.active = act
@@ -419,26 +489,107 @@ func (f *Fitter) fit(data [][][]float64, start [][]float64, restore bool) (*Resu
 		}
 	}
 	res.Status = status
-	for i, v := range xBest {
-		w.alpha[i] = v * f.scale[i%m]
+	return xBest
+}
+
+// setAlpha sets w.alpha to the coefficients of the scaled point x, with the
+// tilt constraint applied.
+func (f *Fitter) setAlpha(w *worker, x []float64) {
+	for i, v := range x {
+		w.alpha[i] = v * f.scaleAt(i)
 	}
 	w.s.Constrain(w.alpha)
-	res.MetricEnd = w.s.ValueGrad(nil, w.alpha)
-	res.DataEnd, _ = w.s.LastTerms()
-	res.Evaluations = w.evals
-	res.Coeffs = make([][]float64, f.cfg.Frames)
-	res.Noll = make([][]float64, f.cfg.Frames)
-	for j := range res.Coeffs {
-		res.Coeffs[j] = append([]float64(nil), w.alpha[j*m:(j+1)*m]...)
-		res.Noll[j] = make([]float64, m)
-		f.basis.NollEquivalent(res.Noll[j], res.Coeffs[j])
+}
+
+// scaleAt returns the optimiser's scale of parameter i: the prior rms of
+// its mode for wavefront coefficients (rad), 1 px for the channel offsets
+// that follow them.
+func (f *Fitter) scaleAt(i int) float64 {
+	m := f.basis.Count
+	if i >= f.cfg.Frames*m {
+		return 1
 	}
-	if restore {
-		res.Restored = make([]float64, f.cfg.Patch*f.cfg.Patch)
-		w.s.Restore(res.Restored, w.alpha)
+	return f.scale[i%m]
+}
+
+// nollRows returns the Noll-equivalent coefficients of the flat native
+// vector alpha, frames × modes.
+func (f *Fitter) nollRows(alpha []float64) [][]float64 {
+	m := f.basis.Count
+	out := make([][]float64, f.cfg.Frames)
+	for j := range out {
+		out[j] = make([]float64, m)
+		f.basis.NollEquivalent(out[j], alpha[j*m:(j+1)*m])
 	}
-	res.Elapsed = time.Since(t0)
-	return res, nil
+	return out
+}
+
+// PriorChi2 returns the mean of α_m²/σ_m² over the frames and the modes with
+// a finite prior variance (tilts excluded): about 1 for wavefronts drawn
+// from the prior at the expected D/r0, and far above it for a fit that
+// explains model error with large, wrong coefficients. It returns 0 when no
+// mode has a prior. coeffs is frames × modes (native, rad).
+func (f *Fitter) PriorChi2(coeffs [][]float64) float64 {
+	var t float64
+	n := 0
+	for _, row := range coeffs {
+		for k, v := range row {
+			if s2 := f.sigma2[k]; s2 > 0 && !math.IsInf(s2, 1) {
+				t += v * v / s2
+				n++
+			}
+		}
+	}
+	if n == 0 {
+		return 0
+	}
+	return t / float64(n)
+}
+
+// chi2Flat is PriorChi2 of the flat coefficient vector alpha.
+func (f *Fitter) chi2Flat(alpha []float64) float64 {
+	m := f.basis.Count
+	rows := make([][]float64, f.cfg.Frames)
+	for j := range rows {
+		rows[j] = alpha[j*m : (j+1)*m]
+	}
+	return f.PriorChi2(rows)
+}
+
+// guard keeps a fit from silently returning something worse than no
+// correction. If the fitted wavefront is implausible under the turbulence
+// prior (PriorChi2 above lim), the fit is repeated from the start x0 with
+// the prior ten times stronger (FlagRefitted); if that is still
+// implausible, the correction is dropped: the coefficients are set to zero
+// but for the registered tilts of the start (FlagRejected). The worker's
+// prior weight is restored before returning.
+func (f *Fitter) guard(w *worker, x0 []float64, res *Result, lim float64) {
+	res.Chi2 = f.chi2Flat(w.alpha)
+	if res.Chi2 <= lim {
+		return
+	}
+	res.Flags |= FlagImplausible
+	base := w.s.Settings().PriorWeight
+	w.s.SetPriorWeight(max(10*base, refitPrior))
+	xr := f.minimise(w, x0, res)
+	w.s.SetPriorWeight(base)
+	f.setAlpha(w, xr)
+	res.Flags |= FlagRefitted
+	res.Chi2 = f.chi2Flat(w.alpha)
+	if res.Chi2 <= lim {
+		return
+	}
+	res.Flags |= FlagRejected
+	f.setAlpha(w, x0)
+	m := f.basis.Count
+	tilt := pd.TiltModes(f.basis)
+	for i := range w.alpha[:f.cfg.Frames*m] {
+		if k := i % m; k != tilt[0] && k != tilt[1] {
+			w.alpha[i] = 0
+		}
+	}
+	w.s.Constrain(w.alpha)
+	res.Chi2 = f.chi2Flat(w.alpha)
 }
 
 // stages returns the number of free modes in each optimisation stage:

@@ -52,6 +52,16 @@ type Settings struct {
 	// +y = increasing row). There is no prior on the offsets. NewSolver
 	// panics if it is set with fewer than two channels.
 	FitChannelOffset bool
+	// Detrend subtracts from every image, before windowing, the plane
+	// a + b·x + c·y that fits it best in the window-weighted least-squares
+	// sense, instead of only its window-weighted mean. A large-scale
+	// gradient of the scene across the patch breaks the model w·(o⊗s) ≈
+	// (w·o)⊗s at the window's taper, by an amount that grows with the
+	// gradient, and the fit explains that error with wrong wavefronts;
+	// the plane of a blurred image is the plane of the object (moved by the
+	// image motion), so removing it costs the metric little. Restore adds
+	// the mean plane back.
+	Detrend bool
 }
 
 // Solver evaluates the phase-diversity objective for one patch size, basis,
@@ -83,6 +93,10 @@ type Solver struct {
 	dpow         float64        // Σ_u M Σ_jk |D|²
 	norm         float64        // dpow / nimg
 	level        float64        // mean data level, added back by Restore
+	slope        [2]float64     // mean plane slope (x, y) per pixel, added back by Restore (Detrend)
+	wx, wy       []float64      // pixel coordinates about the window's centroid
+	wxx, wxy     float64        // window moments Σw·x², Σw·x·y
+	wyy          float64        // Σw·y²
 	noise        float64        // noise power per frequency (windowed data)
 	ap           []float64      // projected coefficients
 	phi          []float64      // phase of one frame at pidx
@@ -146,6 +160,7 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	for _, v := range sv.win {
 		sv.winSum += v
 	}
+	sv.initPlane()
 	sv.allocBuffers()
 	if s.FitChannelOffset {
 		sv.initOffsets()
@@ -572,24 +587,70 @@ func (s *Solver) checkData(data [][][]float64) error {
 	return nil
 }
 
-// spectra stores the spectra of the windowed, mean-subtracted images in
-// s.h (used here as scratch), their summed power in s.pw and the mean
-// level in s.level.
+// initPlane sets the pixel coordinates about the window's centroid and the
+// window's second moments, for the plane fits of Detrend.
+func (s *Solver) initPlane() {
+	n := s.n
+	var cx, cy float64
+	for p, w := range s.win {
+		cx += w * float64(p%n)
+		cy += w * float64(p/n)
+	}
+	cx /= s.winSum
+	cy /= s.winSum
+	s.wx = make([]float64, s.npix)
+	s.wy = make([]float64, s.npix)
+	for p, w := range s.win {
+		x, y := float64(p%n)-cx, float64(p/n)-cy
+		s.wx[p], s.wy[p] = x, y
+		s.wxx += w * x * x
+		s.wxy += w * x * y
+		s.wyy += w * y * y
+	}
+}
+
+// trend returns the window-weighted mean m of im and, with Detrend, the
+// slopes (bx, by) of the window-weighted least-squares plane
+// m + bx·x + by·y (x, y about the window's centroid, so the mean is
+// orthogonal to the slopes); without Detrend the slopes are zero.
+func (s *Solver) trend(im []float64) (m, bx, by float64) {
+	var sx, sy float64
+	for p, v := range im {
+		w := s.win[p]
+		m += w * v
+		sx += w * v * s.wx[p]
+		sy += w * v * s.wy[p]
+	}
+	m /= s.winSum
+	if !s.set.Detrend {
+		return m, 0, 0
+	}
+	det := s.wxx*s.wyy - s.wxy*s.wxy
+	if !(det > 0) {
+		return m, 0, 0
+	}
+	bx = (s.wyy*sx - s.wxy*sy) / det
+	by = (s.wxx*sy - s.wxy*sx) / det
+	return m, bx, by
+}
+
+// spectra stores the spectra of the windowed images, their mean (or, with
+// Detrend, their plane) subtracted, in s.h (used here as scratch), their
+// summed power in s.pw, the mean level in s.level and the mean slopes in
+// s.slope.
 func (s *Solver) spectra(data [][][]float64) {
 	clear(s.pw)
-	var level float64
+	var level, sx, sy float64
 	for j := 0; j < s.frames; j++ {
 		for k := 0; k < s.nch; k++ {
 			im := data[k][j]
-			var m float64
-			for p, v := range im {
-				m += s.win[p] * v
-			}
-			m /= s.winSum
+			m, bx, by := s.trend(im)
 			level += m
+			sx += bx
+			sy += by
 			buf := s.h[j*s.nch+k]
 			for p, v := range im {
-				buf[p] = complex(s.win[p]*(v-m), 0)
+				buf[p] = complex(s.win[p]*(v-m-bx*s.wx[p]-by*s.wy[p]), 0)
 			}
 			s.plan.Forward(buf, buf)
 			for u, z := range buf {
@@ -597,7 +658,9 @@ func (s *Solver) spectra(data [][][]float64) {
 			}
 		}
 	}
-	s.level = level / float64(s.nimg)
+	inv := 1 / float64(s.nimg)
+	s.level = level * inv
+	s.slope = [2]float64{sx * inv, sy * inv}
 }
 
 // measureNoise sets s.noise, the mean power per image beyond the cut-off
@@ -966,7 +1029,8 @@ func (s *Solver) imageDensity(i int, scale float64, useImag bool) {
 // Restore stores in dst (N×N) the object estimate for parameters alpha
 // (length NumParams): the inverse transform of H·F̂ over the metric's
 // frequencies, where H is the noise filter 1 − noise/power clipped to
-// [0, 1] (1 without a noise measurement), plus the mean data level. Its
+// [0, 1] (1 without a noise measurement), plus the mean data level (and,
+// with Detrend, the mean plane). Its
 // spectrum is exactly zero outside the mask (MaskSize frequencies). The
 // result estimates the apodised object w·(o − m) + m, so it equals the
 // object in the flat centre of the window and fades to the mean level at
@@ -988,6 +1052,6 @@ func (s *Solver) Restore(dst, alpha []float64) {
 	}
 	s.plan.InverseReal(dst, s.work)
 	for i := range dst {
-		dst[i] += s.level
+		dst[i] += s.level + s.slope[0]*s.wx[i] + s.slope[1]*s.wy[i]
 	}
 }
