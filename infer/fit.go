@@ -110,7 +110,7 @@ type Result struct {
 	// ChannelOffset is the fitted image shift (x, y) of channel 2 relative
 	// to channel 1, pixels, with Metric.FitChannelOffset (else zero).
 	ChannelOffset [2]float64
-	Flags       FitFlags      // what the guard found and did
+	Flags         FitFlags // what the guard found and did
 }
 
 // FitFlags records what the fit's guard (Config.Chi2Limit) found.
