@@ -39,13 +39,49 @@ type structFn func(d float64) float64
 
 // structureFor returns D for an outer scale l0 = L0/D (+Inf: Kolmogorov):
 // 6.88 (d/2)^(5/3) (Fried 1965; separation d·D/2 in metres), or the von Kármán
-// form of PhaseStructure with r/L0 = d/(2 l0).
+// form of PhaseStructure with r/L0 = d/(2 l0), interpolated from a table
+// (vkTable) for speed.
 func structureFor(l0 float64) structFn {
 	if math.IsInf(l0, 1) {
 		return func(d float64) float64 { return kolmogorovD * math.Pow(d/2, 5.0/3) }
 	}
 	amp := vkTwoSigma2 * math.Pow(l0, 5.0/3)
-	return func(d float64) float64 { return amp * vkShape(math.Pi*d/l0) }
+	return newVKTable(func(d float64) float64 { return amp * vkShape(math.Pi*d/l0) }, 2, 1024).eval
+}
+
+// vkTable interpolates a von Kármán structure function (units of the pupil
+// radius) on [0, dmax] in the variable u = d^(1/3): by the series of vkShape,
+// D = u⁵·g(u) with g = Σ a_k u^(6k) − Σ b_k u^(6k−5) analytic in u and
+// g(0) = 6.88·2^(−5/3) (the Kolmogorov limit), so four-point Lagrange
+// interpolation of g on a uniform u grid converges as h⁴ with a uniform
+// relative error (TestVKTable). Beyond dmax it extrapolates.
+type vkTable struct {
+	h float64   // u step
+	g []float64 // g[i] = D(u³)/u⁵ at u = i·h, i = 0..n+2
+}
+
+func newVKTable(fn func(d float64) float64, dmax float64, n int) *vkTable {
+	t := &vkTable{h: math.Cbrt(dmax) / float64(n), g: make([]float64, n+3)}
+	t.g[0] = kolmogorovD * math.Pow(2, -5.0/3)
+	for i := 1; i < len(t.g); i++ {
+		u := float64(i) * t.h
+		u2 := u * u
+		t.g[i] = fn(u*u2) / (u2 * u2 * u)
+	}
+	return t
+}
+
+func (t *vkTable) eval(d float64) float64 {
+	u := math.Cbrt(d)
+	x := u / t.h
+	i := int(x) - 1 // stencil i..i+3 around [i+1, i+2]
+	i = max(0, min(i, len(t.g)-4))
+	s := x - float64(i) // position in stencil units, nodes at 0, 1, 2, 3
+	g := t.g[i : i+4]
+	s0, s1, s2, s3 := s, s-1, s-2, s-3
+	v := -g[0]*s1*s2*s3/6 + g[1]*s0*s2*s3/2 - g[2]*s0*s1*s3/2 + g[3]*s0*s1*s2/6
+	u2 := u * u
+	return u2 * u2 * u * v
 }
 
 // pupilCov holds the quadrature results for one (count, ε, L0/D). Read-only
@@ -216,8 +252,8 @@ func angularKernels(x []float64, mmax, nphi int, sf structFn) [][]float64 {
 func (pc *pupilCov) finish() error {
 	count := pc.g.SymmetricDim()
 	var ch mat.Cholesky
-	if !ch.Factorize(pc.g) {
-		return fmt.Errorf("modes: the Gram matrix of %d Zernike modes over the annulus is not positive definite; use fewer modes or a smaller obscuration", count)
+	if !ch.Factorize(pc.g) || ch.Cond() > maxGramCond {
+		return fmt.Errorf("modes: the Gram matrix of %d Zernike modes over the annulus is singular or ill-conditioned (condition number above %g); use fewer modes or a smaller obscuration", count, maxGramCond)
 	}
 	var gc, gcg mat.Dense
 	if err := ch.SolveTo(&gc, pc.c); err != nil { // G⁻¹C
@@ -237,6 +273,11 @@ func (pc *pupilCov) finish() error {
 	pc.v, pc.vals = v, vals
 	return nil
 }
+
+// maxGramCond is the largest condition number of the annulus Gram matrix
+// accepted: beyond it the Zernikes are numerically dependent over the
+// annulus and the generalised eigenvectors lose most of their digits.
+const maxGramCond = 1e10
 
 type covKey struct {
 	count   int

@@ -15,9 +15,16 @@ type Aperture struct {
 	// in [0, 0.9). Spider vanes are not modelled.
 	Obscuration float64
 	// OuterScale is the von Kármán outer scale relative to the aperture,
-	// L0/D: positive, or 0 or +Inf for Kolmogorov turbulence.
+	// L0/D: at least MinOuterScale, or 0 or +Inf for Kolmogorov turbulence.
 	OuterScale float64
 }
+
+// MinOuterScale is the smallest finite Aperture.OuterScale (L0/D) accepted.
+// Below it the structure function saturates within a few quadrature nodes
+// and the covariance would need a finer quadrature (at 0.25 it is converged
+// to 1e-4; outer scales of the atmosphere are metres to tens of metres, many
+// times the aperture).
+const MinOuterScale = 0.25
 
 // MaxObscuration bounds Aperture.Obscuration (exclusive): above it the
 // annulus Gram matrix of all but the lowest Zernikes is too ill-conditioned.
@@ -29,13 +36,13 @@ const MaxObscuration = 0.9
 const MaxApertureModes = 495
 
 // Validate returns an error unless a.Obscuration is in [0, MaxObscuration)
-// and a.OuterScale is positive, 0 or +Inf.
+// and a.OuterScale is at least MinOuterScale, 0 or +Inf.
 func (a Aperture) Validate() error {
 	if !(a.Obscuration >= 0 && a.Obscuration < MaxObscuration) {
 		return fmt.Errorf("modes: obscuration %g outside [0, %g) (inner/outer diameter)", a.Obscuration, MaxObscuration)
 	}
-	if !(a.OuterScale >= 0) {
-		return fmt.Errorf("modes: outer scale L0/D = %g must be positive (0 or +Inf: Kolmogorov)", a.OuterScale)
+	if !(a.OuterScale >= MinOuterScale || a.OuterScale == 0) {
+		return fmt.Errorf("modes: outer scale L0/D = %g must be at least %g (0 or +Inf: Kolmogorov)", a.OuterScale, MinOuterScale)
 	}
 	return nil
 }

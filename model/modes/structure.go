@@ -122,10 +122,13 @@ func vkShape(x float64) float64 {
 		}
 		return gamma16 * (math.Pow(q, 5.0/6)*sp - sn)
 	}
+	if x > 60 { // x^(5/6) K_{5/6}(x) < 1e-24
+		return 1
+	}
 	return 1 - math.Pow(2, 1.0/6)/gamma56*math.Pow(x, 5.0/6)*besselK56(x)
 }
 
-// besselK56 returns the modified Bessel function K_{5/6}(x) for x > 0.5 from
+// besselK56 returns the modified Bessel function K_{5/6}(x) for 0.5 < x ≤ 700 from
 // K_ν(x) = ∫_0^∞ exp(−x cosh t) cosh(νt) dt (Abramowitz & Stegun 9.6.24),
 // by the trapezoidal rule in t (spectrally accurate for this analytic,
 // doubly-exponentially decaying integrand), stopping where the integrand
@@ -138,7 +141,7 @@ func besselK56(x float64) float64 {
 		t := h * float64(i)
 		v := math.Exp(-x*math.Cosh(t)) * math.Cosh(nu*t)
 		s += v
-		if v < 1e-17*s {
+		if v <= 1e-17*s {
 			break
 		}
 	}
