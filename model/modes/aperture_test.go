@@ -472,6 +472,9 @@ func covDiff(js []int, g, c [][]float64, pc *pupilCov) (dg, dc float64) {
 			dc = math.Max(dc, math.Abs(c[a][e]-pc.c.At(ja-2, je-2))/sc)
 		}
 	}
+	if math.IsNaN(dg) || math.IsNaN(dc) { // a negative diagonal: not a covariance
+		return math.Inf(1), math.Inf(1)
+	}
 	return dg, dc
 }
 
