@@ -294,7 +294,9 @@ var (
 )
 
 // pupilCovFor returns the (cached) quadrature for count modes over an annulus
-// of obscuration eps with outer scale l0 = L0/D (+Inf: Kolmogorov).
+// of obscuration eps with outer scale l0 = L0/D (+Inf: Kolmogorov). Safe for
+// concurrent use; two goroutines missing the cache at once both compute the
+// (deterministic) result.
 func pupilCovFor(count int, eps, l0 float64) (*pupilCov, error) {
 	key := covKey{count, eps, l0}
 	covMu.Lock()

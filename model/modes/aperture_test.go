@@ -244,8 +244,8 @@ func TestQuadratureResidualTableIV(t *testing.T) {
 }
 
 // (c) Obscured pupil: the KL modes are orthonormal over the annulus in the
-// quadrature (VᵀGV = I) and, sampled, on a fine grid (pixel mean over
-// Support); the covariance is diagonal in the new basis; eigenvalues decrease.
+// quadrature (VᵀGV = I), the covariance is diagonal in the new basis,
+// eigenvalues decrease, and each mode is signed as New signs its modes.
 func TestQuadratureObscuredKL(t *testing.T) {
 	const count = 35
 	for _, ap := range []Aperture{{Obscuration: 0.3}, {Obscuration: 0.3, OuterScale: 20}} {
@@ -286,6 +286,13 @@ func TestQuadratureObscuredKL(t *testing.T) {
 			}
 		}
 	}
+}
+
+// Sampled on a fine grid, the obscured-pupil KL modes are orthonormal in the
+// pixel mean over Support (edge pixels make an O(1/R) error, as for the
+// Zernikes on the disc).
+func TestObscuredKLSampledOrthonormal(t *testing.T) {
+	const count = 35
 	b, err := NewFor(KindKL, count, 302, 150, Aperture{Obscuration: 0.3})
 	if err != nil {
 		t.Fatal(err)
@@ -308,7 +315,6 @@ func TestQuadratureObscuredKL(t *testing.T) {
 			worst = math.Max(worst, math.Abs(s/np-want))
 		}
 	}
-	// Edge pixels make an O(1/R) error, as for the Zernikes on the disc.
 	if worst > 2e-2 {
 		t.Errorf("sampled KL modes: orthonormality error %.3g over the annulus, want ≤ 2e-2", worst)
 	}
@@ -513,9 +519,8 @@ func TestQuadratureMatchesPointSums(t *testing.T) {
 
 // (e) With a non-orthogonal ToNoll: Phase → Project (default mask = the
 // annulus) recovers the native coefficients; the Zernike phase of the Noll
-// equivalents equals the KL phase up to a constant over the annulus; ToNoll⁻¹
-// maps them back; and the KL and Zernike bases of one aperture imply the same
-// Zernike covariance (diag(VΛVᵀ) = the Zernike Variance, since VVᵀ = G⁻¹).
+// equivalents equals the KL phase up to a constant over the annulus; and
+// ToNoll⁻¹ maps them back.
 func TestAnnularProjectNollRoundTrip(t *testing.T) {
 	const count = 27
 	ap := Aperture{Obscuration: 0.3, OuterScale: 25}
@@ -573,12 +578,41 @@ func TestAnnularProjectNollRoundTrip(t *testing.T) {
 			t.Fatalf("ToNoll⁻¹ round trip: coef %d = %g, want %g", i, back.AtVec(i), native[i])
 		}
 	}
+}
+
+// The KL and Zernike bases of one aperture imply the same Zernike
+// covariance: diag(VΛVᵀ) is the Zernike Variance diag(G⁻¹CG⁻¹), since
+// VᵀGV = I gives VVᵀ = G⁻¹.
+func TestAnnularKLZernikeConsistent(t *testing.T) {
+	const count = 27
+	ap := Aperture{Obscuration: 0.3, OuterScale: 25}
+	kl, err := NewFor(KindKL, count, 16, 8, ap)
+	if err != nil {
+		t.Fatal(err)
+	}
+	z, err := NewFor(KindZernike, count, 16, 8, ap)
+	if err != nil {
+		t.Fatal(err)
+	}
 	var cov mat.Dense
 	cov.Mul(kl.ToNoll, mat.NewDiagDense(count, kl.Variance))
 	cov.Mul(&cov, kl.ToNoll.T())
 	for i := 0; i < count; i++ {
 		if rel := cov.At(i, i)/z.Variance[i] - 1; math.Abs(rel) > 1e-9 {
 			t.Fatalf("Z%d: diag(VΛVᵀ) = %g, Zernike Variance %g", i+2, cov.At(i, i), z.Variance[i])
+		}
+	}
+}
+
+// Cold build of a 36-mode KL basis for an obscured pupil with an outer scale
+// on a 64-pixel grid (quadrature, eigenproblem and sampling; cache bypassed).
+func BenchmarkNewForKL36(b *testing.B) {
+	for i := 0; i < b.N; i++ {
+		covMu.Lock()
+		clear(covCache)
+		covMu.Unlock()
+		if _, err := NewFor(KindKL, 36, 64, 15.5, Aperture{Obscuration: 0.15, OuterScale: 60}); err != nil {
+			b.Fatal(err)
 		}
 	}
 }

@@ -16,8 +16,9 @@ type Kind string
 const (
 	// KindZernike is Noll-ordered, Noll-normalised Zernike polynomials j = 2..Count+1.
 	KindZernike Kind = "zernike"
-	// KindKL is Karhunen–Loève modes for Kolmogorov turbulence, built from
-	// the Zernike polynomials j = 2..Count+1.
+	// KindKL is Karhunen–Loève modes for Kolmogorov turbulence (New) or for
+	// the aperture and outer scale given to NewFor, built from the Zernike
+	// polynomials j = 2..Count+1.
 	KindKL Kind = "kl"
 )
 
