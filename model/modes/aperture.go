@@ -88,8 +88,8 @@ func (a Aperture) l0() float64 {
 // variances of the least-squares Zernike coefficients over the annulus.
 //
 // Variances are in (D/r0)^(5/3) rad². For the clear aperture the quadrature
-// gives tilt 0.448 against eq. 25's 0.4536 (1.2 % lower; Noll 1976 Table IV
-// implies 0.448). The quadrature is cached per (count, ε, L0/D).
+// gives tilt 0.4486 against eq. 25's 0.4536 (all variances 1.1 % lower;
+// Noll 1976 Table IV implies 0.448). The quadrature is cached per (count, ε, L0/D).
 //
 // NewFor returns New's errors, an error from Aperture.Validate, and an error
 // for count > MaxApertureModes (obscured or finite-L0 apertures only) or when

@@ -329,7 +329,7 @@ func TestObscuredKLSampledOrthonormal(t *testing.T) {
 //
 //	<a_j²> = 2π(n+1)·c·2^(−5/3) ∫_0^∞ k (k² + (1/(2 l0))²)^(−11/6) [J_{n+1}(2πk)/(πk)]² dk,
 //
-// c = SpectrumConstant. It uses neither the structure function nor the
+// c = SpectrumConstant(). It uses neither the structure function nor the
 // polar quadrature.
 func spectralZernikeVariance(j int, l0 float64) float64 {
 	n, _ := NollToNM(j)
@@ -343,7 +343,7 @@ func spectralZernikeVariance(j int, l0 float64) float64 {
 	}
 	s := glPanels(func(t float64) float64 { return 3 * t * t * g(t*t*t) }, 0, 1, 0.1, 20)
 	s += glPanels(g, 1, 400, 0.25, 12)
-	return 2 * math.Pi * float64(n+1) * SpectrumConstant * math.Pow(2, -5.0/3) * s
+	return 2 * math.Pi * float64(n+1) * SpectrumConstant() * math.Pow(2, -5.0/3) * s
 }
 
 // (d) Finite outer scale: the quadrature's Zernike variances for a clear

@@ -45,10 +45,10 @@ var (
 	vkSeriesPos, vkSeriesNeg = vkSeries(40)
 )
 
-// SpectrumConstant is c in Φ(f) = c·r0^(−5/3)(f² + 1/L0²)^(−11/6) (f in cycles
-// per metre): the value for which the small-separation limit of
+// SpectrumConstant returns c in Φ(f) = c·r0^(−5/3)(f² + 1/L0²)^(−11/6) (f in
+// cycles per metre): the value for which the small-separation limit of
 // PhaseStructure is exactly 6.88 (r/r0)^(5/3) (Fried 1965), 0.022883.
-var SpectrumConstant = vkTwoSigma2 / (2 * 0.6 * 2 * math.Pi)
+func SpectrumConstant() float64 { return vkTwoSigma2 / (2 * 0.6 * 2 * math.Pi) }
 
 func vkSeries(n int) (pos, neg []float64) {
 	pos = make([]float64, n)
