@@ -90,7 +90,8 @@ type pupilCov struct {
 	g, c  *mat.SymDense // Gram and covariance of Z̃_2..Z̃_{count+1} over the annulus
 	mu    []float64     // ⟨Z_{i+2}⟩_A (0 for m ≠ 0)
 	total float64       // piston-removed phase variance over the annulus, ½⟨⟨D⟩⟩_A
-	zvar  []float64     // diag(G⁻¹CG⁻¹): variances of least-squares Zernike coefficients
+	zcov  *mat.SymDense // G⁻¹CG⁻¹: covariance of least-squares Zernike coefficients
+	zvar  []float64     // its diagonal
 	v     *mat.Dense    // generalised KL eigenvectors (columns), VᵀGV = I
 	vals  []float64     // KL eigenvalues, decreasing
 }
@@ -263,8 +264,12 @@ func (pc *pupilCov) finish() error {
 		return fmt.Errorf("modes: annulus Gram solve: %w", err)
 	}
 	pc.zvar = make([]float64, count)
+	pc.zcov = mat.NewSymDense(count, nil)
 	for i := range pc.zvar {
 		pc.zvar[i] = gcg.At(i, i)
+		for j := i; j < count; j++ {
+			pc.zcov.SetSym(i, j, 0.5*(gcg.At(i, j)+gcg.At(j, i)))
+		}
 	}
 	v, vals, err := klVectors(pc.c, pc.g)
 	if err != nil {

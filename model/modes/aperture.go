@@ -157,3 +157,33 @@ func (b *Basis) Describe() string {
 	}
 	return s
 }
+
+// ZernikeCovariance returns the count×count covariance of the Noll Zernike
+// coefficients j = 2..count+1 (row/column i ↔ j = i+2) of turbulent phase
+// over the aperture ap, in (D/r0)^(5/3) rad²: for a clear aperture in
+// Kolmogorov turbulence NollCovarianceMatrix(count) (Noll 1976 eq. 25, as
+// New); otherwise G⁻¹CG⁻¹ from NewFor's annulus quadrature, the covariance of
+// the least-squares Zernike coefficients over the annulus (its diagonal is
+// the Variance of NewFor's Zernike basis). The result is a fresh copy. It
+// returns an error for count < 1 and NewFor's aperture errors.
+func ZernikeCovariance(count int, ap Aperture) (*mat.SymDense, error) {
+	if count < 1 {
+		return nil, fmt.Errorf("modes: mode count %d < 1", count)
+	}
+	if err := ap.Validate(); err != nil {
+		return nil, err
+	}
+	if ap.Obscuration == 0 && ap.Kolmogorov() {
+		return NollCovarianceMatrix(count), nil
+	}
+	if count > MaxApertureModes {
+		return nil, fmt.Errorf("modes: %d modes for an obscured or finite-L0 aperture exceed the limit %d", count, MaxApertureModes)
+	}
+	pc, err := pupilCovFor(count, ap.Obscuration, ap.l0())
+	if err != nil {
+		return nil, err
+	}
+	out := mat.NewSymDense(count, nil)
+	out.CopySym(pc.zcov)
+	return out, nil
+}

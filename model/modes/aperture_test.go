@@ -604,6 +604,42 @@ func TestAnnularKLZernikeConsistent(t *testing.T) {
 	}
 }
 
+// ZernikeCovariance: eq. 25 for the clear Kolmogorov case; otherwise
+// symmetric positive definite with NewFor's Zernike variances on the diagonal.
+func TestZernikeCovariance(t *testing.T) {
+	c, err := ZernikeCovariance(20, Aperture{})
+	if err != nil || !mat.EqualApprox(c, NollCovarianceMatrix(20), 0) {
+		t.Fatalf("clear Kolmogorov: err %v or not NollCovarianceMatrix", err)
+	}
+	ap := Aperture{Obscuration: 0.4, OuterScale: 15}
+	c, err = ZernikeCovariance(20, ap)
+	if err != nil {
+		t.Fatal(err)
+	}
+	z, _ := NewFor(KindZernike, 20, 16, 8, ap)
+	for i := 0; i < 20; i++ {
+		if c.At(i, i) != z.Variance[i] {
+			t.Fatalf("Z%d: covariance diagonal %g, Variance %g", i+2, c.At(i, i), z.Variance[i])
+		}
+	}
+	var ch mat.Cholesky
+	if !ch.Factorize(c) {
+		t.Error("annulus Zernike covariance not positive definite")
+	}
+	c.SetSym(0, 0, -1) // a copy: the cache is untouched
+	if again, _ := ZernikeCovariance(20, ap); again.At(0, 0) != z.Variance[0] {
+		t.Error("ZernikeCovariance returned the cached matrix")
+	}
+	for _, bad := range []Aperture{{Obscuration: 0.95}, {OuterScale: -2}} {
+		if _, err := ZernikeCovariance(20, bad); err == nil {
+			t.Errorf("aperture %+v accepted", bad)
+		}
+	}
+	if _, err := ZernikeCovariance(0, ap); err == nil {
+		t.Error("0 modes accepted")
+	}
+}
+
 // Cold build of a 36-mode KL basis for an obscured pupil with an outer scale
 // on a 64-pixel grid (quadrature, eigenproblem and sampling; cache bypassed).
 func BenchmarkNewForKL36(b *testing.B) {
