@@ -2,7 +2,10 @@
 // Zernike polynomials in Noll's ordering and normalisation (Noll 1976,
 // JOSA 66, 207) and Karhunen–Loève (KL) modes for Kolmogorov turbulence, the
 // eigenvectors of Noll's Zernike covariance matrix (Noll 1976 eq. 25; Wang &
-// Markey 1978).
+// Markey 1978) — New. NewFor builds the same bases for a centrally obscured
+// pupil and a von Kármán outer scale, from a quadrature of the phase
+// structure function (PhaseStructure) over the annulus, with KL modes from
+// the generalised eigenproblem C v = λ G v in the span of the Zernikes.
 //
 // Phases and coefficients are in radians. Kolmogorov variances are in units of
 // (D/r0)^(5/3) rad², D the aperture diameter and r0 the Fried parameter at the
