@@ -163,3 +163,42 @@ func tilt(s *Simulator, phi func(x, y float64) float64) (float64, float64) {
 	}
 	return sx / xx, sy / yy
 }
+
+// TestFrameAllocations: the per-frame work of Patch (wavefront, PSF pair,
+// convolution, truth projection) and the per-node work of Field allocate
+// nothing once the buffers exist (house rule: hot functions reuse their
+// buffers and FFT plans).
+func TestFrameAllocations(t *testing.T) {
+	c := demoConfig()
+	s := newSim(t, c)
+	p := s.ImagingPupil().N
+	atm, err := NewAtmosphere(rand.New(rand.NewPCG(1, 1)), c.Turbulence, p, s.PupilPixel()/2, Extent{Duration: 0.1, FieldX: 1e-4}, true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := canvasSide(c.Patch+p, s.Oversample())
+	w := s.newPatchWorker(m)
+	spec := make([]complex128, m*m)
+	coef := make([]float64, c.Modes)
+	noll := make([]float64, c.Modes)
+	s.truthInto(coef, noll, w.ph, w.work) // builds the projector once
+	if n := testing.AllocsPerRun(3, func() {
+		atm.Phase(w.ph, 0.01, 0, 0)
+		w.psfs(s, w.ph)
+		w.blurPair(spec)
+		s.truthInto(coef, noll, w.ph, w.work)
+	}); n != 0 {
+		t.Errorf("Patch frame: %g allocations", n)
+	}
+	g := s.newFieldGeom(128, 128, c.Patch/2)
+	obj := make([]float64, g.mx*g.my)
+	for i := range obj {
+		obj[i] = 1
+	}
+	fw := &fieldWorker{former: s.newFormer(g.f), piece: make([]float64, g.f*g.f),
+		spec: make([]complex128, g.f*g.f), phase: make([]float64, g.p*g.p)}
+	out0, out1 := make([]float64, 128*128), make([]float64, 128*128)
+	if n := testing.AllocsPerRun(3, func() { fw.node(s, g, obj, atm, 0.01, 2, 3, out0, out1) }); n != 0 {
+		t.Errorf("Field node: %g allocations", n)
+	}
+}
