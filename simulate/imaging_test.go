@@ -202,3 +202,60 @@ func TestFrameAllocations(t *testing.T) {
 		t.Errorf("Field node: %g allocations", n)
 	}
 }
+
+// TestImagingGrid: the imaging grid is the fit's grid q times finer: the
+// pupil radius scales by q, the diversity and the basis modes are the same
+// functions of pupil position (coarse pixel (x, y) is fine pixel (qx, qy)),
+// so Truth gives the same coefficients for a wavefront given on either
+// grid (to 1e-2 for unit-size coefficients: Truth removes the mean over
+// ρ ≤ 1, which discrete modes have not exactly zero; measured 8e-5 on the
+// imaging and 3e-3 on the fit grid); Oversample outside 0..MaxOversample
+// is refused.
+func TestImagingGrid(t *testing.T) {
+	for _, q := range []int{2, 3} {
+		c := demoConfig()
+		c.Oversample = q
+		s := newSim(t, c)
+		n, fp, cp := c.Patch, s.ImagingPupil(), s.Pupil()
+		if fp.N != q*n || math.Abs(fp.Radius/cp.Radius-float64(q)) > 1e-12 {
+			t.Fatalf("q = %d: imaging pupil %d px, radius %g; fit pupil %d px, radius %g", q, fp.N, fp.Radius, cp.N, cp.Radius)
+		}
+		coarse := make([]float64, n*n)
+		cp.Defocus(coarse, c.DiversityPV)
+		dec := make([]float64, n*n)
+		decimate(dec, s.fdiv[1], n, q)
+		for _, i := range cp.Index {
+			if math.Abs(dec[i]-coarse[i]) > 1e-12 {
+				t.Fatalf("q = %d: diversity at fit pixel %d: %g on the imaging grid, %g on the fit grid", q, i, dec[i], coarse[i])
+			}
+		}
+		// A wavefront of known coefficients, drawn on the imaging grid.
+		want := make([]float64, c.Modes)
+		for k := range want {
+			want[k] = math.Sin(float64(3*k + 1))
+		}
+		fine := make([]float64, fp.N*fp.N)
+		s.fbasis.Phase(fine, want)
+		decimate(dec, fine, n, q)
+		tr := s.Truth([][]float64{fine, dec})
+		var e0, e1 float64
+		for k := range want {
+			e0 = math.Max(e0, math.Abs(tr.Coeffs[0][k]-want[k]))
+			e1 = math.Max(e1, math.Abs(tr.Coeffs[1][k]-want[k]))
+		}
+		t.Logf("q = %d: largest coefficient error %.2g (imaging grid), %.2g (fit grid)", q, e0, e1)
+		if e0 > 1e-2 || e1 > 1e-2 {
+			t.Errorf("q = %d: truth coefficients off by up to %.2g (imaging grid), %.2g (fit grid); want < 1e-2", q, e0, e1)
+		}
+	}
+	for _, q := range []int{-1, MaxOversample + 1} {
+		c := demoConfig()
+		c.Oversample = q
+		if _, err := New(c); err == nil {
+			t.Errorf("Oversample %d: no error", q)
+		}
+	}
+	if s := newSim(t, demoConfig()); s.Oversample() != 2 {
+		t.Errorf("default Oversample %d, want 2", s.Oversample())
+	}
+}
