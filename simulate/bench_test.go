@@ -6,9 +6,24 @@ import (
 )
 
 // BenchmarkPatch: one demo burst, 64×64 px, 16 frames, 36 KL modes of
-// truth, three layers, noise (all cores).
+// truth, three layers, noise, default Oversample 2 (all cores).
 func BenchmarkPatch(b *testing.B) {
 	s := newSim(b, demoConfig())
+	var i uint64
+	for b.Loop() {
+		i++
+		if _, err := s.Patch(rand.New(rand.NewPCG(i, 1)), Options{}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkPatchOversample1: BenchmarkPatch with Oversample 1 (the fit's
+// own model: N×N PSFs, screens at the fit's pupil pixel, no pixel box).
+func BenchmarkPatchOversample1(b *testing.B) {
+	c := demoConfig()
+	c.Oversample = 1
+	s := newSim(b, c)
 	var i uint64
 	for b.Loop() {
 		i++

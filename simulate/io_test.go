@@ -46,7 +46,8 @@ func TestPatchFITSRoundTrip(t *testing.T) {
 // uses it for a patch; bad files give errors, not panics.
 func TestReadObject(t *testing.T) {
 	dir := t.TempDir()
-	const nx, ny = 150, 140
+	// At least the Patch canvas: N + Oversample·N = 192 px for the demo.
+	const nx, ny = 200, 200
 	data := make([]float64, nx*ny)
 	for i := range data {
 		data[i] = 100 + float64(i%nx)

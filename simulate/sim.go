@@ -9,7 +9,6 @@ import (
 	"sync"
 
 	"pdwave/model/burst"
-	"pdwave/model/fft"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 )
@@ -25,6 +24,21 @@ type Config struct {
 	Frames        int              // frames per burst
 	Basis         modes.Kind       // basis of the truth coefficients
 	Modes         int              // number of modes, piston excluded
+	// Oversample is the factor q by which image formation samples the
+	// pupil more finely than the fit's N×N grid (see Simulator): PSFs come
+	// from a qN×qN pupil grid, so they have support qN px, and camera
+	// pixels integrate the image over their area. 0 means 2; 1 is the
+	// fit's own model (kept for regression comparisons); at most
+	// MaxOversample.
+	Oversample int
+}
+
+// oversample returns the effective Oversample (2 for 0).
+func (c Config) oversample() int {
+	if c.Oversample == 0 {
+		return 2
+	}
+	return c.Oversample
 }
 
 // Validate reports whether the configuration is usable.
@@ -49,6 +63,8 @@ func (c Config) Validate() error {
 		return fmt.Errorf("simulate: diversity %g waves is not finite", c.DiversityPV)
 	case c.Modes < 1:
 		return fmt.Errorf("simulate: %d modes, need at least 1", c.Modes)
+	case c.Oversample < 0 || c.Oversample > MaxOversample:
+		return fmt.Errorf("simulate: pupil oversampling %d, want 1 to %d (0 = 2)", c.Oversample, MaxOversample)
 	}
 	return nil
 }
@@ -75,21 +91,29 @@ type Options struct {
 type Result struct {
 	Burst      *burst.Burst // the simulated data with truth (patches) and object
 	R0         float64      // Fried parameter used, m, at the observing wavelength
-	Atmosphere *Atmosphere  // the layers (screens) used
-	Phases     [][]float64  // Patch with KeepPhases: per frame, N*N wavefront on the pupil grid, rad
+	Atmosphere *Atmosphere  // the layers (screens) used, on the imaging pupil grid (Atmosphere.N = Oversample·N)
+	Phases     [][]float64  // Patch with KeepPhases: per frame, N*N wavefront on the fit's pupil grid (every Oversample-th imaging sample), rad
 	Times      []float64    // time of each frame, s (frame f at f·FrameInterval)
 }
 
 // Simulator makes bursts for one Config. It holds the pupil, basis and
-// diversity; it is read-only after New and safe for concurrent use (each
-// call makes its own work buffers).
+// diversity on two grids: the fit's N×N pupil grid (Pupil, Basis,
+// PupilPixel; pupil diameter r_c = D·N·p/λ px), and the imaging grid,
+// Oversample = q times finer (qN×qN, diameter q·r_c px, pixel
+// PupilPixel/q), on which the wavefront is sampled and the PSFs are formed
+// (see the package notes on image formation in imaging.go). For q = 1 the
+// two are the same. It is read-only after New and safe for concurrent use
+// (each call makes its own work buffers).
 type Simulator struct {
-	cfg   Config
-	pupil *optics.Pupil
-	basis *modes.Basis
-	div   [2][]float64 // diversity phase of each channel on the pupil grid, rad
-	dx    float64      // pupil grid pixel, m
-	gens  *genPool
+	cfg    Config
+	q      int
+	pupil  *optics.Pupil // fit grid, N×N
+	basis  *modes.Basis  // fit grid
+	fpupil *optics.Pupil // imaging grid, qN×qN (== pupil for q = 1)
+	fbasis *modes.Basis  // the same modes sampled on the imaging grid
+	fdiv   [2][]float64  // diversity phase of each channel on the imaging grid, rad
+	dx     float64       // fit pupil grid pixel, m
+	gens   *genPool
 }
 
 // New returns a Simulator for cfg, or an error if cfg is invalid.
@@ -105,11 +129,21 @@ func New(cfg Config) (*Simulator, error) {
 	if err != nil {
 		return nil, fmt.Errorf("simulate: %w", err)
 	}
-	s := &Simulator{cfg: cfg, pupil: pupil, basis: basis, gens: &genPool{}}
-	n := cfg.Patch
-	s.div[0] = make([]float64, n*n)
-	s.div[1] = make([]float64, n*n)
-	pupil.Defocus(s.div[1], cfg.DiversityPV)
+	s := &Simulator{cfg: cfg, q: cfg.oversample(), pupil: pupil, basis: basis, fpupil: pupil, fbasis: basis, gens: &genPool{}}
+	if s.q > 1 {
+		// NewPupil scales the radius with the grid: CutoffRadius(qN)/2 =
+		// q·r_c/2, the same aperture q times more finely sampled.
+		if s.fpupil, err = optics.NewPupil(cfg.Telescope, s.q*cfg.Patch); err != nil {
+			return nil, fmt.Errorf("simulate: imaging pupil: %w", err)
+		}
+		if s.fbasis, err = modes.New(cfg.Basis, cfg.Modes, s.fpupil.N, s.fpupil.Radius); err != nil {
+			return nil, fmt.Errorf("simulate: imaging basis: %w", err)
+		}
+	}
+	p := s.fpupil.N
+	s.fdiv[0] = make([]float64, p*p)
+	s.fdiv[1] = make([]float64, p*p)
+	s.fpupil.Defocus(s.fdiv[1], cfg.DiversityPV)
 	s.dx = cfg.Telescope.Diameter / (2 * pupil.Radius)
 	return s, nil
 }
@@ -117,14 +151,25 @@ func New(cfg Config) (*Simulator, error) {
 // Config returns the simulator's configuration.
 func (s *Simulator) Config() Config { return s.cfg }
 
-// Pupil returns the pupil (shared; do not modify).
+// Pupil returns the pupil on the fit's N×N grid (shared; do not modify).
 func (s *Simulator) Pupil() *optics.Pupil { return s.pupil }
 
-// Basis returns the basis of the truth coefficients (shared; do not modify).
+// Basis returns the basis of the truth coefficients on the fit's N×N grid
+// (shared; do not modify). The truth is projected with the same modes
+// sampled on the imaging grid (see Truth).
 func (s *Simulator) Basis() *modes.Basis { return s.basis }
 
-// PupilPixel returns the size of a pupil-grid pixel in metres, D/(2·Radius).
+// PupilPixel returns the size of a pixel of the fit's pupil grid in
+// metres, D/(2·Radius); the imaging grid's pixel is PupilPixel/Oversample.
 func (s *Simulator) PupilPixel() float64 { return s.dx }
+
+// Oversample returns the effective pupil oversampling q of image formation
+// (Config.Oversample, 2 when that is 0).
+func (s *Simulator) Oversample() int { return s.q }
+
+// ImagingPupil returns the pupil on the qN×qN imaging grid (q =
+// Oversample; the fit's pupil for q = 1; shared, do not modify).
+func (s *Simulator) ImagingPupil() *optics.Pupil { return s.fpupil }
 
 func (s *Simulator) workers(o Options) int {
 	if o.Workers > 0 {
@@ -142,78 +187,6 @@ func (s *Simulator) turbulence(o Options) (Turbulence, error) {
 		t.R0 = o.R0
 	}
 	return t, nil
-}
-
-// former convolves objects with the PSF pair of one frame on an m×m
-// canvas; one per goroutine.
-type former struct {
-	n, m  int
-	im    *optics.Imager
-	plan  *fft.Plan
-	phase []float64
-	psf   [2][]float64
-	buf   []complex128
-}
-
-func (s *Simulator) newFormer(m int) *former {
-	n := s.cfg.Patch
-	return &former{
-		n: n, m: m,
-		im:    optics.NewImager(s.pupil),
-		plan:  fft.NewPlan(m, m),
-		phase: make([]float64, n*n),
-		psf:   [2][]float64{make([]float64, n*n), make([]float64, n*n)},
-		buf:   make([]complex128, m*m),
-	}
-}
-
-// psfs computes the PSFs of both channels for the wavefront phase (N*N).
-func (f *former) psfs(s *Simulator, phase []float64) {
-	for c := 0; c < 2; c++ {
-		for i := range f.phase {
-			f.phase[i] = phase[i] + s.div[c][i]
-		}
-		f.im.PSF(f.psf[c], f.phase)
-	}
-}
-
-// blurPair sets f.buf to o⊗s0 + i·o⊗s1 (cyclic on the m×m canvas) for the
-// object spectrum objSpec and the current PSF pair: both PSFs are real, so
-// one transform carries both (real part channel 1, imaginary part
-// channel 2). The PSFs (N×N, centred on pixel 0) are embedded around
-// pixel 0 of the canvas; the canvas must be at least N wider than the
-// region read back for the result to be free of wrap-around.
-func (f *former) blurPair(objSpec []complex128) {
-	n, m := f.n, f.m
-	clear(f.buf)
-	for y := 0; y < n; y++ {
-		dy := y
-		if y >= n/2 {
-			dy = y - n
-		}
-		row := wrap(dy, m) * m
-		for x := 0; x < n; x++ {
-			dx := x
-			if x >= n/2 {
-				dx = x - n
-			}
-			k := y*n + x
-			f.buf[row+wrap(dx, m)] = complex(f.psf[0][k], f.psf[1][k])
-		}
-	}
-	f.plan.Forward(f.buf, f.buf)
-	for i, o := range objSpec {
-		f.buf[i] *= o
-	}
-	f.plan.Inverse(f.buf, f.buf)
-}
-
-func nextPow2(v int) int {
-	p := 1
-	for p < v {
-		p *= 2
-	}
-	return p
 }
 
 // object returns the object on an m×m canvas (mean ≈ 1 for granulation;
@@ -265,7 +238,7 @@ func (s *Simulator) contrastFactor(f *former, obj []float64, c0x, c0y, wx, wy in
 	m := f.m
 	spec := make([]complex128, m*m)
 	f.plan.ForwardReal(spec, obj)
-	zero := make([]float64, s.cfg.Patch*s.cfg.Patch)
+	zero := make([]float64, f.p*f.p)
 	f.psfs(s, zero)
 	f.blurPair(spec)
 	crop := make([]float64, wx*wy)
@@ -382,32 +355,55 @@ func (s *Simulator) opticsHeader() burst.Optics {
 	}
 }
 
-// Truth returns the true coefficients of the wavefronts phases (each N*N on
-// the pupil grid, rad) in the simulator's basis: the pupil-mean is removed,
-// then the least-squares projection over ρ ≤ 1 (modes.Basis.Project), and
-// their Noll equivalents.
+// Truth returns the true coefficients of the wavefront phases (rad) in
+// the simulator's basis, and their Noll equivalents. Each phase is either
+// N*N on the fit's pupil grid or (qN)² on the imaging grid (q =
+// Oversample); it is projected with the basis sampled on its own grid (the
+// same continuous modes: modes.New with the grid side and pupil radius
+// both scaled by q): the mean over ρ ≤ 1 is removed, then the least-squares
+// projection over ρ ≤ 1 (modes.Basis.Project). Patch and TruthAt use the
+// imaging grid. It panics on a phase of any other length.
 func (s *Simulator) Truth(phases [][]float64) *burst.Truth {
 	b := s.basis
 	t := &burst.Truth{Basis: string(b.Kind), Modes: b.Count}
-	work := make([]float64, b.N*b.N)
+	var work []float64
 	for _, ph := range phases {
-		copy(work, ph)
-		var m float64
-		for _, i := range b.Index {
-			m += work[i]
-		}
-		m /= float64(len(b.Index))
-		for _, i := range b.Index {
-			work[i] -= m
-		}
 		c := make([]float64, b.Count)
-		b.Project(c, work, nil)
 		nl := make([]float64, b.Count)
-		b.NollEquivalent(nl, c)
+		if len(work) != len(ph) {
+			work = make([]float64, len(ph))
+		}
+		s.truthInto(c, nl, ph, work)
 		t.Coeffs = append(t.Coeffs, c)
 		t.Noll = append(t.Noll, nl)
 	}
 	return t
+}
+
+// truthInto sets c and nl (Count each) to the native and Noll coefficients
+// of phase (fit or imaging grid, see Truth), using work (same length as
+// phase) as scratch. It allocates nothing once the basis's projector is
+// built.
+func (s *Simulator) truthInto(c, nl, phase, work []float64) {
+	b := s.basis
+	switch len(phase) {
+	case b.N * b.N:
+	case s.fbasis.N * s.fbasis.N:
+		b = s.fbasis
+	default:
+		panic(fmt.Sprintf("simulate: phase of length %d is neither %d² nor %d²", len(phase), b.N, s.fbasis.N))
+	}
+	copy(work, phase)
+	var m float64
+	for _, i := range b.Index {
+		m += work[i]
+	}
+	m /= float64(len(b.Index))
+	for _, i := range b.Index {
+		work[i] -= m
+	}
+	b.Project(c, work, nil)
+	b.NollEquivalent(nl, c)
 }
 
 // Patch simulates one N×N burst (N = Config.Patch) of Config.Frames frames
@@ -416,28 +412,32 @@ func (s *Simulator) Truth(phases [][]float64) *burst.Truth {
 // pixels, in the data's units before noise: ADU, or object units when the
 // camera is noiseless).
 //
-// Steps: the layers' screens are drawn (NewAtmosphere) to cover the burst
-// duration; the object is drawn on a canvas M = 2N rounded up to a power of
-// two, so light from outside the patch enters as it does on the sky; for
-// granulation its contrast is scaled so the diffraction-limited image of
-// the patch has rms contrast Options.Scene.Contrast (default 0.12). Each
-// frame's wavefront at t = f·FrameInterval gives PSFs for both channels
-// (channel 2 with the defocus diversity); the canvas is convolved and the
-// central N×N cropped; photons, read noise and quantisation follow the
+// Steps: the layers' screens are drawn (NewAtmosphere) on the imaging grid
+// (qN×qN, pixel PupilPixel/q, q = Oversample) to cover the burst duration;
+// the object is drawn on a canvas of side M ≥ N + qN (the next power of two
+// for q = 1, else the next 2^a·3^b·5^c), so light from up to half a PSF
+// support outside the patch enters as it does on the sky; for granulation
+// its contrast is scaled so the diffraction-limited image of the patch has
+// rms contrast Options.Scene.Contrast (default 0.12). Each frame's
+// wavefront at t = f·FrameInterval gives qN×qN PSFs for both channels
+// (channel 2 with the defocus diversity drawn on the imaging pupil); the
+// canvas is convolved with them and, for q > 1, with the pixel box, and the
+// central N×N is cropped; photons, read noise and quantisation follow the
 // Camera, the scale set so the object's mean over the patch gives Photons
-// electrons per pixel. Deterministic given rng.
+// electrons per pixel. Truth projects each frame's imaging-grid wavefront
+// (see Truth). Deterministic given rng.
 func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 	turb, err := s.turbulence(o)
 	if err != nil {
 		return nil, err
 	}
-	n, frames := s.cfg.Patch, s.cfg.Frames
+	n, frames, p := s.cfg.Patch, s.cfg.Frames, s.fpupil.N
 	dur := float64(frames-1) * s.cfg.FrameInterval
-	atm, err := newAtmosphere(rng, turb, n, s.dx, Extent{Duration: dur}, !o.NoSubharmonics, s.gens)
+	atm, err := newAtmosphere(rng, turb, p, s.dx/float64(s.q), Extent{Duration: dur}, !o.NoSubharmonics, s.gens)
 	if err != nil {
 		return nil, err
 	}
-	m := nextPow2(2 * n)
+	m := canvasSide(n+p, s.q)
 	c0 := (m - n) / 2
 	obj, err := s.object(rng, o, m, m)
 	if err != nil {
@@ -445,49 +445,68 @@ func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 	}
 	seeds := frameSeeds(rng, frames)
 	workers := s.workers(o)
-	formers := make([]*former, min(workers, frames))
+	formers := make([]*patchWorker, min(workers, frames))
 	for i := range formers {
-		formers[i] = s.newFormer(m)
+		formers[i] = s.newPatchWorker(m)
 	}
 	if o.Object == nil {
 		target := o.Scene.withDefaults().Contrast
-		stretch(obj, s.contrastFactor(formers[0], obj, c0, c0, n, n, target))
+		stretch(obj, s.contrastFactor(formers[0].former, obj, c0, c0, n, n, target))
 	}
 	spec := make([]complex128, m*m)
 	formers[0].plan.ForwardReal(spec, obj)
 
 	b := burst.New(n, n, frames)
 	b.Optics = s.opticsHeader()
+	b.Truth = &burst.Truth{Basis: string(s.basis.Kind), Modes: s.basis.Count,
+		Coeffs: make([][]float64, frames), Noll: make([][]float64, frames)}
 	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames)}
-	phases := make([][]float64, frames)
+	if o.KeepPhases {
+		res.Phases = make([][]float64, frames)
+	}
 	parallel(frames, len(formers), func(w, f int) {
-		fm := formers[w]
-		t := float64(f) * s.cfg.FrameInterval
-		res.Times[f] = t
-		ph := make([]float64, n*n)
-		atm.Phase(ph, t, 0, 0)
-		phases[f] = ph
-		fm.psfs(s, ph)
-		fm.blurPair(spec)
-		for c := 0; c < 2; c++ {
-			im := b.Data[c][f]
-			for y := 0; y < n; y++ {
-				for x := 0; x < n; x++ {
-					v := fm.buf[(c0+y)*m+c0+x]
-					if c == 0 {
-						im[y*n+x] = real(v)
-					} else {
-						im[y*n+x] = imag(v)
-					}
-				}
-			}
-		}
+		res.Times[f] = float64(f) * s.cfg.FrameInterval
+		formers[w].frame(s, res, spec, c0, f)
 	})
 	scale := s.setObject(b, obj, m, c0, c0)
 	s.finish(b, seeds, scale, workers)
-	b.Truth = s.Truth(phases)
-	if o.KeepPhases {
-		res.Phases = phases
-	}
 	return res, nil
+}
+
+// patchWorker is a former with the buffers of one Patch frame.
+type patchWorker struct {
+	*former
+	ph, work []float64 // imaging-grid wavefront and projection scratch
+}
+
+func (s *Simulator) newPatchWorker(m int) *patchWorker {
+	p := s.fpupil.N
+	return &patchWorker{former: s.newFormer(m), ph: make([]float64, p*p), work: make([]float64, p*p)}
+}
+
+// frame forms frame f of res (time res.Times[f]) from the object spectrum
+// on the m×m canvas, writing its data (central N×N from c0), truth and,
+// when res.Phases is set, its fit-grid wavefront. Besides the truth and
+// phase slices it returns, it allocates nothing.
+func (w *patchWorker) frame(s *Simulator, res *Result, spec []complex128, c0, f int) {
+	n, m, b := s.cfg.Patch, w.m, res.Burst
+	res.Atmosphere.Phase(w.ph, res.Times[f], 0, 0)
+	w.psfs(s, w.ph)
+	w.blurPair(spec)
+	im0, im1 := b.Data[0][f], b.Data[1][f]
+	for y := 0; y < n; y++ {
+		row := w.buf[(c0+y)*m+c0 : (c0+y)*m+c0+n]
+		for x, v := range row {
+			im0[y*n+x] = real(v)
+			im1[y*n+x] = imag(v)
+		}
+	}
+	c := make([]float64, s.basis.Count)
+	nl := make([]float64, s.basis.Count)
+	s.truthInto(c, nl, w.ph, w.work)
+	b.Truth.Coeffs[f], b.Truth.Noll[f] = c, nl
+	if res.Phases != nil {
+		res.Phases[f] = make([]float64, n*n)
+		decimate(res.Phases[f], w.ph, n, s.q)
+	}
 }
