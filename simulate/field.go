@@ -56,7 +56,7 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 	if err != nil {
 		return nil, err
 	}
-	obj, err := s.object(rng, o, mx, my)
+	obj, scene, err := s.object(rng, o, mx, my)
 	if err != nil {
 		return nil, err
 	}
@@ -87,7 +87,7 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 	gy := (my+S-1)/S + 1
 	b := burst.New(nx, ny, frames)
 	b.Optics = s.opticsHeader()
-	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames)}
+	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames), Scene: scene}
 	type fieldWorker struct {
 		f     *former
 		piece []complex128
