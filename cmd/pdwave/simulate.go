@@ -17,8 +17,8 @@ import (
 	"pdwave/simulate"
 )
 
-// simulateOpts holds the flags of "pdwave simulate".
-var simulateOpts struct {
+// simulateFlags are the flags of "pdwave simulate".
+type simulateFlags struct {
 	site     string
 	out      string
 	bursts   int
@@ -31,6 +31,9 @@ var simulateOpts struct {
 	contrast float64
 	workers  int
 }
+
+// simulateOpts holds the flags of "pdwave simulate".
+var simulateOpts simulateFlags
 
 var simulateCmd = &cobra.Command{
 	Use:   "simulate --site FILE --out DIR",
@@ -194,35 +197,7 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 			return fmt.Errorf("simulate: burst %d: %w", i, err)
 		}
 		b := res.Burst
-		b.Cards = append(b.Cards,
-			burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
-			burst.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
-			burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
-			burst.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
-		)
-		settings := map[string]string{
-			"verb":         "simulate",
-			"site":         o.site,
-			"seed":         strconv.FormatUint(o.seed, 10),
-			"burst":        strconv.Itoa(i),
-			"kind":         kind,
-			"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
-			"frames":       strconv.Itoa(cfg.Frames),
-			"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
-			"patch":        strconv.Itoa(cfg.Patch),
-			"basis":        string(cfg.Basis),
-			"modes":        strconv.Itoa(cfg.Modes),
-			"subharmonics": "true",
-			"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
-			"scene":        o.scene,
-			"scene_drawn":  res.Scene,
-		}
-		if o.object != "" {
-			settings["object"] = o.object
-			delete(settings, "contrast")
-			delete(settings, "scene")
-		}
-		prov := burst.Provenance(version, settings)
+		prov := simulateHeader(o, cfg, kind, i, res)
 		name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
 		if err := burst.Write(name, b, prov); err != nil {
 			return err
@@ -238,6 +213,42 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 		fmt.Fprintln(cmd.OutOrStdout(), msg)
 	}
 	return nil
+}
+
+// simulateHeader adds the simulation cards (SIMR0, SIMSEED, SIMBURST,
+// SIMSCENE) to burst i of res and returns its provenance cards (all
+// settings as HISTORY).
+func simulateHeader(o simulateFlags, cfg simulate.Config, kind string, i int, res *simulate.Result) []burst.Card {
+	b := res.Burst
+	b.Cards = append(b.Cards,
+		burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
+		burst.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
+		burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
+		burst.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
+	)
+	settings := map[string]string{
+		"verb":         "simulate",
+		"site":         o.site,
+		"seed":         strconv.FormatUint(o.seed, 10),
+		"burst":        strconv.Itoa(i),
+		"kind":         kind,
+		"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
+		"frames":       strconv.Itoa(cfg.Frames),
+		"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
+		"patch":        strconv.Itoa(cfg.Patch),
+		"basis":        string(cfg.Basis),
+		"modes":        strconv.Itoa(cfg.Modes),
+		"subharmonics": "true",
+		"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
+		"scene":        o.scene,
+		"scene_drawn":  res.Scene,
+	}
+	if o.object != "" {
+		settings["object"] = o.object
+		delete(settings, "contrast")
+		delete(settings, "scene")
+	}
+	return burst.Provenance(version, settings)
 }
 
 // sceneSource returns the scene of --scene: nil (the simulator's built-in
