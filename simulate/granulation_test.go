@@ -58,8 +58,9 @@ func granulationSample(t *testing.T, p GranulationParams, n, k int, ps float64) 
 //     arcsec; and rising at mesogranular scales, E ∝ k² between 2.5 and
 //     10 Mm (Rieutord et al. 2010): slope from 12 to 4 arcsec above 0.5;
 //   - 47 % of the area brighter than the mean, and a nearly symmetric
-//     histogram peaking at 0.998 of the mean (Hirzberger 2002, A&A 392,
-//     1105, Sects. 4.1 and 5; the segmented granular area is 39–60 %
+//     histogram peaking at 0.998 of the mean (Hirzberger 2002, A&A, "On
+//     the brightness and velocity structure of solar granulation", Sects.
+//     3–5; volume 392 from memory; the segmented granular area is 39–60 %
 //     depending on the method): bright fraction 0.42–0.60 and |skewness|
 //     below 0.5. Expected sign: the dark narrow lanes make a dark tail
 //     (negative skew), the bright granule centres and bright points a
