@@ -56,7 +56,7 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 	if err != nil {
 		return nil, err
 	}
-	obj, err := s.object(rng, o, g.mx, g.my)
+	obj, scene, err := s.object(rng, o, g.mx, g.my)
 	if err != nil {
 		return nil, err
 	}
@@ -67,7 +67,7 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 	}
 	b := burst.New(nx, ny, frames)
 	b.Optics = s.opticsHeader()
-	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames)}
+	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames), Scene: scene}
 	ws := make([]*fieldWorker, min(workers, frames))
 	for i := range ws {
 		ws[i] = &fieldWorker{former: s.newFormer(g.f), piece: make([]float64, g.f*g.f),

@@ -5,7 +5,6 @@ import (
 	"math/rand/v2"
 	"testing"
 
-	"pdwave/model/fft"
 	"pdwave/model/modes"
 )
 
@@ -126,59 +125,6 @@ func TestDiffractionLimitedContrast(t *testing.T) {
 		if got := Contrast(f.Burst.Data[0][0]); math.Abs(got-want) > 0.1*want {
 			t.Errorf("field: diffraction-limited contrast %.4f, want %.3f ± 10 %%", got, want)
 		}
-	}
-}
-
-// TestGranulationScale checks the cell size: the azimuthally averaged power
-// spectrum of granulation peaks at a spatial frequency near 1/cell size
-// (the dominant scale of a cellular pattern; our construction, common
-// practice for reading granule sizes off power spectra), for two cell
-// sizes, and the rms contrast is the requested one.
-func TestGranulationScale(t *testing.T) {
-	const n = 256
-	const ps = 0.06 // arcsec per pixel
-	im := make([]float64, n*n)
-	plan := fft.NewPlan(n, n)
-	spec := make([]complex128, n*n)
-	for _, cell := range []float64{1.0, 1.6} {
-		p := GranulationParams{CellSize: cell, Contrast: 0.1, Mesoscale: -1}
-		if err := Granulation(im, n, n, ps, p, rand.New(rand.NewPCG(6, 6))); err != nil {
-			t.Fatal(err)
-		}
-		if c := Contrast(im); math.Abs(c-0.1) > 1e-3 {
-			t.Errorf("cell %g: contrast %.4f, want 0.1", cell, c)
-		}
-		plan.ForwardReal(spec, im)
-		power := make([]float64, n/2)
-		count := make([]float64, n/2)
-		for y := 0; y < n; y++ {
-			for x := 0; x < n; x++ {
-				r := int(math.Round(math.Hypot(float64(signedFreq(x, n)), float64(signedFreq(y, n)))))
-				if r > 0 && r < n/2 {
-					v := spec[y*n+x]
-					power[r] += real(v)*real(v) + imag(v)*imag(v)
-					count[r]++
-				}
-			}
-		}
-		best := 1
-		for r := 2; r < n/2; r++ {
-			if power[r]/count[r] > power[best]/count[best] {
-				best = r
-			}
-		}
-		// Frequency in cycles per arcsec.
-		fpk := float64(best) / (n * ps)
-		if fpk*cell < 0.6 || fpk*cell > 1.5 {
-			t.Errorf("cell %g arcsec: power peaks at %.3f cycles/arcsec, %.2f × 1/cell; want 0.6–1.5", cell, fpk, fpk*cell)
-		}
-		t.Logf("cell %g arcsec: spectrum peak at %.2f × 1/cell", cell, fpk*cell)
-	}
-	if err := Granulation(im, n, n, 0.5, GranulationParams{CellSize: 0.8}, rand.New(rand.NewPCG(1, 1))); err == nil {
-		t.Error("cells under 2 px: no error")
-	}
-	if err := Granulation(im, n, n, ps, GranulationParams{LaneDepth: 1.5}, rand.New(rand.NewPCG(1, 1))); err == nil {
-		t.Error("lane depth 1.5: no error")
 	}
 }
 

@@ -8,6 +8,9 @@ import (
 	"runtime"
 	"sync"
 
+	"gonum.org/v1/gonum/floats"
+	"gonum.org/v1/gonum/stat"
+
 	"pdwave/model/burst"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
@@ -72,10 +75,19 @@ func (c Config) Validate() error {
 // Options tune one burst. The zero value gives granulation with the
 // default GranulationParams, the Config's r0, subharmonics on, and all
 // cores.
+//
+// The object comes from Object if set (used as given, no contrast
+// scaling), else from Source if set, else from granulation with Scene.
+// Whatever Source draws (granulation, real images, a Mix) has its
+// fluctuations stretched about the mean so that its diffraction-limited
+// image has rms contrast Scene.Contrast (default 0.12), as for the
+// built-in granulation; to vary the contrast between bursts, set
+// Scene.Contrast per burst.
 type Options struct {
 	R0             float64           // Fried parameter at the observing wavelength, m; 0 = Config.Turbulence.R0
-	Scene          GranulationParams // look of the granulation; its Contrast is set at the diffraction limit (see Simulator)
-	Object         []float64         // user object map (row-major ObjectNx×ObjectNy, any positive scale); nil = granulation
+	Scene          GranulationParams // look of the built-in granulation; its Contrast is the diffraction-limited contrast of every drawn scene
+	Source         Scene             // scene drawn per burst (GranulationScene, ImageScene, Mix, ...); nil = granulation with Scene; not with Object
+	Object         []float64         // user object map (row-major ObjectNx×ObjectNy, any positive scale); nil = a drawn scene
 	ObjectNx       int               // columns of Object
 	ObjectNy       int               // rows of Object
 	NoSubharmonics bool              // draw screens without subharmonics
@@ -94,6 +106,7 @@ type Result struct {
 	Atmosphere *Atmosphere  // the layers (screens) used, on the imaging pupil grid (Atmosphere.N = Oversample·N)
 	Phases     [][]float64  // Patch with KeepPhases: per frame, N*N wavefront on the fit's pupil grid (every Oversample-th imaging sample), rad
 	Times      []float64    // time of each frame, s (frame f at f·FrameInterval)
+	Scene      string       // what the object was made from: the Scene's description ("granulation", "real:brick.fits @12,300 rot90 c=0.131", ...) or "object map"
 }
 
 // Simulator makes bursts for one Config. It holds the pupil, basis and
@@ -189,44 +202,47 @@ func (s *Simulator) turbulence(o Options) (Turbulence, error) {
 	return t, nil
 }
 
-// object returns the object on an m×m canvas (mean ≈ 1 for granulation;
-// user maps scaled to mean 1) whose central region is the output.
-func (s *Simulator) object(rng *rand.Rand, o Options, mx, my int) ([]float64, error) {
+// object returns the object on an mx×my canvas whose central region is
+// the output, and its description: a drawn scene (Options.Source, else
+// granulation with Options.Scene; mean ≈ 1, contrast set later by the
+// caller) or a random window of the user map scaled to mean 1.
+func (s *Simulator) object(rng *rand.Rand, o Options, mx, my int) ([]float64, string, error) {
 	obj := make([]float64, mx*my)
 	if o.Object == nil {
-		ps := s.cfg.Telescope.PixelScale * optics.RadToArcsec
-		if err := Granulation(obj, mx, my, ps, o.Scene, rng); err != nil {
-			return nil, err
+		src := o.Source
+		if src == nil {
+			src = GranulationScene{Params: o.Scene}
 		}
-		return obj, nil
+		ps := s.cfg.Telescope.PixelScale * optics.RadToArcsec
+		name, err := src.Draw(obj, mx, my, ps, rng)
+		if err != nil {
+			return nil, "", err
+		}
+		if err := checkFlux(obj); err != nil {
+			return nil, "", fmt.Errorf("simulate: scene %q: %w", name, err)
+		}
+		return obj, name, nil
+	}
+	if o.Source != nil {
+		return nil, "", errors.New("simulate: options set both a user object map and a scene source; use one")
 	}
 	if o.ObjectNx < 1 || o.ObjectNy < 1 || len(o.Object) != o.ObjectNx*o.ObjectNy {
-		return nil, fmt.Errorf("simulate: object map of %d values is not %d×%d", len(o.Object), o.ObjectNx, o.ObjectNy)
+		return nil, "", fmt.Errorf("simulate: object map of %d values is not %d×%d", len(o.Object), o.ObjectNx, o.ObjectNy)
 	}
 	if o.ObjectNx < mx || o.ObjectNy < my {
-		return nil, fmt.Errorf("simulate: object map %d×%d px is smaller than the %d×%d px canvas needed (output plus a margin of half a patch on each side)", o.ObjectNx, o.ObjectNy, mx, my)
+		return nil, "", fmt.Errorf("simulate: object map %d×%d px is smaller than the %d×%d px canvas needed (output plus a margin of half a patch on each side)", o.ObjectNx, o.ObjectNy, mx, my)
 	}
 	// A random window of the map.
 	x0 := rng.IntN(o.ObjectNx - mx + 1)
 	y0 := rng.IntN(o.ObjectNy - my + 1)
-	var sum float64
 	for y := 0; y < my; y++ {
 		copy(obj[y*mx:y*mx+mx], o.Object[(y0+y)*o.ObjectNx+x0:])
 	}
-	for _, v := range obj {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return nil, errors.New("simulate: object map holds a non-finite value")
-		}
-		sum += v
+	if err := checkFlux(obj); err != nil {
+		return nil, "", fmt.Errorf("simulate: object map window: %w", err)
 	}
-	if !(sum > 0) {
-		return nil, errors.New("simulate: object map window has no positive flux")
-	}
-	mean := sum / float64(len(obj))
-	for i := range obj {
-		obj[i] /= mean
-	}
-	return obj, nil
+	floats.Scale(1/stat.Mean(obj, nil), obj)
+	return obj, "object map", nil
 }
 
 // contrastFactor returns the factor k by which the fluctuations of the
@@ -439,7 +455,7 @@ func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 	}
 	m := canvasSide(n+p, s.q)
 	c0 := (m - n) / 2
-	obj, err := s.object(rng, o, m, m)
+	obj, scene, err := s.object(rng, o, m, m)
 	if err != nil {
 		return nil, err
 	}
@@ -460,7 +476,7 @@ func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 	b.Optics = s.opticsHeader()
 	b.Truth = &burst.Truth{Basis: string(s.basis.Kind), Modes: s.basis.Count,
 		Coeffs: make([][]float64, frames), Noll: make([][]float64, frames)}
-	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames)}
+	res := &Result{Burst: b, R0: turb.R0, Atmosphere: atm, Times: make([]float64, frames), Scene: scene}
 	if o.KeepPhases {
 		res.Phases = make([][]float64, frames)
 	}

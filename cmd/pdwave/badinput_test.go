@@ -212,6 +212,9 @@ func TestBadInput(t *testing.T) {
 		{"simulate under-sampled", []string{"simulate", "--site", p("undersampled.yaml"), "--out", "OUT"}, "sampl"},
 		{"simulate negative patch", []string{"simulate", "--site", p("negative-patch.yaml"), "--out", "OUT"}, "patch"},
 		{"simulate missing site", []string{"simulate", "--site", p("nope.yaml"), "--out", "OUT"}, "nope.yaml"},
+		{"simulate bad scene", []string{"simulate", "--site", demoSite, "--out", "OUT", "--scene", p("nope-scene")}, "scene"},
+		{"simulate scene not fits", []string{"simulate", "--site", demoSite, "--out", "OUT", "--scene", p("notfits.fits")}, "notfits.fits"},
+		{"simulate object and scene", []string{"simulate", "--site", demoSite, "--out", "OUT", "--object", p("good.fits"), "--scene", "mix"}, "scene"},
 		{"screen negative size", []string{"simulate", "screen", "--site", demoSite, "--out", "OUT/s.fits", "--size", "-8"}, "size"},
 		// fit
 		{"fit truncated", []string{"fit", p("truncated.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "truncated.fits"},

@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"strconv"
+	"strings"
 
 	"github.com/spf13/cobra"
 
@@ -16,8 +17,8 @@ import (
 	"pdwave/simulate"
 )
 
-// simulateOpts holds the flags of "pdwave simulate".
-var simulateOpts struct {
+// simulateFlags are the flags of "pdwave simulate".
+type simulateFlags struct {
 	site     string
 	out      string
 	bursts   int
@@ -26,9 +27,13 @@ var simulateOpts struct {
 	frames   int
 	screens  bool
 	object   string
+	scene    string
 	contrast float64
 	workers  int
 }
+
+// simulateOpts holds the flags of "pdwave simulate".
+var simulateOpts simulateFlags
 
 var simulateCmd = &cobra.Command{
 	Use:   "simulate --site FILE --out DIR",
@@ -40,9 +45,16 @@ Each burst is seen through the site's turbulent layers (von Kármán phase
 screens moving with the wind between frames), imaged through the telescope
 pupil in focus (channel 1) and with the site's defocus diversity (channel 2),
 with photon noise, read noise and quantisation to the camera's bit depth.
-The scene is synthetic granulation (rms contrast --contrast at the
-diffraction limit) or windows of a user object map (--object, a FITS image
-at the camera's pixel scale).
+The scene (--scene) is synthetic granulation (the default), real images
+("real": the photographs shipped in testdata/scenes, found from the working
+directory upwards or at $PDWAVE_SCENES; or FITS files and folders given by
+path, comma-separated), or "mix" (granulation or a shipped real image, half
+each). Real images are used at the camera's pixel scale, as random windows
+in one of eight orientations (quarter turns and flips), mirror-tiled when
+the canvas is larger than the image. Every scene's rms contrast at the
+diffraction limit is set to --contrast. With --object a user object map (a
+FITS image at the camera's pixel scale) is used as it is instead. The scene
+each burst was drawn from is recorded as SIMSCENE in the header.
 
 Without --field each burst is one patch of the site's patch size; its file
 carries the true wavefront of every frame (extension TRUTH: coefficients in
@@ -99,8 +111,9 @@ func init() {
 	f.IntVar(&simulateOpts.field, "field", 0, "simulate NX×NX full fields instead of single patches (0 = patches)")
 	f.IntVar(&simulateOpts.frames, "frames", 0, "frames per burst (0 = the site's)")
 	f.BoolVar(&simulateOpts.screens, "screens", false, "also write the phase screens of every burst")
-	f.StringVar(&simulateOpts.object, "object", "", "FITS object map to image instead of granulation")
-	f.Float64Var(&simulateOpts.contrast, "contrast", 0.12, "rms contrast of the granulation at the diffraction limit")
+	f.StringVar(&simulateOpts.object, "object", "", "FITS object map to image as it is, instead of a drawn scene")
+	f.StringVar(&simulateOpts.scene, "scene", "granulation", "granulation, real, mix, or FITS files/folders (comma-separated)")
+	f.Float64Var(&simulateOpts.contrast, "contrast", 0.12, "rms contrast of the scene at the diffraction limit")
 	f.IntVar(&simulateOpts.workers, "workers", 0, "worker goroutines (0 = all cores)")
 
 	g := simulateScreenCmd.Flags()
@@ -133,6 +146,12 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 		return fmt.Errorf("simulate: --contrast %g, want in (0, 1)", o.contrast)
 	case o.workers < 0:
 		return fmt.Errorf("simulate: --workers %d, want ≥ 0", o.workers)
+	case o.object != "" && cmd.Flags().Changed("scene"):
+		return errors.New("simulate: --object and --scene exclude each other")
+	}
+	source, err := sceneSource(o.scene, simulate.GranulationParams{Contrast: o.contrast})
+	if err != nil {
+		return err
 	}
 	st, err := site.Load(o.site)
 	if err != nil {
@@ -149,7 +168,7 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return fmt.Errorf("simulate: site %s: %w", o.site, err)
 	}
-	opts := simulate.Options{Workers: o.workers, KeepPhases: o.screens}
+	opts := simulate.Options{Workers: o.workers, KeepPhases: o.screens, Source: source}
 	opts.Scene.Contrast = o.contrast
 	if o.object != "" {
 		data, nx, ny, err := simulate.ReadObject(o.object)
@@ -178,31 +197,7 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 			return fmt.Errorf("simulate: burst %d: %w", i, err)
 		}
 		b := res.Burst
-		b.Cards = append(b.Cards,
-			burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
-			burst.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
-			burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
-		)
-		settings := map[string]string{
-			"verb":         "simulate",
-			"site":         o.site,
-			"seed":         strconv.FormatUint(o.seed, 10),
-			"burst":        strconv.Itoa(i),
-			"kind":         kind,
-			"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
-			"frames":       strconv.Itoa(cfg.Frames),
-			"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
-			"patch":        strconv.Itoa(cfg.Patch),
-			"basis":        string(cfg.Basis),
-			"modes":        strconv.Itoa(cfg.Modes),
-			"subharmonics": "true",
-			"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
-		}
-		if o.object != "" {
-			settings["object"] = o.object
-			delete(settings, "contrast")
-		}
-		prov := burst.Provenance(version, settings)
+		prov := simulateHeader(o, cfg, kind, i, res)
 		name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
 		if err := burst.Write(name, b, prov); err != nil {
 			return err
@@ -218,6 +213,85 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 		fmt.Fprintln(cmd.OutOrStdout(), msg)
 	}
 	return nil
+}
+
+// simulateHeader adds the simulation cards (SIMR0, SIMSEED, SIMBURST,
+// SIMSCENE) to burst i of res and returns its provenance cards (all
+// settings as HISTORY).
+func simulateHeader(o simulateFlags, cfg simulate.Config, kind string, i int, res *simulate.Result) []burst.Card {
+	b := res.Burst
+	b.Cards = append(b.Cards,
+		burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
+		burst.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
+		burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
+		burst.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
+	)
+	settings := map[string]string{
+		"verb":         "simulate",
+		"site":         o.site,
+		"seed":         strconv.FormatUint(o.seed, 10),
+		"burst":        strconv.Itoa(i),
+		"kind":         kind,
+		"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
+		"frames":       strconv.Itoa(cfg.Frames),
+		"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
+		"patch":        strconv.Itoa(cfg.Patch),
+		"basis":        string(cfg.Basis),
+		"modes":        strconv.Itoa(cfg.Modes),
+		"subharmonics": "true",
+		"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
+		"scene":        o.scene,
+		"scene_drawn":  res.Scene,
+	}
+	if o.object != "" {
+		settings["object"] = o.object
+		delete(settings, "contrast")
+		delete(settings, "scene")
+	}
+	return burst.Provenance(version, settings)
+}
+
+// sceneSource returns the scene of --scene: nil (the simulator's built-in
+// granulation) for "granulation", the shipped real images for "real",
+// SceneMix of granulation with g and those images for "mix", else the
+// images of the comma-separated FITS files and folders.
+func sceneSource(spec string, g simulate.GranulationParams) (simulate.Scene, error) {
+	switch spec {
+	case "granulation":
+		return nil, nil
+	case "real", "mix":
+		dir, err := simulate.FindSceneDir()
+		if err != nil {
+			return nil, fmt.Errorf("simulate: --scene %s: %w", spec, err)
+		}
+		imgs, err := simulate.LoadSceneDir(dir)
+		if err != nil {
+			return nil, fmt.Errorf("simulate: --scene %s: %w", spec, err)
+		}
+		if spec == "real" {
+			return imgs, nil
+		}
+		return simulate.SceneMix(g, imgs), nil
+	}
+	all := &simulate.ImageScene{}
+	for _, p := range strings.Split(spec, ",") {
+		p = strings.TrimSpace(p)
+		st, err := os.Stat(p)
+		if p == "" || err != nil {
+			return nil, fmt.Errorf("simulate: --scene %q: %q is not granulation, real, mix, or a FITS file or folder", spec, p)
+		}
+		var imgs *simulate.ImageScene
+		if st.IsDir() {
+			imgs, err = simulate.LoadSceneDir(p)
+		} else {
+			imgs, err = simulate.NewImageScene(p)
+		}
+		if err != nil {
+			return nil, fmt.Errorf("simulate: --scene: %w", err)
+		}
+		all.Images = append(all.Images, imgs.Images...)
+	}
+	return all, nil
 }
 
 func simulateScreenRun(cmd *cobra.Command, _ []string) error {
