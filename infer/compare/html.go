@@ -49,6 +49,26 @@ func HTML(r *Report, figs []Figure) ([]byte, error) {
 	for _, p := range r.Summary.Pairs {
 		pg.Pairs = append(pg.Pairs, p.A+" − "+p.B)
 	}
+	pg.Methods = htmlMethodRows(r)
+	pg.ModeHead, pg.ModeRows = htmlModeTable(r, pg.Pairs)
+	pg.PatchHead, pg.PatchRows = htmlPatchTable(r)
+	pg.Files = []string{FileCoeffsCSV, FilePatchesCSV, FileModesCSV, FileSpectraCSV, FileReportJSON, FilePatchesJSON, FileModesJSON}
+	for _, f := range figs {
+		pg.Files = append(pg.Files, f.Name)
+	}
+	sort.Strings(pg.Files)
+	var buf bytes.Buffer
+	if err := htmlTemplate.Execute(&buf, pg); err != nil {
+		return nil, fmt.Errorf("rendering report page: %w", err)
+	}
+	return buf.Bytes(), nil
+}
+
+// htmlMethodRows returns one summary row per method: the patch medians of
+// metric and contrast, the median ratio to the fit ("1" for the fit, ""
+// when there is none) and the patch means of the times, seconds.
+func htmlMethodRows(r *Report) []htmlMethodRow {
+	var rows []htmlMethodRow
 	for _, m := range r.Methods {
 		row := htmlMethodRow{Method: m}
 		var met, con, sec, tot []float64
@@ -69,53 +89,69 @@ func HTML(r *Report, figs []Figure) ([]byte, error) {
 		if m == Fitted {
 			row.MedianRatio = "1"
 		}
-		pg.Methods = append(pg.Methods, row)
+		rows = append(rows, row)
 	}
-	g := func(v float64) string { return fmt.Sprintf("%.4g", v) }
-	pg.ModeHead = []string{"mode"}
+	return rows
+}
+
+// htmlG formats a table value with four significant digits.
+func htmlG(v float64) string { return fmt.Sprintf("%.4g", v) }
+
+// htmlModeTable returns the head and rows of the per-mode table: RMS and
+// spread per series, then the RMS of each difference (pairs are the
+// difference labels, in Summary.Pairs order).
+func htmlModeTable(r *Report, pairs []string) (head []string, rows [][]string) {
+	head = []string{"mode"}
 	for _, sr := range r.Summary.Series {
-		pg.ModeHead = append(pg.ModeHead, "rms "+sr, "spread "+sr)
+		head = append(head, "rms "+sr, "spread "+sr)
 	}
-	for _, p := range pg.Pairs {
-		pg.ModeHead = append(pg.ModeHead, "rms "+p)
+	for _, p := range pairs {
+		head = append(head, "rms "+p)
 	}
 	for _, st := range r.Summary.Modes {
 		row := []string{fmt.Sprint(st.Mode)}
 		for k := range r.Summary.Series {
-			row = append(row, g(st.RMS[k]), g(st.Spread[k]))
+			row = append(row, htmlG(st.RMS[k]), htmlG(st.Spread[k]))
 		}
 		for k := range r.Summary.Pairs {
-			row = append(row, g(st.DiffRMS[k]))
+			row = append(row, htmlG(st.DiffRMS[k]))
 		}
-		pg.ModeRows = append(pg.ModeRows, row)
+		rows = append(rows, row)
 	}
-	pg.PatchHead = []string{"patch", "x", "y", "raw contrast"}
+	return head, rows
+}
+
+// htmlPatchTable returns the head and rows of the per-patch table: origin
+// and raw contrast, the metric of each method, the ratios to the fit, the
+// contrasts, the times in milliseconds (not for the truth) and the flags.
+func htmlPatchTable(r *Report) (head []string, rows [][]string) {
+	head = []string{"patch", "x", "y", "raw contrast"}
 	for _, m := range r.Methods {
-		pg.PatchHead = append(pg.PatchHead, "metric "+m)
+		head = append(head, "metric "+m)
 	}
 	for _, m := range r.Summary.RatioMethods {
-		pg.PatchHead = append(pg.PatchHead, "ratio "+m+"/"+Fitted)
+		head = append(head, "ratio "+m+"/"+Fitted)
 	}
 	for _, m := range r.Methods {
-		pg.PatchHead = append(pg.PatchHead, "contrast "+m)
+		head = append(head, "contrast "+m)
 	}
 	for _, m := range r.Methods {
 		if m != Truth {
-			pg.PatchHead = append(pg.PatchHead, "ms "+m)
+			head = append(head, "ms "+m)
 		}
 	}
-	pg.PatchHead = append(pg.PatchHead, "flags")
+	head = append(head, "flags")
 	for i := range r.Patches {
 		p := &r.Patches[i]
-		row := []string{fmt.Sprint(p.Index), fmt.Sprint(p.X), fmt.Sprint(p.Y), g(p.RawContrast)}
+		row := []string{fmt.Sprint(p.Index), fmt.Sprint(p.X), fmt.Sprint(p.Y), htmlG(p.RawContrast)}
 		for _, e := range p.Estimates {
-			row = append(row, g(e.Metric))
+			row = append(row, htmlG(e.Metric))
 		}
 		for k := range r.Summary.RatioMethods {
-			row = append(row, g(r.Summary.Ratios[k][i].Value))
+			row = append(row, htmlG(r.Summary.Ratios[k][i].Value))
 		}
 		for _, e := range p.Estimates {
-			row = append(row, g(e.Contrast))
+			row = append(row, htmlG(e.Contrast))
 		}
 		for _, e := range p.Estimates {
 			if e.Method != Truth {
@@ -123,18 +159,9 @@ func HTML(r *Report, figs []Figure) ([]byte, error) {
 			}
 		}
 		row = append(row, strings.Join(p.Flags, " "))
-		pg.PatchRows = append(pg.PatchRows, row)
+		rows = append(rows, row)
 	}
-	pg.Files = []string{FileCoeffsCSV, FilePatchesCSV, FileModesCSV, FileSpectraCSV, FileReportJSON, FilePatchesJSON, FileModesJSON}
-	for _, f := range figs {
-		pg.Files = append(pg.Files, f.Name)
-	}
-	sort.Strings(pg.Files)
-	var buf bytes.Buffer
-	if err := htmlTemplate.Execute(&buf, pg); err != nil {
-		return nil, fmt.Errorf("rendering report page: %w", err)
-	}
-	return buf.Bytes(), nil
+	return head, rows
 }
 
 func mean(x []float64) float64 {
