@@ -1,5 +1,6 @@
 // Package site reads the site/telescope YAML file that describes a
-// telescope, its seeing, its camera and the working sizes (DESIGN §4).
+// telescope, its seeing, its camera and the working sizes (README "Site
+// file").
 //
 // The file has four sections; units are in the names and every field is
 // documented on the struct below. Unknown fields are errors (a typo must
@@ -447,8 +448,10 @@ func (s *Site) Telescope() optics.Telescope {
 
 // DiversityPV returns the defocus of the diversity channel, peak-to-valley
 // waves: diversity_pv_waves, or focus_shift_mm converted with
-// Δz/(8 λ F#²) (DESIGN §3). It returns 0 if neither is set (only possible
-// for a Site that was not validated).
+// Δz/(8 λ F#²) (the peak-to-valley defocus of a longitudinal focus shift
+// Δz is Δz·NA²/2 = Δz/(8 F#²) with NA = 1/(2 F#); from memory). It
+// returns 0 if neither is set (only possible for a Site that was not
+// validated).
 func (s *Site) DiversityPV() float64 {
 	t := s.Tel
 	switch {
