@@ -5,9 +5,10 @@ import (
 	"encoding/base64"
 	"fmt"
 	"html/template"
-	"math"
 	"sort"
 	"strings"
+
+	"gonum.org/v1/gonum/stat"
 )
 
 // htmlMethodRow is one row of the page's summary table.
@@ -80,7 +81,7 @@ func htmlMethodRows(r *Report) []htmlMethodRow {
 			tot = append(tot, e.Total)
 		}
 		row.MedianMetric, row.MedianContrast = median(met), median(con)
-		row.MeanSeconds, row.MeanTotal = mean(sec), mean(tot)
+		row.MeanSeconds, row.MeanTotal = stat.Mean(sec, nil), stat.Mean(tot, nil)
 		for k, rm := range r.Summary.RatioMethods {
 			if rm == m {
 				row.MedianRatio = fmt.Sprintf("%.4g", r.Summary.MedianRatio[k])
@@ -162,17 +163,6 @@ func htmlPatchTable(r *Report) (head []string, rows [][]string) {
 		rows = append(rows, row)
 	}
 	return head, rows
-}
-
-func mean(x []float64) float64 {
-	if len(x) == 0 {
-		return math.NaN()
-	}
-	var s float64
-	for _, v := range x {
-		s += v
-	}
-	return s / float64(len(x))
 }
 
 var htmlTemplate = template.Must(template.New("page").Funcs(template.FuncMap{

@@ -2,9 +2,10 @@ package compare
 
 import (
 	"fmt"
-	"math"
 	"sync"
 	"time"
+
+	"gonum.org/v1/gonum/stat"
 
 	"pdwave/infer"
 	"pdwave/model/burst"
@@ -188,19 +189,14 @@ func newScorer(n int, level float64, plan *fft.Plan) *scorer {
 // contrast returns the population standard deviation of img over the
 // mean level.
 func (s *scorer) contrast(img []float64) float64 {
-	mu := meanOf(img)
-	var s2 float64
-	for _, v := range img {
-		s2 += (v - mu) * (v - mu)
-	}
-	return math.Sqrt(s2/float64(len(img))) / s.norm
+	return stat.PopStdDev(img, nil) / s.norm
 }
 
 // spectrum returns a new slice with the azimuthal average of the power
 // spectrum of img minus its mean, |FFT|²/(n² level²).
 func (s *scorer) spectrum(img []float64) []float64 {
 	n := s.n
-	mu := meanOf(img)
+	mu := stat.Mean(img, nil)
 	for i, v := range img {
 		s.pbuf[i] = v - mu
 	}
@@ -211,13 +207,4 @@ func (s *scorer) spectrum(img []float64) []float64 {
 	}
 	AzimuthalAverage(s.spec, s.pbuf, n)
 	return append([]float64(nil), s.spec...)
-}
-
-// meanOf returns the arithmetic mean of x, summed in order.
-func meanOf(x []float64) float64 {
-	var s float64
-	for _, v := range x {
-		s += v
-	}
-	return s / float64(len(x))
 }

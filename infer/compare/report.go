@@ -32,6 +32,8 @@ import (
 	"fmt"
 	"math"
 	"sort"
+
+	"gonum.org/v1/gonum/stat"
 )
 
 // Method names used in reports. A report holds any subset of them, in this
@@ -456,22 +458,19 @@ func metricRatio(a, b float64) float64 {
 	return a / b
 }
 
+// stddev returns the sample standard deviation of x (divisor n−1), or 0
+// for fewer than two values.
 func stddev(x []float64) float64 {
 	if len(x) < 2 {
 		return 0
 	}
-	var m float64
-	for _, v := range x {
-		m += v
-	}
-	m /= float64(len(x))
-	var s float64
-	for _, v := range x {
-		s += (v - m) * (v - m)
-	}
-	return math.Sqrt(s / float64(len(x)-1))
+	return stat.StdDev(x, nil)
 }
 
+// median returns the median of x (NaN if empty): the middle value, or the
+// average of the two middle values for an even count. It is written out
+// because stat.Quantile(0.5, stat.Empirical, ...) returns the lower middle
+// value for even counts, which would move the reported median ratios.
 func median(x []float64) float64 {
 	if len(x) == 0 {
 		return math.NaN()
