@@ -26,7 +26,8 @@ type Overrides struct {
 // ConfigFor returns the fit configuration for bursts of the given frame
 // count whose header gives the optics o (zero fields = unknown), on site s
 // (nil = no site file). It is the one place where site file, burst header
-// and overrides are combined (DESIGN §4):
+// and overrides are combined (the burst and site contracts of the README,
+// "Burst files" and "Site file"):
 //
 //   - optics: wavelength, pixel scale, diameter, obscuration and diversity
 //     from the header, else from the site (burst.Optics.Fill); the rest of the

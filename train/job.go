@@ -49,52 +49,12 @@ type Job struct {
 
 // Run executes the job and returns the last validation.
 func (j Job) Run() (Validation, error) {
-	if j.Site == "" || j.Out == "" {
-		return Validation{}, fmt.Errorf("train: a site file and an output folder are required")
-	}
-	if j.Steps == 0 {
-		j.Steps = 2000
-	}
-	if j.Batch == 0 {
-		j.Batch = 4
-	}
-	if j.LR == 0 {
-		j.LR = 3e-3
-	}
-	if j.Reuse == 0 {
-		j.Reuse = 4
-	}
-	if j.Reuse < 1 || j.Reuse > 8 {
-		return Validation{}, fmt.Errorf("train: reuse %d outside 1–8", j.Reuse)
-	}
-	if j.Gamma < 0 || math.IsNaN(j.Gamma) || math.IsInf(j.Gamma, 0) {
-		return Validation{}, fmt.Errorf("train: --gamma %g must be a positive number (0 = default)", j.Gamma)
-	}
-	if j.Validation == 0 {
-		j.Validation = 32
-	}
-	st, err := site.Load(j.Site)
-	if err != nil {
+	if err := j.setDefaults(); err != nil {
 		return Validation{}, err
 	}
-	var kind modes.Kind
-	if j.Basis != "" {
-		if kind, err = modes.ParseKind(j.Basis); err != nil {
-			return Validation{}, err
-		}
-	}
-	setup, simCfg, err := FromSite(st, j.Modes, kind)
+	st, setup, simCfg, init, err := j.problem()
 	if err != nil {
 		return Validation{}, err
-	}
-	var init *net.Model
-	if j.Init != "" && !j.Resume {
-		if init, err = net.Load(j.Init); err != nil {
-			return Validation{}, err
-		}
-		if err := init.Meta.Compatible(setup.Meta()); err != nil {
-			return Validation{}, fmt.Errorf("train: starting weights %s: %w", j.Init, err)
-		}
 	}
 	sim, err := simulate.New(simCfg)
 	if err != nil {
@@ -108,17 +68,8 @@ func (j Job) Run() (Validation, error) {
 			return Validation{}, err
 		}
 		defer res.Close()
-		c := res.Config()
-		j.Batch, j.Seed, j.WarmStart = c.Batch, c.Seed, c.WarmStart
-		if c.Reuse > 0 {
-			j.Reuse = c.Reuse
-		}
-		setup = res.prob.setup
-		if simCfg.Modes != setup.Modes || simCfg.Basis != setup.Basis {
-			simCfg.Modes, simCfg.Basis = setup.Modes, setup.Basis
-			if sim, err = simulate.New(simCfg); err != nil {
-				return Validation{}, err
-			}
+		if setup, sim, err = j.adoptCheckpoint(res, simCfg, sim); err != nil {
+			return Validation{}, err
 		}
 	}
 	src, err := j.source(sim, st, setup)
@@ -135,31 +86,140 @@ func (j Job) Run() (Validation, error) {
 			fmt.Fprintf(j.Progress, "resuming %s at step %d of %d\n", j.Out, t.Steps(), t.Config().Steps)
 		}
 	} else {
-		cfg := Config{Steps: j.Steps, Batch: j.Batch, LR: j.LR, PriorWeight: j.Prior, WarmStart: j.WarmStart,
-			Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse, Gamma: j.Gamma}
-		cfg.Init = init
-		if j.Conv != nil || j.Hidden != 0 || j.Head != 0 {
-			a := net.DefaultArch(setup.Modes)
-			if j.Conv != nil {
-				a.Conv = j.Conv
-			}
-			if j.Hidden != 0 {
-				a.Hidden = j.Hidden
-			}
-			if j.Head != 0 {
-				a.Head = j.Head
-			}
-			if err := a.Validate(); err != nil {
-				return Validation{}, fmt.Errorf("train: %w", err)
-			}
-			cfg.Arch = &a
-		}
-		if t, err = New(setup, cfg, src); err != nil {
+		if t, err = j.newTrainer(setup, init, src); err != nil {
 			return Validation{}, err
 		}
 		defer t.Close()
 	}
 	m := t.Model()
+	data := j.recordTraining(m)
+	if err := j.validationSet(&opts, sim, setup); err != nil {
+		return Validation{}, err
+	}
+	if j.Progress != nil && res == nil {
+		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
+			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
+	}
+	if err := os.MkdirAll(j.Out, 0o755); err != nil {
+		return Validation{}, fmt.Errorf("train: output folder: %w", err)
+	}
+	return t.Run(opts)
+}
+
+// setDefaults fills the zero settings with their defaults (2000 steps,
+// batch 4, learning rate 3e-3, reuse 4, 32 validation bursts) and rejects
+// a missing site or output folder, a reuse outside 1–8 and a negative or
+// non-finite gamma.
+func (j *Job) setDefaults() error {
+	if j.Site == "" || j.Out == "" {
+		return fmt.Errorf("train: a site file and an output folder are required")
+	}
+	if j.Steps == 0 {
+		j.Steps = 2000
+	}
+	if j.Batch == 0 {
+		j.Batch = 4
+	}
+	if j.LR == 0 {
+		j.LR = 3e-3
+	}
+	if j.Reuse == 0 {
+		j.Reuse = 4
+	}
+	if j.Reuse < 1 || j.Reuse > 8 {
+		return fmt.Errorf("train: reuse %d outside 1–8", j.Reuse)
+	}
+	if j.Gamma < 0 || math.IsNaN(j.Gamma) || math.IsInf(j.Gamma, 0) {
+		return fmt.Errorf("train: --gamma %g must be a positive number (0 = default)", j.Gamma)
+	}
+	if j.Validation == 0 {
+		j.Validation = 32
+	}
+	return nil
+}
+
+// problem loads the site and derives the training set-up and simulator
+// configuration (with the job's mode count and basis, if set), plus the
+// starting weights of a fine-tuning run (nil without Init or on resume),
+// which must match the set-up's optics and basis.
+func (j Job) problem() (*site.Site, Setup, simulate.Config, *net.Model, error) {
+	st, err := site.Load(j.Site)
+	if err != nil {
+		return nil, Setup{}, simulate.Config{}, nil, err
+	}
+	var kind modes.Kind
+	if j.Basis != "" {
+		if kind, err = modes.ParseKind(j.Basis); err != nil {
+			return nil, Setup{}, simulate.Config{}, nil, err
+		}
+	}
+	setup, simCfg, err := FromSite(st, j.Modes, kind)
+	if err != nil {
+		return nil, Setup{}, simulate.Config{}, nil, err
+	}
+	var init *net.Model
+	if j.Init != "" && !j.Resume {
+		if init, err = net.Load(j.Init); err != nil {
+			return nil, Setup{}, simulate.Config{}, nil, err
+		}
+		if err := init.Meta.Compatible(setup.Meta()); err != nil {
+			return nil, Setup{}, simulate.Config{}, nil, fmt.Errorf("train: starting weights %s: %w", j.Init, err)
+		}
+	}
+	return st, setup, simCfg, init, nil
+}
+
+// adoptCheckpoint takes over the resumed run's batch, seed, warm start,
+// reuse and set-up, and rebuilds the simulator if the checkpoint's modes
+// or basis differ from the site's. It returns the set-up and simulator to
+// use.
+func (j *Job) adoptCheckpoint(res *Resumed, simCfg simulate.Config, sim *simulate.Simulator) (Setup, *simulate.Simulator, error) {
+	c := res.Config()
+	j.Batch, j.Seed, j.WarmStart = c.Batch, c.Seed, c.WarmStart
+	if c.Reuse > 0 {
+		j.Reuse = c.Reuse
+	}
+	setup := res.prob.setup
+	if simCfg.Modes != setup.Modes || simCfg.Basis != setup.Basis {
+		simCfg.Modes, simCfg.Basis = setup.Modes, setup.Basis
+		var err error
+		if sim, err = simulate.New(simCfg); err != nil {
+			return Setup{}, nil, err
+		}
+	}
+	return setup, sim, nil
+}
+
+// newTrainer makes a fresh trainer from the job's settings, starting from
+// init if not nil, with the job's architecture overrides applied to
+// net.DefaultArch (validated) when any is set.
+func (j Job) newTrainer(setup Setup, init *net.Model, src Source) (*Trainer, error) {
+	cfg := Config{Steps: j.Steps, Batch: j.Batch, LR: j.LR, PriorWeight: j.Prior, WarmStart: j.WarmStart,
+		Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse, Gamma: j.Gamma}
+	cfg.Init = init
+	if j.Conv != nil || j.Hidden != 0 || j.Head != 0 {
+		a := net.DefaultArch(setup.Modes)
+		if j.Conv != nil {
+			a.Conv = j.Conv
+		}
+		if j.Hidden != 0 {
+			a.Hidden = j.Hidden
+		}
+		if j.Head != 0 {
+			a.Head = j.Head
+		}
+		if err := a.Validate(); err != nil {
+			return nil, fmt.Errorf("train: %w", err)
+		}
+		cfg.Arch = &a
+	}
+	return New(setup, cfg, src)
+}
+
+// recordTraining writes the program version and the training provenance
+// (command, data, reuse, starting weights) into the model's metadata and
+// returns the description of the data.
+func (j Job) recordTraining(m *net.Model) string {
 	m.Meta.Version = j.Version
 	if m.Meta.Training == nil {
 		m.Meta.Training = map[string]string{}
@@ -176,32 +236,33 @@ func (j Job) Run() (Validation, error) {
 	if j.Init != "" {
 		m.Meta.Training["init"] = filepath.Base(j.Init)
 	}
-	if j.Validation > 0 {
-		vsrc, err := NewSimSource(sim, setup, j.Seed^0x7a11da7e, nil)
-		if err != nil {
-			return Validation{}, err
-		}
-		if j.Progress != nil {
-			fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m\n", j.Validation, setup.R0)
-		}
-		if opts.Validation, err = FetchSet(vsrc, j.Validation); err != nil {
-			return Validation{}, err
-		}
-		if j.Referee != nil && j.RefereeBursts >= 0 {
-			if opts.Referee, err = j.Referee(setup); err != nil {
-				return Validation{}, err
-			}
-			opts.RefereeBursts = j.RefereeBursts
-		}
+	return data
+}
+
+// validationSet simulates the job's validation bursts (at the median r0,
+// from a seed derived from the job's) into opts and sets up the referee
+// fit, if any. It does nothing when Validation < 0.
+func (j Job) validationSet(opts *RunOptions, sim *simulate.Simulator, setup Setup) error {
+	if j.Validation <= 0 {
+		return nil
 	}
-	if j.Progress != nil && res == nil {
-		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
-			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
+	vsrc, err := NewSimSource(sim, setup, j.Seed^0x7a11da7e, nil)
+	if err != nil {
+		return err
 	}
-	if err := os.MkdirAll(j.Out, 0o755); err != nil {
-		return Validation{}, fmt.Errorf("train: output folder: %w", err)
+	if j.Progress != nil {
+		fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m\n", j.Validation, setup.R0)
 	}
-	return t.Run(opts)
+	if opts.Validation, err = FetchSet(vsrc, j.Validation); err != nil {
+		return err
+	}
+	if j.Referee != nil && j.RefereeBursts >= 0 {
+		if opts.Referee, err = j.Referee(setup); err != nil {
+			return err
+		}
+		opts.RefereeBursts = j.RefereeBursts
+	}
+	return nil
 }
 
 // source builds the training data stream.

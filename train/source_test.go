@@ -146,7 +146,7 @@ func TestFolderSource(t *testing.T) {
 }
 
 // The demo site gives the contract's telescope; r0 scales from 500 nm to
-// the observing wavelength as λ^(6/5) (DESIGN §3; Roddier 1981).
+// the observing wavelength as λ^(6/5) (Roddier 1981, Progress in Optics 19).
 func TestFromSite(t *testing.T) {
 	st, err := site.Load("../testdata/demo-site.yaml")
 	if err != nil {

@@ -19,8 +19,8 @@ import (
 	"pdwave/weights"
 )
 
-// compareOpts holds the flags of "pdwave compare".
-var compareOpts struct {
+// compareFlags holds the flags of "pdwave compare".
+type compareFlags struct {
 	out        string
 	site       string
 	weights    string
@@ -35,6 +35,9 @@ var compareOpts struct {
 	dOverR0    float64
 	prior      float64
 }
+
+// compareOpts holds the parsed flags of "pdwave compare".
+var compareOpts compareFlags
 
 var compareCmd = &cobra.Command{
 	Use:   "compare BURST --out DIR",
@@ -80,116 +83,42 @@ func init() {
 // and writes the folder.
 func compareRun(cmd *cobra.Command, args []string) error {
 	o := compareOpts
-	if o.out == "" {
-		return errors.New("compare: --out DIR is required")
-	}
-	if o.polish < 0 || o.iterations < 1 {
-		return fmt.Errorf("compare: --polish must be ≥ 0 and --iterations ≥ 1 (got %d, %d)", o.polish, o.iterations)
-	}
-	if o.patch < 0 || o.stride < 0 || o.modes < 0 {
-		return errors.New("compare: --patch, --stride and --modes must not be negative")
+	if err := o.check(); err != nil {
+		return err
 	}
 	b, err := burst.Read(args[0])
 	if err != nil {
 		return err
 	}
-	var notes []string
-	var st *site.Site
-	if o.site != "" {
-		if st, err = site.Load(o.site); err != nil {
-			return fmt.Errorf("compare: %s: %w", o.site, err)
-		}
-	}
-	ov := infer.Overrides{Patch: o.patch, Modes: o.modes, DOverR0: o.dOverR0}
-	if o.basis != "" {
-		if ov.Basis, err = modes.ParseKind(o.basis); err != nil {
-			return fmt.Errorf("compare: %w", err)
-		}
+	st, ov, err := o.siteAndOverrides()
+	if err != nil {
+		return err
 	}
 	fc, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
 	if err != nil {
 		return fmt.Errorf("compare: %w; give a site file (--site)", err)
 	}
-	tel, div := fc.Telescope, fc.DiversityPV[1]
-
-	// Weights: explicit file, else built-in, else none.
-	var model *net.Model
-	weightsFrom := ""
-	switch {
-	case o.weights != "":
-		if model, err = net.Load(o.weights); err != nil {
+	model, weightsFrom, notes, err := o.loadWeights(fc)
+	if err != nil {
+		return err
+	}
+	if model != nil {
+		if fc, err = compareSizesFromWeights(model, st, b, ov); err != nil {
 			return err
 		}
-		weightsFrom = o.weights
-	default:
-		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div, Patch: o.patch, Modes: o.modes, Basis: o.basis}
-		m, err := weights.For(want)
-		if err != nil {
-			notes = append(notes, "Built-in weights not used: "+err.Error())
-		} else {
-			model, weightsFrom = m, "built-in "+weights.DefaultName
-		}
 	}
-	if model != nil && o.weights != "" {
-		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div}
-		if err := model.Meta.Compatible(want); err != nil {
-			notes = append(notes, fmt.Sprintf("The weights %s were made for other optics (%v); the learned estimates may be poor.", o.weights, err))
-		}
-	}
-
-	// Sizes: flag, else the weights', else the site file's, else the defaults.
-	if model != nil {
-		if ov.Patch <= 0 {
-			ov.Patch = model.Meta.Patch
-		}
-		if ov.Modes <= 0 {
-			ov.Modes = model.Arch.Modes
-		}
-		if ov.Basis == "" && model.Meta.Basis != "" {
-			if ov.Basis, err = modes.ParseKind(model.Meta.Basis); err != nil {
-				return fmt.Errorf("compare: %w", err)
-			}
-		}
-		if fc, err = infer.ConfigFor(st, b.Optics, b.Frames, ov); err != nil {
-			return fmt.Errorf("compare: %w", err)
-		}
-	}
-	fc.Stop.Iterations = o.iterations
-	if st == nil && !(o.dOverR0 > 0) {
-		notes = append(notes, fmt.Sprintf("No site seeing given: the prior assumes D/r0 = %g.", fc.DOverR0))
-	}
-	if !(o.prior >= 0) {
-		return fmt.Errorf("compare: --prior must be ≥ 0, got %g", o.prior)
-	}
-	fc.Prior = o.prior
-	if b.Nx < fc.Patch || b.Ny < fc.Patch {
-		return fmt.Errorf("compare: the %d×%d field is smaller than one %d px patch (set --patch)", b.Nx, b.Ny, fc.Patch)
-	}
-	if _, err := optics.NewPupil(fc.Telescope, fc.Patch); err != nil {
-		return fmt.Errorf("compare: %w", err)
+	if notes, err = o.finishFit(&fc, st, b, notes); err != nil {
+		return err
 	}
 	fitter, err := infer.NewFitter(fc)
 	if err != nil {
 		return fmt.Errorf("compare: %w", err)
 	}
-	var learned infer.Estimator
-	if model != nil {
-		est, err := compare.NewNetEstimator(model, fitter.Basis())
-		if err != nil {
-			if o.weights != "" {
-				return fmt.Errorf("compare: %s: %w", o.weights, err)
-			}
-			notes = append(notes, "Built-in weights not used: "+err.Error())
-		} else {
-			learned = est
-		}
+	learned, notes, err := o.learnedEstimator(model, fitter, notes)
+	if err != nil {
+		return err
 	}
-	abs, _ := filepath.Abs(args[0])
-	cfg := compare.Config{
-		Fit: fc, Polish: o.polish, FromZero: o.fromZero, Stride: o.stride, Workers: o.workers,
-		ExamplePatch: -1, Version: version, Source: abs, Notes: notes,
-		Settings: []compare.Setting{{Key: "command", Value: "pdwave " + strings.Join(os.Args[1:], " ")}},
-	}
+	cfg := o.config(fc, args[0], notes)
 	if learned != nil {
 		cfg.Settings = append(cfg.Settings, compare.Setting{Key: "weights", Value: weightsFrom + compareWeightsMeta(model)})
 	}
@@ -202,14 +131,153 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	if err := compare.WriteDir(o.out, r); err != nil {
+	return compareWrite(cmd, o.out, r)
+}
+
+// compareWrite writes the report folder and prints the median metric
+// ratios and where the page is.
+func compareWrite(cmd *cobra.Command, out string, r *compare.Report) error {
+	if err := compare.WriteDir(out, r); err != nil {
 		return err
 	}
 	for k, m := range r.Summary.RatioMethods {
 		fmt.Fprintf(cmd.ErrOrStderr(), "compare: median metric ratio %s/fitted = %.4g\n", m, r.Summary.MedianRatio[k])
 	}
-	fmt.Fprintf(cmd.ErrOrStderr(), "compare: %d patches written to %s\n", len(r.Patches), filepath.Join(o.out, compare.FileHTML))
+	fmt.Fprintf(cmd.ErrOrStderr(), "compare: %d patches written to %s\n", len(r.Patches), filepath.Join(out, compare.FileHTML))
 	return nil
+}
+
+// check rejects a missing --out and negative or zero budgets and sizes
+// before anything is read.
+func (o compareFlags) check() error {
+	if o.out == "" {
+		return errors.New("compare: --out DIR is required")
+	}
+	if o.polish < 0 || o.iterations < 1 {
+		return fmt.Errorf("compare: --polish must be ≥ 0 and --iterations ≥ 1 (got %d, %d)", o.polish, o.iterations)
+	}
+	if o.patch < 0 || o.stride < 0 || o.modes < 0 {
+		return errors.New("compare: --patch, --stride and --modes must not be negative")
+	}
+	return nil
+}
+
+// siteAndOverrides loads the --site file (nil without one) and collects
+// the size, basis and seeing flags as overrides of the configuration.
+func (o compareFlags) siteAndOverrides() (*site.Site, infer.Overrides, error) {
+	var st *site.Site
+	var err error
+	if o.site != "" {
+		if st, err = site.Load(o.site); err != nil {
+			return nil, infer.Overrides{}, fmt.Errorf("compare: %s: %w", o.site, err)
+		}
+	}
+	ov := infer.Overrides{Patch: o.patch, Modes: o.modes, DOverR0: o.dOverR0}
+	if o.basis != "" {
+		if ov.Basis, err = modes.ParseKind(o.basis); err != nil {
+			return nil, infer.Overrides{}, fmt.Errorf("compare: %w", err)
+		}
+	}
+	return st, ov, nil
+}
+
+// loadWeights returns the network to compare and where it came from: the
+// --weights file (an error if it cannot be loaded; a note if it was made
+// for other optics than fc's), else the built-in weights if they fit the
+// optics and the size flags (a note saying why not otherwise), else nil.
+func (o compareFlags) loadWeights(fc infer.Config) (*net.Model, string, []string, error) {
+	tel, div := fc.Telescope, fc.DiversityPV[1]
+	var notes []string
+	if o.weights == "" {
+		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div, Patch: o.patch, Modes: o.modes, Basis: o.basis}
+		m, err := weights.For(want)
+		if err != nil {
+			return nil, "", append(notes, "Built-in weights not used: "+err.Error()), nil
+		}
+		return m, "built-in " + weights.DefaultName, notes, nil
+	}
+	model, err := net.Load(o.weights)
+	if err != nil {
+		return nil, "", nil, err
+	}
+	want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div}
+	if err := model.Meta.Compatible(want); err != nil {
+		notes = append(notes, fmt.Sprintf("The weights %s were made for other optics (%v); the learned estimates may be poor.", o.weights, err))
+	}
+	return model, o.weights, notes, nil
+}
+
+// compareSizesFromWeights redoes the configuration with the sizes the
+// flags leave open (patch, modes, basis) taken from the weights, so the
+// order is: flag, else the weights', else the site file's, else the
+// defaults.
+func compareSizesFromWeights(model *net.Model, st *site.Site, b *burst.Burst, ov infer.Overrides) (infer.Config, error) {
+	var err error
+	if ov.Patch <= 0 {
+		ov.Patch = model.Meta.Patch
+	}
+	if ov.Modes <= 0 {
+		ov.Modes = model.Arch.Modes
+	}
+	if ov.Basis == "" && model.Meta.Basis != "" {
+		if ov.Basis, err = modes.ParseKind(model.Meta.Basis); err != nil {
+			return infer.Config{}, fmt.Errorf("compare: %w", err)
+		}
+	}
+	fc, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
+	if err != nil {
+		return infer.Config{}, fmt.Errorf("compare: %w", err)
+	}
+	return fc, nil
+}
+
+// finishFit sets the fit's iteration budget and prior weight from the
+// flags (notes the assumed D/r0 when no seeing is known) and checks that
+// the field holds one patch and the patch samples the pupil.
+func (o compareFlags) finishFit(fc *infer.Config, st *site.Site, b *burst.Burst, notes []string) ([]string, error) {
+	fc.Stop.Iterations = o.iterations
+	if st == nil && !(o.dOverR0 > 0) {
+		notes = append(notes, fmt.Sprintf("No site seeing given: the prior assumes D/r0 = %g.", fc.DOverR0))
+	}
+	if !(o.prior >= 0) {
+		return notes, fmt.Errorf("compare: --prior must be ≥ 0, got %g", o.prior)
+	}
+	fc.Prior = o.prior
+	if b.Nx < fc.Patch || b.Ny < fc.Patch {
+		return notes, fmt.Errorf("compare: the %d×%d field is smaller than one %d px patch (set --patch)", b.Nx, b.Ny, fc.Patch)
+	}
+	if _, err := optics.NewPupil(fc.Telescope, fc.Patch); err != nil {
+		return notes, fmt.Errorf("compare: %w", err)
+	}
+	return notes, nil
+}
+
+// learnedEstimator wraps the network (if any) as an estimator in the
+// fit's basis. A network that does not fit is an error when it was asked
+// for with --weights and a note otherwise (the built-in weights).
+func (o compareFlags) learnedEstimator(model *net.Model, fitter *infer.Fitter, notes []string) (infer.Estimator, []string, error) {
+	if model == nil {
+		return nil, notes, nil
+	}
+	est, err := compare.NewNetEstimator(model, fitter.Basis())
+	if err != nil {
+		if o.weights != "" {
+			return nil, notes, fmt.Errorf("compare: %s: %w", o.weights, err)
+		}
+		return nil, append(notes, "Built-in weights not used: "+err.Error()), nil
+	}
+	return est, notes, nil
+}
+
+// config assembles the comparison settings: the fit, the flags, the
+// provenance (absolute burst path, command line) and the notes.
+func (o compareFlags) config(fc infer.Config, burstPath string, notes []string) compare.Config {
+	abs, _ := filepath.Abs(burstPath)
+	return compare.Config{
+		Fit: fc, Polish: o.polish, FromZero: o.fromZero, Stride: o.stride, Workers: o.workers,
+		ExamplePatch: -1, Version: version, Source: abs, Notes: notes,
+		Settings: []compare.Setting{{Key: "command", Value: "pdwave " + strings.Join(os.Args[1:], " ")}},
+	}
 }
 
 // compareWeightsMeta describes what the weights were made for.

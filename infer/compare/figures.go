@@ -283,23 +283,16 @@ func tilePlot(title string, img image.Image) *plot.Plot {
 	return p
 }
 
+// wavefrontFigure draws the example patch: per series one row with the
+// wavefront over the pupil (a diverging map symmetric about 0) and the
+// square root of the focused and defocused PSFs, cropped to the centre.
 func wavefrontFigure(r *Report) ([]byte, error) {
 	ex := r.Example
 	n := ex.N
 	if n < 2 || len(ex.Pupil) != n*n || len(ex.Phase) != len(ex.Series) || len(ex.PSF[0]) != len(ex.Series) || len(ex.PSF[1]) != len(ex.Series) {
 		return nil, fmt.Errorf("inconsistent example (n=%d, %d series)", n, len(ex.Series))
 	}
-	var pmax float64
-	for _, ph := range ex.Phase {
-		for i, v := range ph {
-			if ex.Pupil[i] > 0 {
-				pmax = math.Max(pmax, math.Abs(v))
-			}
-		}
-	}
-	if pmax == 0 {
-		pmax = 1
-	}
+	pmax := phaseRange(ex)
 	div := moreland.SmoothBlueRed()
 	div.SetMin(-pmax)
 	div.SetMax(pmax)
@@ -308,24 +301,9 @@ func wavefrontFigure(r *Report) ([]byte, error) {
 		crop = n
 	}
 	c0 := n/2 - crop/2
-	var smax [2]float64
-	sq := [2][][]float64{}
-	for ch := 0; ch < 2; ch++ {
-		sq[ch] = make([][]float64, len(ex.Series))
-		for k, psf := range ex.PSF[ch] {
-			if len(psf) != n*n {
-				return nil, fmt.Errorf("example PSF length %d, want %d", len(psf), n*n)
-			}
-			s := make([]float64, n*n)
-			for i, v := range psf {
-				s[i] = math.Sqrt(math.Max(v, 0))
-				smax[ch] = math.Max(smax[ch], s[i])
-			}
-			sq[ch][k] = s
-		}
-		if smax[ch] == 0 {
-			smax[ch] = 1
-		}
+	sq, smax, err := sqrtPSFs(ex)
+	if err != nil {
+		return nil, err
 	}
 	rows := len(ex.Series)
 	plots := make([][]*plot.Plot, rows)
@@ -360,6 +338,48 @@ func wavefrontFigure(r *Report) ([]byte, error) {
 		return nil, err
 	}
 	return buf.Bytes(), nil
+}
+
+// phaseRange returns the largest |phase| inside the pupil over all the
+// example's series, rad, or 1 if every phase is 0 there.
+func phaseRange(ex *Example) float64 {
+	var pmax float64
+	for _, ph := range ex.Phase {
+		for i, v := range ph {
+			if ex.Pupil[i] > 0 {
+				pmax = math.Max(pmax, math.Abs(v))
+			}
+		}
+	}
+	if pmax == 0 {
+		pmax = 1
+	}
+	return pmax
+}
+
+// sqrtPSFs returns, per channel and series, the square root of the
+// example's PSF (negative values clipped to 0) and, per channel, the
+// largest of them (1 if all are 0). It fails if a PSF is not n×n.
+func sqrtPSFs(ex *Example) (sq [2][][]float64, smax [2]float64, err error) {
+	n := ex.N
+	for ch := 0; ch < 2; ch++ {
+		sq[ch] = make([][]float64, len(ex.Series))
+		for k, psf := range ex.PSF[ch] {
+			if len(psf) != n*n {
+				return sq, smax, fmt.Errorf("example PSF length %d, want %d", len(psf), n*n)
+			}
+			s := make([]float64, n*n)
+			for i, v := range psf {
+				s[i] = math.Sqrt(math.Max(v, 0))
+				smax[ch] = math.Max(smax[ch], s[i])
+			}
+			sq[ch][k] = s
+		}
+		if smax[ch] == 0 {
+			smax[ch] = 1
+		}
+	}
+	return sq, smax, nil
 }
 
 func spectraFigure(r *Report) ([]byte, error) {

@@ -5,9 +5,10 @@ import (
 	"encoding/base64"
 	"fmt"
 	"html/template"
-	"math"
 	"sort"
 	"strings"
+
+	"gonum.org/v1/gonum/stat"
 )
 
 // htmlMethodRow is one row of the page's summary table.
@@ -49,82 +50,9 @@ func HTML(r *Report, figs []Figure) ([]byte, error) {
 	for _, p := range r.Summary.Pairs {
 		pg.Pairs = append(pg.Pairs, p.A+" − "+p.B)
 	}
-	for _, m := range r.Methods {
-		row := htmlMethodRow{Method: m}
-		var met, con, sec, tot []float64
-		for i := range r.Patches {
-			e := r.Patches[i].Find(m)
-			met = append(met, e.Metric)
-			con = append(con, e.Contrast)
-			sec = append(sec, e.Seconds)
-			tot = append(tot, e.Total)
-		}
-		row.MedianMetric, row.MedianContrast = median(met), median(con)
-		row.MeanSeconds, row.MeanTotal = mean(sec), mean(tot)
-		for k, rm := range r.Summary.RatioMethods {
-			if rm == m {
-				row.MedianRatio = fmt.Sprintf("%.4g", r.Summary.MedianRatio[k])
-			}
-		}
-		if m == Fitted {
-			row.MedianRatio = "1"
-		}
-		pg.Methods = append(pg.Methods, row)
-	}
-	g := func(v float64) string { return fmt.Sprintf("%.4g", v) }
-	pg.ModeHead = []string{"mode"}
-	for _, sr := range r.Summary.Series {
-		pg.ModeHead = append(pg.ModeHead, "rms "+sr, "spread "+sr)
-	}
-	for _, p := range pg.Pairs {
-		pg.ModeHead = append(pg.ModeHead, "rms "+p)
-	}
-	for _, st := range r.Summary.Modes {
-		row := []string{fmt.Sprint(st.Mode)}
-		for k := range r.Summary.Series {
-			row = append(row, g(st.RMS[k]), g(st.Spread[k]))
-		}
-		for k := range r.Summary.Pairs {
-			row = append(row, g(st.DiffRMS[k]))
-		}
-		pg.ModeRows = append(pg.ModeRows, row)
-	}
-	pg.PatchHead = []string{"patch", "x", "y", "raw contrast"}
-	for _, m := range r.Methods {
-		pg.PatchHead = append(pg.PatchHead, "metric "+m)
-	}
-	for _, m := range r.Summary.RatioMethods {
-		pg.PatchHead = append(pg.PatchHead, "ratio "+m+"/"+Fitted)
-	}
-	for _, m := range r.Methods {
-		pg.PatchHead = append(pg.PatchHead, "contrast "+m)
-	}
-	for _, m := range r.Methods {
-		if m != Truth {
-			pg.PatchHead = append(pg.PatchHead, "ms "+m)
-		}
-	}
-	pg.PatchHead = append(pg.PatchHead, "flags")
-	for i := range r.Patches {
-		p := &r.Patches[i]
-		row := []string{fmt.Sprint(p.Index), fmt.Sprint(p.X), fmt.Sprint(p.Y), g(p.RawContrast)}
-		for _, e := range p.Estimates {
-			row = append(row, g(e.Metric))
-		}
-		for k := range r.Summary.RatioMethods {
-			row = append(row, g(r.Summary.Ratios[k][i].Value))
-		}
-		for _, e := range p.Estimates {
-			row = append(row, g(e.Contrast))
-		}
-		for _, e := range p.Estimates {
-			if e.Method != Truth {
-				row = append(row, fmt.Sprintf("%.3g", 1000*e.Seconds))
-			}
-		}
-		row = append(row, strings.Join(p.Flags, " "))
-		pg.PatchRows = append(pg.PatchRows, row)
-	}
+	pg.Methods = htmlMethodRows(r)
+	pg.ModeHead, pg.ModeRows = htmlModeTable(r, pg.Pairs)
+	pg.PatchHead, pg.PatchRows = htmlPatchTable(r)
 	pg.Files = []string{FileCoeffsCSV, FilePatchesCSV, FileModesCSV, FileSpectraCSV, FileReportJSON, FilePatchesJSON, FileModesJSON}
 	for _, f := range figs {
 		pg.Files = append(pg.Files, f.Name)
@@ -137,15 +65,104 @@ func HTML(r *Report, figs []Figure) ([]byte, error) {
 	return buf.Bytes(), nil
 }
 
-func mean(x []float64) float64 {
-	if len(x) == 0 {
-		return math.NaN()
+// htmlMethodRows returns one summary row per method: the patch medians of
+// metric and contrast, the median ratio to the fit ("1" for the fit, ""
+// when there is none) and the patch means of the times, seconds.
+func htmlMethodRows(r *Report) []htmlMethodRow {
+	var rows []htmlMethodRow
+	for _, m := range r.Methods {
+		row := htmlMethodRow{Method: m}
+		var met, con, sec, tot []float64
+		for i := range r.Patches {
+			e := r.Patches[i].Find(m)
+			met = append(met, e.Metric)
+			con = append(con, e.Contrast)
+			sec = append(sec, e.Seconds)
+			tot = append(tot, e.Total)
+		}
+		row.MedianMetric, row.MedianContrast = median(met), median(con)
+		row.MeanSeconds, row.MeanTotal = stat.Mean(sec, nil), stat.Mean(tot, nil)
+		for k, rm := range r.Summary.RatioMethods {
+			if rm == m {
+				row.MedianRatio = fmt.Sprintf("%.4g", r.Summary.MedianRatio[k])
+			}
+		}
+		if m == Fitted {
+			row.MedianRatio = "1"
+		}
+		rows = append(rows, row)
 	}
-	var s float64
-	for _, v := range x {
-		s += v
+	return rows
+}
+
+// htmlG formats a table value with four significant digits.
+func htmlG(v float64) string { return fmt.Sprintf("%.4g", v) }
+
+// htmlModeTable returns the head and rows of the per-mode table: RMS and
+// spread per series, then the RMS of each difference (pairs are the
+// difference labels, in Summary.Pairs order).
+func htmlModeTable(r *Report, pairs []string) (head []string, rows [][]string) {
+	head = []string{"mode"}
+	for _, sr := range r.Summary.Series {
+		head = append(head, "rms "+sr, "spread "+sr)
 	}
-	return s / float64(len(x))
+	for _, p := range pairs {
+		head = append(head, "rms "+p)
+	}
+	for _, st := range r.Summary.Modes {
+		row := []string{fmt.Sprint(st.Mode)}
+		for k := range r.Summary.Series {
+			row = append(row, htmlG(st.RMS[k]), htmlG(st.Spread[k]))
+		}
+		for k := range r.Summary.Pairs {
+			row = append(row, htmlG(st.DiffRMS[k]))
+		}
+		rows = append(rows, row)
+	}
+	return head, rows
+}
+
+// htmlPatchTable returns the head and rows of the per-patch table: origin
+// and raw contrast, the metric of each method, the ratios to the fit, the
+// contrasts, the times in milliseconds (not for the truth) and the flags.
+func htmlPatchTable(r *Report) (head []string, rows [][]string) {
+	head = []string{"patch", "x", "y", "raw contrast"}
+	for _, m := range r.Methods {
+		head = append(head, "metric "+m)
+	}
+	for _, m := range r.Summary.RatioMethods {
+		head = append(head, "ratio "+m+"/"+Fitted)
+	}
+	for _, m := range r.Methods {
+		head = append(head, "contrast "+m)
+	}
+	for _, m := range r.Methods {
+		if m != Truth {
+			head = append(head, "ms "+m)
+		}
+	}
+	head = append(head, "flags")
+	for i := range r.Patches {
+		p := &r.Patches[i]
+		row := []string{fmt.Sprint(p.Index), fmt.Sprint(p.X), fmt.Sprint(p.Y), htmlG(p.RawContrast)}
+		for _, e := range p.Estimates {
+			row = append(row, htmlG(e.Metric))
+		}
+		for k := range r.Summary.RatioMethods {
+			row = append(row, htmlG(r.Summary.Ratios[k][i].Value))
+		}
+		for _, e := range p.Estimates {
+			row = append(row, htmlG(e.Contrast))
+		}
+		for _, e := range p.Estimates {
+			if e.Method != Truth {
+				row = append(row, fmt.Sprintf("%.3g", 1000*e.Seconds))
+			}
+		}
+		row = append(row, strings.Join(p.Flags, " "))
+		rows = append(rows, row)
+	}
+	return head, rows
 }
 
 var htmlTemplate = template.Must(template.New("page").Funcs(template.FuncMap{

@@ -32,6 +32,8 @@ import (
 	"fmt"
 	"math"
 	"sort"
+
+	"gonum.org/v1/gonum/stat"
 )
 
 // Method names used in reports. A report holds any subset of them, in this
@@ -300,56 +302,10 @@ func Summarise(r *Report) error {
 		return err
 	}
 	s := Summary{Series: append([]string(nil), r.Methods...), FlagCount: map[string]int{}}
-	// Differences: every estimate against the fit, every estimate against
-	// the truth.
-	ref := []string{Fitted, Truth}
-	for _, b := range ref {
-		if !r.has(b) {
-			continue
-		}
-		for _, a := range r.Methods {
-			if a == b || a == Truth {
-				continue
-			}
-			s.Pairs = append(s.Pairs, Pair{a, b})
-		}
-	}
-	np := len(r.Patches)
+	s.Pairs = comparisonPairs(r)
 	s.Modes = make([]ModeStat, r.Modes)
 	for m := range s.Modes {
-		st := ModeStat{Mode: m + 1, RMS: make([]float64, len(s.Series)), Spread: make([]float64, len(s.Series)), DiffRMS: make([]float64, len(s.Pairs))}
-		for k, name := range s.Series {
-			var sum2 float64
-			per := make([]float64, 0, np)
-			for i := range r.Patches {
-				e := r.Patches[i].Find(name)
-				var p2 float64
-				for f := range e.Coeffs {
-					v := e.Coeffs[f][m]
-					p2 += v * v
-				}
-				sum2 += p2
-				per = append(per, math.Sqrt(p2/float64(r.Frames)))
-			}
-			if np > 0 {
-				st.RMS[k] = math.Sqrt(sum2 / float64(np*r.Frames))
-				st.Spread[k] = stddev(per)
-			}
-		}
-		for k, pr := range s.Pairs {
-			var sum2 float64
-			for i := range r.Patches {
-				a, b := r.Patches[i].Find(pr.A), r.Patches[i].Find(pr.B)
-				for f := range a.Coeffs {
-					d := a.Coeffs[f][m] - b.Coeffs[f][m]
-					sum2 += d * d
-				}
-			}
-			if np > 0 {
-				st.DiffRMS[k] = math.Sqrt(sum2 / float64(np*r.Frames))
-			}
-		}
-		s.Modes[m] = st
+		s.Modes[m] = modeStat(r, m, s.Series, s.Pairs)
 	}
 	s.RMSDiff = make([]float64, len(s.Pairs))
 	for k := range s.Pairs {
@@ -360,22 +316,7 @@ func Summarise(r *Report) error {
 		s.RMSDiff[k] = math.Sqrt(sum2 / float64(r.Modes))
 	}
 	if r.has(Fitted) {
-		for _, m := range r.Methods {
-			if m == Fitted {
-				continue
-			}
-			rs := make([]Ratio, np)
-			vals := make([]float64, np)
-			for i := range r.Patches {
-				p := &r.Patches[i]
-				v := metricRatio(p.Find(m).Metric, p.Find(Fitted).Metric)
-				rs[i] = Ratio{Patch: p.Index, X: p.X, Y: p.Y, Value: v}
-				vals[i] = v
-			}
-			s.RatioMethods = append(s.RatioMethods, m)
-			s.Ratios = append(s.Ratios, rs)
-			s.MedianRatio = append(s.MedianRatio, median(vals))
-		}
+		addMetricRatios(&s, r)
 	}
 	for i := range r.Patches {
 		p := &r.Patches[i]
@@ -386,6 +327,88 @@ func Summarise(r *Report) error {
 	}
 	r.Summary = s
 	return nil
+}
+
+// comparisonPairs lists the differences the summary reports: every
+// estimate against the fit, then every estimate against the truth, for
+// the references present in r.
+func comparisonPairs(r *Report) []Pair {
+	var pairs []Pair
+	for _, b := range []string{Fitted, Truth} {
+		if !r.has(b) {
+			continue
+		}
+		for _, a := range r.Methods {
+			if a == b || a == Truth {
+				continue
+			}
+			pairs = append(pairs, Pair{a, b})
+		}
+	}
+	return pairs
+}
+
+// modeStat returns the statistics of mode index m (Noll-style number m+1)
+// over all patches and frames: per series the RMS coefficient and the
+// sample standard deviation of the per-patch RMS, per pair the RMS
+// difference. With no patches the values stay 0.
+func modeStat(r *Report, m int, series []string, pairs []Pair) ModeStat {
+	np := len(r.Patches)
+	st := ModeStat{Mode: m + 1, RMS: make([]float64, len(series)), Spread: make([]float64, len(series)), DiffRMS: make([]float64, len(pairs))}
+	for k, name := range series {
+		var sum2 float64
+		per := make([]float64, 0, np)
+		for i := range r.Patches {
+			e := r.Patches[i].Find(name)
+			var p2 float64
+			for f := range e.Coeffs {
+				v := e.Coeffs[f][m]
+				p2 += v * v
+			}
+			sum2 += p2
+			per = append(per, math.Sqrt(p2/float64(r.Frames)))
+		}
+		if np > 0 {
+			st.RMS[k] = math.Sqrt(sum2 / float64(np*r.Frames))
+			st.Spread[k] = stddev(per)
+		}
+	}
+	for k, pr := range pairs {
+		var sum2 float64
+		for i := range r.Patches {
+			a, b := r.Patches[i].Find(pr.A), r.Patches[i].Find(pr.B)
+			for f := range a.Coeffs {
+				d := a.Coeffs[f][m] - b.Coeffs[f][m]
+				sum2 += d * d
+			}
+		}
+		if np > 0 {
+			st.DiffRMS[k] = math.Sqrt(sum2 / float64(np*r.Frames))
+		}
+	}
+	return st
+}
+
+// addMetricRatios sets, for every method but the fit, the per-patch
+// metric ratio method/fitted (metricRatio) and its median over patches.
+func addMetricRatios(s *Summary, r *Report) {
+	np := len(r.Patches)
+	for _, m := range r.Methods {
+		if m == Fitted {
+			continue
+		}
+		rs := make([]Ratio, np)
+		vals := make([]float64, np)
+		for i := range r.Patches {
+			p := &r.Patches[i]
+			v := metricRatio(p.Find(m).Metric, p.Find(Fitted).Metric)
+			rs[i] = Ratio{Patch: p.Index, X: p.X, Y: p.Y, Value: v}
+			vals[i] = v
+		}
+		s.RatioMethods = append(s.RatioMethods, m)
+		s.Ratios = append(s.Ratios, rs)
+		s.MedianRatio = append(s.MedianRatio, median(vals))
+	}
 }
 
 // flags returns the quality flags of one patch.
@@ -435,22 +458,19 @@ func metricRatio(a, b float64) float64 {
 	return a / b
 }
 
+// stddev returns the sample standard deviation of x (divisor n−1), or 0
+// for fewer than two values.
 func stddev(x []float64) float64 {
 	if len(x) < 2 {
 		return 0
 	}
-	var m float64
-	for _, v := range x {
-		m += v
-	}
-	m /= float64(len(x))
-	var s float64
-	for _, v := range x {
-		s += (v - m) * (v - m)
-	}
-	return math.Sqrt(s / float64(len(x)-1))
+	return stat.StdDev(x, nil)
 }
 
+// median returns the median of x (NaN if empty): the middle value, or the
+// average of the two middle values for an even count. It is written out
+// because stat.Quantile(0.5, stat.Empirical, ...) returns the lower middle
+// value for even counts, which would move the reported median ratios.
 func median(x []float64) float64 {
 	if len(x) == 0 {
 		return math.NaN()

@@ -7,7 +7,6 @@ import (
 	"runtime"
 	"sort"
 	"strings"
-	"sync"
 	"time"
 
 	"gonum.org/v1/gonum/mat"
@@ -58,13 +57,6 @@ type Config struct {
 	TruthAt func(x, y float64) *burst.Truth
 }
 
-// patchOut is the work result of one patch.
-type patchOut struct {
-	patch   Patch
-	spectra [][]float64 // raw, then per method (no truth)
-	err     error
-}
-
 // Run compares the estimates on every patch of the burst and returns the
 // summarised report (Summarise has run). learned may be nil: the report
 // then holds the fit (and truth) only and says so in its notes. The
@@ -76,39 +68,16 @@ type patchOut struct {
 // Patches on which the metric finds no signal are left out with a note;
 // Run fails only if no patch succeeds or the settings are invalid.
 func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
-	if b == nil {
-		return nil, errors.New("compare: no burst")
+	if err := checkRun(b, cfg); err != nil {
+		return nil, err
 	}
 	fc := cfg.Fit
 	n := fc.Patch
-	if b.Frames != fc.Frames {
-		return nil, fmt.Errorf("compare: burst has %d frames, the fit is set up for %d", b.Frames, fc.Frames)
-	}
-	if b.Nx < n || b.Ny < n {
-		return nil, fmt.Errorf("compare: field %d×%d is smaller than one %d px patch", b.Nx, b.Ny, n)
-	}
-	if cfg.Polish < 0 {
-		return nil, fmt.Errorf("compare: polish iterations must be ≥ 0, got %d", cfg.Polish)
-	}
-	fitter, err := infer.NewFitter(fc)
+	fitter, polisher, err := newFitters(cfg, learned)
 	if err != nil {
-		return nil, fmt.Errorf("compare: %w", err)
+		return nil, err
 	}
 	basis := fitter.Basis()
-	var polisher *infer.Fitter
-	if learned != nil && cfg.Polish > 0 {
-		pc := fc
-		pc.Stop = infer.Stop{Iterations: cfg.Polish}
-		if polisher, err = infer.NewFitter(pc); err != nil {
-			return nil, fmt.Errorf("compare: polish: %w", err)
-		}
-	}
-	if learned != nil {
-		lb := learned.Basis()
-		if lb.Kind != basis.Kind || lb.Count != basis.Count || lb.N != basis.N {
-			return nil, fmt.Errorf("compare: learned estimator uses %s %d modes on %d px, the fit %s %d modes on %d px", lb.Kind, lb.Count, lb.N, basis.Kind, basis.Count, basis.N)
-		}
-	}
 	stride := cfg.Stride
 	if stride <= 0 {
 		stride = n
@@ -117,12 +86,96 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
+	r := newReport(b, cfg, basis)
+	methods := estimateMethods(r, learned, polisher)
 
-	r := &Report{
+	// A constraint-only solver and the truth.
+	div := fitter.Diversity()
+	cons := pd.NewSolver(fitter.Pupil(), basis, div, fc.Frames, fitter.Config().Metric)
+	constrain := constrainer(cons, basis.Count)
+	truth, truthNote, methods := singlePatchTruth(r, b, cfg, basis, constrain, methods)
+	r.Methods = methods
+	addMetricNotes(r, cfg)
+
+	jobs := patchJobs(b.Nx, b.Ny, n, stride)
+	truths, truthNote, err := patchTruths(jobs, cfg, truth, truthNote, basis, constrain)
+	if err != nil {
+		return nil, err
+	}
+	if truthNote != "" {
+		r.Notes = append(r.Notes, truthNote)
+	}
+	w := &patchWork{learned: learned, polisher: polisher, fitter: fitter, fromZero: cfg.FromZero,
+		methods: methods, constrain: constrain, win: pd.Window(n, fc.Metric.Window)}
+	outs := w.runAll(b, jobs, truths, workers)
+	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
+		return nil, err
+	}
+	return finishReport(r, cfg, fitter, div, stride, workers, len(jobs))
+}
+
+// checkRun rejects a missing burst and settings that cannot describe it:
+// a frame count other than the fit's, a field smaller than one patch, or a
+// negative polish budget.
+func checkRun(b *burst.Burst, cfg Config) error {
+	if b == nil {
+		return errors.New("compare: no burst")
+	}
+	fc := cfg.Fit
+	n := fc.Patch
+	if b.Frames != fc.Frames {
+		return fmt.Errorf("compare: burst has %d frames, the fit is set up for %d", b.Frames, fc.Frames)
+	}
+	if b.Nx < n || b.Ny < n {
+		return fmt.Errorf("compare: field %d×%d is smaller than one %d px patch", b.Nx, b.Ny, n)
+	}
+	if cfg.Polish < 0 {
+		return fmt.Errorf("compare: polish iterations must be ≥ 0, got %d", cfg.Polish)
+	}
+	return nil
+}
+
+// newFitters builds the full fit and, when there is a learned estimator
+// and a polish budget, the polisher (the same fit stopped after
+// cfg.Polish iterations; nil otherwise). It fails if the learned
+// estimator's basis (kind, mode count, grid) differs from the fit's.
+func newFitters(cfg Config, learned infer.Estimator) (fitter, polisher *infer.Fitter, err error) {
+	fc := cfg.Fit
+	if fitter, err = infer.NewFitter(fc); err != nil {
+		return nil, nil, fmt.Errorf("compare: %w", err)
+	}
+	if learned != nil && cfg.Polish > 0 {
+		pc := fc
+		pc.Stop = infer.Stop{Iterations: cfg.Polish}
+		if polisher, err = infer.NewFitter(pc); err != nil {
+			return nil, nil, fmt.Errorf("compare: polish: %w", err)
+		}
+	}
+	if learned != nil {
+		basis := fitter.Basis()
+		lb := learned.Basis()
+		if lb.Kind != basis.Kind || lb.Count != basis.Count || lb.N != basis.N {
+			return nil, nil, fmt.Errorf("compare: learned estimator uses %s %d modes on %d px, the fit %s %d modes on %d px", lb.Kind, lb.Count, lb.N, basis.Kind, basis.Count, basis.N)
+		}
+	}
+	return fitter, polisher, nil
+}
+
+// newReport starts the report of a run: provenance, basis and sizes; the
+// methods, patches and summary are filled in later.
+func newReport(b *burst.Burst, cfg Config, basis *modes.Basis) *Report {
+	fc := cfg.Fit
+	return &Report{
 		Version: cfg.Version, Created: time.Now().UTC().Format(time.RFC3339), Source: cfg.Source,
 		Basis:  BasisInfo{Kind: string(basis.Kind), Count: basis.Count, N: basis.N, Radius: basis.Radius},
-		Frames: fc.Frames, Modes: basis.Count, PatchSize: n, FieldNx: b.Nx, FieldNy: b.Ny,
+		Frames: fc.Frames, Modes: basis.Count, PatchSize: fc.Patch, FieldNx: b.Nx, FieldNy: b.Ny,
 	}
+}
+
+// estimateMethods lists the estimates every patch gets, in report order:
+// learned and polished when available, then fitted. Without a learned
+// estimator it adds a note to r saying the report holds the fit only.
+func estimateMethods(r *Report, learned infer.Estimator, polisher *infer.Fitter) []string {
 	var methods []string
 	if learned != nil {
 		methods = append(methods, Learned)
@@ -132,14 +185,14 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	} else {
 		r.Notes = append(r.Notes, "No learned estimator was available: the report holds the classical fit only (and the truth for simulated data).")
 	}
-	methods = append(methods, Fitted)
+	return append(methods, Fitted)
+}
 
-	// Diversity maps, a constraint-only solver and the truth.
-	pupil := fitter.Pupil()
-	div := fitter.Diversity()
-	cons := pd.NewSolver(pupil, basis, div, fc.Frames, fitter.Config().Metric)
-	constrain := func(c [][]float64) [][]float64 {
-		m := basis.Count
+// constrainer returns a function that applies the metric's coefficient
+// constraint (the burst-mean tip/tilt removal of cons) to frames × m
+// coefficients; it returns new slices and leaves its argument alone.
+func constrainer(cons *pd.Solver, m int) func([][]float64) [][]float64 {
+	return func(c [][]float64) [][]float64 {
 		flat := make([]float64, len(c)*m)
 		for j := range c {
 			copy(flat[j*m:], c[j])
@@ -151,42 +204,72 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		}
 		return out
 	}
-	var truth [][]float64 // single-patch truth
-	truthNote := ""
+}
+
+// singlePatchTruth decides where the truth comes from. With cfg.TruthAt it
+// only adds Truth to the methods (the per-patch values come later). A
+// burst whose field is exactly one patch and which carries a truth table
+// gives the constrained native truth and its conversion note; a table that
+// cannot be converted, or one on a field of several patches, is reported
+// in r's notes and not compared.
+func singlePatchTruth(r *Report, b *burst.Burst, cfg Config, basis *modes.Basis,
+	constrain func([][]float64) [][]float64, methods []string) (truth [][]float64, note string, _ []string) {
+	n := cfg.Fit.Patch
 	switch {
 	case cfg.TruthAt != nil:
 		methods = append(methods, Truth)
 	case b.Truth != nil && b.Nx == n && b.Ny == n:
-		t, note, err := truthNative(b.Truth, basis, fc.Frames)
+		t, tn, err := truthNative(b.Truth, basis, cfg.Fit.Frames)
 		if err != nil {
 			r.Notes = append(r.Notes, "Truth not used: "+err.Error())
 		} else {
 			truth = constrain(t)
-			truthNote = note
+			note = tn
 			methods = append(methods, Truth)
 		}
 	case b.Truth != nil:
 		r.Notes = append(r.Notes, fmt.Sprintf("The burst carries a truth table, but its %d×%d field holds several %d px patches; the table describes one patch, so it is not compared.", b.Nx, b.Ny, n))
 	}
-	r.Methods = methods
-	if fc.Metric.TiltConstrain {
+	return truth, note, methods
+}
+
+// addMetricNotes notes how the estimates were made comparable (tip/tilt
+// removal under the tilt constraint) and whether the fit started from zero.
+func addMetricNotes(r *Report, cfg Config) {
+	if cfg.Fit.Metric.TiltConstrain {
 		r.Notes = append(r.Notes, "The metric cannot see a tip/tilt common to all frames; its burst mean is removed from every set of coefficients before they are compared.")
 	}
 	if cfg.FromZero {
 		r.Notes = append(r.Notes, "The classical fit started from zero coefficients, independent of the network: the order flag marks patches where it ended above the polished estimate.")
 	}
+}
 
-	// Patches.
-	xs, ys := tiles(b.Nx, n, stride), tiles(b.Ny, n, stride)
-	type job struct{ idx, x, y int }
-	var jobs []job
+// patchJob is one patch to compare: its index in the report and its
+// origin in the field, pixels.
+type patchJob struct{ idx, x, y int }
+
+// patchJobs lists the n px patches of an nx×ny field, row by row, at the
+// origins of tiles along each axis.
+func patchJobs(nx, ny, n, stride int) []patchJob {
+	xs, ys := tiles(nx, n, stride), tiles(ny, n, stride)
+	var jobs []patchJob
 	for _, y := range ys {
 		for _, x := range xs {
-			jobs = append(jobs, job{len(jobs), x, y})
+			jobs = append(jobs, patchJob{len(jobs), x, y})
 		}
 	}
-	// Per-patch truth of a field, at each patch centre, before the
-	// parallel part (TruthAt need not be safe for concurrent use).
+	return jobs
+}
+
+// patchTruths gives every job its truth: the single-patch truth when
+// cfg.TruthAt is nil (note is returned unchanged), otherwise the
+// constrained native truth at each patch centre, with the conversion note
+// of the last patch. It runs before the parallel part because TruthAt need
+// not be safe for concurrent use, and fails if a patch has no truth or it
+// cannot be converted.
+func patchTruths(jobs []patchJob, cfg Config, truth [][]float64, note string, basis *modes.Basis,
+	constrain func([][]float64) [][]float64) ([][][]float64, string, error) {
+	n := cfg.Fit.Patch
 	truths := make([][][]float64, len(jobs))
 	for i, jb := range jobs {
 		if cfg.TruthAt == nil {
@@ -195,39 +278,24 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		}
 		tt := cfg.TruthAt(float64(jb.x+n/2), float64(jb.y+n/2))
 		if tt == nil {
-			return nil, fmt.Errorf("compare: no truth at patch %d (%d, %d)", i, jb.x, jb.y)
+			return nil, "", fmt.Errorf("compare: no truth at patch %d (%d, %d)", i, jb.x, jb.y)
 		}
-		t, note, err := truthNative(tt, basis, fc.Frames)
+		t, tn, err := truthNative(tt, basis, cfg.Fit.Frames)
 		if err != nil {
-			return nil, fmt.Errorf("compare: truth of patch %d: %w", i, err)
+			return nil, "", fmt.Errorf("compare: truth of patch %d: %w", i, err)
 		}
 		truths[i] = constrain(t)
-		truthNote = note
+		note = tn
 	}
-	if truthNote != "" {
-		r.Notes = append(r.Notes, truthNote)
-	}
-	win := pd.Window(n, fc.Metric.Window)
-	outs := make([]patchOut, len(jobs))
-	ch := make(chan job)
-	var wg sync.WaitGroup
-	for range min(workers, len(jobs)) {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			plan := fft.NewPlan(n, n)
-			for jb := range ch {
-				data := b.Patch(jb.x, jb.y, n)
-				outs[jb.idx] = runPatch(data, jb.idx, jb.x, jb.y, learned, polisher, fitter, cfg.FromZero, methods, truths[jb.idx], constrain, win, plan)
-			}
-		}()
-	}
-	for _, jb := range jobs {
-		ch <- jb
-	}
-	close(ch)
-	wg.Wait()
+	return truths, note, nil
+}
 
+// collectPatches moves the successful patches into r in job order, notes
+// the failed ones, and sets r.Spectra to the patch-mean power spectra (raw,
+// then each method but the truth) with the given cut-off, cycles/pixel. It
+// fails if no patch succeeded.
+func collectPatches(r *Report, outs []patchOut, jobs []patchJob, methods []string, cutoff float64) error {
+	n := r.PatchSize
 	var failed []string
 	var spec [][]float64
 	nspec := 0
@@ -252,12 +320,20 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		nspec++
 	}
 	if len(r.Patches) == 0 {
-		return nil, fmt.Errorf("compare: no patch could be compared: %s", strings.Join(failed, "; "))
+		return fmt.Errorf("compare: no patch could be compared: %s", strings.Join(failed, "; "))
 	}
 	if len(failed) > 0 {
 		r.Notes = append(r.Notes, fmt.Sprintf("%d of %d patches left out: %s", len(failed), len(jobs), strings.Join(failed, "; ")))
 	}
-	sp := &Spectra{Series: []string{"raw"}, Cutoff: fc.Telescope.CutoffRadius(n) / float64(n)}
+	r.Spectra = meanSpectra(spec, nspec, methods, cutoff, n)
+	return nil
+}
+
+// meanSpectra divides the summed spectra by the patch count nspec (in
+// place) and labels them: "raw", then each method but the truth, on
+// frequencies q/n for q = 0..n/2.
+func meanSpectra(spec [][]float64, nspec int, methods []string, cutoff float64, n int) *Spectra {
+	sp := &Spectra{Series: []string{"raw"}, Cutoff: cutoff}
 	for _, m := range methods {
 		if m != Truth {
 			sp.Series = append(sp.Series, m)
@@ -272,9 +348,13 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		}
 	}
 	sp.Power = spec
-	r.Spectra = sp
+	return sp
+}
 
-	r.Settings = append(r.Settings, runSettings(cfg, fitter, stride, workers, len(jobs))...)
+// finishReport adds the run's settings and the caller's settings and
+// notes to r, summarises it and attaches the example figure data.
+func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, stride, workers, patches int) (*Report, error) {
+	r.Settings = append(r.Settings, runSettings(cfg, fitter, stride, workers, patches)...)
 	r.Settings = append(r.Settings, cfg.Settings...)
 	r.Notes = append(r.Notes, cfg.Notes...)
 	if err := Summarise(r); err != nil {
@@ -286,128 +366,6 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	}
 	r.Example = ex
 	return r, nil
-}
-
-// runPatch computes every estimate of one patch.
-func runPatch(data [][][]float64, idx, x, y int, learned infer.Estimator, polisher, fitter *infer.Fitter, fromZero bool,
-	methods []string, truth [][]float64, constrain func([][]float64) [][]float64, win []float64, plan *fft.Plan) patchOut {
-	out := patchOut{patch: Patch{Index: idx, X: x, Y: y}}
-	ests := map[string]*Estimate{}
-	var start [][]float64
-	var elapsed float64
-	if learned != nil {
-		t0 := time.Now()
-		c, err := learned.Estimate(data)
-		if err != nil {
-			out.err = fmt.Errorf("learned: %w", err)
-			return out
-		}
-		sec := time.Since(t0).Seconds()
-		c = constrain(c)
-		ests[Learned] = &Estimate{Method: Learned, Coeffs: c, Seconds: sec, Total: sec}
-		start, elapsed = c, sec
-		if polisher != nil {
-			res, err := polisher.Fit(data, c)
-			if err != nil {
-				out.err = fmt.Errorf("polish: %w", err)
-				return out
-			}
-			sec := res.Elapsed.Seconds()
-			elapsed += sec
-			ests[Polished] = &Estimate{Method: Polished, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed, Iterations: res.Iterations}
-			start = res.Coeffs
-		}
-	}
-	if fromZero {
-		start, elapsed = nil, 0
-	}
-	res, err := fitter.Fit(data, start)
-	if err != nil {
-		out.err = fmt.Errorf("fit: %w", err)
-		return out
-	}
-	sec := res.Elapsed.Seconds()
-	ests[Fitted] = &Estimate{Method: Fitted, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed + sec, Iterations: res.Iterations}
-	if truth != nil {
-		ests[Truth] = &Estimate{Method: Truth, Coeffs: truth}
-	}
-
-	// Raw frame average, apodised like the metric's data.
-	n := fitter.Config().Patch
-	avg := make([]float64, n*n)
-	for _, im := range data[0] {
-		for i, v := range im {
-			avg[i] += v
-		}
-	}
-	var sw, swd float64
-	for i := range avg {
-		avg[i] /= float64(len(data[0]))
-		sw += win[i]
-		swd += win[i] * avg[i]
-	}
-	level := swd / sw
-	for i := range avg {
-		avg[i] = win[i]*(avg[i]-level) + level
-	}
-	norm := level
-	if !(norm > 0) {
-		norm = 1
-	}
-	spec := make([]float64, n/2+1)
-	zbuf := make([]complex128, n*n)
-	pbuf := make([]float64, n*n)
-	contrast := func(img []float64) float64 {
-		mu := meanOf(img)
-		var s2 float64
-		for _, v := range img {
-			s2 += (v - mu) * (v - mu)
-		}
-		return math.Sqrt(s2/float64(len(img))) / norm
-	}
-	spectrum := func(img []float64) []float64 {
-		mu := meanOf(img)
-		for i, v := range img {
-			pbuf[i] = v - mu
-		}
-		plan.ForwardReal(zbuf, pbuf)
-		scale := 1 / (float64(n*n) * norm * norm)
-		for i, z := range zbuf {
-			pbuf[i] = (real(z)*real(z) + imag(z)*imag(z)) * scale
-		}
-		AzimuthalAverage(spec, pbuf, n)
-		return append([]float64(nil), spec...)
-	}
-	out.patch.RawContrast = contrast(avg)
-	out.spectra = append(out.spectra, spectrum(avg))
-	for _, m := range methods {
-		e := ests[m]
-		met, _, err := fitter.Objective(data, e.Coeffs)
-		if err != nil {
-			out.err = fmt.Errorf("%s metric: %w", m, err)
-			return out
-		}
-		e.Metric = met
-		img, err := fitter.Restore(data, e.Coeffs)
-		if err != nil {
-			out.err = fmt.Errorf("%s restoration: %w", m, err)
-			return out
-		}
-		e.Contrast = contrast(img)
-		if m != Truth {
-			out.spectra = append(out.spectra, spectrum(img))
-		}
-		out.patch.Estimates = append(out.patch.Estimates, *e)
-	}
-	return out
-}
-
-func meanOf(x []float64) float64 {
-	var s float64
-	for _, v := range x {
-		s += v
-	}
-	return s / float64(len(x))
 }
 
 // tiles returns patch origins along one axis of length size: steps of

@@ -7,7 +7,6 @@ import (
 	"io"
 	"math"
 	"runtime"
-	"sync"
 	"time"
 )
 
@@ -151,158 +150,28 @@ func Run(ctx context.Context, f *Field, opt Options, sink Sink) ([]PatchResult, 
 		workers = runtime.NumCPU()
 	}
 	lo, hi := opt.Shard.Range(g.Count())
-	results := make([]PatchResult, 0, hi-lo)
-	emit := func(r *PatchResult) error {
-		if err := sink(r); err != nil {
-			return err
-		}
-		meta := *r
-		meta.Tile = nil
-		results = append(results, meta)
-		return nil
-	}
+	o := &inOrder{sink: sink, results: make([]PatchResult, 0, hi-lo), next: lo}
 
 	// Journal: replay the finished prefix, then keep recording.
-	var jr *restoreJournal
-	next := lo
-	if opt.Journal != "" {
-		jr, err = restoreOpenJournal(opt.Journal, opt.Key, opt.Resume, lo, hi, opt.BatchSize)
-		if err != nil {
-			return nil, err
-		}
-		if opt.Resume {
-			err = jr.replay(func(r *PatchResult) error {
-				if r.ID != next || r.ID >= hi {
-					return fmt.Errorf("restore: journal %s: patch %d out of order (want %d)", opt.Journal, r.ID, next)
-				}
-				next++
-				return emit(r)
-			})
-			if err != nil {
+	if err := o.openJournal(opt, lo, hi); err != nil {
+		return nil, err
+	}
+	if o.next == hi {
+		if o.jr != nil {
+			if err := o.jr.flush(); err != nil {
 				return nil, err
 			}
 		}
+		return o.results, nil
 	}
-	if next == hi {
-		if jr != nil {
-			if err := jr.flush(); err != nil {
-				return nil, err
-			}
-		}
-		return results, nil
+	if err := o.restoreRest(ctx, f, g, opt, workers, lo, hi); err != nil {
+		return nil, err
 	}
-
-	ctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	window := 4 * workers
-	type job struct{ id int }
-	jobs := make(chan job)
-	done := make(chan *PatchResult, window)
-	var firstErr error
-	var errOnce sync.Once
-	fail := func(err error) {
-		errOnce.Do(func() { firstErr = err; cancel() })
-	}
-	// Credits bound the patches in flight plus those waiting for their turn.
-	credits := make(chan struct{}, window)
-	for i := 0; i < window; i++ {
-		credits <- struct{}{}
-	}
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		eng, err := opt.NewEngine()
-		if err != nil {
-			cancel()
-			close(jobs)
-			wg.Wait()
-			return nil, fmt.Errorf("restore: making estimator: %w", err)
-		}
-		wg.Add(1)
-		go func(eng Engine) {
-			defer wg.Done()
-			buf := restoreNewPatchBuffers(f.Frames, g.Patch)
-			raw := make([]float64, g.Patch*g.Patch)
-			for j := range jobs {
-				r := restorePatch(ctx, eng, f, g, j.id, buf, raw)
-				if r == nil {
-					return
-				}
-				select {
-				case done <- r:
-				case <-ctx.Done():
-					return
-				}
-			}
-		}(eng)
-	}
-	go func() {
-		defer close(jobs)
-		for id := next; id < hi; id++ {
-			select {
-			case <-credits:
-			case <-ctx.Done():
-				return
-			}
-			select {
-			case jobs <- job{id}:
-			case <-ctx.Done():
-				return
-			}
-		}
-	}()
-	prog := restoreNewProgress(opt.Progress, hi-lo, next-lo)
-	pending := make(map[int]*PatchResult)
-	for next < hi && firstErr == nil {
-		var r *PatchResult
-		select {
-		case r = <-done:
-		case <-ctx.Done():
-		}
-		if r == nil {
-			break
-		}
-		pending[r.ID] = r
-		for {
-			p, ok := pending[next]
-			if !ok {
-				break
-			}
-			delete(pending, next)
-			if err := emit(p); err != nil {
-				fail(err)
-				break
-			}
-			if jr != nil {
-				if err := jr.add(p); err != nil {
-					fail(err)
-					break
-				}
-			}
-			next++
-			prog.step()
-			credits <- struct{}{}
-		}
-	}
-	cancel()
-	wg.Wait()
-	prog.finish()
-	if jr != nil {
-		if err := jr.flush(); err != nil && firstErr == nil {
-			firstErr = err
-		}
-	}
-	if firstErr != nil {
-		return nil, firstErr
-	}
-	if next < hi {
-		if err := context.Cause(ctx); err != nil && !errors.Is(err, context.Canceled) {
-			return nil, err
-		}
-		return nil, fmt.Errorf("restore: interrupted after %d of %d patches: %w", next-lo, hi-lo, context.Canceled)
-	}
-	return results, nil
+	return o.results, nil
 }
 
+// restoreNewPatchBuffers returns one worker's patch buffers
+// [channel][frame], each n×n.
 func restoreNewPatchBuffers(frames, n int) [][][]float64 {
 	buf := make([][][]float64, 2)
 	for c := range buf {
@@ -489,10 +358,15 @@ type restoreProgress struct {
 	wroteEnded bool
 }
 
+// restoreNewProgress returns a progress writer for total patches of which
+// done are already finished (replayed); w nil writes nothing.
 func restoreNewProgress(w io.Writer, total, done int) *restoreProgress {
 	return &restoreProgress{w: w, total: total, k: done, start: done, t0: time.Now()}
 }
 
+// step counts one more finished patch and, at most every 0.5 s and at the
+// last patch, rewrites the progress line with the ETA from the patches
+// computed in this run.
 func (p *restoreProgress) step() {
 	p.k++
 	if p.w == nil {
@@ -512,6 +386,7 @@ func (p *restoreProgress) step() {
 	p.wroteEnded = true
 }
 
+// finish ends the progress line, if one was written.
 func (p *restoreProgress) finish() {
 	if p.w != nil && p.wroteEnded {
 		fmt.Fprintln(p.w)

@@ -581,7 +581,8 @@ func needTool(t *testing.T, path string) {
 }
 
 // TestFitsverify: written files must pass NASA's fitsverify with no errors
-// and no warnings (DESIGN.md §5; FITS Standard 4.0).
+// and no warnings (FITS Standard 4.0, IAU FITS Working Group 2016;
+// DEVELOPERS.md "Tests").
 func TestFitsverify(t *testing.T) {
 	const tool = "/usr/bin/fitsverify"
 	needTool(t, tool)

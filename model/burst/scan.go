@@ -76,19 +76,48 @@ func scanOne(data []byte, pos, idx int) (hduSpan, error) {
 	if idx > 0 {
 		what = fmt.Sprintf("HDU %d", idx+1)
 	}
+	kv, p, err := scanCards(data, pos, what)
+	if err != nil {
+		return s, err
+	}
+	hdrEnd := pos + roundBlock(p-pos)
+	if hdrEnd > len(data) {
+		return s, fmt.Errorf("truncated file: the header of the %s is cut inside its last 2880-byte block", what)
+	}
+	s.dataStart = hdrEnd
+	if what, err = s.identify(kv, what); err != nil {
+		return s, err
+	}
+	pcount, gcount, err := s.readAxes(kv, what)
+	if err != nil {
+		return s, err
+	}
+	size, err := dataSize(len(data), s.dataStart, s.naxis, s.bitpix, pcount, gcount, what)
+	if err != nil {
+		return s, err
+	}
+	s.dataEnd = s.dataStart + size
+	s.end = s.dataStart + roundBlock(size)
+	return s, nil
+}
+
+// scanCards reads the cards of the header starting at pos up to END and
+// returns the valued keywords (value fields unparsed; "HIERARCH KEY =
+// value" stored as KEY) and the position just after the END card. A
+// mandatory keyword given twice, or a header without END, is an error;
+// what names the HDU in messages.
+func scanCards(data []byte, pos int, what string) (map[string]string, int, error) {
 	kv := map[string]string{}
-	ended := false
 	p := pos
-	for !ended {
+	for {
 		if p+cardSize > len(data) {
-			return s, fmt.Errorf("truncated file: the header of the %s has no END card", what)
+			return nil, p, fmt.Errorf("truncated file: the header of the %s has no END card", what)
 		}
 		card := data[p : p+cardSize]
 		p += cardSize
 		key := strings.TrimRight(string(card[:8]), " ")
 		if key == "END" {
-			ended = true
-			break
+			return kv, p, nil
 		}
 		val, has := "", false
 		if string(card[8:10]) == "= " {
@@ -101,96 +130,109 @@ func scanOne(data []byte, pos, idx int) (hduSpan, error) {
 		}
 		if has {
 			if _, dup := kv[key]; dup && mandatoryRE.MatchString(key) {
-				return s, fmt.Errorf("%s: keyword %s appears twice", what, key)
+				return nil, p, fmt.Errorf("%s: keyword %s appears twice", what, key)
 			}
 			kv[key] = val
 		}
 	}
-	hdrEnd := pos + roundBlock(p-pos)
-	if hdrEnd > len(data) {
-		return s, fmt.Errorf("truncated file: the header of the %s is cut inside its last 2880-byte block", what)
-	}
-	s.dataStart = hdrEnd
+}
 
-	if idx == 0 {
+// identify checks that the primary HDU says SIMPLE = T, or reads an
+// extension's XTENSION type and EXTNAME into s. It returns the HDU's name
+// for messages, with the extension type added.
+func (s *hduSpan) identify(kv map[string]string, what string) (string, error) {
+	if s.index == 0 {
 		if v, _ := logicalValue(kv["SIMPLE"]); !v {
-			return s, errNotFITS
+			return what, errNotFITS
 		}
-	} else {
-		x, ok := stringValue(kv["XTENSION"])
-		if !ok {
-			return s, fmt.Errorf("%s: XTENSION has no string value", what)
-		}
-		s.xtension = x
-		if n, ok := stringValue(kv["EXTNAME"]); ok {
-			s.extname = n
-		}
-		what = fmt.Sprintf("%s (%s)", what, s.xtension)
+		return what, nil
 	}
+	x, ok := stringValue(kv["XTENSION"])
+	if !ok {
+		return what, fmt.Errorf("%s: XTENSION has no string value", what)
+	}
+	s.xtension = x
+	if n, ok := stringValue(kv["EXTNAME"]); ok {
+		s.extname = n
+	}
+	return fmt.Sprintf("%s (%s)", what, s.xtension), nil
+}
 
+// readAxes reads BITPIX (FITS Standard 4.0 Table 8 values only) and
+// NAXIS, NAXISn (0..999 axes, none negative) into s, and returns PCOUNT
+// and GCOUNT (required in extensions; 0 and 1 for the primary HDU, where
+// random groups are refused).
+func (s *hduSpan) readAxes(kv map[string]string, what string) (pcount, gcount int, err error) {
 	bitpix, ok := intValue(kv["BITPIX"])
 	if !ok {
-		return s, fmt.Errorf("%s: missing or invalid BITPIX", what)
+		return 0, 0, fmt.Errorf("%s: missing or invalid BITPIX", what)
 	}
 	switch bitpix {
 	case 8, 16, 32, 64, -32, -64:
 	default:
-		return s, fmt.Errorf("%s: BITPIX = %d is not one of 8, 16, 32, 64, -32, -64 (FITS Standard 4.0 Table 8)", what, bitpix)
+		return 0, 0, fmt.Errorf("%s: BITPIX = %d is not one of 8, 16, 32, 64, -32, -64 (FITS Standard 4.0 Table 8)", what, bitpix)
 	}
 	s.bitpix = bitpix
 	naxis, ok := intValue(kv["NAXIS"])
 	if !ok || naxis < 0 || naxis > 999 {
-		return s, fmt.Errorf("%s: missing or invalid NAXIS (must be 0..999)", what)
+		return 0, 0, fmt.Errorf("%s: missing or invalid NAXIS (must be 0..999)", what)
 	}
 	s.naxis = make([]int, naxis)
 	for i := range s.naxis {
 		k := "NAXIS" + strconv.Itoa(i+1)
 		n, ok := intValue(kv[k])
 		if !ok || n < 0 {
-			return s, fmt.Errorf("%s: missing or negative %s", what, k)
+			return 0, 0, fmt.Errorf("%s: missing or negative %s", what, k)
 		}
 		s.naxis[i] = n
 	}
-	pcount, gcount := 0, 1
-	if idx > 0 {
+	pcount, gcount = 0, 1
+	if s.index > 0 {
 		var ok1, ok2 bool
 		pcount, ok1 = intValue(kv["PCOUNT"])
 		gcount, ok2 = intValue(kv["GCOUNT"])
 		if !ok1 || !ok2 || pcount < 0 || gcount < 0 {
-			return s, fmt.Errorf("%s: missing or invalid PCOUNT/GCOUNT", what)
+			return 0, 0, fmt.Errorf("%s: missing or invalid PCOUNT/GCOUNT", what)
 		}
 	} else if g, _ := logicalValue(kv["GROUPS"]); g && naxis > 0 && s.naxis[0] == 0 {
-		return s, fmt.Errorf("random-groups files are not supported")
+		return 0, 0, fmt.Errorf("random-groups files are not supported")
 	}
+	return pcount, gcount, nil
+}
 
-	// Data size in bytes: |BITPIX|/8 · GCOUNT · (PCOUNT + NAXIS1·…·NAXISn)
-	// (FITS Standard 4.0 eq. 2), bounded by the file size at every step.
-	limit := len(data)
+// dataSize returns the size in bytes of a data unit,
+// |BITPIX|/8 · GCOUNT · (PCOUNT + NAXIS1·…·NAXISn) (FITS Standard 4.0
+// eq. 2), bounded by the file length at every step so nothing overflows,
+// and fails if it exceeds the bytes after the header (file length minus
+// dataStart).
+func dataSize(fileLen, dataStart int, naxis []int, bitpix, pcount, gcount int, what string) (int, error) {
+	limit := fileLen
+	have := fileLen - dataStart
 	elems := 0
-	if naxis > 0 {
+	if len(naxis) > 0 {
 		elems = 1
-		for _, n := range s.naxis {
+		for _, n := range naxis {
 			if n == 0 {
 				elems = 0
 				break
 			}
 		}
-		for _, n := range s.naxis {
+		for _, n := range naxis {
 			if elems == 0 {
 				break
 			}
 			if n > limit || elems > limit/n {
-				return s, truncated(what, len(data)-s.dataStart)
+				return 0, truncated(what, have)
 			}
 			elems *= n
 		}
 	}
 	if pcount > limit || elems > limit-pcount {
-		return s, truncated(what, len(data)-s.dataStart)
+		return 0, truncated(what, have)
 	}
 	elems += pcount
 	if elems > 0 && gcount > limit/elems {
-		return s, truncated(what, len(data)-s.dataStart)
+		return 0, truncated(what, have)
 	}
 	elems *= gcount
 	width := bitpix / 8
@@ -198,17 +240,17 @@ func scanOne(data []byte, pos, idx int) (hduSpan, error) {
 		width = -width
 	}
 	if elems > limit/width {
-		return s, truncated(what, len(data)-s.dataStart)
+		return 0, truncated(what, have)
 	}
 	size := elems * width
-	if size > len(data)-s.dataStart {
-		return s, fmt.Errorf("truncated file: the %s declares %d data bytes but only %d follow its header", what, size, len(data)-s.dataStart)
+	if size > have {
+		return 0, fmt.Errorf("truncated file: the %s declares %d data bytes but only %d follow its header", what, size, have)
 	}
-	s.dataEnd = s.dataStart + size
-	s.end = s.dataStart + roundBlock(size)
-	return s, nil
+	return size, nil
 }
 
+// truncated reports a data unit larger than the have bytes after its
+// header.
 func truncated(what string, have int) error {
 	return fmt.Errorf("truncated file: the %s declares more data than the %d bytes that follow its header", what, have)
 }
@@ -227,6 +269,8 @@ func valueField(v string) string {
 	return strings.TrimSpace(v)
 }
 
+// intValue parses an integer value field; false if empty or not an
+// integer.
 func intValue(v string) (int, bool) {
 	f := valueField(v)
 	if f == "" {
@@ -236,6 +280,8 @@ func intValue(v string) (int, bool) {
 	return n, err == nil
 }
 
+// logicalValue parses a logical value field, T or F; false as the second
+// result if it is neither.
 func logicalValue(v string) (bool, bool) {
 	switch valueField(v) {
 	case "T":

@@ -9,13 +9,14 @@ import (
 
 // Graph is the network as a gorgonia expression graph for a fixed batch of
 // Bursts bursts of Frames frames each, used to back-propagate an outside
-// gradient into the weights (DESIGN §7): the graph's scalar is
+// gradient into the weights: the graph's scalar is
 //
 //	c = Σ_{r,m} y_{r,m} · gin_{r,m},
 //
 // with y the raw outputs (as Predictor.Raw) and gin an input set at every
 // step, so ∂c/∂w = Jᵀ·gin, the chain rule for any loss L(y) with
-// gin = ∂L/∂y. The weight nodes share memory with the Model's tensors, so
+// gin = ∂L/∂y (TestGraphOuterGradient checks the back-propagated gradient
+// against central differences). The weight nodes share memory with the Model's tensors, so
 // updates made in place to Model.Params are used by the next Backward.
 // A Graph is not safe for concurrent use.
 type Graph struct {

@@ -110,7 +110,9 @@ type Meta struct {
 }
 
 // CutoffRadius is the diffraction cut-off r_c = D·N·p/λ in frequency pixels of
-// an N×N patch (DESIGN §3), or N/2 when the optics are unknown.
+// an N×N patch (incoherent cut-off D/λ at frequency spacing 1/(N p);
+// Goodman, Introduction to Fourier Optics), or N/2 when the optics are
+// unknown.
 func (m Meta) CutoffRadius() float64 {
 	if m.Diameter <= 0 || m.PixelScale <= 0 || m.Wavelength <= 0 || m.Patch <= 0 {
 		return float64(m.Patch) / 2

@@ -45,7 +45,8 @@ func TestValidate(t *testing.T) {
 	}
 }
 
-// Nyquist sampling p ≤ λ/(2D) ⇔ r_c = D N p/λ ≤ N/2 (DESIGN §3 "Sampling").
+// Nyquist sampling p ≤ λ/(2D) ⇔ r_c = D N p/λ ≤ N/2 (Shannon sampling of
+// the incoherent cut-off D/λ; Goodman, Introduction to Fourier Optics).
 func TestCheckSampling(t *testing.T) {
 	// Demo: λ/(2D) = 600e-9/1.0 rad = 0.1238 arcsec > 0.120 arcsec (contract).
 	if err := demo.CheckSampling(64); err != nil {
@@ -85,7 +86,7 @@ func TestCheckSampling(t *testing.T) {
 }
 
 // Z4 = √3(2ρ²−1) (Noll 1976 Table I) spans 2√3 from ρ = 0 to ρ = 1, so a
-// coefficient a has peak-to-valley 2√3·a (DESIGN §3 "Defocus diversity").
+// coefficient a has peak-to-valley 2√3·a (from the polynomial itself).
 func TestDefocusPV(t *testing.T) {
 	a := DefocusCoefficient(1)
 	if pv := a * (modes.Zernike(4, 1, 0) - modes.Zernike(4, 0, 0)); math.Abs(pv-2*math.Pi) > 1e-12 {
@@ -205,7 +206,9 @@ func TestPupilGeometry(t *testing.T) {
 
 // PSF sums to 1, peaks at pixel 0 for a flat wavefront; OTF has S(0) = 1 and
 // Hermitian symmetry (real PSF), and equals the normalised autocorrelation of
-// the pupil field computed directly (DESIGN §3 "Image formation").
+// the pupil field computed directly (Goodman, Introduction to Fourier
+// Optics: the incoherent OTF is the normalised autocorrelation of the pupil
+// function).
 func TestImageFormationBasics(t *testing.T) {
 	const n = 16
 	tel := telescopeFor(n, 3.7, 0.2)

@@ -8,9 +8,10 @@ import (
 	"pdwave/model/modes"
 )
 
-// Pupil is the aperture transmission sampled on the N×N grid shared with the
-// image patches (DESIGN §3): centre pixel (N/2, N/2), diameter r_c = D·N·p/λ
-// pixels, so that its autocorrelation (the OTF) fills radius r_c ≤ N/2.
+// Pupil is the aperture transmission sampled on the N×N grid shared with
+// the image patches (README "Methods"): centre pixel (N/2, N/2), diameter
+// r_c = D·N·p/λ pixels, so that its autocorrelation (the OTF) fills radius
+// r_c ≤ N/2 (Goodman, Introduction to Fourier Optics).
 type Pupil struct {
 	N      int
 	Radius float64   // pixels = r_c/2 (pupil diameter r_c pixels)
@@ -175,8 +176,10 @@ func (p *Pupil) Defocus(dst []float64, pvWaves float64) {
 	}
 }
 
-// Imager forms the PSF and OTF of one pupil for given phase maps (DESIGN §3
-// "Image formation"). It owns an FFT plan and buffers: after NewImager its
+// Imager forms the PSF and OTF of one pupil for given phase maps (Fraunhofer
+// imaging, Goodman, Introduction to Fourier Optics: amplitude PSF the
+// inverse transform of the pupil field, PSF its squared modulus, OTF the
+// PSF's transform). It owns an FFT plan and buffers: after NewImager its
 // methods allocate nothing. An Imager is not safe for concurrent use; make
 // one per goroutine.
 type Imager struct {

@@ -1,7 +1,8 @@
 // Package optics describes a telescope and forms images through it: the
 // sampling rule that ties the pupil grid to the image pixels, the pupil
 // (central obscuration, spider vanes), point-spread and optical transfer
-// functions, and defocus diversity (DESIGN §3).
+// functions (Goodman, Introduction to Fourier Optics), and defocus
+// diversity (Noll 1976 Z4).
 //
 // Units are SI: metres and radians. Phases are in radians; images are
 // row-major N×N arrays (index y*N+x).
@@ -68,14 +69,15 @@ func (t Telescope) Validate() error {
 func (t Telescope) Nyquist() float64 { return t.Wavelength / (2 * t.Diameter) }
 
 // CutoffRadius returns the radius of the diffraction cut-off D/λ in
-// frequency pixels of an n×n patch, r_c = D·n·p/λ (DESIGN §3 "Sampling"); the
-// frequency spacing is 1/(n p).
+// frequency pixels of an n×n patch, r_c = D·n·p/λ (incoherent cut-off;
+// Goodman, Introduction to Fourier Optics); the frequency spacing is 1/(n p).
 func (t Telescope) CutoffRadius(n int) float64 {
 	return t.Diameter * float64(n) * t.PixelScale / t.Wavelength
 }
 
 // CheckSampling returns an error if the images are under-sampled, p > λ/(2D),
-// i.e. the cut-off r_c exceeds n/2 and the OTF would alias (DESIGN §3). The
+// i.e. the cut-off r_c exceeds n/2 and the OTF would alias (Shannon
+// sampling of the cut-off D/λ). The
 // message gives the pixel scale and the Nyquist limit in arcsec. It also
 // returns Validate's error and an error for n < 1.
 func (t Telescope) CheckSampling(n int) error {

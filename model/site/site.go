@@ -1,5 +1,6 @@
 // Package site reads the site/telescope YAML file that describes a
-// telescope, its seeing, its camera and the working sizes (DESIGN §4).
+// telescope, its seeing, its camera and the working sizes (README "Site
+// file").
 //
 // The file has four sections; units are in the names and every field is
 // documented on the struct below. Unknown fields are errors (a typo must
@@ -237,25 +238,59 @@ func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 // weights, and checks the sampling of the patch (pixel scale at most
 // λ/(2D)). Errors name the field as written in the YAML file.
 func (s *Site) Validate() error {
-	t := &s.Tel
-	pos := func(name string, v float64) error {
-		if !(v > 0) || !finite(v) {
-			return fmt.Errorf("%s: must be a positive number, got %g", name, v)
-		}
-		return nil
+	if err := s.Tel.validateOptics(); err != nil {
+		return err
 	}
-	nonneg := func(name string, v float64) error {
-		if !(v >= 0) || !finite(v) {
-			return fmt.Errorf("%s: must be a number >= 0, got %g", name, v)
-		}
-		return nil
+	if err := s.Tel.validateDiversity(); err != nil {
+		return err
 	}
+	if err := s.Seeing.validate(); err != nil {
+		return err
+	}
+	if err := s.Camera.validate(); err != nil {
+		return err
+	}
+	if err := s.Sizes.validate(); err != nil {
+		return err
+	}
+	tel := s.Telescope()
+	if err := tel.Validate(); err != nil {
+		return err
+	}
+	if err := tel.CheckSampling(s.Sizes.Patch); err != nil {
+		return fmt.Errorf("telescope.pixel_scale_arcsec: %w", err)
+	}
+	return nil
+}
+
+// positive returns an error naming the field unless v is a finite
+// number > 0.
+func positive(name string, v float64) error {
+	if !(v > 0) || !finite(v) {
+		return fmt.Errorf("%s: must be a positive number, got %g", name, v)
+	}
+	return nil
+}
+
+// nonNegative returns an error naming the field unless v is a finite
+// number ≥ 0.
+func nonNegative(name string, v float64) error {
+	if !(v >= 0) || !finite(v) {
+		return fmt.Errorf("%s: must be a number >= 0, got %g", name, v)
+	}
+	return nil
+}
+
+// validateOptics checks the telescope's sizes: positive diameter,
+// wavelength (10 nm – 1 mm) and pixel scale, an obscuration in [0, 1),
+// spiders narrower than the aperture, a focal ratio ≥ 0.
+func (t *TelescopeSpec) validateOptics() error {
 	for _, e := range []error{
-		pos("telescope.diameter_m", t.DiameterM),
-		pos("telescope.wavelength_nm", t.WavelengthNM),
-		pos("telescope.pixel_scale_arcsec", t.PixelScaleArcsec),
-		nonneg("telescope.spider_width_m", t.SpiderWidthM),
-		nonneg("telescope.focal_ratio", t.FocalRatio),
+		positive("telescope.diameter_m", t.DiameterM),
+		positive("telescope.wavelength_nm", t.WavelengthNM),
+		positive("telescope.pixel_scale_arcsec", t.PixelScaleArcsec),
+		nonNegative("telescope.spider_width_m", t.SpiderWidthM),
+		nonNegative("telescope.focal_ratio", t.FocalRatio),
 	} {
 		if e != nil {
 			return e
@@ -273,6 +308,13 @@ func (s *Site) Validate() error {
 	if t.WavelengthNM < 10 || t.WavelengthNM > 1e6 {
 		return fmt.Errorf("telescope.wavelength_nm: %g nm is not an optical wavelength (10 nm – 1 mm)", t.WavelengthNM)
 	}
+	return nil
+}
+
+// validateDiversity checks that exactly one of diversity_pv_waves and
+// focus_shift_mm is given, non-zero and finite, and that a focus shift
+// comes with the focal ratio needed to convert it to waves.
+func (t *TelescopeSpec) validateDiversity() error {
 	switch {
 	case t.DiversityPVWaves != nil && t.FocusShiftMM != nil:
 		return errors.New("telescope: give diversity_pv_waves or focus_shift_mm, not both")
@@ -290,15 +332,21 @@ func (s *Site) Validate() error {
 			return errors.New("telescope.focal_ratio: required (> 0) to convert focus_shift_mm to waves")
 		}
 	}
+	return nil
+}
 
-	se := &s.Seeing
-	if err := pos("seeing.r0_500nm_m", se.R0MedianM); err != nil {
+// validate checks the seeing (positive median r0, spread factor ≥ 1,
+// outer scale ≥ 0, at least one layer with finite height, weight, wind
+// speed and direction, weights summing to 1 within 0.02) and rescales the
+// layer weights to sum to exactly 1.
+func (se *Seeing) validate() error {
+	if err := positive("seeing.r0_500nm_m", se.R0MedianM); err != nil {
 		return err
 	}
 	if !(se.R0Spread >= 1) || !finite(se.R0Spread) {
 		return fmt.Errorf("seeing.r0_spread: the log-normal spread factor must be >= 1 (1 = fixed r0), got %g", se.R0Spread)
 	}
-	if err := nonneg("seeing.outer_scale_m", se.OuterScaleM); err != nil {
+	if err := nonNegative("seeing.outer_scale_m", se.OuterScaleM); err != nil {
 		return fmt.Errorf("%w (0 = Kolmogorov)", err)
 	}
 	if len(se.Layers) == 0 {
@@ -306,18 +354,8 @@ func (s *Site) Validate() error {
 	}
 	sum := 0.0
 	for i, l := range se.Layers {
-		name := fmt.Sprintf("seeing.layers[%d]", i)
-		if err := nonneg(name+".height_m", l.HeightM); err != nil {
+		if err := l.validate(fmt.Sprintf("seeing.layers[%d]", i)); err != nil {
 			return err
-		}
-		if err := pos(name+".weight", l.Weight); err != nil {
-			return err
-		}
-		if err := nonneg(name+".wind_m_s", l.WindMS); err != nil {
-			return err
-		}
-		if !finite(l.WindDirDeg) {
-			return fmt.Errorf("%s.wind_dir_deg: must be a finite number, got %g", name, l.WindDirDeg)
 		}
 		sum += l.Weight
 	}
@@ -327,25 +365,52 @@ func (s *Site) Validate() error {
 	for i := range se.Layers {
 		se.Layers[i].Weight /= sum
 	}
+	return nil
+}
 
-	c := &s.Camera
-	if err := pos("camera.frame_interval_s", c.FrameIntervalS); err != nil {
+// validate checks one layer, named name in messages: height and wind
+// speed ≥ 0, weight > 0, a finite wind direction.
+func (l Layer) validate(name string) error {
+	if err := nonNegative(name+".height_m", l.HeightM); err != nil {
 		return err
 	}
-	if err := nonneg("camera.photons_per_pixel", c.PhotonsPerPixel); err != nil {
+	if err := positive(name+".weight", l.Weight); err != nil {
+		return err
+	}
+	if err := nonNegative(name+".wind_m_s", l.WindMS); err != nil {
+		return err
+	}
+	if !finite(l.WindDirDeg) {
+		return fmt.Errorf("%s.wind_dir_deg: must be a finite number, got %g", name, l.WindDirDeg)
+	}
+	return nil
+}
+
+// validate checks the camera: positive frame interval, photons, read
+// noise and gain ≥ 0, bit depth 0 to 32.
+func (c *Camera) validate() error {
+	if err := positive("camera.frame_interval_s", c.FrameIntervalS); err != nil {
+		return err
+	}
+	if err := nonNegative("camera.photons_per_pixel", c.PhotonsPerPixel); err != nil {
 		return fmt.Errorf("%w (0 = noiseless)", err)
 	}
-	if err := nonneg("camera.read_noise_e", c.ReadNoiseE); err != nil {
+	if err := nonNegative("camera.read_noise_e", c.ReadNoiseE); err != nil {
 		return err
 	}
 	if c.BitDepth < 0 || c.BitDepth > 32 {
 		return fmt.Errorf("camera.bit_depth: must be 0 (no quantisation) to 32, got %d", c.BitDepth)
 	}
-	if err := nonneg("camera.gain_e_per_adu", c.GainEPerADU); err != nil {
+	if err := nonNegative("camera.gain_e_per_adu", c.GainEPerADU); err != nil {
 		return fmt.Errorf("%w (0 = automatic)", err)
 	}
+	return nil
+}
 
-	z := &s.Sizes
+// validate checks the working sizes (patch 8 to 4096 px, 1 to 10000
+// frames, 1 to 1000 modes) and replaces the basis name by its canonical
+// kind.
+func (z *Sizes) validate() error {
 	if z.Patch < 8 || z.Patch > 4096 {
 		return fmt.Errorf("sizes.patch: must be 8 to 4096 pixels, got %d", z.Patch)
 	}
@@ -360,14 +425,6 @@ func (s *Site) Validate() error {
 		return fmt.Errorf("sizes.basis: %q is not a basis; use zernike or kl", string(z.Basis))
 	}
 	z.Basis = k
-
-	tel := s.Telescope()
-	if err := tel.Validate(); err != nil {
-		return err
-	}
-	if err := tel.CheckSampling(z.Patch); err != nil {
-		return fmt.Errorf("telescope.pixel_scale_arcsec: %w", err)
-	}
 	return nil
 }
 
@@ -391,8 +448,10 @@ func (s *Site) Telescope() optics.Telescope {
 
 // DiversityPV returns the defocus of the diversity channel, peak-to-valley
 // waves: diversity_pv_waves, or focus_shift_mm converted with
-// Δz/(8 λ F#²) (DESIGN §3). It returns 0 if neither is set (only possible
-// for a Site that was not validated).
+// Δz/(8 λ F#²) (the peak-to-valley defocus of a longitudinal focus shift
+// Δz is Δz·NA²/2 = Δz/(8 F#²) with NA = 1/(2 F#); from memory). It
+// returns 0 if neither is set (only possible for a Site that was not
+// validated).
 func (s *Site) DiversityPV() float64 {
 	t := s.Tel
 	switch {

@@ -31,7 +31,8 @@ func TestLoadDemo(t *testing.T) {
 	if math.Abs(tel.PixelScale-5.8177641733e-7) > 1e-16 {
 		t.Errorf("pixel scale %g rad", tel.PixelScale)
 	}
-	// Nyquist λ/(2D) = 600e-9/1.0 rad = 0.12376 arcsec ≥ 0.120 (DESIGN §3).
+	// Nyquist λ/(2D) = 600e-9/1.0 rad = 0.12376 arcsec ≥ 0.120 (Shannon
+	// sampling of the incoherent cut-off D/λ; Goodman).
 	if err := tel.CheckSampling(s.Sizes.Patch); err != nil {
 		t.Errorf("demo sampling: %v", err)
 	}
@@ -102,7 +103,8 @@ func TestDefaults(t *testing.T) {
 }
 
 // TestFocusShift: 1 wave PV at F/40 and 600 nm is Δz = 8·λ·F#² =
-// 8·600e-9·1600 m = 7.68 mm (DESIGN §3, Δz/(8 λ F#²)).
+// 8·600e-9·1600 m = 7.68 mm (PV defocus Δz/(8 F#²) of a focus shift Δz,
+// from memory).
 func TestFocusShift(t *testing.T) {
 	data, err := os.ReadFile(demoPath)
 	if err != nil {

@@ -1,0 +1,210 @@
+package compare
+
+import (
+	"fmt"
+	"sync"
+	"time"
+
+	"gonum.org/v1/gonum/stat"
+
+	"pdwave/infer"
+	"pdwave/model/burst"
+	"pdwave/model/fft"
+)
+
+// patchOut is the work result of one patch.
+type patchOut struct {
+	patch   Patch
+	spectra [][]float64 // raw, then per method (no truth)
+	err     error
+}
+
+// patchWork holds what every patch of a run shares: the estimators, the
+// methods to score, the coefficient constraint and the metric's window.
+// It is read-only during the parallel part.
+type patchWork struct {
+	learned   infer.Estimator // nil: no learned or polished estimate
+	polisher  *infer.Fitter   // nil: no polished estimate
+	fitter    *infer.Fitter
+	fromZero  bool // the full fit starts from zero, not from the previous estimate
+	methods   []string
+	constrain func([][]float64) [][]float64
+	win       []float64 // n×n apodisation of the metric's data
+}
+
+// runAll computes every job's patch on workers goroutines, each with its
+// own FFT plan, and returns the results in job order.
+func (w *patchWork) runAll(b *burst.Burst, jobs []patchJob, truths [][][]float64, workers int) []patchOut {
+	n := w.fitter.Config().Patch
+	outs := make([]patchOut, len(jobs))
+	ch := make(chan patchJob)
+	var wg sync.WaitGroup
+	for range min(workers, len(jobs)) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			plan := fft.NewPlan(n, n)
+			for jb := range ch {
+				data := b.Patch(jb.x, jb.y, n)
+				outs[jb.idx] = w.run(data, jb, truths[jb.idx], plan)
+			}
+		}()
+	}
+	for _, jb := range jobs {
+		ch <- jb
+	}
+	close(ch)
+	wg.Wait()
+	return outs
+}
+
+// run computes every estimate of one patch and scores each method: the
+// metric, the restored image's contrast and its power spectrum, beside
+// the raw frame average's.
+func (w *patchWork) run(data [][][]float64, jb patchJob, truth [][]float64, plan *fft.Plan) patchOut {
+	out := patchOut{patch: Patch{Index: jb.idx, X: jb.x, Y: jb.y}}
+	ests, err := w.estimate(data, truth)
+	if err != nil {
+		out.err = err
+		return out
+	}
+	n := w.fitter.Config().Patch
+	avg, level := apodisedAverage(data[0], w.win)
+	sc := newScorer(n, level, plan)
+	out.patch.RawContrast = sc.contrast(avg)
+	out.spectra = append(out.spectra, sc.spectrum(avg))
+	for _, m := range w.methods {
+		e := ests[m]
+		met, _, err := w.fitter.Objective(data, e.Coeffs)
+		if err != nil {
+			out.err = fmt.Errorf("%s metric: %w", m, err)
+			return out
+		}
+		e.Metric = met
+		img, err := w.fitter.Restore(data, e.Coeffs)
+		if err != nil {
+			out.err = fmt.Errorf("%s restoration: %w", m, err)
+			return out
+		}
+		e.Contrast = sc.contrast(img)
+		if m != Truth {
+			out.spectra = append(out.spectra, sc.spectrum(img))
+		}
+		out.patch.Estimates = append(out.patch.Estimates, *e)
+	}
+	return out
+}
+
+// estimate runs the learned estimator (constrained), the polish from it
+// and the full fit, timing each; the fit starts from the last estimate
+// unless fromZero, and its Total includes the stages it continued. A
+// non-nil truth is added as the Truth estimate. Metrics and contrasts are
+// left for the caller.
+func (w *patchWork) estimate(data [][][]float64, truth [][]float64) (map[string]*Estimate, error) {
+	ests := map[string]*Estimate{}
+	var start [][]float64
+	var elapsed float64
+	if w.learned != nil {
+		t0 := time.Now()
+		c, err := w.learned.Estimate(data)
+		if err != nil {
+			return nil, fmt.Errorf("learned: %w", err)
+		}
+		sec := time.Since(t0).Seconds()
+		c = w.constrain(c)
+		ests[Learned] = &Estimate{Method: Learned, Coeffs: c, Seconds: sec, Total: sec}
+		start, elapsed = c, sec
+		if w.polisher != nil {
+			res, err := w.polisher.Fit(data, c)
+			if err != nil {
+				return nil, fmt.Errorf("polish: %w", err)
+			}
+			sec := res.Elapsed.Seconds()
+			elapsed += sec
+			ests[Polished] = &Estimate{Method: Polished, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed, Iterations: res.Iterations}
+			start = res.Coeffs
+		}
+	}
+	if w.fromZero {
+		start, elapsed = nil, 0
+	}
+	res, err := w.fitter.Fit(data, start)
+	if err != nil {
+		return nil, fmt.Errorf("fit: %w", err)
+	}
+	sec := res.Elapsed.Seconds()
+	ests[Fitted] = &Estimate{Method: Fitted, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed + sec, Iterations: res.Iterations}
+	if truth != nil {
+		ests[Truth] = &Estimate{Method: Truth, Coeffs: truth}
+	}
+	return ests, nil
+}
+
+// apodisedAverage returns the average of the frames of one channel,
+// apodised like the metric's data: win·(avg − level) + level, where level
+// is the window-weighted mean of the average, also returned.
+func apodisedAverage(frames [][]float64, win []float64) (avg []float64, level float64) {
+	avg = make([]float64, len(win))
+	for _, im := range frames {
+		for i, v := range im {
+			avg[i] += v
+		}
+	}
+	var sw, swd float64
+	for i := range avg {
+		avg[i] /= float64(len(frames))
+		sw += win[i]
+		swd += win[i] * avg[i]
+	}
+	level = swd / sw
+	for i := range avg {
+		avg[i] = win[i]*(avg[i]-level) + level
+	}
+	return avg, level
+}
+
+// scorer measures images of one patch relative to the raw mean level:
+// the RMS contrast and the azimuthally averaged power spectrum, both
+// normalised by that level (by 1 if the level is not positive).
+type scorer struct {
+	n    int
+	norm float64
+	plan *fft.Plan
+	spec []float64    // n/2+1 spectrum bins
+	zbuf []complex128 // n×n FFT output
+	pbuf []float64    // n×n FFT input, then power
+}
+
+// newScorer returns a scorer for n×n images with raw mean level level,
+// using plan for the FFTs.
+func newScorer(n int, level float64, plan *fft.Plan) *scorer {
+	norm := level
+	if !(norm > 0) {
+		norm = 1
+	}
+	return &scorer{n: n, norm: norm, plan: plan, spec: make([]float64, n/2+1),
+		zbuf: make([]complex128, n*n), pbuf: make([]float64, n*n)}
+}
+
+// contrast returns the population standard deviation of img over the
+// mean level.
+func (s *scorer) contrast(img []float64) float64 {
+	return stat.PopStdDev(img, nil) / s.norm
+}
+
+// spectrum returns a new slice with the azimuthal average of the power
+// spectrum of img minus its mean, |FFT|²/(n² level²).
+func (s *scorer) spectrum(img []float64) []float64 {
+	n := s.n
+	mu := stat.Mean(img, nil)
+	for i, v := range img {
+		s.pbuf[i] = v - mu
+	}
+	s.plan.ForwardReal(s.zbuf, s.pbuf)
+	scale := 1 / (float64(n*n) * s.norm * s.norm)
+	for i, z := range s.zbuf {
+		s.pbuf[i] = (real(z)*real(z) + imag(z)*imag(z)) * scale
+	}
+	AzimuthalAverage(s.spec, s.pbuf, n)
+	return append([]float64(nil), s.spec...)
+}
