@@ -40,6 +40,8 @@ type Overrides struct {
 //     from the site's wavelength to the burst's as λ^(6/5) (Roddier 1981,
 //     Progress in Optics 19, 281), else DefaultConfig's 5 (common practice for
 //     moderate daytime seeing);
+//   - the basis aperture (modes.NewFor): the telescope's obscuration and
+//     the site's outer scale over the diameter (Kolmogorov without a site);
 //   - everything else (prior, metric, stopping rule) from DefaultConfig.
 //
 // ConfigFor neither validates the telescope nor checks the sampling:
@@ -77,6 +79,10 @@ func ConfigFor(s *site.Site, o burst.Optics, frames int, ov Overrides) (Config, 
 	if r0 > 0 {
 		cfg.DOverR0 = tel.Diameter / r0
 	}
+	cfg.Aperture = modes.Aperture{Obscuration: tel.Obscuration}
+	if s != nil && s.OuterScale() > 0 && tel.Diameter > 0 {
+		cfg.Aperture.OuterScale = max(s.OuterScale()/tel.Diameter, modes.MinOuterScale)
+	}
 	if ov.Patch > 0 {
 		cfg.Patch = ov.Patch
 	}
@@ -106,6 +112,7 @@ func (c Config) Settings() map[string]string {
 	g6 := func(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 	return map[string]string{
 		"basis":       string(c.Basis),
+		"basis_for":   apertureText(c.Aperture),
 		"modes":       strconv.Itoa(c.Modes),
 		"frames":      strconv.Itoa(c.Frames),
 		"iterations":  strconv.Itoa(c.Stop.Iterations),
@@ -117,4 +124,13 @@ func (c Config) Settings() map[string]string {
 		"diameter":    g6(c.Telescope.Diameter) + " m",
 		"obscuration": g6(c.Telescope.Obscuration),
 	}
+}
+
+// apertureText describes the aperture a basis is built for, for provenance.
+func apertureText(a modes.Aperture) string {
+	t := "obscuration " + strconv.FormatFloat(a.Obscuration, 'g', 6, 64)
+	if a.Kolmogorov() {
+		return t + ", Kolmogorov"
+	}
+	return t + ", L0/D " + strconv.FormatFloat(a.OuterScale, 'g', 6, 64)
 }

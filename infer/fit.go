@@ -46,6 +46,11 @@ type Config struct {
 	Frames      int              // frames per patch
 	Basis       modes.Kind       // zernike or kl
 	Modes       int              // number of modes (piston excluded)
+	// Aperture is the pupil and turbulence the basis and its prior are
+	// built for (modes.NewFor): the central obscuration and L0/D. The zero
+	// value is the clear-aperture Kolmogorov basis of modes.New (the basis
+	// of weights that record no aperture).
+	Aperture modes.Aperture
 	// DOverR0 is the expected D/r0 at the observing wavelength. It sets the
 	// prior variances σ_m² = Variance_m·(D/r0)^(5/3) and the coefficient
 	// scaling of the optimiser. Must be > 0.
@@ -85,7 +90,7 @@ func DefaultConfig() Config {
 		Modes:        36,
 		DOverR0:      5,
 		Prior:        0.001,
-		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3},
+		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3, Window: 0.25, Detrend: true},
 		Stop:         Stop{Iterations: 200, RelChange: 1e-6},
 		RegisterTilt: true,
 		Chi2Limit:    3,
@@ -209,7 +214,7 @@ func NewFitter(cfg Config) (*Fitter, error) {
 	if err != nil {
 		return nil, fmt.Errorf("fit: pupil for %d px patches: %w", cfg.Patch, err)
 	}
-	b, err := modes.New(cfg.Basis, cfg.Modes, cfg.Patch, pup.Radius)
+	b, err := modes.NewFor(cfg.Basis, cfg.Modes, cfg.Patch, pup.Radius, cfg.Aperture)
 	if err != nil {
 		return nil, fmt.Errorf("fit: %s basis: %w", cfg.Basis, err)
 	}

@@ -5,6 +5,8 @@ import (
 	"strings"
 	"sync"
 
+	"gonum.org/v1/gonum/mat"
+
 	"pdwave/model/modes"
 	"pdwave/model/net"
 )
@@ -16,6 +18,7 @@ import (
 type NetEstimator struct {
 	m     *net.Model
 	basis *modes.Basis
+	conv  *mat.Dense // native coefficients of the network's own basis → basis; nil if the same
 	mu    sync.Mutex
 	free  []*netWorker
 }
@@ -27,9 +30,14 @@ type netWorker struct {
 	y []float64
 }
 
-// NewNetEstimator checks that m was made for the basis (kind, mode count)
-// and patch size of b and returns an estimator. It returns an error on a
-// mismatch, naming both sides.
+// NewNetEstimator checks that m was made for the basis kind, mode count
+// and patch size of b and returns an estimator whose coefficients refer to
+// b. The network predicts in the basis its weights record (today always
+// the clear-aperture Kolmogorov basis of modes.New); when b was built for
+// another aperture (modes.NewFor), the prediction c is converted exactly,
+// both bases spanning Noll j = 2…Count+1: b's coefficients are
+// ToNoll_b⁻¹·ToNoll_net·c. It returns an error on a mismatch, naming both
+// sides.
 func NewNetEstimator(m *net.Model, b *modes.Basis) (*NetEstimator, error) {
 	if m == nil {
 		return nil, fmt.Errorf("learned estimator: no model")
@@ -46,7 +54,30 @@ func NewNetEstimator(m *net.Model, b *modes.Basis) (*NetEstimator, error) {
 	if _, err := net.NewFeaturizer(m); err != nil {
 		return nil, fmt.Errorf("learned estimator: %w", err)
 	}
-	return &NetEstimator{m: m, basis: b}, nil
+	conv, err := basisConversion(b)
+	if err != nil {
+		return nil, fmt.Errorf("learned estimator: %w", err)
+	}
+	return &NetEstimator{m: m, basis: b, conv: conv}, nil
+}
+
+// basisConversion returns the matrix taking native coefficients of the
+// clear-aperture basis of b's kind and size (modes.New) to native
+// coefficients of b, or nil when b is that basis.
+func basisConversion(b *modes.Basis) (*mat.Dense, error) {
+	own, err := modes.New(b.Kind, b.Count, b.N, b.Radius)
+	if err != nil {
+		return nil, err
+	}
+	if own.Describe() == b.Describe() {
+		return nil, nil
+	}
+	var inv, t mat.Dense
+	if err := inv.Inverse(b.ToNoll); err != nil {
+		return nil, fmt.Errorf("basis %s: %w", b.Describe(), err)
+	}
+	t.Mul(&inv, own.ToNoll)
+	return &t, nil
 }
 
 // Basis implements Estimator: the basis the coefficients refer to.
@@ -82,6 +113,10 @@ func (e *NetEstimator) Estimate(data [][][]float64) ([][]float64, error) {
 	out := make([][]float64, frames)
 	for j := range out {
 		out[j] = append([]float64(nil), w.y[j*m:(j+1)*m]...)
+		if e.conv != nil {
+			dst := mat.NewVecDense(m, out[j])
+			dst.MulVec(e.conv, mat.NewVecDense(m, w.y[j*m:(j+1)*m]))
+		}
 	}
 	return out, nil
 }

@@ -58,7 +58,10 @@ func makeScene(t testing.TB, nx, frames int, dOverR0, sx, sy float64, seed uint6
 			sh.Shift(fr, fr, sx, sy)
 		}
 	}
-	return &testScene{burst: b, object: b.Object, dl: diffractionBlur(t, b.Object, nx)}
+	// The camera integrates each pixel (simulate's pixel box, sinc MTF);
+	// a restoration recovers the object as those pixels see it, so the
+	// reference is o⊗box⊗s₀.
+	return &testScene{burst: b, object: b.Object, dl: diffractionBlur(t, pixelBox(b.Object, nx), nx)}
 }
 
 // testPhysics is the classical configuration used by the physics tests:
@@ -158,7 +161,7 @@ func TestRestoreField(t *testing.T) {
 	// aberration-free PSF): the restoration estimates the object itself
 	// within the cut-off, so it is seen through s₀ before the comparison (a
 	// perfect restoration then matches exactly). The burst-mean tilt of each
-	// patch is invisible to phase diversity (DESIGN §3) and varies over an
+	// patch is invisible to phase diversity (Paxman, Schulz & Fienup 1992) and varies over an
 	// anisoplanatic field, so the comparison is made patch by patch: each
 	// 64 px patch of the restored and of the raw burst-mean image is
 	// aligned to the reference (least-squares shift), and the rms error is
@@ -251,6 +254,33 @@ func (h *hardMosaic) add(r *PatchResult) {
 
 // diffractionBlur returns im (nx×nx) convolved, periodically, with the PSF
 // of the aberration-free demo telescope.
+// pixelBox returns the nx×nx image im convolved (cyclically) with a
+// one-pixel box: the spectrum times sinc(fx)·sinc(fy), f in cycles per
+// pixel, sinc(f) = sin(πf)/(πf) (Goodman, Introduction to Fourier Optics).
+func pixelBox(im []float64, nx int) []float64 {
+	plan := fft.NewPlan(nx, nx)
+	spec := make([]complex128, nx*nx)
+	plan.ForwardReal(spec, im)
+	sinc := func(k int) float64 {
+		if k > nx/2 {
+			k -= nx
+		}
+		f := float64(k) / float64(nx)
+		if f == 0 {
+			return 1
+		}
+		return math.Sin(math.Pi*f) / (math.Pi * f)
+	}
+	for y := 0; y < nx; y++ {
+		for x := 0; x < nx; x++ {
+			spec[y*nx+x] *= complex(sinc(x)*sinc(y), 0)
+		}
+	}
+	out := make([]float64, nx*nx)
+	plan.InverseReal(out, spec)
+	return out
+}
+
 func diffractionBlur(t testing.TB, im []float64, nx int) []float64 {
 	pup, err := optics.NewPupil(demoTelescope(), nx)
 	if err != nil {
