@@ -4,7 +4,10 @@
 // JOSA A 9, 1072; Löfdahl & Scharmer 1994, A&AS 107, 243).
 //
 // All images of a burst (frames j, channels k) share one object. With
-// D_jk = F{w·(d_jk − m_jk)} the apodised, mean-subtracted data and
+// D_jk = F{w·(d_jk − m_jk)} the apodised data, m_jk the window-weighted mean
+// of the image (or, with Settings.Detrend, its window-weighted
+// least-squares plane), w the separable window (flat centre, raised-cosine
+// taper over Settings.Window of the side per edge), and
 // S_jk the OTF of frame j seen through the diversity θ_k of channel k,
 //
 //	L(α) = Σ_u M(u) [ Σ_jk |D_jk|² − |Σ_jk D_jk* S_jk|² / (γ + Σ_jk |S_jk|²) ]
@@ -22,6 +25,20 @@
 // diversity; Blanc, Mugnier & Idier 2003, JOSA A 20, 1035), and P the
 // projector that removes the burst mean of the tip/tilt component, which the
 // metric cannot see (a tilt common to all frames only shifts the object).
+//
+// The meaning of the weights. L/P̄ is the part of the data power per image
+// that no common object explains: about (images − 1)·|M|·noise/P̄ for an
+// exact model, far more on real scenes, where light from outside the patch,
+// PSF wings and wavefront beyond the modes are model error. The prior term
+// is half the Mahalanobis norm of the wavefront under Kolmogorov statistics
+// at the expected D/r0 (tilts loose); w is its weight against the data term.
+// A strict MAP weight from white noise alone would be w = 2·noise/P̄ (the
+// data term is the noise-weighted residual times noise/P̄, each frequency
+// pair counted twice), 1e-5 to 1e-4 on typical bursts; since model error,
+// not noise, dominates real patches, w is an empirical weight chosen by
+// measurement (infer.DefaultConfig says on what). γ regularises the object
+// estimate at frequencies where every OTF is small (relative to the number
+// of images, Settings.Gamma).
 //
 // The gradient follows from the chain rule through S = F{s}, s = |h|²/c and
 // h = F⁻¹{P} (Paxman, Schulz & Fienup 1992, in these FFT conventions): with
