@@ -120,9 +120,17 @@ func WriteCoefficients(fitsPath string, primary *burst.Image, t *CoefficientTabl
 
 // Notes returns the CSV comment lines that summarise a fit: the objective and
 // the normalised metric before and after (%.8g), the iterations and the wall
-// time in seconds.
+// time in seconds, the guard's PriorChi2 and flags ("none" when it found
+// nothing), and the fitted channel offset when it was fitted.
 func (r *Result) Notes() []string {
+	flags := r.Flags.String()
+	if flags == "" {
+		flags = "none"
+	}
 	return []string{
+		fmt.Sprintf("prior_chi2: %.4g", r.Chi2),
+		"fit_flags: " + flags,
+		fmt.Sprintf("channel_offset_px: %.4f %.4f", r.ChannelOffset[0], r.ChannelOffset[1]),
 		fmt.Sprintf("metric_before: %.8g", r.MetricStart),
 		fmt.Sprintf("metric_after: %.8g", r.MetricEnd),
 		fmt.Sprintf("data_metric_before: %.8g", r.DataStart),
