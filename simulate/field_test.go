@@ -126,7 +126,7 @@ func fieldReference(s *Simulator, atm *Atmosphere, tm float64, obj []float64, mx
 // field angle ϑ sees a layer at height h shifted by h·ϑ, and the layer moves
 // by v·Δt between frames, so the wavefront through a single layer moving
 // along +x satisfies φ(t, ϑx) = φ(t + h·Δϑ/v, ϑx + Δϑ) (Taylor frozen flow;
-// DESIGN.md §3). A second layer at the ground would break the identity
+// Taylor 1938). A second layer at the ground would break the identity
 // (its shift does not depend on ϑ), which we check too.
 func TestFrozenFlowAndAnisoplanatism(t *testing.T) {
 	const n = 32

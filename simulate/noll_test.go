@@ -9,7 +9,7 @@ import (
 )
 
 // nollTableIV holds Noll 1976 (JOSA 66, 207) Table IV, Δ_J for J = 2..10 in
-// (D/r0)^(5/3) rad². Δ2–Δ6 and Δ10 as in DESIGN.md §5; Δ7–Δ9 from memory
+// (D/r0)^(5/3) rad². Δ2–Δ6 and Δ10 from the table; Δ7–Δ9 from memory
 // of the same table (they agree with modes.NollResidual within 2 %).
 var nollTableIV = map[int]float64{
 	2: 0.582, 3: 0.134, 4: 0.111, 5: 0.0880, 6: 0.0648,
@@ -23,7 +23,7 @@ var nollTableIV = map[int]float64{
 // means of Δ_J are the independent samples for the standard error.
 //
 // Tolerance per J: 3 % for the model (the Table IV values themselves are
-// reproduced only to ≈ 2 % by the eq. 25 tail sums, DESIGN.md §5; the grid
+// reproduced only to ≈ 2 % by the eq. 25 tail sums with Roddier's 1990 constant 2.2698; the grid
 // lacks power beyond its Nyquist frequency, ≈ 1 % of Δ10 for a 48-pixel
 // pupil; the finest subharmonic leaves ≈ 1.5 % of the tilt out, see
 // ScreenGenerator) plus 3.5 standard errors. With the screen count below the

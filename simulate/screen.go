@@ -62,7 +62,8 @@ func (p ScreenParams) kappa0() float64 {
 // at spatial frequency κ (cycles per metre), κ0 = 1/L0 (0 for L0 ≤ 0 or
 // +Inf): the Kolmogorov phase spectrum 0.023 r0^(−5/3) κ^(−11/3) in
 // cycles per metre (Noll 1976, JOSA 66, 207; Lane, Glindemann & Dainty
-// 1992) with the von Kármán modification (DESIGN.md §3). It returns +Inf
+// 1992) with the von Kármán modification (κ² → κ² + κ0², κ0 = 1/L0; Roddier 1981,
+// Progress in Optics 19, 281, from memory). It returns +Inf
 // at κ = κ0 = 0.
 func PhasePSD(kappa, r0, l0 float64) float64 {
 	k0 := ScreenParams{L0: l0}.kappa0()

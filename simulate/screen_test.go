@@ -105,7 +105,7 @@ func TestStructureFunction(t *testing.T) {
 }
 
 // TestVonKarmanVariance checks the normalisation of von Kármán screens
-// against the integral of the PSD Φ of PhasePSD (DESIGN.md §3, κ0 = 1/L0):
+// against the integral of the PSD Φ of PhasePSD (von Kármán, κ0 = 1/L0):
 //
 //	σ² = ∫Φ d²κ = (3/5)·2π·0.023 r0^(−5/3) κ0^(−5/3) = 0.0867 (L0/r0)^(5/3) rad²
 //

@@ -19,7 +19,7 @@ import (
 // Config is everything physical a Simulator needs, in SI units.
 type Config struct {
 	Telescope     optics.Telescope // pupil and sampling
-	DiversityPV   float64          // defocus of channel 2, peak-to-valley waves (DESIGN §3)
+	DiversityPV   float64          // defocus of channel 2, peak-to-valley waves (Noll Z4)
 	Turbulence    Turbulence       // R0 is the default; Options.R0 overrides per burst
 	FrameInterval float64          // s between frames
 	Camera        Camera           // photons, noise and quantisation

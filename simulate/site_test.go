@@ -11,7 +11,7 @@ import (
 
 // TestDemoSite reads the demo site file and checks that the Config built
 // from it is the demo configuration used by the other tests (r0 at 600 nm
-// from 0.08 m at 500 nm by λ^(6/5), DESIGN.md §3), and that a site-level
+// from 0.08 m at 500 nm by λ^(6/5), Roddier 1981), and that a site-level
 // Patch and Field run and are reproducible.
 func TestDemoSite(t *testing.T) {
 	s, err := site.Load("../testdata/demo-site.yaml")
