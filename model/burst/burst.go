@@ -741,7 +741,51 @@ func tformRepeat(form string) (int, byte, error) {
 	return r, form[i], nil
 }
 
-func (ff *fitsFile) readTruth(s hduSpan, frames int) (t *Truth, err error) {
+// readTruth reads the TRUTH binary table of the HDU s: the BASIS and NMODES
+// keywords, one row per frame of the COEFFS column and, when present, of
+// the NOLL column (each NMODES floating-point values, finite). Malformed
+// tables give an error, never a panic.
+func (ff *fitsFile) readTruth(s hduSpan, frames int) (*Truth, error) {
+	tbl, err := ff.truthTable(s)
+	if err != nil {
+		return nil, err
+	}
+	h := tbl.Header()
+	t, err := truthKeys(h)
+	if err != nil {
+		return nil, err
+	}
+	if int(tbl.NumRows()) != frames {
+		return nil, fmt.Errorf("%d rows for %d frames", tbl.NumRows(), frames)
+	}
+	ax := h.Axes()
+	if len(ax) != 2 || ax[0] < 1 {
+		return nil, errors.New("bad table axes")
+	}
+	withNoll := false
+	for _, name := range []string{"COEFFS", "NOLL"} {
+		found, err := checkTruthColumn(tbl, name, t.Modes, ax[0])
+		if err != nil {
+			return nil, err
+		}
+		if !found && name == "COEFFS" {
+			return nil, errors.New("column COEFFS is missing")
+		}
+		if name == "NOLL" {
+			withNoll = found
+		}
+	}
+	if err := readTruthRows(tbl, t, frames, withNoll); err != nil {
+		return nil, err
+	}
+	if len(t.Coeffs) != frames {
+		return nil, fmt.Errorf("read %d rows, want %d", len(t.Coeffs), frames)
+	}
+	return t, nil
+}
+
+// truthTable decodes the HDU s, which must be a binary table.
+func (ff *fitsFile) truthTable(s hduSpan) (*fitsio.Table, error) {
 	if strings.TrimSpace(s.xtension) != "BINTABLE" {
 		return nil, fmt.Errorf("is a %s, want a BINTABLE", s.xtension)
 	}
@@ -753,8 +797,13 @@ func (ff *fitsFile) readTruth(s hduSpan, frames int) (t *Truth, err error) {
 	if !ok {
 		return nil, errors.New("is not a binary table")
 	}
-	h := tbl.Header()
-	t = &Truth{}
+	return tbl, nil
+}
+
+// truthKeys returns a Truth holding the BASIS (non-blank string) and
+// NMODES (integer >= 1) keywords of the TRUTH header h.
+func truthKeys(h *fitsio.Header) (*Truth, error) {
+	t := &Truth{}
 	if c := h.Get("BASIS"); c != nil {
 		if v, ok := c.Value.(string); ok {
 			t.Basis = strings.TrimSpace(v)
@@ -768,73 +817,71 @@ func (ff *fitsFile) readTruth(s hduSpan, frames int) (t *Truth, err error) {
 		return nil, errors.New("header keyword NMODES (integer >= 1) is missing or invalid")
 	}
 	t.Modes = int(nm)
-	if int(tbl.NumRows()) != frames {
-		return nil, fmt.Errorf("%d rows for %d frames", tbl.NumRows(), frames)
+	return t, nil
+}
+
+// checkTruthColumn reports whether tbl has the column name and, if so,
+// checks that its TFORM is modes floating-point values (D or E) that fit in
+// a row of rowBytes bytes.
+func checkTruthColumn(tbl *fitsio.Table, name string, modes, rowBytes int) (bool, error) {
+	i := tbl.Index(name)
+	if i < 0 {
+		return false, nil
 	}
-	ax := h.Axes()
-	if len(ax) != 2 || ax[0] < 1 {
-		return nil, errors.New("bad table axes")
+	r, code, err := tformRepeat(tbl.Col(i).Format)
+	if err != nil {
+		return false, fmt.Errorf("column %s: %w", name, err)
 	}
-	rowBytes := ax[0]
-	var idx []int
-	for _, name := range []string{"COEFFS", "NOLL"} {
-		i := tbl.Index(name)
-		if i < 0 {
-			if name == "COEFFS" {
-				return nil, errors.New("column COEFFS is missing")
-			}
-			idx = append(idx, -1)
-			continue
-		}
-		r, code, err := tformRepeat(tbl.Col(i).Format)
-		if err != nil {
-			return nil, fmt.Errorf("column %s: %w", name, err)
-		}
-		if code != 'D' && code != 'E' {
-			return nil, fmt.Errorf("column %s has TFORM %q, want floating point (D or E)", name, tbl.Col(i).Format)
-		}
-		width := 8
-		if code == 'E' {
-			width = 4
-		}
-		if r != t.Modes {
-			return nil, fmt.Errorf("column %s has %d values per row, NMODES = %d", name, r, t.Modes)
-		}
-		if r > rowBytes/width {
-			return nil, fmt.Errorf("column %s (%d values) does not fit in a %d-byte row", name, r, rowBytes)
-		}
-		idx = append(idx, i)
+	if code != 'D' && code != 'E' {
+		return false, fmt.Errorf("column %s has TFORM %q, want floating point (D or E)", name, tbl.Col(i).Format)
 	}
+	width := 8
+	if code == 'E' {
+		width = 4
+	}
+	if r != modes {
+		return false, fmt.Errorf("column %s has %d values per row, NMODES = %d", name, r, modes)
+	}
+	if r > rowBytes/width {
+		return false, fmt.Errorf("column %s (%d values) does not fit in a %d-byte row", name, r, rowBytes)
+	}
+	return true, nil
+}
+
+// readTruthRows appends every row of COEFFS (and, if withNoll, of NOLL) in
+// tbl to t.Coeffs (t.Noll), t.Modes values each. A panic of the table
+// reader on malformed data is returned as an error.
+func readTruthRows(tbl *fitsio.Table, t *Truth, frames int, withNoll bool) (err error) {
 	defer func() {
 		if r := recover(); r != nil {
-			t, err = nil, fmt.Errorf("malformed table: %v", r)
+			err = fmt.Errorf("malformed table: %v", r)
 		}
 	}()
 	rows, err := tbl.Read(0, tbl.NumRows())
 	if err != nil {
-		return nil, err
+		return err
 	}
 	defer rows.Close()
 	t.Coeffs = make([][]float64, 0, frames)
-	if idx[1] >= 0 {
+	if withNoll {
 		t.Noll = make([][]float64, 0, frames)
 	}
 	for rows.Next() {
 		m := map[string]any{"COEFFS": nil}
-		if idx[1] >= 0 {
+		if withNoll {
 			m["NOLL"] = nil
 		}
 		if err := rows.Scan(&m); err != nil {
-			return nil, err
+			return err
 		}
 		for _, name := range []string{"COEFFS", "NOLL"} {
 			v, ok := m[name]
-			if !ok || (name == "NOLL" && idx[1] < 0) {
+			if !ok || (name == "NOLL" && !withNoll) {
 				continue
 			}
 			row, err := floats(v, t.Modes)
 			if err != nil {
-				return nil, fmt.Errorf("column %s: %w", name, err)
+				return fmt.Errorf("column %s: %w", name, err)
 			}
 			if name == "COEFFS" {
 				t.Coeffs = append(t.Coeffs, row)
@@ -843,10 +890,7 @@ func (ff *fitsFile) readTruth(s hduSpan, frames int) (t *Truth, err error) {
 			}
 		}
 	}
-	if len(t.Coeffs) != frames {
-		return nil, fmt.Errorf("read %d rows, want %d", len(t.Coeffs), frames)
-	}
-	return t, nil
+	return nil
 }
 
 // floats converts a scanned table cell (array or scalar of a float kind)

@@ -376,65 +376,93 @@ func encodeTable(t *Table) (dataUnit, error) {
 	if len(t.Columns) == 0 {
 		return dataUnit{}, fmt.Errorf("table %q has no columns", t.Name)
 	}
-	rows := -1
-	forms := make([]string, len(t.Columns))
-	widths := make([]int, len(t.Columns))
-	rowBytes := 0
+	forms, widths, rows, rowBytes, err := tableLayout(t)
+	if err != nil {
+		return dataUnit{}, err
+	}
+	hdr, err := tableHeader(t, forms, rows, rowBytes)
+	if err != nil {
+		return dataUnit{}, err
+	}
+	return dataUnit{hdr: hdr, size: rows * rowBytes, put: tableRows(t.Columns, widths, rows)}, nil
+}
+
+// tableLayout checks the columns of t and returns each column's TFORM and
+// width in bytes, the common number of rows and the bytes per row.
+func tableLayout(t *Table) (forms []string, widths []int, rows, rowBytes int, err error) {
+	rows = -1
+	forms = make([]string, len(t.Columns))
+	widths = make([]int, len(t.Columns))
 	for i, c := range t.Columns {
-		set := 0
-		var r int
-		if c.Float != nil {
-			set++
-			r = len(c.Float)
-			rep := 0
-			if r > 0 {
-				rep = len(c.Float[0])
-			}
-			for k, row := range c.Float {
-				if len(row) != rep {
-					return dataUnit{}, fmt.Errorf("table %q column %q: row %d has %d values, row 0 has %d", t.Name, c.Name, k, len(row), rep)
-				}
-			}
-			if rep < 1 && r > 0 {
-				return dataUnit{}, fmt.Errorf("table %q column %q: empty rows", t.Name, c.Name)
-			}
-			rep = max(rep, 1)
-			forms[i] = strconv.Itoa(rep) + "D"
-			widths[i] = 8 * rep
+		form, width, r, err := columnForm(t.Name, c)
+		if err != nil {
+			return nil, nil, 0, 0, err
 		}
-		if c.Int != nil {
-			set++
-			r = len(c.Int)
-			forms[i] = "1K"
-			widths[i] = 8
-		}
-		if c.Text != nil {
-			set++
-			r = len(c.Text)
-			w := 1
-			for _, s := range c.Text {
-				for k := 0; k < len(s); k++ {
-					if s[k] < 32 || s[k] > 126 {
-						return dataUnit{}, fmt.Errorf("table %q column %q: text %q has characters outside printable ASCII", t.Name, c.Name, s)
-					}
-				}
-				w = max(w, len(s))
-			}
-			forms[i] = strconv.Itoa(w) + "A"
-			widths[i] = w
-		}
-		if set != 1 {
-			return dataUnit{}, fmt.Errorf("table %q column %q: exactly one of Float, Int, Text must be set", t.Name, c.Name)
-		}
+		forms[i], widths[i] = form, width
 		if rows >= 0 && r != rows {
-			return dataUnit{}, fmt.Errorf("table %q column %q: %d rows, earlier columns have %d", t.Name, c.Name, r, rows)
+			return nil, nil, 0, 0, fmt.Errorf("table %q column %q: %d rows, earlier columns have %d", t.Name, c.Name, r, rows)
 		}
 		rows = r
 		rowBytes += widths[i]
 	}
+	return forms, widths, rows, rowBytes, nil
+}
+
+// columnForm checks one column of the table named table and returns its
+// TFORM ("rD", "1K" or "wA"), its width in bytes and its number of rows.
+// Exactly one of Float, Int, Text must be set.
+func columnForm(table string, c Column) (form string, width, rows int, err error) {
+	set := 0
+	if c.Float != nil {
+		set++
+		rows = len(c.Float)
+		rep := 0
+		if rows > 0 {
+			rep = len(c.Float[0])
+		}
+		for k, row := range c.Float {
+			if len(row) != rep {
+				return "", 0, 0, fmt.Errorf("table %q column %q: row %d has %d values, row 0 has %d", table, c.Name, k, len(row), rep)
+			}
+		}
+		if rep < 1 && rows > 0 {
+			return "", 0, 0, fmt.Errorf("table %q column %q: empty rows", table, c.Name)
+		}
+		rep = max(rep, 1)
+		form, width = strconv.Itoa(rep)+"D", 8*rep
+	}
+	if c.Int != nil {
+		set++
+		rows = len(c.Int)
+		form, width = "1K", 8
+	}
+	if c.Text != nil {
+		set++
+		rows = len(c.Text)
+		w := 1
+		for _, s := range c.Text {
+			for k := 0; k < len(s); k++ {
+				if s[k] < 32 || s[k] > 126 {
+					return "", 0, 0, fmt.Errorf("table %q column %q: text %q has characters outside printable ASCII", table, c.Name, s)
+				}
+			}
+			w = max(w, len(s))
+		}
+		form, width = strconv.Itoa(w)+"A", w
+	}
+	if set != 1 {
+		return "", 0, 0, fmt.Errorf("table %q column %q: exactly one of Float, Int, Text must be set", table, c.Name)
+	}
+	return form, width, rows, nil
+}
+
+// tableHeader returns the header of the binary table t: the structural
+// keywords for rows rows of rowBytes bytes, TTYPEn/TFORMn/TUNITn per column
+// (forms from tableLayout), EXTNAME, then t.Cards.
+func tableHeader(t *Table, forms []string, rows, rowBytes int) ([]byte, error) {
 	h := newHeader()
 	if err := h.add(Card{Key: "XTENSION", Value: "BINTABLE", Comment: "binary table extension"}); err != nil {
-		return dataUnit{}, err
+		return nil, err
 	}
 	must(h.add(Card{Key: "BITPIX", Value: 8}))
 	must(h.add(Card{Key: "NAXIS", Value: 2}))
@@ -446,23 +474,29 @@ func encodeTable(t *Table) (dataUnit, error) {
 	for i, c := range t.Columns {
 		n := strconv.Itoa(i + 1)
 		if err := h.add(Card{Key: "TTYPE" + n, Value: c.Name}); err != nil {
-			return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+			return nil, fmt.Errorf("table %q: %w", t.Name, err)
 		}
 		must(h.add(Card{Key: "TFORM" + n, Value: forms[i]}))
 		if c.Unit != "" {
 			if err := h.add(Card{Key: "TUNIT" + n, Value: c.Unit}); err != nil {
-				return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+				return nil, fmt.Errorf("table %q: %w", t.Name, err)
 			}
 		}
 	}
 	if err := h.add(Card{Key: "EXTNAME", Value: t.Name, Comment: "extension name"}); err != nil {
-		return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+		return nil, fmt.Errorf("table %q: %w", t.Name, err)
 	}
 	if err := h.addUser(t.Cards); err != nil {
-		return dataUnit{}, fmt.Errorf("table %q: %w", t.Name, err)
+		return nil, fmt.Errorf("table %q: %w", t.Name, err)
 	}
-	cols := t.Columns
-	return dataUnit{hdr: h.bytes(), size: rows * rowBytes, put: func(w *bufio.Writer) error {
+	return h.bytes(), nil
+}
+
+// tableRows returns the writer of the table data: rows rows of the columns
+// cols, big-endian, Float as IEEE float64, Int as 64-bit two's complement,
+// Text blank-padded to widths[i] bytes. It keeps cols (no copy).
+func tableRows(cols []Column, widths []int, rows int) func(w *bufio.Writer) error {
+	return func(w *bufio.Writer) error {
 		var b [8]byte
 		for r := 0; r < rows; r++ {
 			for i, c := range cols {
@@ -485,7 +519,7 @@ func encodeTable(t *Table) (dataUnit, error) {
 			}
 		}
 		return nil
-	}}, nil
+	}
 }
 
 // writeAtomic writes the units to path with WriteAtomic: path is either the

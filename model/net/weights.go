@@ -169,29 +169,9 @@ func Read(r io.Reader) (*Model, error) {
 // panics) for a file that is truncated, not a pdwave weight file, of an
 // unknown layout version, or whose tensors do not match its architecture.
 func Decode(data []byte) (*Model, error) {
-	if len(data) < 8 {
-		return nil, fmt.Errorf("weight file too short (%d bytes)", len(data))
-	}
-	hl := binary.LittleEndian.Uint64(data)
-	if hl > maxHeader || hl > uint64(len(data)-8) {
-		return nil, fmt.Errorf("weight file header length %d does not fit the file (%d bytes)", hl, len(data))
-	}
-	var raw map[string]json.RawMessage
-	if err := json.Unmarshal(data[8:8+hl], &raw); err != nil {
-		return nil, fmt.Errorf("weight file header: %w", err)
-	}
-	body := data[8+hl:]
-	var meta map[string]string
-	if mr, ok := raw["__metadata__"]; !ok {
-		return nil, fmt.Errorf("weight file has no __metadata__; not a pdwave weight file")
-	} else if err := json.Unmarshal(mr, &meta); err != nil {
-		return nil, fmt.Errorf("weight file metadata: %w", err)
-	}
-	if meta["format"] != WeightsFormat {
-		return nil, fmt.Errorf("weight file format is %q, want %q", meta["format"], WeightsFormat)
-	}
-	if meta["format_version"] != WeightsVersion {
-		return nil, fmt.Errorf("weight file layout version %q, this program reads %q", meta["format_version"], WeightsVersion)
+	raw, body, meta, err := decodeHeader(data)
+	if err != nil {
+		return nil, err
 	}
 	m := &Model{}
 	if err := json.Unmarshal([]byte(meta["arch"]), &m.Arch); err != nil {
@@ -200,6 +180,56 @@ func Decode(data []byte) (*Model, error) {
 	if err := m.Arch.Validate(); err != nil {
 		return nil, err
 	}
+	if m.Meta, err = decodeMeta(meta); err != nil {
+		return nil, err
+	}
+	if m.Scale, err = readTensor(raw, body, "out.scale", []int{m.Arch.Modes}); err != nil {
+		return nil, err
+	}
+	m.Params = makeParams(m.Arch)
+	for _, p := range m.Params {
+		if p.Data, err = readTensor(raw, body, p.Name, p.Shape); err != nil {
+			return nil, err
+		}
+	}
+	if m.Meta.Modes != m.Arch.Modes {
+		return nil, fmt.Errorf("weight file records %d modes but the network has %d outputs", m.Meta.Modes, m.Arch.Modes)
+	}
+	return m, nil
+}
+
+// decodeHeader splits a weight file into its JSON header entries (raw,
+// by tensor name), the tensor data that follows (body, aliasing data) and
+// the string metadata, which must name WeightsFormat and WeightsVersion.
+func decodeHeader(data []byte) (raw map[string]json.RawMessage, body []byte, meta map[string]string, err error) {
+	if len(data) < 8 {
+		return nil, nil, nil, fmt.Errorf("weight file too short (%d bytes)", len(data))
+	}
+	hl := binary.LittleEndian.Uint64(data)
+	if hl > maxHeader || hl > uint64(len(data)-8) {
+		return nil, nil, nil, fmt.Errorf("weight file header length %d does not fit the file (%d bytes)", hl, len(data))
+	}
+	if err := json.Unmarshal(data[8:8+hl], &raw); err != nil {
+		return nil, nil, nil, fmt.Errorf("weight file header: %w", err)
+	}
+	body = data[8+hl:]
+	if mr, ok := raw["__metadata__"]; !ok {
+		return nil, nil, nil, fmt.Errorf("weight file has no __metadata__; not a pdwave weight file")
+	} else if err := json.Unmarshal(mr, &meta); err != nil {
+		return nil, nil, nil, fmt.Errorf("weight file metadata: %w", err)
+	}
+	if meta["format"] != WeightsFormat {
+		return nil, nil, nil, fmt.Errorf("weight file format is %q, want %q", meta["format"], WeightsFormat)
+	}
+	if meta["format_version"] != WeightsVersion {
+		return nil, nil, nil, fmt.Errorf("weight file layout version %q, this program reads %q", meta["format_version"], WeightsVersion)
+	}
+	return raw, body, meta, nil
+}
+
+// decodeMeta parses the Meta fields from the weight file metadata strings
+// (lengths in m, angles in rad); the first unparsable number is the error.
+func decodeMeta(meta map[string]string) (Meta, error) {
 	var err error
 	num := func(key string) float64 {
 		if err != nil {
@@ -221,65 +251,57 @@ func Decode(data []byte) (*Model, error) {
 		}
 		return v
 	}
-	m.Meta = Meta{
+	md := Meta{
 		Site: meta["site"], Basis: meta["basis"], Version: meta["version"],
 		Modes: integer("modes"), Patch: integer("patch"), Frames: integer("frames"),
 		Diameter: num("diameter_m"), Obscuration: num("obscuration"), Wavelength: num("wavelength_m"),
 		PixelScale: num("pixel_scale_rad"), DiversityPV: num("diversity_pv_waves"),
 	}
 	if err != nil {
-		return nil, err
+		return Meta{}, err
 	}
 	if s := meta["training"]; s != "" {
-		if err := json.Unmarshal([]byte(s), &m.Meta.Training); err != nil {
-			return nil, fmt.Errorf("weight file training settings: %w", err)
+		if err := json.Unmarshal([]byte(s), &md.Training); err != nil {
+			return Meta{}, fmt.Errorf("weight file training settings: %w", err)
 		}
 	}
-	read := func(name string, shape []int) ([]float64, error) {
-		er, ok := raw[name]
-		if !ok {
-			return nil, fmt.Errorf("weight file lacks tensor %s", name)
-		}
-		var e tensorEntry
-		if err := json.Unmarshal(er, &e); err != nil {
-			return nil, fmt.Errorf("weight file tensor %s: %w", name, err)
-		}
-		if e.Dtype != "F64" {
-			return nil, fmt.Errorf("weight file tensor %s has dtype %s, want F64", name, e.Dtype)
-		}
-		if !sameShape(e.Shape, shape) {
-			return nil, fmt.Errorf("weight file tensor %s has shape %v, architecture needs %v", name, e.Shape, shape)
-		}
-		n := 1
-		for _, s := range shape {
-			n *= s
-		}
-		b, end := e.Offsets[0], e.Offsets[1]
-		if b < 0 || end != b+8*n || end > len(body) {
-			return nil, fmt.Errorf("weight file tensor %s has data offsets %v, want %d values inside %d bytes", name, e.Offsets, n, len(body))
-		}
-		v := make([]float64, n)
-		for i := range v {
-			v[i] = math.Float64frombits(binary.LittleEndian.Uint64(body[b+8*i:]))
-			if math.IsNaN(v[i]) || math.IsInf(v[i], 0) {
-				return nil, fmt.Errorf("weight file tensor %s holds a non-finite value", name)
-			}
-		}
-		return v, nil
+	return md, nil
+}
+
+// readTensor returns a fresh copy of the tensor name from body, checking
+// its header entry in raw: dtype F64, the given shape, offsets inside body
+// and finite values.
+func readTensor(raw map[string]json.RawMessage, body []byte, name string, shape []int) ([]float64, error) {
+	er, ok := raw[name]
+	if !ok {
+		return nil, fmt.Errorf("weight file lacks tensor %s", name)
 	}
-	if m.Scale, err = read("out.scale", []int{m.Arch.Modes}); err != nil {
-		return nil, err
+	var e tensorEntry
+	if err := json.Unmarshal(er, &e); err != nil {
+		return nil, fmt.Errorf("weight file tensor %s: %w", name, err)
 	}
-	m.Params = makeParams(m.Arch)
-	for _, p := range m.Params {
-		if p.Data, err = read(p.Name, p.Shape); err != nil {
-			return nil, err
+	if e.Dtype != "F64" {
+		return nil, fmt.Errorf("weight file tensor %s has dtype %s, want F64", name, e.Dtype)
+	}
+	if !sameShape(e.Shape, shape) {
+		return nil, fmt.Errorf("weight file tensor %s has shape %v, architecture needs %v", name, e.Shape, shape)
+	}
+	n := 1
+	for _, s := range shape {
+		n *= s
+	}
+	b, end := e.Offsets[0], e.Offsets[1]
+	if b < 0 || end != b+8*n || end > len(body) {
+		return nil, fmt.Errorf("weight file tensor %s has data offsets %v, want %d values inside %d bytes", name, e.Offsets, n, len(body))
+	}
+	v := make([]float64, n)
+	for i := range v {
+		v[i] = math.Float64frombits(binary.LittleEndian.Uint64(body[b+8*i:]))
+		if math.IsNaN(v[i]) || math.IsInf(v[i], 0) {
+			return nil, fmt.Errorf("weight file tensor %s holds a non-finite value", name)
 		}
 	}
-	if m.Meta.Modes != m.Arch.Modes {
-		return nil, fmt.Errorf("weight file records %d modes but the network has %d outputs", m.Meta.Modes, m.Arch.Modes)
-	}
-	return m, nil
+	return v, nil
 }
 
 // Compatible reports whether weights made for m can be applied to data taken
