@@ -4,8 +4,10 @@ import (
 	"bytes"
 	"fmt"
 	"io"
+	"maps"
 	"math"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"time"
 )
@@ -174,6 +176,16 @@ func (t *Trainer) recordSettings(v Validation, seconds float64) {
 		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
 			m.Training["val_err_noll_2_21"] = f(e)
 		}
+		for _, g := range slices.Sorted(maps.Keys(v.ByScene)) {
+			e := v.ByScene[g]
+			m.Training["val_bursts_"+g] = strconv.Itoa(e.Bursts)
+			if x := e.ErrFrac(2, 10); !math.IsNaN(x) {
+				m.Training["val_err_noll_2_10_"+g] = f(x)
+			}
+			if x := e.ErrFrac(2, 21); !math.IsNaN(x) {
+				m.Training["val_err_noll_2_21_"+g] = f(x)
+			}
+		}
 		if v.FitBursts > 0 {
 			m.Training["val_fit_bursts"] = strconv.Itoa(v.FitBursts)
 			m.Training["val_fit_ratio_median"] = f(v.FitRatioMedian)
@@ -195,12 +207,31 @@ func (v Validation) Summary() string {
 		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
 			s += fmt.Sprintf(", 2–21 %.3f", e)
 		}
+		s += v.sceneSummary()
 	} else {
 		s += ")"
 	}
 	if v.FitBursts > 0 {
 		s += fmt.Sprintf("; against the classical fit (%d bursts): objective ×%.2f (median), %.0f %% within ×%.1f",
 			v.FitBursts, v.FitRatioMedian, 100*v.FitWithin, RefereeTolerance)
+	}
+	return s
+}
+
+// sceneSummary is the per-scene-group part of Summary: "; granulation
+// (16 bursts) 2–10 0.172, 2–21 0.240; real (16 bursts) ...", or "" when
+// there are fewer than two groups.
+func (v Validation) sceneSummary() string {
+	if len(v.ByScene) < 2 {
+		return ""
+	}
+	var s string
+	for _, g := range slices.Sorted(maps.Keys(v.ByScene)) {
+		e := v.ByScene[g]
+		s += fmt.Sprintf("; %s (%d bursts) 2–10 %.3f", g, e.Bursts, e.ErrFrac(2, 10))
+		if x := e.ErrFrac(2, 21); !math.IsNaN(x) {
+			s += fmt.Sprintf(", 2–21 %.3f", x)
+		}
 	}
 	return s
 }
