@@ -258,7 +258,11 @@ func (v Validation) sceneSummary() string {
 	var s string
 	for _, g := range slices.Sorted(maps.Keys(v.ByScene)) {
 		e := v.ByScene[g]
-		s += fmt.Sprintf("; %s (%d bursts) 2–10 %.3f", g, e.Bursts, e.ErrFrac(2, 10))
+		unit := "bursts"
+		if e.Bursts == 1 {
+			unit = "burst"
+		}
+		s += fmt.Sprintf("; %s (%d %s) 2–10 %.3f", g, e.Bursts, unit, e.ErrFrac(2, 10))
 		if x := e.ErrFrac(2, 21); !math.IsNaN(x) {
 			s += fmt.Sprintf(", 2–21 %.3f", x)
 		}
