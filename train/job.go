@@ -16,27 +16,45 @@ import (
 
 // Job is one training run as the command line describes it.
 type Job struct {
-	Site       string        // site file (optics, seeing, sizes); required
-	Out        string        // run directory; required
-	Data       string        // folder of burst FITS files to train on; "" = simulate from the site
-	Resume     bool          // continue the run checkpointed in Out
-	Steps      int           // optimiser steps; 0 uses 2000
-	Batch      int           // bursts per step; 0 uses 4
-	Seed       uint64        // weights and data order
-	WarmStart  int           // supervised steps on simulated truth first
-	Modes      int           // 0 = the site's
-	Basis      string        // "" = the site's
-	Workers    int           // 0 = all cores
-	LR         float64       // 0 uses 3e-3
-	Prior      float64       // prior weight; 0 uses 0.01
-	Gamma      float64       // noise-filter regulariser of the metric; 0 uses 1e-6 (the fitter uses 1e-3)
-	Init       string        // weights file to start from (fine-tuning); "" = fresh weights from Seed
-	Conv       []int         // channels of the convolutions; nil = net.DefaultArch's (ignored with Init)
-	Hidden     int           // per-frame feature count; 0 = net.DefaultArch's
-	Head       int           // head width; 0 = net.DefaultArch's
-	Reuse      int           // uses of each simulated burst under flips/rotations (1–8); 0 uses 4
-	Validation int           // validation bursts (simulated at the median r0, with truth); 0 uses 32, < 0 none
-	MaxWall    time.Duration // stop after this much wall time (checkpointed; resume later); 0 = none
+	Site       string  // site file (optics, seeing, sizes); required
+	Out        string  // run directory; required
+	Data       string  // folder of burst FITS files to train on; "" = simulate from the site
+	Resume     bool    // continue the run checkpointed in Out
+	Steps      int     // optimiser steps; 0 uses 2000
+	Batch      int     // bursts per step; 0 uses 4
+	Seed       uint64  // weights and data order
+	WarmStart  int     // supervised steps on simulated truth first
+	Modes      int     // 0 = the site's
+	Basis      string  // "" = the site's
+	Workers    int     // 0 = all cores
+	LR         float64 // 0 uses 3e-3
+	Prior      float64 // prior weight; 0 uses 0.01
+	Gamma      float64 // noise-filter regulariser of the metric; 0 uses 1e-6 (the fitter uses 1e-3)
+	Init       string  // weights file to start from (fine-tuning); "" = fresh weights from Seed
+	Conv       []int   // channels of the convolutions; nil = net.DefaultArch's (ignored with Init)
+	Hidden     int     // per-frame feature count; 0 = net.DefaultArch's
+	Head       int     // head width; 0 = net.DefaultArch's
+	Reuse      int     // uses of each simulated burst under flips/rotations (1–8); 0 uses 4
+	Validation int     // validation bursts (simulated at the median r0, the camera's photons and the default contrast, over Scenes, with truth); 0 uses 32, < 0 none
+	// Scenes chooses the objects of simulated bursts (training and
+	// validation): ScenesMix (the default, ""), ScenesGranulation or
+	// ScenesReal. Real and mixed scenes read the FITS images of SceneDir
+	// ("" = simulate.FindSceneDir(): $PDWAVE_SCENES or testdata/scenes).
+	Scenes   string
+	SceneDir string
+	// R0Margin widens the r0 distribution of training bursts: ln r0 is
+	// drawn with R0Margin × the site's spread; 0 uses DefaultR0Margin
+	// (1.25), 1 draws from the site's distribution.
+	R0Margin float64
+	// Photons is the range of the training bursts' photon level as factors
+	// on the camera's, drawn log-uniformly; zero uses DefaultPhotons
+	// (×0.5–×2), {1, 1} the camera's level.
+	Photons [2]float64
+	// Contrast is the range of the training scenes' diffraction-limited rms
+	// contrast, drawn uniformly; zero uses DefaultContrast (0.08–0.16),
+	// {0.12, 0.12} the simulator's default.
+	Contrast [2]float64
+	MaxWall  time.Duration // stop after this much wall time (checkpointed; resume later); 0 = none
 	// Referee, if set, builds the classical fit that validation scores the
 	// network against on the first RefereeBursts validation bursts (0 uses
 	// 8; < 0 none).
@@ -45,6 +63,9 @@ type Job struct {
 	Progress      io.Writer // progress lines; nil = none
 	Command       string    // command line, recorded in the weights
 	Version       string    // program version, recorded in the weights
+
+	data  SimData        // the variety of simulated bursts in use (from the settings above, or the checkpoint's)
+	scene simulate.Scene // the scene source of data (nil = granulation)
 }
 
 // Run executes the job and returns the last validation.
@@ -92,7 +113,7 @@ func (j Job) Run() (Validation, error) {
 		defer t.Close()
 	}
 	m := t.Model()
-	data := j.recordTraining(m)
+	data := j.recordTraining(m, st)
 	if err := j.validationSet(&opts, sim, setup); err != nil {
 		return Validation{}, err
 	}
@@ -100,16 +121,26 @@ func (j Job) Run() (Validation, error) {
 		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
 			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
 	}
-	if err := os.MkdirAll(j.Out, 0o755); err != nil {
-		return Validation{}, fmt.Errorf("train: output folder: %w", err)
+	if err := j.makeOut(opts.Validation); err != nil {
+		return Validation{}, err
 	}
 	return t.Run(opts)
 }
 
+// makeOut creates the run directory and lists the validation bursts in it
+// (ValidationFile).
+func (j Job) makeOut(val []*Sample) error {
+	if err := os.MkdirAll(j.Out, 0o755); err != nil {
+		return fmt.Errorf("train: output folder: %w", err)
+	}
+	return writeValidationList(filepath.Join(j.Out, ValidationFile), val)
+}
+
 // setDefaults fills the zero settings with their defaults (2000 steps,
-// batch 4, learning rate 3e-3, reuse 4, 32 validation bursts) and rejects
-// a missing site or output folder, a reuse outside 1–8 and a negative or
-// non-finite gamma.
+// batch 4, learning rate 3e-3, reuse 4, 32 validation bursts, mixed
+// scenes, r0 margin 1.25, photons ×0.5–×2, contrast 0.08–0.16) and
+// rejects a missing site or output folder, a reuse outside 1–8, a negative
+// or non-finite gamma and an unknown scene choice or bad range.
 func (j *Job) setDefaults() error {
 	if j.Site == "" || j.Out == "" {
 		return fmt.Errorf("train: a site file and an output folder are required")
@@ -134,6 +165,36 @@ func (j *Job) setDefaults() error {
 	}
 	if j.Validation == 0 {
 		j.Validation = 32
+	}
+	j.data = SimData{Scenes: j.Scenes, R0Margin: j.R0Margin, Photons: j.Photons, Contrast: j.Contrast}
+	if j.data.Scenes == "" {
+		j.data.Scenes = ScenesMix
+	}
+	if j.data.R0Margin == 0 {
+		j.data.R0Margin = DefaultR0Margin
+	}
+	if j.data.Photons == [2]float64{} {
+		j.data.Photons = DefaultPhotons
+	}
+	if j.data.Contrast == [2]float64{} {
+		j.data.Contrast = DefaultContrast
+	}
+	return j.data.validate()
+}
+
+// loadScene builds the scene source of j.data, recording the identities of
+// the real images read (a resumed run checks them against its record).
+func (j *Job) loadScene() error {
+	if j.Data != "" && j.Validation <= 0 {
+		return nil // nothing is simulated
+	}
+	sc, ids, err := j.data.scene(j.SceneDir)
+	if err != nil {
+		return err
+	}
+	j.scene = sc
+	if j.data.Images == nil {
+		j.data.Images = ids
 	}
 	return nil
 }
@@ -170,12 +231,12 @@ func (j Job) problem() (*site.Site, Setup, simulate.Config, *net.Model, error) {
 }
 
 // adoptCheckpoint takes over the resumed run's batch, seed, warm start,
-// reuse and set-up, and rebuilds the simulator if the checkpoint's modes
+// reuse, variety of simulated data (SimData) and set-up, and rebuilds the simulator if the checkpoint's modes
 // or basis differ from the site's. It returns the set-up and simulator to
 // use.
 func (j *Job) adoptCheckpoint(res *Resumed, simCfg simulate.Config, sim *simulate.Simulator) (Setup, *simulate.Simulator, error) {
 	c := res.Config()
-	j.Batch, j.Seed, j.WarmStart = c.Batch, c.Seed, c.WarmStart
+	j.Batch, j.Seed, j.WarmStart, j.data = c.Batch, c.Seed, c.WarmStart, c.Data
 	if c.Reuse > 0 {
 		j.Reuse = c.Reuse
 	}
@@ -195,7 +256,7 @@ func (j *Job) adoptCheckpoint(res *Resumed, simCfg simulate.Config, sim *simulat
 // net.DefaultArch (validated) when any is set.
 func (j Job) newTrainer(setup Setup, init *net.Model, src Source) (*Trainer, error) {
 	cfg := Config{Steps: j.Steps, Batch: j.Batch, LR: j.LR, PriorWeight: j.Prior, WarmStart: j.WarmStart,
-		Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse, Gamma: j.Gamma}
+		Seed: j.Seed, Workers: j.Workers, ClipNorm: 100, Reuse: j.Reuse, Gamma: j.Gamma, Data: j.data}
 	cfg.Init = init
 	if j.Conv != nil || j.Hidden != 0 || j.Head != 0 {
 		a := net.DefaultArch(setup.Modes)
@@ -217,9 +278,10 @@ func (j Job) newTrainer(setup Setup, init *net.Model, src Source) (*Trainer, err
 }
 
 // recordTraining writes the program version and the training provenance
-// (command, data, reuse, starting weights) into the model's metadata and
-// returns the description of the data.
-func (j Job) recordTraining(m *net.Model) string {
+// (command, data, reuse, starting weights; for simulated data the scenes,
+// r0 distribution, photon level and contrast drawn; the validation set)
+// into the model's metadata and returns the description of the data.
+func (j Job) recordTraining(m *net.Model, st *site.Site) string {
 	m.Meta.Version = j.Version
 	if m.Meta.Training == nil {
 		m.Meta.Training = map[string]string{}
@@ -236,10 +298,21 @@ func (j Job) recordTraining(m *net.Model) string {
 	if j.Init != "" {
 		m.Meta.Training["init"] = filepath.Base(j.Init)
 	}
+	desc := j.data.describe(st, st.Camera.PhotonsPerPixel)
+	if j.Data == "" {
+		for _, k := range []string{"scenes", "r0_draw", "photons", "contrast"} {
+			m.Meta.Training[k] = desc[k]
+		}
+	}
+	if j.Validation > 0 {
+		m.Meta.Training["validation"] = fmt.Sprintf("%d bursts at the median r0 (%.4g m), the camera's %g e-/px, contrast 0.12; scenes %s (listed in %s)",
+			j.Validation, st.R0Median(), st.Camera.PhotonsPerPixel, desc["scenes"], ValidationFile)
+	}
 	return data
 }
 
 // validationSet simulates the job's validation bursts (at the median r0,
+// the camera's photons and the default contrast, over the job's scenes,
 // from a seed derived from the job's) into opts and sets up the referee
 // fit, if any. It does nothing when Validation < 0.
 func (j Job) validationSet(opts *RunOptions, sim *simulate.Simulator, setup Setup) error {
@@ -250,8 +323,13 @@ func (j Job) validationSet(opts *RunOptions, sim *simulate.Simulator, setup Setu
 	if err != nil {
 		return err
 	}
+	vsrc.Scene = j.scene
 	if j.Progress != nil {
-		fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m\n", j.Validation, setup.R0)
+		sc := j.data.Scenes
+		if sc == "" {
+			sc = ScenesGranulation
+		}
+		fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m over %s scenes\n", j.Validation, setup.R0, sc)
 	}
 	if opts.Validation, err = FetchSet(vsrc, j.Validation); err != nil {
 		return err
@@ -265,15 +343,22 @@ func (j Job) validationSet(opts *RunOptions, sim *simulate.Simulator, setup Setu
 	return nil
 }
 
-// source builds the training data stream.
-func (j Job) source(sim *simulate.Simulator, st *site.Site, setup Setup) (Source, error) {
+// source loads the scene of j.data (loadScene; the validation set uses it
+// too) and builds the training data stream: the folder's bursts, or bursts
+// simulated with the variety of j.data (scene, r0 distribution, contrast
+// and photon ranges).
+func (j *Job) source(sim *simulate.Simulator, st *site.Site, setup Setup) (Source, error) {
+	if err := j.loadScene(); err != nil {
+		return nil, err
+	}
 	if j.Data != "" {
 		return NewFolderSource(j.Data, setup.Patch, setup.Frames, j.Seed)
 	}
-	raw, err := NewSimSource(sim, setup, j.Seed, st.DrawR0)
+	raw, err := NewSimSource(sim, setup, j.Seed, j.data.r0Draw(st))
 	if err != nil {
 		return nil, err
 	}
+	raw.Scene, raw.Contrast, raw.Photons = j.scene, j.data.Contrast, j.data.Photons
 	if j.Reuse == 1 {
 		return raw, nil
 	}

@@ -4,8 +4,10 @@ import (
 	"bytes"
 	"fmt"
 	"io"
+	"maps"
 	"math"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"time"
 )
@@ -39,56 +41,29 @@ type RunOptions struct {
 // curve (LossPlot) and the per-step record (HistoryFile). It returns the
 // last validation (zero if none).
 func (t *Trainer) Run(o RunOptions) (Validation, error) {
-	if o.CheckpointEvery <= 0 {
-		o.CheckpointEvery = 100
-	}
-	if o.ValidateEvery <= 0 {
-		o.ValidateEvery = 200
-	}
-	if o.ProgressEvery <= 0 {
-		o.ProgressEvery = 10 * time.Second
-	}
+	o.fill()
 	hist, vals := o.History, o.Vals
-	start := time.Now()
-	startStep := t.step
+	start, startStep := time.Now(), t.step
 	lastPrint := time.Time{}
-	var last Validation
+	var last Validation // the latest validation, carried over on resume
 	if len(vals) > 0 {
 		last = vals[len(vals)-1]
 	}
 	elapsed := func() float64 { return o.Seconds + time.Since(start).Seconds() }
-	var ref *refereeSet
-	if o.Referee != nil && o.Validation != nil {
-		if o.RefereeBursts <= 0 {
-			o.RefereeBursts = 8
-		}
-		if o.Progress != nil {
-			fmt.Fprintf(o.Progress, "fitting %d validation bursts classically, to score the network against\n", min(o.RefereeBursts, len(o.Validation)))
-		}
-		var err error
-		if ref, err = newRefereeSet(o.Referee, o.Validation, o.RefereeBursts); err != nil {
-			return last, err
-		}
+	ref, err := o.refereeSet()
+	if err != nil {
+		return last, err
 	}
 	validate := func() error {
 		if o.Validation == nil {
 			return nil
 		}
-		v, err := t.Validate(o.Validation)
-		if err != nil {
-			return err
+		v, err := t.validateRun(o, ref)
+		if err == nil {
+			vals = append(vals, v)
+			last = v
 		}
-		if ref != nil {
-			if err := ref.score(t, &v); err != nil {
-				return err
-			}
-		}
-		vals = append(vals, v)
-		last = v
-		if o.Progress != nil {
-			fmt.Fprintf(o.Progress, "validation at step %d: %s\n", t.step, v.Summary())
-		}
-		return nil
+		return err
 	}
 	if t.step == 0 && len(vals) == 0 {
 		if err := validate(); err != nil {
@@ -104,13 +79,7 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 		if o.Progress != nil && (time.Since(lastPrint) >= o.ProgressEvery || t.Done()) {
 			lastPrint = time.Now()
 			per := time.Since(start).Seconds() / float64(t.step-startStep)
-			eta := time.Duration(per*float64(t.cfg.Steps-t.step)) * time.Second
-			mode := "pd"
-			if st.Supervised {
-				mode = "supervised"
-			}
-			fmt.Fprintf(o.Progress, "step %d/%d  %s loss %.4f (mean of last 50: %.4f)  lr %.2e  |g| %.3g  %.2f s/step  ETA %s\n",
-				t.step, t.cfg.Steps, mode, st.Loss, recentLoss(hist, 50), st.LR, st.GradNorm, per, eta.Round(time.Second))
+			t.printProgress(o.Progress, st, hist, per)
 		}
 		if t.step%o.ValidateEvery == 0 || t.Done() {
 			if err := validate(); err != nil {
@@ -124,23 +93,86 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 			}
 		}
 		if stop {
-			if o.Progress != nil {
-				fmt.Fprintf(o.Progress, "stopping at step %d after %s of wall time (checkpoint saved; resume to continue)\n", t.step, o.MaxWall)
-			}
+			o.printf("stopping at step %d after %s of wall time (checkpoint saved; resume to continue)\n", t.step, o.MaxWall)
 			break
 		}
 	}
 	t.recordSettings(last, elapsed())
-	if err := t.model.Save(filepath.Join(o.Out, WeightsFile)); err != nil {
-		return last, err
+	return last, t.writeOutputs(o.Out, hist, vals)
+}
+
+// printf writes a progress line, if there is a progress writer.
+func (o RunOptions) printf(format string, a ...any) {
+	if o.Progress != nil {
+		fmt.Fprintf(o.Progress, format, a...)
 	}
-	if err := writeFileAtomic(filepath.Join(o.Out, HistoryFile), historyCSV(hist, vals)); err != nil {
-		return last, err
+}
+
+// fill sets the defaults of the zero fields (checkpoints every 100 steps,
+// validation every 200, progress every 10 s).
+func (o *RunOptions) fill() {
+	if o.CheckpointEvery <= 0 {
+		o.CheckpointEvery = 100
 	}
-	if err := PlotLoss(filepath.Join(o.Out, LossPlot), hist, vals); err != nil {
-		return last, err
+	if o.ValidateEvery <= 0 {
+		o.ValidateEvery = 200
 	}
-	return last, nil
+	if o.ProgressEvery <= 0 {
+		o.ProgressEvery = 10 * time.Second
+	}
+}
+
+// validateRun scores the current weights on o.Validation, against the
+// referee's fits when ref is not nil, and prints the result.
+func (t *Trainer) validateRun(o RunOptions, ref *refereeSet) (Validation, error) {
+	v, err := t.Validate(o.Validation)
+	if err != nil {
+		return v, err
+	}
+	if ref != nil {
+		if err := ref.score(t, &v); err != nil {
+			return v, err
+		}
+	}
+	o.printf("validation at step %d: %s\n", t.step, v.Summary())
+	return v, nil
+}
+
+// refereeSet fits the referee's share of the validation set (nil without
+// a referee or validation set; RefereeBursts 0 uses 8).
+func (o RunOptions) refereeSet() (*refereeSet, error) {
+	if o.Referee == nil || o.Validation == nil {
+		return nil, nil
+	}
+	if o.RefereeBursts <= 0 {
+		o.RefereeBursts = 8
+	}
+	o.printf("fitting %d validation bursts classically, to score the network against\n", min(o.RefereeBursts, len(o.Validation)))
+	return newRefereeSet(o.Referee, o.Validation, o.RefereeBursts)
+}
+
+// writeOutputs writes the weights, the per-step record and the loss curve
+// into the run directory dir.
+func (t *Trainer) writeOutputs(dir string, hist []StepStats, vals []Validation) error {
+	if err := t.model.Save(filepath.Join(dir, WeightsFile)); err != nil {
+		return err
+	}
+	if err := writeFileAtomic(filepath.Join(dir, HistoryFile), historyCSV(hist, vals)); err != nil {
+		return err
+	}
+	return PlotLoss(filepath.Join(dir, LossPlot), hist, vals)
+}
+
+// printProgress writes the progress line of the step just taken (st, the
+// record hist, per seconds per step) with the time left.
+func (t *Trainer) printProgress(w io.Writer, st StepStats, hist []StepStats, per float64) {
+	eta := time.Duration(per*float64(t.cfg.Steps-t.step)) * time.Second
+	mode := "pd"
+	if st.Supervised {
+		mode = "supervised"
+	}
+	fmt.Fprintf(w, "step %d/%d  %s loss %.4f (mean of last 50: %.4f)  lr %.2e  |g| %.3g  %.2f s/step  ETA %s\n",
+		t.step, t.cfg.Steps, mode, st.Loss, recentLoss(hist, 50), st.LR, st.GradNorm, per, eta.Round(time.Second))
 }
 
 // recordSettings puts the training settings and the last validation into the
@@ -174,6 +206,16 @@ func (t *Trainer) recordSettings(v Validation, seconds float64) {
 		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
 			m.Training["val_err_noll_2_21"] = f(e)
 		}
+		for _, g := range slices.Sorted(maps.Keys(v.ByScene)) {
+			e := v.ByScene[g]
+			m.Training["val_bursts_"+g] = strconv.Itoa(e.Bursts)
+			if x := e.ErrFrac(2, 10); !math.IsNaN(x) {
+				m.Training["val_err_noll_2_10_"+g] = f(x)
+			}
+			if x := e.ErrFrac(2, 21); !math.IsNaN(x) {
+				m.Training["val_err_noll_2_21_"+g] = f(x)
+			}
+		}
 		if v.FitBursts > 0 {
 			m.Training["val_fit_bursts"] = strconv.Itoa(v.FitBursts)
 			m.Training["val_fit_ratio_median"] = f(v.FitRatioMedian)
@@ -195,12 +237,35 @@ func (v Validation) Summary() string {
 		if e := v.ErrFrac(2, 21); !math.IsNaN(e) {
 			s += fmt.Sprintf(", 2–21 %.3f", e)
 		}
+		s += v.sceneSummary()
 	} else {
 		s += ")"
 	}
 	if v.FitBursts > 0 {
 		s += fmt.Sprintf("; against the classical fit (%d bursts): objective ×%.2f (median), %.0f %% within ×%.1f",
 			v.FitBursts, v.FitRatioMedian, 100*v.FitWithin, RefereeTolerance)
+	}
+	return s
+}
+
+// sceneSummary is the per-scene-group part of Summary: "; granulation
+// (16 bursts) 2–10 0.172, 2–21 0.240; real (16 bursts) ...", or "" when
+// there are fewer than two groups.
+func (v Validation) sceneSummary() string {
+	if len(v.ByScene) < 2 {
+		return ""
+	}
+	var s string
+	for _, g := range slices.Sorted(maps.Keys(v.ByScene)) {
+		e := v.ByScene[g]
+		unit := "bursts"
+		if e.Bursts == 1 {
+			unit = "burst"
+		}
+		s += fmt.Sprintf("; %s (%d %s) 2–10 %.3f", g, e.Bursts, unit, e.ErrFrac(2, 10))
+		if x := e.ErrFrac(2, 21); !math.IsNaN(x) {
+			s += fmt.Sprintf(", 2–21 %.3f", x)
+		}
 	}
 	return s
 }

@@ -19,6 +19,17 @@ type Sample struct {
 	// Noll holds the true Noll coefficients (frames × ≥ Modes, j = 2..,
 	// rad) of simulated bursts; nil for observations.
 	Noll [][]float64
+	// Simulated bursts also record what made them: the scene
+	// (simulate.Result.Scene, e.g. "granulation" or "real:brick.fits @12,300
+	// rot90"), the Fried parameter (m, at the observing wavelength) and the
+	// mean photo-electrons per pixel, and the diffraction-limited rms
+	// contrast the scene was scaled to (0 = the simulator's default, 0.12;
+	// the "c=" of a real scene's description is the window's contrast
+	// before that scaling). Empty / zero for observations.
+	Scene    string
+	R0       float64
+	Photons  float64
+	Contrast float64
 }
 
 // Source hands out training bursts. Get must return the same burst for the
@@ -201,7 +212,7 @@ func (r *ReuseSource) Get(i uint64) (*Sample, error) {
 	if t == 0 {
 		return s, nil
 	}
-	out := &Sample{}
+	out := &Sample{Scene: s.Scene, R0: s.R0, Photons: s.Photons, Contrast: s.Contrast}
 	for c := 0; c < 2; c++ {
 		for _, im := range s.Data[c] {
 			out.Data[c] = append(out.Data[c], transformSquare(im, t))

@@ -27,6 +27,7 @@ type Config struct {
 	Init        *net.Model `json:"-"` // start from these weights (fine-tuning) instead of drawing them from Seed; must match the setup; not kept in checkpoints (they hold the weights)
 	Gamma       float64    // noise-filter regulariser of the metric (pd.Settings.Gamma); 0 uses 1e-6
 	Reuse       int        // uses of each simulated burst (Job's data stream; recorded for resume)
+	Data        SimData    // how simulated bursts vary (Job's data stream; recorded for resume); zero for runs from before the setting
 }
 
 func (c *Config) fill() error {

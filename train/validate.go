@@ -1,10 +1,13 @@
 package train
 
 import (
+	"bytes"
 	"errors"
 	"fmt"
 	"math"
 	"sync"
+
+	"gonum.org/v1/gonum/floats"
 
 	"pdwave/model/pd"
 )
@@ -28,6 +31,24 @@ type Validation struct {
 	FitBursts      int
 	FitRatioMedian float64
 	FitWithin      float64
+	// ByScene holds SqErr and SqTrue summed over the bursts of each scene
+	// group ("granulation", "real"; SceneGroup of Sample.Scene). Nil when
+	// the bursts carry no scene or no truth.
+	ByScene map[string]SceneErr `json:",omitempty"`
+}
+
+// SceneErr is the squared error and true variance per Noll mode
+// (j = i+2, rad², as Validation.SqErr and SqTrue) of the validation bursts
+// of one scene group.
+type SceneErr struct {
+	Bursts        int
+	SqErr, SqTrue []float64
+}
+
+// ErrFrac returns the wavefront error over Noll j = lo..hi of the group as
+// a fraction of its true variance (see Validation.ErrFrac).
+func (e SceneErr) ErrFrac(lo, hi int) float64 {
+	return Validation{SqErr: e.SqErr, SqTrue: e.SqTrue}.ErrFrac(lo, hi)
 }
 
 // ErrFrac returns the wavefront error over Noll j = lo..hi as a fraction of
@@ -81,72 +102,83 @@ func (t *Trainer) Predict(data [2][][]float64) ([]float64, error) {
 	return out, nil
 }
 
-// Validate scores the current weights on set (bursts of the training size).
-// Bursts without signal above the noise are left out.
-func (t *Trainer) Validate(set []*Sample) (Validation, error) {
+// burstScore is the validation of one burst.
+type burstScore struct {
+	ok            bool
+	loss, l0, lt  float64
+	sqErr, sqTrue []float64
+	err           error
+}
+
+// valBuffers are one validation worker's buffers.
+type valBuffers struct {
+	x, alpha, zero, noll, tr []float64
+}
+
+// scoreBurst scores the network on smp with worker w: the objective at the
+// prediction, at zero and at the truth, and the squared errors per Noll
+// mode (burst-mean tilt removed) when smp has truth.
+func (t *Trainer) scoreBurst(w *worker, smp *Sample, b valBuffers) burstScore {
 	s := t.prob.setup
 	nm := s.Modes
-	type res struct {
-		ok            bool
-		loss, l0, lt  float64
-		sqErr, sqTrue []float64
-		err           error
+	var r burstScore
+	if r.err = w.feat.Burst(b.x, smp.Data); r.err != nil {
+		return r
 	}
-	out := make([]res, len(set))
+	w.pred.Forward(b.alpha, b.x, s.Frames)
+	w.solver.Constrain(b.alpha)
+	if err := w.solver.SetData([][][]float64{smp.Data[0], smp.Data[1]}); err != nil {
+		if !errors.Is(err, pd.ErrNoSignal) {
+			r.err = err
+		}
+		return r
+	}
+	r.ok = true
+	r.loss = w.solver.ValueGrad(nil, b.alpha)
+	r.l0 = w.solver.ValueGrad(nil, b.zero)
+	if smp.Noll == nil {
+		return r
+	}
+	if r.err = w.truthNative(t.prob, smp.Noll); r.err != nil {
+		return r
+	}
+	r.lt = w.solver.ValueGrad(nil, w.target)
+	for j := 0; j < s.Frames; j++ {
+		t.prob.basis.NollEquivalent(b.noll[j*nm:(j+1)*nm], b.alpha[j*nm:(j+1)*nm])
+		copy(b.tr[j*nm:(j+1)*nm], smp.Noll[j][:nm])
+	}
+	removeMeanTilt(b.noll, s.Frames, nm)
+	removeMeanTilt(b.tr, s.Frames, nm)
+	r.sqErr = make([]float64, nm)
+	r.sqTrue = make([]float64, nm)
+	for j := 0; j < s.Frames; j++ {
+		for k := 0; k < nm; k++ {
+			d := b.noll[j*nm+k] - b.tr[j*nm+k]
+			r.sqErr[k] += d * d
+			r.sqTrue[k] += b.tr[j*nm+k] * b.tr[j*nm+k]
+		}
+	}
+	return r
+}
+
+// Validate scores the current weights on set (bursts of the training size).
+// Bursts without signal above the noise are left out. Bursts with truth
+// and a scene (Sample.Scene) are also summed per scene group (SceneGroup)
+// into Validation.ByScene.
+func (t *Trainer) Validate(set []*Sample) (Validation, error) {
+	s := t.prob.setup
+	n := s.Frames * s.Modes
+	out := make([]burstScore, len(set))
 	var wg sync.WaitGroup
 	for wi := range t.work {
 		wg.Add(1)
 		go func(wi int) {
 			defer wg.Done()
 			w := t.work[wi]
-			x := make([]float64, w.feat.Len(s.Frames))
-			alpha := make([]float64, s.Frames*nm)
-			zero := make([]float64, s.Frames*nm)
-			noll := make([]float64, s.Frames*nm)
+			b := valBuffers{x: make([]float64, w.feat.Len(s.Frames)), alpha: make([]float64, n),
+				zero: make([]float64, n), noll: make([]float64, n), tr: make([]float64, n)}
 			for i := wi; i < len(set); i += len(t.work) {
-				r := &out[i]
-				smp := set[i]
-				if err := w.feat.Burst(x, smp.Data); err != nil {
-					r.err = err
-					continue
-				}
-				w.pred.Forward(alpha, x, s.Frames)
-				w.solver.Constrain(alpha)
-				if err := w.solver.SetData([][][]float64{smp.Data[0], smp.Data[1]}); err != nil {
-					if !errors.Is(err, pd.ErrNoSignal) {
-						r.err = err
-					}
-					continue
-				}
-				r.ok = true
-				r.loss = w.solver.ValueGrad(nil, alpha)
-				r.l0 = w.solver.ValueGrad(nil, zero)
-				if smp.Noll == nil {
-					continue
-				}
-				if err := w.truthNative(t.prob, smp.Noll); err != nil {
-					r.err = err
-					continue
-				}
-				r.lt = w.solver.ValueGrad(nil, w.target)
-				for j := 0; j < s.Frames; j++ {
-					t.prob.basis.NollEquivalent(noll[j*nm:(j+1)*nm], alpha[j*nm:(j+1)*nm])
-				}
-				tr := make([]float64, s.Frames*nm)
-				for j := 0; j < s.Frames; j++ {
-					copy(tr[j*nm:(j+1)*nm], smp.Noll[j][:nm])
-				}
-				removeMeanTilt(noll, s.Frames, nm)
-				removeMeanTilt(tr, s.Frames, nm)
-				r.sqErr = make([]float64, nm)
-				r.sqTrue = make([]float64, nm)
-				for j := 0; j < s.Frames; j++ {
-					for k := 0; k < nm; k++ {
-						d := noll[j*nm+k] - tr[j*nm+k]
-						r.sqErr[k] += d * d
-						r.sqTrue[k] += tr[j*nm+k] * tr[j*nm+k]
-					}
-				}
+				out[i] = t.scoreBurst(w, set[i], b)
 			}
 		}(wi)
 	}
@@ -164,24 +196,59 @@ func (t *Trainer) Validate(set []*Sample) (Validation, error) {
 		v.LossZero += r.l0
 		v.LossTruth += r.lt
 		if r.sqErr != nil {
-			if v.SqErr == nil {
-				v.SqErr = make([]float64, nm)
-				v.SqTrue = make([]float64, nm)
-			}
-			for k := range r.sqErr {
-				v.SqErr[k] += r.sqErr[k]
-				v.SqTrue[k] += r.sqTrue[k]
+			v.SqErr = addSums(v.SqErr, r.sqErr)
+			v.SqTrue = addSums(v.SqTrue, r.sqTrue)
+			if g := SceneGroup(set[i].Scene); g != "" {
+				if v.ByScene == nil {
+					v.ByScene = map[string]SceneErr{}
+				}
+				e := v.ByScene[g]
+				e.Bursts++
+				e.SqErr, e.SqTrue = addSums(e.SqErr, r.sqErr), addSums(e.SqTrue, r.sqTrue)
+				v.ByScene[g] = e
 			}
 		}
 	}
 	if v.Bursts == 0 {
 		return v, fmt.Errorf("train: no validation burst has signal above the noise")
 	}
-	n := float64(v.Bursts)
-	v.Loss /= n
-	v.LossZero /= n
-	v.LossTruth /= n
+	nb := float64(v.Bursts)
+	v.Loss /= nb
+	v.LossZero /= nb
+	v.LossTruth /= nb
 	return v, nil
+}
+
+// addSums returns acc + a element by element, allocating acc if nil.
+func addSums(acc, a []float64) []float64 {
+	if acc == nil {
+		acc = make([]float64, len(a))
+	}
+	floats.Add(acc, a)
+	return acc
+}
+
+// ValidationFile lists the validation bursts of a run (index, scene
+// group, scene, r0, photons, contrast) in its run directory.
+const ValidationFile = "validation.csv"
+
+// writeValidationList writes the scene, r0 (m), photon level (e⁻ per
+// pixel) and scene contrast ("default" for the simulator's 0.12) of every
+// burst of set to path as CSV; nothing for an empty set.
+func writeValidationList(path string, set []*Sample) error {
+	if len(set) == 0 {
+		return nil
+	}
+	var b bytes.Buffer
+	b.WriteString("burst,scene_group,scene,r0_m,photons_per_pixel,contrast\n")
+	for i, s := range set {
+		c := "default"
+		if s.Contrast > 0 {
+			c = fmt.Sprintf("%.4g", s.Contrast)
+		}
+		fmt.Fprintf(&b, "%d,%s,%q,%.6g,%.6g,%s\n", i, SceneGroup(s.Scene), s.Scene, s.R0, s.Photons, c)
+	}
+	return writeFileAtomic(path, b.Bytes())
 }
 
 // removeMeanTilt subtracts the burst mean of Noll j = 2, 3 (indices 0, 1) of
