@@ -254,6 +254,8 @@ func TestBadInput(t *testing.T) {
 		{"compare malformed yaml", []string{"compare", p("good.fits"), "--site", p("malformed.yaml"), "--out", "OUT/report"}, "yaml"},
 		// train
 		{"train negative steps", []string{"train", "--site", demoSite, "--out", "OUT/w", "--steps", "-1"}, "steps"},
+		{"train one-value photon range", []string{"train", "--site", demoSite, "--out", "OUT/w", "--photons", "1"}, "photons"},
+		{"train unknown scenes", []string{"train", "--site", demoSite, "--out", "OUT/w", "--scenes", "bogus"}, "scenes"},
 		{"train malformed yaml", []string{"train", "--site", p("malformed.yaml"), "--out", "OUT/w"}, "yaml"},
 		{"train missing starting weights", []string{"train", "--site", demoSite, "--init", p("none.safetensors"), "--out", "OUT/w", "--steps", "1"}, "none.safetensors"},
 		{"train garbage starting weights", []string{"train", "--site", demoSite, "--init", p("garbage.safetensors"), "--out", "OUT/w", "--steps", "1"}, "garbage.safetensors"},

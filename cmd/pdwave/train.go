@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"math"
 	"os"
 	"strings"
 
@@ -13,6 +14,9 @@ import (
 
 // trainOpts holds the flags of "pdwave train".
 var trainOpts train.Job
+
+// trainRanges holds the range flags that fill trainOpts' two-value fields.
+var trainRanges struct{ photons, contrast []float64 }
 
 var trainCmd = &cobra.Command{
 	Use:   "train --site FILE --out DIR",
@@ -65,7 +69,24 @@ func init() {
 	f.IntVar(&o.Validation, "validation", 32, "validation bursts simulated at the median seeing (-1 = none)")
 	f.IntVar(&o.RefereeBursts, "fit-check", 8, "validation bursts also fitted classically, to score the network's objective against (0 = none)")
 	f.DurationVar(&o.MaxWall, "max-wall", 0, "stop after this much wall time, checkpointed (e.g. 55m); 0 = no limit")
+	f.StringVar(&o.Scenes, "scenes", "", "objects of simulated bursts: mix (default), granulation or real")
+	f.StringVar(&o.SceneDir, "scene-dir", "", "folder of real scene images (default: $PDWAVE_SCENES or testdata/scenes)")
+	f.Float64Var(&o.R0Margin, "r0-margin", 0, "draw ln r0 with this factor times the site's spread (default 1.25)")
+	f.Float64SliceVar(&trainRanges.photons, "photons", nil, "range of the photon level as factors on the camera's, lo,hi (default 0.5,2)")
+	f.Float64SliceVar(&trainRanges.contrast, "contrast", nil, "range of the scenes' rms contrast at the diffraction limit, lo,hi (default 0.08,0.16)")
 	root.AddCommand(trainCmd)
+}
+
+// rangeFlag copies a lo,hi flag into dst; nil leaves dst unset.
+func rangeFlag(dst *[2]float64, v []float64, name string) error {
+	if v == nil {
+		return nil
+	}
+	if len(v) != 2 || !(v[0] > 0) || !(v[1] >= v[0]) || math.IsInf(v[1], 0) {
+		return fmt.Errorf("train: --%s wants two positive finite values lo,hi with lo ≤ hi, got %v", name, v)
+	}
+	*dst = [2]float64{v[0], v[1]}
+	return nil
 }
 
 func trainRun(cmd *cobra.Command, args []string) error {
@@ -81,6 +102,12 @@ func trainRun(cmd *cobra.Command, args []string) error {
 	}
 	if o.RefereeBursts == 0 {
 		o.RefereeBursts = -1 // none
+	}
+	if err := rangeFlag(&o.Photons, trainRanges.photons, "photons"); err != nil {
+		return err
+	}
+	if err := rangeFlag(&o.Contrast, trainRanges.contrast, "contrast"); err != nil {
+		return err
 	}
 	o.Referee = newFitReferee
 	o.Progress = os.Stderr
