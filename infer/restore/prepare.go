@@ -25,11 +25,12 @@ type Offset struct{ DX, DY float64 } // pixels along x and y
 // mirror-extended edges). It uses up to workers goroutines (0 = all cores).
 // The frames of b become the field's frames (no copy).
 //
-// Accuracy: the cross-correlation is biased by the different blur of the
-// two channels (the asymmetry of the burst-mean kernels): measured on
-// simulated anisoplanatic 192 px fields of the demo site, 0.2–0.85 px, and
-// 1.2 px on a burst without offset. The fit models that blur; see FitOffset
-// for its accuracy. Give a calibrated offset (co.Fixed) where one is known.
+// Accuracy, measured on ten simulated anisoplanatic 192 px bursts of the
+// demo site (16 frames, D/r0 = 2.5–4.7, channels registered): the
+// cross-correlation, biased by the different blur of the two channels (the
+// asymmetry of the burst-mean kernels), missed by 0.06–0.98 px; the fit,
+// which models that blur, by 0.01–0.17 px (rms 0.10 px; see FitOffset).
+// Give a calibrated offset (co.Fixed) where one is known.
 func Prepare(b *burst.Burst, cal *Calibration, co *Coreg, apply bool, workers int) (*Field, Coregistration, error) {
 	if b.Frames < 1 || len(b.Data[0]) != b.Frames || len(b.Data[1]) != b.Frames {
 		return nil, Coregistration{}, fmt.Errorf("restore: burst has %d/%d frames per channel", len(b.Data[0]), len(b.Data[1]))
