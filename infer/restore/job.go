@@ -200,16 +200,12 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	if _, err := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap); err != nil {
 		return err
 	}
-	field, off, err := Prepare(b, cal, j.Offset, !j.NoAlign, j.Workers)
+	field, off, err := Prepare(b, cal, &Coreg{Fixed: j.Offset, Fit: &cfg}, !j.NoAlign, j.Workers)
 	if err != nil {
 		return err
 	}
 	if j.Log != nil {
-		how := "measured"
-		if j.Offset != nil {
-			how = "given"
-		}
-		fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px %s,%s\n", off.DX, off.DY, how, map[bool]string{true: " not removed", false: " removed"}[j.NoAlign])
+		j.logOffset(off)
 	}
 	phys, err := NewPhysics(cfg, method)
 	if err != nil {
@@ -229,6 +225,7 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		"diversity": strconv.FormatFloat(cfg.DiversityPV[1], 'g', 6, 64),
 		"align":     strconv.FormatBool(!j.NoAlign),
 		"offset":    fmt.Sprintf("%.4f,%.4f", off.DX, off.DY),
+		"offset_by": off.Method,
 		"dark":      j.Dark,
 		"flat":      j.Flat,
 		"inputs":    strings.Join(inputs, ","),
@@ -253,7 +250,8 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		burst.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
 		burst.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
 		burst.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
-		burst.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"})
+		burst.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"},
+		burst.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
 	meta := &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
 		Basis: string(cfg.Basis), Modes: cfg.Modes, Estimator: method.Name, ShiftX: off.DX, ShiftY: off.DY,
 		Cards: cards, Settings: settings, Mean: field.Mean, Inputs: inputs, CalibrationNotes: calNote}
@@ -301,6 +299,19 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		fmt.Fprintf(j.Log, "restore: %s: %d patches (%s) in %.1f s, %d failed\n", out, len(results), method.Name, time.Since(t0).Seconds(), failed)
 	}
 	return nil
+}
+
+// logOffset writes the channel offset line of one burst to j.Log.
+func (j *Job) logOffset(off Coregistration) {
+	done := " removed"
+	if j.NoAlign {
+		done = " not removed"
+	}
+	spread := ""
+	if len(off.Patches) > 0 {
+		spread = fmt.Sprintf(", spread ±(%.3f, %.3f) px, %.1f s", off.Spread.DX, off.Spread.DY, off.Elapsed.Seconds())
+	}
+	fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px (%s%s),%s\n", off.DX, off.DY, off.Method, spread, done)
 }
 
 // restoreKey identifies the calibrated data and the settings that shape the
