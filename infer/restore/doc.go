@@ -8,7 +8,7 @@
 //
 // Pipeline:
 //
-//	Prepare      calibration (d − dark)/flat, channel offset (MeasureShift),
+//	Prepare      calibration (d − dark)/flat, channel offset (FitOffset),
 //	             Fourier shift of the defocused frames (Shifter)
 //	Grid         patch origins; separable sin²/cos² blend weights over the
 //	             overlaps, normalised by the accumulated weight (Mosaic)

@@ -211,6 +211,31 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	if err != nil {
 		return err
 	}
+	meta := j.meta(b, cal, cfg, method, overlap, off, field, inputs)
+	meta.Key = restoreKey(field, meta.Settings)
+	// The command line itself may differ between shards and the merge; it
+	// is recorded but not part of the key.
+	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
+		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress}
+	g, _ := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap)
+	results, err := j.runPatches(ctx, field, opt, g, meta, out)
+	if err != nil {
+		return err
+	}
+	if err := os.RemoveAll(opt.Journal); err != nil {
+		return fmt.Errorf("removing journal: %w", err)
+	}
+	if j.Log != nil {
+		j.logDone(out, results, method.Name, t0)
+	}
+	return nil
+}
+
+// meta returns the provenance of one burst's restoration: its settings
+// (command, estimator, sizes, prior, offset and how it was found,
+// calibration, inputs), the header cards of the optics used and the mean
+// image.
+func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Method, overlap int, off Coregistration, field *Field, inputs []string) *Meta {
 	settings := map[string]string{
 		"command":   j.Command,
 		"estimator": method.Name,
@@ -252,53 +277,44 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		burst.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
 		burst.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"},
 		burst.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
-	meta := &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
+	return &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
 		Basis: string(cfg.Basis), Modes: cfg.Modes, Estimator: method.Name, ShiftX: off.DX, ShiftY: off.DY,
 		Cards: cards, Settings: settings, Mean: field.Mean, Inputs: inputs, CalibrationNotes: calNote}
-	meta.Key = restoreKey(field, settings)
-	// The command line itself may differ between shards and the merge; it
-	// is recorded but not part of the key.
-	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
-		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress}
-	g, _ := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap)
-	var results []PatchResult
+}
+
+// runPatches restores the patches of field, into a shard part when the job
+// is sharded, else into the finished product at out.
+func (j *Job) runPatches(ctx context.Context, field *Field, opt Options, g *Grid, meta *Meta, out string) ([]PatchResult, error) {
 	if j.Shard.Partial() {
 		lo, hi := j.Shard.Range(g.Count())
 		w, err := CreatePart(out, meta, j.Shard, lo, hi)
 		if err != nil {
-			return err
+			return nil, err
 		}
-		results, err = Run(ctx, field, opt, w.Write)
+		results, err := Run(ctx, field, opt, w.Write)
 		if err != nil {
 			w.Abort()
-			return err
+			return nil, err
 		}
-		if err := w.Close(); err != nil {
-			return err
-		}
-	} else {
-		col := NewCollector(g)
-		results, err = Run(ctx, field, opt, col.Add)
-		if err != nil {
-			return err
-		}
-		if err := col.Product(meta).Write(out, j.Version); err != nil {
-			return err
+		return results, w.Close()
+	}
+	col := NewCollector(g)
+	results, err := Run(ctx, field, opt, col.Add)
+	if err != nil {
+		return nil, err
+	}
+	return results, col.Product(meta).Write(out, j.Version)
+}
+
+// logDone writes the summary line of one burst to j.Log.
+func (j *Job) logDone(out string, results []PatchResult, name string, t0 time.Time) {
+	failed := 0
+	for _, r := range results {
+		if r.Flags&FlagFailed != 0 {
+			failed++
 		}
 	}
-	if err := os.RemoveAll(opt.Journal); err != nil {
-		return fmt.Errorf("removing journal: %w", err)
-	}
-	if j.Log != nil {
-		failed := 0
-		for _, r := range results {
-			if r.Flags&FlagFailed != 0 {
-				failed++
-			}
-		}
-		fmt.Fprintf(j.Log, "restore: %s: %d patches (%s) in %.1f s, %d failed\n", out, len(results), method.Name, time.Since(t0).Seconds(), failed)
-	}
-	return nil
+	fmt.Fprintf(j.Log, "restore: %s: %d patches (%s) in %.1f s, %d failed\n", out, len(results), name, time.Since(t0).Seconds(), failed)
 }
 
 // logOffset writes the channel offset line of one burst to j.Log.
