@@ -1,14 +1,11 @@
 package infer
 
 import (
-	"encoding/csv"
 	"fmt"
-	"io"
-	"math"
 	"math/rand/v2"
-	"strconv"
+	"slices"
 
-	"pdwave/model/burst"
+	"gonum.org/v1/gonum/stat"
 )
 
 // StudyCase is one point of the accuracy study.
@@ -19,23 +16,43 @@ type StudyCase struct {
 	DiversityPV float64 // defocus of channel 1, waves peak-to-valley
 }
 
-// StudyRow is the result for one StudyCase over several bursts.
+// StudyRow is the result for one StudyCase and one scene over several
+// bursts. Errors are fractions of the true wavefront variance left as
+// error (ResidualFraction, burst-mean tilt removed): 0 is perfect, 1 is
+// what no correction at all leaves.
 type StudyRow struct {
 	StudyCase
-	Bursts     int     // bursts fitted for this case
-	Err10      float64 // mean fraction of the wavefront variance left as error, Noll 2–10 (burst-mean tilt removed)
-	Err10SD    float64 // its standard deviation over bursts
-	Err21      float64 // the same over Noll 2–21
-	Err21SD    float64 // its standard deviation over bursts
-	Err10Start float64 // the same for the starting point (registered tilts, else zero): what the fit gained
-	Seconds    float64 // mean wall time per fit, s
-	Iterations float64 // mean L-BFGS iterations
+	Scene       string  // scene label (StudyScene.Name, or a group's name for pooled rows; "" from Study)
+	Bursts      int     // bursts fitted for this row
+	Err10       float64 // mean error over bursts, Noll 2–10
+	Err10Median float64 // its median over bursts (midpoint of the two middle values for even counts)
+	Err10SD     float64 // its standard deviation over bursts (n − 1; 0 for one burst)
+	Err10Max    float64 // its largest value over bursts
+	Err10Over1  float64 // share of bursts with error > 1 (worse than no correction), 0…1
+	Err21       float64 // the same over Noll 2–21
+	Err21Median float64
+	Err21SD     float64
+	Err21Max    float64
+	Err21Over1  float64
+	Err10Start  float64 // mean error over Noll 2–10 of the starting point (registered tilts, else zero): what the fit gained
+	Seconds     float64 // mean wall time per fit, s
+	Iterations  float64 // mean L-BFGS iterations
 }
 
 // BurstSource draws one burst with truth for a study case: data
 // [channel][frame] N×N and the true Noll coefficients (frames × ≥ 20,
 // j = 2…), rad.
 type BurstSource func(c StudyCase, rng *rand.Rand) (data [][][]float64, noll [][]float64, err error)
+
+// StudyScene is one scene of a study: the bursts of every case drawn from
+// Source give a row labelled Name. Scenes that share a non-empty Group
+// also give a pooled row labelled Group over all their bursts (written
+// only when at least two scenes share it).
+type StudyScene struct {
+	Name   string      // row label, e.g. "granulation" or "brick"
+	Group  string      // label of the pooled row, e.g. "real"; "" for none
+	Source BurstSource // draws the bursts
+}
 
 // SyntheticSource returns a BurstSource based on Synthetic with the given
 // telescope (the case sets N, frames, diversity and D/r0), Noll modes up to
@@ -53,16 +70,35 @@ func SyntheticSource(base Synthetic) BurstSource {
 	}
 }
 
-// Study runs the accuracy study: for every case, bursts bursts are drawn
-// from src (seeded from seed, case index and burst index, so results do
-// not depend on the worker count), fitted with base adapted to the case
-// (patch, frames, diversity, D/r0), and the residual fractions averaged.
-// progress, if not nil, is called after each case.
+// Study runs the accuracy study on one unnamed source: StudyScenes with
+// the single scene {Source: src} (rows have Scene "").
 func Study(base Config, cases []StudyCase, bursts int, src BurstSource, seed uint64, workers int, progress func(StudyRow)) ([]StudyRow, error) {
-	if bursts < 1 {
-		return nil, fmt.Errorf("study: need at least one burst per case, got %d", bursts)
+	return StudyScenes(base, cases, bursts, []StudyScene{{Source: src}}, seed, workers, progress)
+}
+
+// maxStudyBursts bounds the bursts per row so that the burst index stays
+// in the low 20 bits of the seed stream.
+const maxStudyBursts = 1 << 20
+
+// StudyScenes runs the accuracy study: for every case and every scene,
+// bursts bursts are drawn from the scene's source and fitted with base
+// adapted to the case (patch, frames, diversity, D/r0). Burst b of case
+// ci is drawn from the stream PCG(seed, ci·2²⁰ + b) for every scene, so a
+// scene's rows do not depend on which other scenes run, nor on the worker
+// count; sources that draw the scene from its own sub-stream
+// (SimulatedSceneSource) then give every scene the same wavefronts.
+// Rows come case by case: one per scene in order, then the pooled group
+// rows in order of first appearance. progress, if not nil, is called
+// after each row.
+func StudyScenes(base Config, cases []StudyCase, bursts int, scenes []StudyScene, seed uint64, workers int, progress func(StudyRow)) ([]StudyRow, error) {
+	if bursts < 1 || bursts > maxStudyBursts {
+		return nil, fmt.Errorf("study: need 1 to %d bursts per case, got %d", maxStudyBursts, bursts)
 	}
-	rows := make([]StudyRow, 0, len(cases))
+	groups, err := studyGroups(scenes)
+	if err != nil {
+		return nil, err
+	}
+	var rows []StudyRow
 	for ci, c := range cases {
 		cfg := base
 		cfg.Patch, cfg.Frames, cfg.DOverR0 = c.Patch, c.Frames, c.DOverR0
@@ -71,117 +107,141 @@ func Study(base Config, cases []StudyCase, bursts int, src BurstSource, seed uin
 		if err != nil {
 			return rows, fmt.Errorf("study case %+v: %w", c, err)
 		}
-		patches := make([]Patch, bursts)
-		truths := make([][][]float64, bursts)
-		for b := range patches {
-			rng := rand.New(rand.NewPCG(seed, uint64(ci)<<20|uint64(b)))
-			d, t, err := src(c, rng)
+		pooled := make(map[string][]burstOutcome, len(groups))
+		for _, sc := range scenes {
+			out, err := studyScene(f, c, ci, bursts, sc, seed, workers)
 			if err != nil {
-				return rows, fmt.Errorf("study case %+v burst %d: %w", c, b, err)
+				return rows, fmt.Errorf("study case %+v, scene %q: %w", c, sc.Name, err)
 			}
-			patches[b].Data, truths[b] = d, t
+			if sc.Group != "" {
+				pooled[sc.Group] = append(pooled[sc.Group], out...)
+			}
+			rows = appendRow(rows, summarise(c, sc.Name, out), progress)
 		}
-		res, err := f.FitAll(patches, workers)
-		if err != nil {
-			return rows, fmt.Errorf("study case %+v: %w", c, err)
-		}
-		row := StudyRow{StudyCase: c, Bursts: bursts}
-		var e10, e21 []float64
-		for b, r := range res {
-			a, err := ResidualFraction(r.Noll, truths[b], 10)
-			if err != nil {
-				return rows, fmt.Errorf("study case %+v: %w", c, err)
-			}
-			a2, err := ResidualFraction(r.Noll, truths[b], 21)
-			if err != nil {
-				return rows, fmt.Errorf("study case %+v: %w", c, err)
-			}
-			s0, err := ResidualFraction(r.StartNoll, truths[b], 10)
-			if err != nil {
-				return rows, fmt.Errorf("study case %+v: %w", c, err)
-			}
-			e10, e21 = append(e10, a), append(e21, a2)
-			row.Err10Start += s0 / float64(bursts)
-			row.Seconds += r.Elapsed.Seconds() / float64(bursts)
-			row.Iterations += float64(r.Iterations) / float64(bursts)
-		}
-		row.Err10, row.Err10SD = meanSD(e10)
-		row.Err21, row.Err21SD = meanSD(e21)
-		rows = append(rows, row)
-		if progress != nil {
-			progress(row)
+		for _, g := range groups {
+			rows = appendRow(rows, summarise(c, g, pooled[g]), progress)
 		}
 	}
 	return rows, nil
 }
 
-func meanSD(x []float64) (m, sd float64) {
-	for _, v := range x {
-		m += v
+func appendRow(rows []StudyRow, r StudyRow, progress func(StudyRow)) []StudyRow {
+	if progress != nil {
+		progress(r)
 	}
-	m /= float64(len(x))
-	if len(x) < 2 {
-		return m, 0
-	}
-	for _, v := range x {
-		sd += (v - m) * (v - m)
-	}
-	return m, math.Sqrt(sd / float64(len(x)-1))
+	return append(rows, r)
 }
 
-// StudyGrid returns the default study cases: one-at-a-time scans around
-// the reference case (D/r0 = 5, 64 px, 16 frames, 1 wave): D/r0 2…10,
-// patch 48…128, frames 4…32, diversity 0.5…2 waves.
-func StudyGrid() []StudyCase {
-	ref := StudyCase{DOverR0: 5, Patch: 64, Frames: 16, DiversityPV: 1}
-	cases := []StudyCase{ref}
-	for _, v := range []float64{2, 3, 7, 10} {
-		c := ref
-		c.DOverR0 = v
-		cases = append(cases, c)
+// studyGroups checks the scenes (at least one, sources set, labels
+// unique among scenes and groups) and returns the groups shared by at
+// least two scenes, in order of first appearance.
+func studyGroups(scenes []StudyScene) ([]string, error) {
+	if len(scenes) == 0 {
+		return nil, fmt.Errorf("study: no scenes")
 	}
-	for _, v := range []int{48, 96, 128} {
-		c := ref
-		c.Patch = v
-		cases = append(cases, c)
+	names := make(map[string]bool, len(scenes))
+	count := make(map[string]int)
+	var order []string
+	for i, sc := range scenes {
+		if sc.Source == nil {
+			return nil, fmt.Errorf("study: scene %d (%q) has no source", i, sc.Name)
+		}
+		if names[sc.Name] {
+			return nil, fmt.Errorf("study: scene %q listed twice", sc.Name)
+		}
+		names[sc.Name] = true
+		if sc.Group != "" {
+			if count[sc.Group] == 0 {
+				order = append(order, sc.Group)
+			}
+			count[sc.Group]++
+		}
 	}
-	for _, v := range []int{4, 8, 32} {
-		c := ref
-		c.Frames = v
-		cases = append(cases, c)
+	var groups []string
+	for _, g := range order {
+		if names[g] {
+			return nil, fmt.Errorf("study: group %q has the name of a scene", g)
+		}
+		if count[g] >= 2 {
+			groups = append(groups, g)
+		}
 	}
-	for _, v := range []float64{0.5, 1.5, 2} {
-		c := ref
-		c.DiversityPV = v
-		cases = append(cases, c)
-	}
-	return cases
+	return groups, nil
 }
 
-// WriteStudyCSV writes the rows as CSV with a header line.
-func WriteStudyCSV(w io.Writer, rows []StudyRow) error {
-	cw := csv.NewWriter(w)
-	_ = cw.Write([]string{"d_over_r0", "patch_px", "frames", "diversity_waves_pv", "bursts",
-		"err_2_10", "err_2_10_sd", "err_2_21", "err_2_21_sd", "err_2_10_start", "seconds_per_fit", "iterations"})
-	g := func(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }
-	for _, r := range rows {
-		_ = cw.Write([]string{g(r.DOverR0), strconv.Itoa(r.Patch), strconv.Itoa(r.Frames), g(r.DiversityPV),
-			strconv.Itoa(r.Bursts), g(r.Err10), g(r.Err10SD), g(r.Err21), g(r.Err21SD), g(r.Err10Start),
-			g(r.Seconds), g(r.Iterations)})
-	}
-	cw.Flush()
-	if err := cw.Error(); err != nil {
-		return fmt.Errorf("writing study table: %w", err)
-	}
-	return nil
+// burstOutcome is what one fitted burst contributes to a row.
+type burstOutcome struct {
+	err10, err21, start10 float64
+	seconds, iterations   float64
 }
 
-// WriteStudyFile writes the rows with WriteStudyCSV to path, through a
-// temporary file in the same folder that is renamed into place (no partial
-// file on error). Errors name the path.
-func WriteStudyFile(path string, rows []StudyRow) error {
-	if err := burst.WriteAtomic(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
+// studyScene draws and fits the bursts of one case and scene.
+func studyScene(f *Fitter, c StudyCase, ci, bursts int, sc StudyScene, seed uint64, workers int) ([]burstOutcome, error) {
+	patches := make([]Patch, bursts)
+	truths := make([][][]float64, bursts)
+	for b := range patches {
+		rng := rand.New(rand.NewPCG(seed, uint64(ci)<<20|uint64(b)))
+		d, t, err := sc.Source(c, rng)
+		if err != nil {
+			return nil, fmt.Errorf("burst %d: %w", b, err)
+		}
+		patches[b].Data, truths[b] = d, t
 	}
-	return nil
+	res, err := f.FitAll(patches, workers)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]burstOutcome, bursts)
+	for b, r := range res {
+		o := &out[b]
+		for _, e := range []struct {
+			dst  *float64
+			fit  [][]float64
+			jmax int
+		}{{&o.err10, r.Noll, 10}, {&o.err21, r.Noll, 21}, {&o.start10, r.StartNoll, 10}} {
+			if *e.dst, err = ResidualFraction(e.fit, truths[b], e.jmax); err != nil {
+				return nil, fmt.Errorf("burst %d: %w", b, err)
+			}
+		}
+		o.seconds, o.iterations = r.Elapsed.Seconds(), float64(r.Iterations)
+	}
+	return out, nil
+}
+
+// summarise makes the row of case c labelled scene from its bursts.
+func summarise(c StudyCase, scene string, out []burstOutcome) StudyRow {
+	n := len(out)
+	e10, e21 := make([]float64, n), make([]float64, n)
+	st, sec, it := make([]float64, n), make([]float64, n), make([]float64, n)
+	for i, o := range out {
+		e10[i], e21[i], st[i], sec[i], it[i] = o.err10, o.err21, o.start10, o.seconds, o.iterations
+	}
+	r := StudyRow{StudyCase: c, Scene: scene, Bursts: n,
+		Err10Start: stat.Mean(st, nil), Seconds: stat.Mean(sec, nil), Iterations: stat.Mean(it, nil)}
+	r.Err10, r.Err10Median, r.Err10SD, r.Err10Max, r.Err10Over1 = spread(e10)
+	r.Err21, r.Err21Median, r.Err21SD, r.Err21Max, r.Err21Over1 = spread(e21)
+	return r
+}
+
+// spread returns the mean, median (midpoint of the middle two for even
+// counts), standard deviation (n − 1; 0 for one value), maximum and the
+// share of values above 1 of x (not empty).
+func spread(x []float64) (mean, median, sd, hi, over1 float64) {
+	mean = stat.Mean(x, nil)
+	if len(x) > 1 {
+		sd = stat.StdDev(x, nil)
+	}
+	s := slices.Clone(x)
+	slices.Sort(s)
+	n := len(s)
+	median = s[n/2]
+	if n%2 == 0 {
+		median = (s[n/2-1] + s[n/2]) / 2
+	}
+	for _, v := range s {
+		if v > 1 {
+			over1++
+		}
+	}
+	return mean, median, sd, s[n-1], over1 / float64(n)
 }
