@@ -219,6 +219,8 @@ func fitRun(cmd *cobra.Command, args []string) error {
 		burst.Card{Key: "FITMODES", Value: cfg.Modes, Comment: "modes per frame, piston excluded"},
 		burst.Card{Key: "FITITER", Value: res.Iterations, Comment: "L-BFGS iterations"},
 		burst.Card{Key: "FITSTAT", Value: fitStatus(res.Status), Comment: "why the optimiser stopped"},
+		burst.Card{Key: "FITFLAGS", Value: guardText(res.Flags), Comment: "guard: implausible, refitted, rejected or none"},
+		burst.Card{Key: "PRIORCHI", Value: res.Chi2, Comment: "mean coefficient^2 / Kolmogorov variance"},
 		burst.Card{Key: "METRIC0", Value: res.MetricStart, Comment: "objective before the fit (metric/power + prior)"},
 		burst.Card{Key: "METRIC1", Value: res.MetricEnd, Comment: "objective after the fit"},
 		burst.Card{Key: "DATAM0", Value: res.DataStart, Comment: "normalised metric L/P before the fit"},
@@ -329,4 +331,12 @@ func fitStudyImages(dir string) func() (*simulate.ImageScene, error) {
 		}
 		return simulate.LoadSceneDir(d)
 	}
+}
+
+// guardText names the guard's flags for a header card ("none" for none).
+func guardText(f infer.FitFlags) string {
+	if f == 0 {
+		return "none"
+	}
+	return f.String()
 }
