@@ -29,8 +29,9 @@ func (c Camera) Validate() error {
 	return nil
 }
 
-// gain returns the electrons per ADU in use (1 without quantisation).
-func (c Camera) gain() float64 {
+// ElectronsPerADU returns the gain in use, electrons per ADU: Gain if set,
+// else max(1, 4·Photons/2^Bits), 1 without quantisation.
+func (c Camera) ElectronsPerADU() float64 {
 	if c.Gain > 0 {
 		return c.Gain
 	}
@@ -43,12 +44,13 @@ func (c Camera) gain() float64 {
 // Noiseless reports whether the camera adds no noise.
 func (c Camera) Noiseless() bool { return c.Photons <= 0 }
 
-// expose converts in place an expected image in electrons into a recorded
+// Expose converts in place an expected image in electrons into a recorded
 // one in ADU: Poisson photon noise, Gaussian read noise, division by the
-// gain, rounding and clipping to [0, 2^Bits − 1] (no rounding or clipping
-// for Bits = 0).
-func (c Camera) expose(im []float64, rng *rand.Rand) {
-	g := c.gain()
+// gain (ElectronsPerADU), rounding and clipping to [0, 2^Bits − 1] (no
+// rounding or clipping for Bits = 0). It draws one Poisson and, with read
+// noise, one normal deviate per pixel from rng, in pixel order.
+func (c Camera) Expose(im []float64, rng *rand.Rand) {
+	g := c.ElectronsPerADU()
 	top := math.Exp2(float64(c.Bits)) - 1
 	for i, v := range im {
 		e := Poisson(rng, math.Max(v, 0))

@@ -344,14 +344,14 @@ func (s *Simulator) finish(b *burst.Burst, seeds [][2][2]uint64, scale float64, 
 	if cam.Noiseless() {
 		return
 	}
-	g := cam.gain()
+	g := cam.ElectronsPerADU()
 	parallel(b.Frames, workers, func(_, f int) {
 		for c := 0; c < 2; c++ {
 			im := b.Data[c][f]
 			for i := range im {
 				im[i] *= scale
 			}
-			cam.expose(im, rand.New(rand.NewPCG(seeds[f][c][0], seeds[f][c][1])))
+			cam.Expose(im, rand.New(rand.NewPCG(seeds[f][c][0], seeds[f][c][1])))
 		}
 	})
 	for i := range b.Object {

@@ -147,28 +147,11 @@ func expose(b *burst.Burst, cam simulate.Camera, photons float64, rng *rand.Rand
 		return fmt.Errorf("exposing a burst: no object with positive flux to set the photon level by")
 	}
 	scale := photons / stat.Mean(b.Object, nil)
-	g := cam.Gain
-	if g <= 0 {
-		g = 1
-		if cam.Bits > 0 {
-			g = math.Max(1, 4*cam.Photons/math.Exp2(float64(cam.Bits)))
-		}
-	}
-	top := math.Exp2(float64(cam.Bits)) - 1
+	g := cam.ElectronsPerADU()
 	for f := 0; f < b.Frames; f++ {
 		for c := 0; c < 2; c++ {
-			im := b.Data[c][f]
-			for k, v := range im {
-				e := simulate.Poisson(rng, math.Max(v*scale, 0))
-				if cam.ReadNoise > 0 {
-					e += cam.ReadNoise * rng.NormFloat64()
-				}
-				a := e / g
-				if cam.Bits > 0 {
-					a = math.Min(math.Max(math.Round(a), 0), top)
-				}
-				im[k] = a
-			}
+			floats.Scale(scale, b.Data[c][f])
+			cam.Expose(b.Data[c][f], rng)
 		}
 	}
 	floats.Scale(scale/g, b.Object)
