@@ -98,6 +98,18 @@ type pupilCov struct {
 
 // quadSizes returns the radial node count and the number of angular
 // intervals on [0, π] for Zernikes up to radial order nmax and |m| ≤ mmax
+// quadSizesFor returns quadSizes for the Zernikes Noll j = 2…count+1: their
+// highest radial order and highest |azimuthal frequency|.
+func quadSizesFor(count int) (nr, nphi int) {
+	nmax, _ := NollToNM(count + 1)
+	mmax := 0
+	for j := 2; j <= count+1; j++ {
+		_, m := NollToNM(j)
+		mmax = max(mmax, abs(m))
+	}
+	return quadSizes(nmax, mmax)
+}
+
 // (chosen by the convergence test TestQuadratureConverged).
 func quadSizes(nmax, mmax int) (nr, nphi int) {
 	return 32 + 2*nmax, 128 + 8*mmax
@@ -310,13 +322,7 @@ func pupilCovFor(count int, eps, l0 float64) (*pupilCov, error) {
 	if pc != nil {
 		return pc, nil
 	}
-	nmax, _ := NollToNM(count + 1)
-	mmax := 0
-	for j := 2; j <= count+1; j++ {
-		_, m := NollToNM(j)
-		mmax = max(mmax, abs(m))
-	}
-	nr, nphi := quadSizes(nmax, mmax)
+	nr, nphi := quadSizesFor(count)
 	pc = quadCov(count, eps, structureFor(l0), nr, nphi)
 	if err := pc.finish(); err != nil {
 		return nil, err

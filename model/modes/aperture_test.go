@@ -101,13 +101,7 @@ func TestQuadratureConverged(t *testing.T) {
 	if testing.Short() {
 		count = 35
 	}
-	nmax, _ := NollToNM(count + 1)
-	mmax := 0
-	for j := 2; j <= count+1; j++ {
-		_, m := NollToNM(j)
-		mmax = max(mmax, abs(m))
-	}
-	nr, nphi := quadSizes(nmax, mmax)
+	nr, nphi := quadSizesFor(count)
 	for _, l0 := range []float64{math.Inf(1), 4, MinOuterScale} {
 		sf := structureFor(l0)
 		a := quadCov(count, 0.3, sf, nr, nphi)
