@@ -98,6 +98,11 @@ type pupilCov struct {
 
 // quadSizes returns the radial node count and the number of angular
 // intervals on [0, π] for Zernikes up to radial order nmax and |m| ≤ mmax
+// (chosen by the convergence test TestQuadratureConverged).
+func quadSizes(nmax, mmax int) (nr, nphi int) {
+	return 32 + 2*nmax, 128 + 8*mmax
+}
+
 // quadSizesFor returns quadSizes for the Zernikes Noll j = 2…count+1: their
 // highest radial order and highest |azimuthal frequency|.
 func quadSizesFor(count int) (nr, nphi int) {
@@ -108,11 +113,6 @@ func quadSizesFor(count int) (nr, nphi int) {
 		mmax = max(mmax, abs(m))
 	}
 	return quadSizes(nmax, mmax)
-}
-
-// (chosen by the convergence test TestQuadratureConverged).
-func quadSizes(nmax, mmax int) (nr, nphi int) {
-	return 32 + 2*nmax, 128 + 8*mmax
 }
 
 // quadCov computes G, C, the annulus means and the total variance for the
