@@ -54,7 +54,7 @@ var fields = []field{
 // combinations of sources that set it (explicit zeros included), that the
 // value comes from the highest source setting it — flags, header, weights,
 // site — and the default otherwise, and that Notes names that source.
-// Planted: swapping header and weights in the order fails 9×8 cases.
+// Planted: swapping header and weights in the order fails 36 cases.
 func TestResolvePrecedence(t *testing.T) {
 	srcs := [4]Source{FromFlags, FromHeader, FromWeights, FromSite}
 	for _, f := range fields {

@@ -27,6 +27,9 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+
+	"pdwave/model/instrument"
+	"pdwave/model/modes"
 )
 
 // Arch describes the network's shape. The zero value is not valid; use
@@ -217,4 +220,51 @@ func (m *Model) Clone() *Model {
 		c.Params = append(c.Params, &Tensor{Name: p.Name, Shape: append([]int(nil), p.Shape...), Data: append([]float64(nil), p.Data...)})
 	}
 	return c
+}
+
+// Instrument returns what the metadata say about the instrument the weights
+// were made for, as a source for instrument.Resolve and the one
+// compatibility check (instrument.Compatible). Zero numbers are unknown
+// (weights of earlier versions); the obscuration is known once the
+// diameter is.
+func (m Meta) Instrument() instrument.Partial {
+	var p instrument.Partial
+	setF := func(dst *instrument.Opt[float64], v float64) {
+		if v > 0 && !math.IsInf(v, 0) {
+			*dst = instrument.Some(v)
+		}
+	}
+	setF(&p.Diameter, m.Diameter)
+	setF(&p.Wavelength, m.Wavelength)
+	setF(&p.PixelScale, m.PixelScale)
+	if p.Diameter.Set {
+		p.Obscuration = instrument.Some(m.Obscuration)
+	}
+	if m.DiversityPV != 0 && !math.IsNaN(m.DiversityPV) && !math.IsInf(m.DiversityPV, 0) {
+		p.Diversity = instrument.Some([]float64{0, m.DiversityPV})
+	}
+	if m.Site != "" {
+		p.Site = instrument.Some(m.Site)
+	}
+	if m.Patch > 0 {
+		p.Patch = instrument.Some(m.Patch)
+	}
+	if m.Modes > 0 {
+		p.Modes = instrument.Some(m.Modes)
+	}
+	if m.Basis != "" {
+		p.Basis = instrument.Some(modes.Kind(m.Basis))
+	}
+	return p
+}
+
+// MetaFor returns the metadata of weights made for in with bursts of the
+// given frame count (Training and Version left for the caller).
+func MetaFor(in instrument.Instrument, frames int) Meta {
+	t := in.Telescope
+	return Meta{
+		Site: in.Site, Basis: string(in.Basis), Modes: in.Modes, Patch: in.Patch, Frames: frames,
+		Diameter: t.Diameter, Obscuration: t.Obscuration, Wavelength: t.Wavelength,
+		PixelScale: t.PixelScale, DiversityPV: in.SecondDiversity(),
+	}
 }

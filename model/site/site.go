@@ -37,6 +37,7 @@ import (
 	"gopkg.in/yaml.v3"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 )
@@ -506,4 +507,22 @@ func (s *Site) OuterScale() float64 {
 		return math.Inf(1)
 	}
 	return s.Seeing.OuterScaleM
+}
+
+// Instrument returns what the site file says about the instrument, in SI
+// units, for instrument.Resolve: the telescope, the two channels (0 and the
+// diversity), the sizes, the median r0 at 500 nm and the outer scale (an
+// explicit 0 for Kolmogorov). Sizes the file omits carry the documented
+// defaults of Sizes.
+func (s *Site) Instrument() instrument.Partial {
+	p := instrument.TelescopeOf(s.Telescope())
+	p.Site = instrument.Some(s.Tel.Name)
+	p.Diversity = instrument.Some([]float64{0, s.DiversityPV()})
+	p.Patch = instrument.Some(s.Sizes.Patch)
+	p.Modes = instrument.Some(s.Sizes.Modes)
+	p.Basis = instrument.Some(s.Sizes.Basis)
+	p.R0 = instrument.Some(s.Seeing.R0MedianM)
+	p.R0Wavelength = instrument.Some(500e-9)
+	p.OuterScale = instrument.Some(s.Seeing.OuterScaleM)
+	return p
 }
