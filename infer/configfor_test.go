@@ -8,24 +8,25 @@ import (
 	"testing"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/site"
 )
 
-// TestConfigFor checks the precedence of ConfigFor (override, then burst
-// header, then site file, then defaults) and the wavelength scaling of the
-// expected D/r0: r0 ∝ λ^(6/5) (Fried 1966, JOSA 56, 1372; Roddier 1981,
-// Progress in Optics 19, 281), so D/r0 at twice the site's wavelength is
-// 2^(−6/5) times the site's.
+// TestConfigFor checks ConfigFor end to end on the demo site file and
+// burst-header optics (the full precedence table is instrument's
+// TestResolvePrecedence): the site alone, header values winning over the
+// site (an explicit 0 obscuration included), flags winning over both, and
+// the wavelength scaling of the expected D/r0: r0 ∝ λ^(6/5) (Fried 1966,
+// JOSA 56, 1372; Roddier 1981, Progress in Optics 19, 281), so D/r0 at
+// twice the site's wavelength is 2^(−6/5) times the site's.
 func TestConfigFor(t *testing.T) {
 	st, err := site.Load("../testdata/demo-site.yaml")
 	if err != nil {
 		t.Fatal(err)
 	}
 	def := st.Optics()
-
-	// Site only.
-	cfg, err := ConfigFor(st, burst.Optics{}, 7, Overrides{})
+	cfg, err := ConfigFor(instrument.Sources{Site: st.Instrument()}, 7)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -33,55 +34,45 @@ func TestConfigFor(t *testing.T) {
 		t.Errorf("sizes %d px, %d %s modes, %d frames; want the site's %d, %d %s and 7",
 			cfg.Patch, cfg.Modes, cfg.Basis, cfg.Frames, st.Sizes.Patch, st.Sizes.Modes, st.Sizes.Basis)
 	}
-	if cfg.Telescope != st.Telescope() {
-		t.Errorf("telescope %+v, want the site's %+v", cfg.Telescope, st.Telescope())
+	if cfg.Telescope != st.Telescope() || cfg.Notes["wavelength"] != instrument.FromSite {
+		t.Errorf("telescope %+v (%v), want the site's %+v", cfg.Telescope, cfg.Notes, st.Telescope())
 	}
-	dr0 := def.Diameter / st.R0Median()
-	if math.Abs(cfg.DOverR0-dr0) > 1e-12*dr0 {
+	if dr0 := def.Diameter / st.R0Median(); math.Abs(cfg.DOverR0-dr0) > 1e-12*dr0 {
 		t.Errorf("D/r0 = %g, want D/R0Median = %g", cfg.DOverR0, dr0)
 	}
-	if len(cfg.DiversityPV) != 2 || cfg.DiversityPV[0] != 0 || cfg.DiversityPV[1] != def.DiversityPV {
-		t.Errorf("diversity %v, want [0 %g]", cfg.DiversityPV, def.DiversityPV)
+	if len(cfg.Diversity) != 2 || cfg.Diversity[0] != 0 || cfg.Diversity[1] != def.DiversityPV {
+		t.Errorf("diversity %v, want [0 %g]", cfg.Diversity, def.DiversityPV)
 	}
 
-	// Header values win over the site; D/r0 follows the header wavelength.
-	hdr := burst.Optics{Wavelength: 2 * def.Wavelength, Diameter: 2 * def.Diameter, DiversityPV: 0.5}
-	cfg, err = ConfigFor(st, hdr, 7, Overrides{})
+	hdr := HeaderInstrument(burst.Optics{Wavelength: 2 * def.Wavelength, Diameter: 2 * def.Diameter, DiversityPV: 0.5})
+	hdr.Obscuration = instrument.Some(0.0) // an explicit zero in the header
+	cfg, err = ConfigFor(instrument.Sources{Header: hdr, Site: st.Instrument()}, 7)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if cfg.Telescope.Wavelength != hdr.Wavelength || cfg.Telescope.Diameter != hdr.Diameter ||
-		cfg.Telescope.PixelScale != def.PixelScale || cfg.DiversityPV[1] != 0.5 {
-		t.Errorf("optics %+v, diversity %v: header values must win, the site fill the rest", cfg.Telescope, cfg.DiversityPV)
+	if cfg.Telescope.Wavelength != 2*def.Wavelength || cfg.Telescope.Diameter != 2*def.Diameter ||
+		cfg.Telescope.PixelScale != def.PixelScale || cfg.Diversity[1] != 0.5 || cfg.Telescope.Obscuration != 0 {
+		t.Errorf("optics %+v, diversity %v: header values must win, the site fill the rest", cfg.Telescope, cfg.Diversity)
 	}
-	want := hdr.Diameter / (st.R0Median() * math.Pow(2, 6.0/5))
-	if math.Abs(cfg.DOverR0-want) > 1e-12*want {
+	if want := 2 * def.Diameter / (st.R0Median() * math.Pow(2, 6.0/5)); math.Abs(cfg.DOverR0-want) > 1e-12*want {
 		t.Errorf("D/r0 at 2λ = %g, want %g (r0 ∝ λ^(6/5))", cfg.DOverR0, want)
 	}
 
-	// Overrides win over everything.
-	ov := Overrides{Patch: 48, Modes: 10, Basis: modes.KindZernike, DOverR0: 3}
-	cfg, err = ConfigFor(st, hdr, 7, ov)
+	fl := instrument.Partial{Patch: instrument.Some(48), Modes: instrument.Some(10), Basis: instrument.Some(modes.KindZernike), DOverR0: instrument.Some(3.0)}
+	cfg, err = ConfigFor(instrument.Sources{Flags: fl, Header: hdr, Site: st.Instrument()}, 7)
 	if err != nil {
 		t.Fatal(err)
 	}
 	if cfg.Patch != 48 || cfg.Modes != 10 || cfg.Basis != modes.KindZernike || cfg.DOverR0 != 3 {
-		t.Errorf("overrides not applied: %d px, %d %s modes, D/r0 %g", cfg.Patch, cfg.Modes, cfg.Basis, cfg.DOverR0)
+		t.Errorf("flags not applied: %d px, %d %s modes, D/r0 %g", cfg.Patch, cfg.Modes, cfg.Basis, cfg.DOverR0)
+	}
+	if s := cfg.Settings()["from"]; !strings.Contains(s, "patch=flags") || !strings.Contains(s, "obscuration=header") {
+		t.Errorf("provenance %q does not say where the values came from", s)
 	}
 
-	// No site: the header must give the optics; sizes and D/r0 default.
-	full := burst.Optics{Wavelength: def.Wavelength, PixelScale: def.PixelScale, Diameter: def.Diameter, DiversityPV: 1}
-	cfg, err = ConfigFor(nil, full, 7, Overrides{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	d := DefaultConfig()
-	if cfg.Patch != d.Patch || cfg.Modes != d.Modes || cfg.Basis != d.Basis || cfg.DOverR0 != d.DOverR0 {
-		t.Errorf("without a site: %d px, %d %s modes, D/r0 %g; want the defaults", cfg.Patch, cfg.Modes, cfg.Basis, cfg.DOverR0)
-	}
-	_, err = ConfigFor(nil, burst.Optics{Wavelength: def.Wavelength}, 7, Overrides{})
-	if err == nil || !strings.Contains(err.Error(), "CDELT1") || !strings.Contains(err.Error(), "DIVPV") {
-		t.Errorf("missing optics without a site: error %v, want one naming CDELT1 and DIVPV", err)
+	_, err = ConfigFor(instrument.Sources{Header: HeaderInstrument(burst.Optics{Wavelength: def.Wavelength})}, 7)
+	if err == nil || !strings.Contains(err.Error(), "pixel scale") || !strings.Contains(err.Error(), "diversity") {
+		t.Errorf("missing optics without a site: error %v, want one naming the pixel scale and the diversity", err)
 	}
 }
 

@@ -11,6 +11,7 @@ import (
 
 	"gonum.org/v1/gonum/optimize"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 	"pdwave/model/pd"
@@ -40,21 +41,20 @@ type Stop struct {
 
 // Config describes the fit shared by all patches of a burst.
 type Config struct {
-	Telescope   optics.Telescope // D, obscuration, λ, pixel scale
-	DiversityPV []float64        // per channel: defocus, waves peak-to-valley (channel 0 usually 0)
-	Patch       int              // patch side N, pixels
-	Frames      int              // frames per patch
-	Basis       modes.Kind       // zernike or kl
-	Modes       int              // number of modes (piston excluded)
-	// Aperture is the pupil and turbulence the basis and its prior are
-	// built for (modes.NewFor): the central obscuration and L0/D. The zero
-	// value is the clear-aperture Kolmogorov basis of modes.New (the basis
-	// of weights that record no aperture).
-	Aperture modes.Aperture
-	// DOverR0 is the expected D/r0 at the observing wavelength. It sets the
-	// prior variances σ_m² = Variance_m·(D/r0)^(5/3) and the coefficient
-	// scaling of the optimiser. Must be > 0.
-	DOverR0 float64
+	// Instrument is the telescope, channels with their diversity, patch,
+	// modes, basis and expected D/r0 (instrument.Resolve). The basis is
+	// built for the instrument's own pupil and turbulence (modes.NewFor
+	// with Instrument.Aperture); D/r0 sets the prior variances
+	// σ_m² = Variance_m·(D/r0)^(5/3) and the optimiser's scaling.
+	instrument.Instrument
+	// Notes records where each instrument value came from (may be nil).
+	Notes instrument.Notes
+	// BasisFor chooses the aperture the basis is built for: the
+	// instrument's real pupil (RealAperture, the zero value) or the
+	// clear-aperture Kolmogorov basis the network's outputs are in
+	// (ClearAperture, for fits that must share the network's basis).
+	BasisFor instrument.BasisAperture
+	Frames   int // frames per patch
 	// Prior is the weight of the turbulence prior against the metric
 	// normalised by the data power (pd.Settings.PriorWeight); 0 = none.
 	Prior float64
@@ -96,12 +96,11 @@ type Config struct {
 // on the one whose error exceeded the wavefront (4.7).
 func DefaultConfig() Config {
 	return Config{
-		DiversityPV:  []float64{0, 1},
-		Patch:        64,
+		Instrument: instrument.Instrument{
+			Diversity: []float64{0, 1}, Patch: instrument.DefaultPatch, Modes: instrument.DefaultModes,
+			Basis: instrument.DefaultBasis, DOverR0: instrument.DefaultDOverR0,
+		},
 		Frames:       16,
-		Basis:        modes.KindKL,
-		Modes:        36,
-		DOverR0:      5,
 		Prior:        0.001,
 		Metric:       pd.Settings{NoiseFilter: true, TiltConstrain: true, Gamma: 1e-3, Window: 0.25, Detrend: true},
 		Stop:         Stop{Iterations: 200, RelChange: 1e-6},
@@ -200,23 +199,8 @@ type worker struct {
 // returns an error on invalid settings (sampling coarser than Nyquist for
 // the patch, no frames, …).
 func NewFitter(cfg Config) (*Fitter, error) {
-	if err := cfg.Telescope.Validate(); err != nil {
-		return nil, fmt.Errorf("fit: telescope: %w", err)
-	}
-	if cfg.Patch < 8 {
-		return nil, fmt.Errorf("fit: patch size %d too small (need ≥ 8)", cfg.Patch)
-	}
 	if cfg.Frames < 1 {
 		return nil, fmt.Errorf("fit: need at least one frame, got %d", cfg.Frames)
-	}
-	if len(cfg.DiversityPV) < 1 {
-		return nil, errors.New("fit: no channels (DiversityPV is empty)")
-	}
-	if cfg.Modes < 2 {
-		return nil, fmt.Errorf("fit: need at least 2 modes, got %d", cfg.Modes)
-	}
-	if !(cfg.DOverR0 > 0) || math.IsInf(cfg.DOverR0, 0) {
-		return nil, fmt.Errorf("fit: expected D/r0 must be positive, got %g", cfg.DOverR0)
 	}
 	if cfg.Prior < 0 || math.IsNaN(cfg.Prior) {
 		return nil, fmt.Errorf("fit: prior weight must be ≥ 0, got %g", cfg.Prior)
@@ -224,45 +208,20 @@ func NewFitter(cfg Config) (*Fitter, error) {
 	if cfg.Stop.Iterations <= 0 && cfg.Stop.WallTime <= 0 && cfg.Stop.RelChange <= 0 {
 		return nil, errors.New("fit: no stopping rule (iterations, relative change or wall time)")
 	}
-	pup, err := optics.NewPupil(cfg.Telescope, cfg.Patch)
+	bt, err := instrument.Build(cfg.Instrument, cfg.BasisFor)
 	if err != nil {
-		return nil, fmt.Errorf("fit: pupil for %d px patches: %w", cfg.Patch, err)
+		return nil, fmt.Errorf("fit: %w", err)
 	}
-	b, err := modes.NewFor(cfg.Basis, cfg.Modes, cfg.Patch, pup.Radius, cfg.Aperture)
-	if err != nil {
-		return nil, fmt.Errorf("fit: %s basis: %w", cfg.Basis, err)
-	}
-	f := &Fitter{cfg: cfg, pupil: pup, basis: b}
-	for k, pv := range cfg.DiversityPV {
-		if math.IsNaN(pv) || math.IsInf(pv, 0) {
-			return nil, fmt.Errorf("fit: diversity of channel %d is %g", k, pv)
-		}
-		if pv == 0 {
-			f.div = append(f.div, nil)
-			continue
-		}
-		d := make([]float64, cfg.Patch*cfg.Patch)
-		pup.Defocus(d, pv)
-		f.div = append(f.div, d)
-	}
+	f := &Fitter{cfg: cfg, pupil: bt.Pupil, basis: bt.Basis, div: bt.Diversity,
+		chiVar: bt.Variance, scale: bt.Scale}
 	f.cfg.Metric.PriorWeight = cfg.Prior
-	f.tiltX, f.tiltY = tiltPerPixel(b)
-	for k, pv := range cfg.DiversityPV {
-		if math.Abs(pv) < math.Abs(cfg.DiversityPV[f.refCh]) {
+	f.tiltX, f.tiltY = tiltPerPixel(bt.Basis)
+	for k, pv := range cfg.Diversity {
+		if math.Abs(pv) < math.Abs(cfg.Diversity[f.refCh]) {
 			f.refCh = k
 		}
 	}
-	f.sigma2 = pd.KolmogorovPrior(b, cfg.DOverR0)
-	fac := math.Pow(cfg.DOverR0, 5.0/3)
-	f.scale = make([]float64, b.Count)
-	f.chiVar = make([]float64, b.Count)
-	for m := range f.scale {
-		f.chiVar[m] = b.Variance[m] * fac
-		f.scale[m] = math.Sqrt(b.Variance[m] * fac)
-		if !(f.scale[m] > 0) {
-			f.scale[m] = 1
-		}
-	}
+	f.sigma2 = pd.KolmogorovPrior(bt.Basis, cfg.DOverR0)
 	return f, nil
 }
 
@@ -273,7 +232,7 @@ func (f *Fitter) Basis() *modes.Basis { return f.basis }
 func (f *Fitter) Pupil() *optics.Pupil { return f.pupil }
 
 // Diversity returns the diversity phase maps of the channels (rad, N×N,
-// optics.Pupil.Defocus of each DiversityPV; nil for a channel without
+// optics.Pupil.Defocus of each channel's diversity; nil for a channel without
 // diversity). The maps are the fitter's own: callers must not modify them.
 func (f *Fitter) Diversity() [][]float64 { return f.div }
 

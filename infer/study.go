@@ -102,7 +102,7 @@ func StudyScenes(base Config, cases []StudyCase, bursts int, scenes []StudyScene
 	for ci, c := range cases {
 		cfg := base
 		cfg.Patch, cfg.Frames, cfg.DOverR0 = c.Patch, c.Frames, c.DOverR0
-		cfg.DiversityPV = []float64{0, c.DiversityPV}
+		cfg.Diversity = []float64{0, c.DiversityPV}
 		f, err := NewFitter(cfg)
 		if err != nil {
 			return rows, fmt.Errorf("study case %+v: %w", c, err)

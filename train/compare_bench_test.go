@@ -252,7 +252,7 @@ func benchParts(b *testing.B, iter int) (train.Setup, *simulate.Simulator, *infe
 	}
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = setup.Telescope
-	cfg.DiversityPV = []float64{0, setup.DiversityPV}
+	cfg.Diversity = []float64{0, setup.DiversityPV}
 	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
 	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
 	cfg.Stop.Iterations = iter

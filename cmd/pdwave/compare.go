@@ -12,7 +12,7 @@ import (
 	"pdwave/infer"
 	"pdwave/infer/compare"
 	"pdwave/model/burst"
-	"pdwave/model/modes"
+	"pdwave/model/instrument"
 	"pdwave/model/net"
 	"pdwave/model/optics"
 	"pdwave/model/site"
@@ -90,22 +90,17 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	st, ov, err := o.siteAndOverrides()
+	st, src, err := o.sources(cmd, b)
 	if err != nil {
 		return err
 	}
-	fc, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
-	if err != nil {
-		return fmt.Errorf("compare: %w; give a site file (--site)", err)
-	}
-	model, weightsFrom, notes, err := o.loadWeights(fc)
+	model, weightsFrom, err := o.loadWeights()
 	if err != nil {
 		return err
 	}
-	if model != nil {
-		if fc, err = compareSizesFromWeights(model, st, b, ov); err != nil {
-			return err
-		}
+	fc, model, notes, err := compareConfig(src, b.Frames, model, o.weights == "")
+	if err != nil {
+		return fmt.Errorf("compare: %w", err)
 	}
 	if notes, err = o.finishFit(&fc, st, b, notes); err != nil {
 		return err
@@ -162,73 +157,48 @@ func (o compareFlags) check() error {
 	return nil
 }
 
-// siteAndOverrides loads the --site file (nil without one) and collects
-// the size, basis and seeing flags as overrides of the configuration.
-func (o compareFlags) siteAndOverrides() (*site.Site, infer.Overrides, error) {
-	var st *site.Site
+// sources loads the --site file (nil without one) and collects what the
+// flags, the burst header and the site say about the instrument.
+func (o compareFlags) sources(cmd *cobra.Command, b *burst.Burst) (*site.Site, instrument.Sources, error) {
+	src := instrument.Sources{Header: infer.HeaderInstrument(b.Optics)}
 	var err error
+	if src.Flags, err = flagInstrument(cmd.Flags()); err != nil {
+		return nil, src, fmt.Errorf("compare: %w", err)
+	}
+	var st *site.Site
 	if o.site != "" {
 		if st, err = site.Load(o.site); err != nil {
-			return nil, infer.Overrides{}, fmt.Errorf("compare: %s: %w", o.site, err)
+			return nil, src, fmt.Errorf("compare: %s: %w", o.site, err)
 		}
+		src.Site = st.Instrument()
 	}
-	ov := infer.Overrides{Patch: o.patch, Modes: o.modes, DOverR0: o.dOverR0}
-	if o.basis != "" {
-		if ov.Basis, err = modes.ParseKind(o.basis); err != nil {
-			return nil, infer.Overrides{}, fmt.Errorf("compare: %w", err)
-		}
-	}
-	return st, ov, nil
+	return st, src, nil
 }
 
 // loadWeights returns the network to compare and where it came from: the
-// --weights file (an error if it cannot be loaded; a note if it was made
-// for other optics than fc's), else the built-in weights if they fit the
-// optics and the size flags (a note saying why not otherwise), else nil.
-func (o compareFlags) loadWeights(fc infer.Config) (*net.Model, string, []string, error) {
-	tel, div := fc.Telescope, fc.DiversityPV[1]
-	var notes []string
+// --weights file (an error if it cannot be loaded), else the built-in
+// weights.
+func (o compareFlags) loadWeights() (*net.Model, string, error) {
 	if o.weights == "" {
-		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div, Patch: o.patch, Modes: o.modes, Basis: o.basis}
-		m, err := weights.For(want)
-		if err != nil {
-			return nil, "", append(notes, "Built-in weights not used: "+err.Error()), nil
-		}
-		return m, "built-in " + weights.DefaultName, notes, nil
+		m, err := weights.Default()
+		return m, "built-in " + weights.DefaultName, err
 	}
-	model, err := net.Load(o.weights)
-	if err != nil {
-		return nil, "", nil, err
-	}
-	want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div}
-	if err := model.Meta.Compatible(want); err != nil {
-		notes = append(notes, fmt.Sprintf("The weights %s were made for other optics (%v); the learned estimates may be poor.", o.weights, err))
-	}
-	return model, o.weights, notes, nil
+	m, err := net.Load(o.weights)
+	return m, o.weights, err
 }
 
-// compareSizesFromWeights redoes the configuration with the sizes the
-// flags leave open (patch, modes, basis) taken from the weights, so the
-// order is: flag, else the weights', else the site file's, else the
-// defaults.
-func compareSizesFromWeights(model *net.Model, st *site.Site, b *burst.Burst, ov infer.Overrides) (infer.Config, error) {
-	var err error
-	if ov.Patch <= 0 {
-		ov.Patch = model.Meta.Patch
-	}
-	if ov.Modes <= 0 {
-		ov.Modes = model.Arch.Modes
-	}
-	if ov.Basis == "" && model.Meta.Basis != "" {
-		if ov.Basis, err = modes.ParseKind(model.Meta.Basis); err != nil {
-			return infer.Config{}, fmt.Errorf("compare: %w", err)
-		}
-	}
-	fc, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
+// compareConfig resolves the fit configuration with the weights
+// (infer.ConfigWithWeights): built-in weights that do not fit are dropped
+// with a note (model returned nil), weights given with --weights must fit.
+func compareConfig(src instrument.Sources, frames int, model *net.Model, builtin bool) (infer.Config, *net.Model, []string, error) {
+	cfg, used, note, err := infer.ConfigWithWeights(src, frames, model, builtin)
 	if err != nil {
-		return infer.Config{}, fmt.Errorf("compare: %w", err)
+		return cfg, nil, nil, err
 	}
-	return fc, nil
+	if !used {
+		return cfg, nil, []string{"Built-in weights not used: " + note}, nil
+	}
+	return cfg, model, nil, nil
 }
 
 // finishFit sets the fit's iteration budget and prior weight from the
@@ -236,7 +206,7 @@ func compareSizesFromWeights(model *net.Model, st *site.Site, b *burst.Burst, ov
 // the field holds one patch and the patch samples the pupil.
 func (o compareFlags) finishFit(fc *infer.Config, st *site.Site, b *burst.Burst, notes []string) ([]string, error) {
 	fc.Stop.Iterations = o.iterations
-	if st == nil && !(o.dOverR0 > 0) {
+	if fc.Notes["d_over_r0"] == instrument.FromDefault {
 		notes = append(notes, fmt.Sprintf("No site seeing given: the prior assumes D/r0 = %g.", fc.DOverR0))
 	}
 	if !(o.prior >= 0) {

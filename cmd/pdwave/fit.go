@@ -13,7 +13,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
-	"pdwave/model/modes"
+	"pdwave/model/instrument"
 	"pdwave/model/site"
 	"pdwave/simulate"
 )
@@ -130,30 +130,15 @@ func init() {
 	root.AddCommand(fitCmd)
 }
 
-// fitOverrides checks the flags of "pdwave fit" and returns the ones that
-// override the site file and the burst header.
-func fitOverrides(o fitFlags, n int) (infer.Overrides, error) {
-	ov := infer.Overrides{Patch: n, Modes: o.modes, DOverR0: o.dOverR0}
-	if o.modes < 0 {
-		return ov, fmt.Errorf("--modes must not be negative, got %d", o.modes)
-	}
-	if o.basis != "" {
-		k, err := modes.ParseKind(o.basis)
-		if err != nil {
-			return ov, err
-		}
-		ov.Basis = k
-	}
-	if o.dOverR0 != 0 && (!(o.dOverR0 > 0) || math.IsInf(o.dOverR0, 0)) {
-		return ov, fmt.Errorf("--d-over-r0 must be positive, got %g", o.dOverR0)
-	}
+// fitCheck refuses invalid budgets and priors before anything is read.
+func fitCheck(o fitFlags) error {
 	if o.iterations < 1 {
-		return ov, fmt.Errorf("--iterations must be at least 1, got %d", o.iterations)
+		return fmt.Errorf("--iterations must be at least 1, got %d", o.iterations)
 	}
 	if o.prior < 0 || math.IsNaN(o.prior) {
-		return ov, fmt.Errorf("--prior must be ≥ 0, got %g", o.prior)
+		return fmt.Errorf("--prior must be ≥ 0, got %g", o.prior)
 	}
-	return ov, nil
+	return nil
 }
 
 func fitRun(cmd *cobra.Command, args []string) error {
@@ -169,29 +154,31 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	n := st.Sizes.Patch
-	if o.patch != 0 {
-		n = o.patch
+	if err := fitCheck(o); err != nil {
+		return err
 	}
-	if n < 8 {
-		return fmt.Errorf("--patch %d: need at least 8 pixels", n)
+	fl, err := flagInstrument(cmd.Flags())
+	if err != nil {
+		return err
 	}
+	src := instrument.Sources{Flags: fl, Header: infer.HeaderInstrument(b.Optics), Site: st.Instrument()}
+	cfg, err := infer.ConfigFor(src, b.Frames)
+	if err != nil {
+		return fmt.Errorf("%s: %w", args[0], err)
+	}
+	n := cfg.Patch
 	if m := min(b.Nx, b.Ny); n > m {
 		n = m
+		src.Flags.Patch = instrument.Some(n) // the burst caps the patch
+		if cfg, err = infer.ConfigFor(src, b.Frames); err != nil {
+			return fmt.Errorf("%s: %w", args[0], err)
+		}
 	}
 	x0, y0 := (b.Nx-n)/2, (b.Ny-n)/2
 	stderr := cmd.ErrOrStderr()
 	if b.Nx > n || b.Ny > n {
 		fmt.Fprintf(stderr, "burst is %d×%d pixels: fitting its central %d×%d patch at (%d, %d); restore full fields with \"pdwave restore\"\n",
 			b.Nx, b.Ny, n, n, x0, y0)
-	}
-	ov, err := fitOverrides(o, n)
-	if err != nil {
-		return err
-	}
-	cfg, err := infer.ConfigFor(st, b.Optics, b.Frames, ov)
-	if err != nil {
-		return fmt.Errorf("%s: %w", args[0], err)
 	}
 	cfg.Stop.Iterations = o.iterations
 	cfg.Stop.WallTime = o.wall
@@ -271,7 +258,7 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 		return fmt.Errorf("creating %s: %w", o.out, err)
 	}
 	// The study sets patch, frames, diversity and D/r0 per case.
-	cfg, err := infer.ConfigFor(st, burst.Optics{}, 0, infer.Overrides{})
+	cfg, err := infer.ConfigFor(instrument.Sources{Site: st.Instrument()}, 0)
 	if err != nil {
 		return err
 	}

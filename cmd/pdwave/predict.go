@@ -11,6 +11,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -79,31 +80,16 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	opt := b.Optics
+	src := instrument.Sources{Header: infer.HeaderInstrument(b.Optics)}
 	if o.site != "" {
 		st, err := site.Load(o.site)
 		if err != nil {
 			return err
 		}
-		opt = opt.Fill(st.Optics())
+		src.Site = st.Instrument()
 	}
-	var missing []string
-	for _, f := range []struct {
-		v    float64
-		name string
-	}{{opt.Wavelength, "wavelength (WAVELNTH)"}, {opt.PixelScale, "pixel scale (CDELT1/2)"},
-		{opt.Diameter, "aperture (TELDIAM)"}, {opt.DiversityPV, "diversity (DIVPV)"}} {
-		if f.v == 0 {
-			missing = append(missing, f.name)
-		}
-	}
-	if len(missing) > 0 {
-		return fmt.Errorf("predict: %s: optics unknown: %s; add the header keywords or give --site", args[0], strings.Join(missing, ", "))
-	}
-	want := net.Meta{Wavelength: opt.Wavelength, PixelScale: opt.PixelScale, Diameter: opt.Diameter,
-		Obscuration: opt.Obscuration, DiversityPV: opt.DiversityPV}
-	if err := m.Meta.Compatible(want); err != nil {
-		return fmt.Errorf("predict: %s: %w", args[0], err)
+	if _, _, _, err := infer.ConfigWithWeights(src, b.Frames, m, false); err != nil {
+		return fmt.Errorf("predict: %s: %w; add the header keywords or give --site", args[0], err)
 	}
 	n := m.Meta.Patch
 	if b.Nx < n || b.Ny < n {

@@ -114,8 +114,12 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	if o.polish < 0 || o.workers < 0 || o.patch < 0 || o.overlap < -1 {
 		return fmt.Errorf("restore: --patch, --overlap, --polish and --workers must not be negative")
 	}
+	fl, err := flagInstrument(cmd.Flags())
+	if err != nil {
+		return fmt.Errorf("restore: %w", err)
+	}
 	job := &restore.Job{
-		Inputs: args, Pairs: o.pairs, Out: o.out, Patch: o.patch, Overlap: o.overlap,
+		Inputs: args, Pairs: o.pairs, Out: o.out, Flags: fl, Overlap: o.overlap,
 		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,
 		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
 		Command: "pdwave " + strings.Join(os.Args[1:], " "),

@@ -9,6 +9,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
+	"pdwave/model/instrument"
 	"pdwave/train"
 )
 
@@ -131,7 +132,8 @@ type fitReferee struct{ f *infer.Fitter }
 func newFitReferee(s train.Setup) (train.Referee, error) {
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = s.Telescope
-	cfg.DiversityPV = []float64{0, s.DiversityPV}
+	cfg.Diversity = []float64{0, s.DiversityPV}
+	cfg.BasisFor = instrument.ClearAperture // the network's basis
 	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = s.Patch, s.Frames, s.Modes, s.Basis
 	cfg.DOverR0 = s.Telescope.Diameter / s.R0
 	f, err := infer.NewFitter(cfg)

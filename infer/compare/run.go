@@ -445,8 +445,8 @@ func runSettings(cfg Config, f *infer.Fitter, stride, workers, patches int) []Se
 	if cfg.FromZero {
 		start = "zero"
 	}
-	div := make([]string, len(fc.DiversityPV))
-	for k, v := range fc.DiversityPV {
+	div := make([]string, len(fc.Diversity))
+	for k, v := range fc.Diversity {
 		div[k] = fmt.Sprintf("%g", v)
 	}
 	return []Setting{

@@ -101,7 +101,7 @@ func synthBurst(t testing.TB, cfg Config, nx, ny int, seed uint64, noise float64
 		for m := range truth[j] {
 			truth[j][m] = math.Sqrt(bField.Variance[m]*fac) * rng.NormFloat64()
 		}
-		for c, pv := range fc.DiversityPV {
+		for c, pv := range fc.Diversity {
 			bField.Phase(phase, truth[j])
 			if pv != 0 {
 				d := make([]float64, n*n)

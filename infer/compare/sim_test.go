@@ -20,7 +20,7 @@ func simConfig(cfg Config) simulate.Config {
 	fc := cfg.Fit
 	return simulate.Config{
 		Telescope:   fc.Telescope,
-		DiversityPV: fc.DiversityPV[1],
+		DiversityPV: fc.SecondDiversity(),
 		Turbulence: simulate.Turbulence{R0: fc.Telescope.Diameter / fc.DOverR0, L0: 30, Layers: []simulate.Layer{
 			{Height: 0, Weight: 0.6, Speed: 5, Direction: 30 * deg},
 			{Height: 3000, Weight: 0.25, Speed: 12, Direction: 100 * deg},

@@ -17,6 +17,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/net"
 	"pdwave/model/site"
 )
@@ -38,21 +39,23 @@ type Job struct {
 	// ModelOptional marks built-in weights: if they do not fit the data,
 	// the classical fit is used (with a note on Log) instead of an error.
 	ModelOptional bool
-	Patch         int       // 0 = site (or 64)
-	Overlap       int       // < 0 = patch/4
-	Polish        int       // classical iterations after the learned estimate
-	Fit           bool      // full classical fit instead of the learned estimate
-	Dark          string    // dark frame FITS; "" = none
-	Flat          string    // flat frame FITS; "" = none
-	NoAlign       bool      // measure but do not remove the channel offset
-	Offset        *Offset   // known channel offset (pixels) instead of measuring; nil = measure
-	Shard         Shard     // share of the patches to restore; zero = all
-	Resume        bool      // continue from the journal next to Out
-	Workers       int       // goroutines; 0 = all cores
-	Progress      io.Writer // progress lines; nil = silent
-	Log           io.Writer // one-line reports (offset, timing); nil = silent
-	Version       string    // program version for the provenance cards
-	Command       string    // command line for the provenance cards
+	// Flags are the instrument values given on the command line (the
+	// patch side, ...); they take precedence over header, weights and site.
+	Flags    instrument.Partial
+	Overlap  int       // < 0 = patch/4
+	Polish   int       // classical iterations after the learned estimate
+	Fit      bool      // full classical fit instead of the learned estimate
+	Dark     string    // dark frame FITS; "" = none
+	Flat     string    // flat frame FITS; "" = none
+	NoAlign  bool      // measure but do not remove the channel offset
+	Offset   *Offset   // known channel offset (pixels) instead of measuring; nil = measure
+	Shard    Shard     // share of the patches to restore; zero = all
+	Resume   bool      // continue from the journal next to Out
+	Workers  int       // goroutines; 0 = all cores
+	Progress io.Writer // progress lines; nil = silent
+	Log      io.Writer // one-line reports (offset, timing); nil = silent
+	Version  string    // program version for the provenance cards
+	Command  string    // command line for the provenance cards
 }
 
 // Run restores every burst of the job in turn.
@@ -149,41 +152,52 @@ func (j *Job) calibration(nx, ny int) (*Calibration, error) {
 }
 
 // Configure returns the fit configuration and wavefront method for a burst
-// with the given optics and frame count, following the job's settings.
+// with the given header optics and frame count, following the job's
+// settings: the instrument is resolved once (instrument.Resolve over the
+// job's flags, the header, the weights when a network is used, and the
+// site), and the weights are checked against it (instrument.Compatible).
+// Built-in weights (ModelOptional) that do not fit give way to the
+// classical fit with a note on Log.
 func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error) {
-	var cfg infer.Config
-	var err error
+	src := instrument.Sources{Flags: j.Flags, Header: infer.HeaderInstrument(o)}
 	if j.Site != nil {
-		cfg, err = FitConfig(j.Site, o, frames, j.Patch)
-	} else {
-		cfg, err = HeaderConfig(o, frames, j.Patch)
-	}
-	if err != nil {
-		return cfg, Method{}, err
+		src.Site = j.Site.Instrument()
 	}
 	if j.Fit || j.Model == nil {
+		cfg, err := infer.ConfigFor(src, frames)
+		return cfg, Method{Name: "fit"}, j.hint(err)
+	}
+	cfg, used, note, err := infer.ConfigWithWeights(src, frames, j.Model, j.ModelOptional)
+	if err != nil {
+		return cfg, Method{}, j.hint(err)
+	}
+	if !used {
+		if j.Log != nil {
+			fmt.Fprintf(j.Log, "restore: built-in weights not used (%s); classical fit in every patch\n", note)
+		}
 		return cfg, Method{Name: "fit"}, nil
 	}
-	lcfg := LearnedConfig(j.Model, cfg)
-	if j.Patch == 0 && j.Model.Meta.Patch > 0 {
-		lcfg.Patch = j.Model.Meta.Patch
-	}
-	l, err := NewLearned(j.Model, lcfg)
+	l, err := NewLearned(j.Model, cfg)
 	if err != nil {
-		if j.ModelOptional {
-			if j.Log != nil {
-				fmt.Fprintf(j.Log, "restore: built-in weights not used (%v); classical fit in every patch\n", err)
-			}
-			return cfg, Method{Name: "fit"}, nil
-		}
 		return cfg, Method{}, err
 	}
-	cfg = lcfg
 	m := Method{Start: l, Polish: j.Polish, Name: "learned"}
 	if j.Polish > 0 {
 		m.Name = fmt.Sprintf("learned+polish %d", j.Polish)
 	}
 	return cfg, m, nil
+}
+
+// hint adds to a configuration error the advice to give a site file when
+// there is none.
+func (j *Job) hint(err error) error {
+	switch {
+	case err == nil:
+		return nil
+	case j.Site == nil:
+		return fmt.Errorf("restore: %w; give a site file (--site)", err)
+	}
+	return fmt.Errorf("restore: %w", err)
 }
 
 // one restores one burst into out.
@@ -247,7 +261,8 @@ func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Me
 		"frames":    strconv.Itoa(cfg.Frames),
 		"d_over_r0": strconv.FormatFloat(cfg.DOverR0, 'g', 6, 64),
 		"prior":     strconv.FormatFloat(cfg.Prior, 'g', 6, 64),
-		"diversity": strconv.FormatFloat(cfg.DiversityPV[1], 'g', 6, 64),
+		"diversity": strconv.FormatFloat(cfg.SecondDiversity(), 'g', 6, 64),
+		"from":      cfg.Notes.String(),
 		"align":     strconv.FormatBool(!j.NoAlign),
 		"offset":    fmt.Sprintf("%.4f,%.4f", off.DX, off.DY),
 		"offset_by": off.Method,
@@ -275,7 +290,7 @@ func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Me
 		burst.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
 		burst.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
 		burst.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
-		burst.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"},
+		burst.Card{Key: "DIVPV", Value: cfg.SecondDiversity(), Comment: "defocus of channel 2 used, waves PV"},
 		burst.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
 	return &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
 		Basis: string(cfg.Basis), Modes: cfg.Modes, Estimator: method.Name, ShiftX: off.DX, ShiftY: off.DY,

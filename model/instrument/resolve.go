@@ -102,8 +102,9 @@ const (
 // every field: flags, then the burst header, then the weights' metadata,
 // then the site file, then the defaults — the most specific to the data at
 // hand wins. Weights rank above the site because a network runs only with
-// its own patch, modes and basis (and its optics must match the data's
-// anyway, see Compatible).
+// its own patch, modes and basis; callers give as the weights source only
+// those (Partial.Sizes), and check the weights' optics against the
+// resolved instrument with Compatible.
 //
 // Wavelength, pixel scale, diameter and diversity have no default: if no
 // source gives one, Resolve errors naming every missing value. D/r0 comes
@@ -218,4 +219,12 @@ func TelescopeOf(t optics.Telescope) Partial {
 		Obscuration: Some(t.Obscuration), Spiders: Some(t.Spiders), SpiderWidth: Some(t.SpiderWidth),
 		FocalRatio: Some(t.FocalRatio),
 	}
+}
+
+// Sizes returns the part of p that weights metadata contribute to Resolve:
+// the patch, modes and basis (and the site name). The weights' optics
+// describe what the network was made for, not the data: they are checked
+// against the data's (Compatible), never taken for them.
+func (p Partial) Sizes() Partial {
+	return Partial{Patch: p.Patch, Modes: p.Modes, Basis: p.Basis}
 }
