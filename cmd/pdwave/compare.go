@@ -21,19 +21,19 @@ import (
 
 // compareFlags holds the flags of "pdwave compare".
 type compareFlags struct {
-	out        string
-	site       string
-	weights    string
-	polish     int
-	iterations int
-	patch      int
-	stride     int
-	workers    int
-	fromZero   bool
-	modes      int
-	basis      string
-	dOverR0    float64
-	prior      float64
+	out         string
+	site        string
+	weights     string
+	polish      int
+	iterations  int
+	patch       int
+	overlap     int
+	workers     int
+	fromLearned bool
+	modes       int
+	basis       string
+	dOverR0     float64
+	prior       float64
 }
 
 // compareOpts holds the parsed flags of "pdwave compare".
@@ -42,16 +42,17 @@ var compareOpts compareFlags
 var compareCmd = &cobra.Command{
 	Use:   "compare BURST --out DIR",
 	Short: "Compare learned, polished and fitted wavefronts patch by patch",
-	Long: `compare runs three estimates on the same patches of a burst: the learned
+	Long: `compare runs three estimates on the patches restore would restore (the
+same grid: --patch and --overlap as in restore): the learned
 network prediction, the prediction polished with a few classical fit steps,
 and the full classical fit. It writes into the folder DIR the coefficients,
 their differences, the metric of each estimate and the learned/fitted ratio,
 restored contrasts and timings as CSV and JSON, PNG figures, and one
 self-contained HTML page (index.html) that opens offline.
 
-The fit continues from the polished coefficients, so the metric can only
-fall from learned to polished to fitted; --from-zero runs an independent fit
-instead. For simulated bursts of one patch the true coefficients are
+The full fit starts from zero, independent of the network it judges;
+--from-learned continues it from the polished coefficients instead (the
+metric then can only fall from learned to polished to fitted). For simulated bursts of one patch the true coefficients are
 compared as well. Without weights (no --weights and no built-in weights for
 this telescope) the report holds the fit alone and says so.
 
@@ -69,9 +70,9 @@ func init() {
 	f.IntVar(&compareOpts.polish, "polish", 5, "L-BFGS iterations of the polish started from the learned coefficients (0 = no polished estimate)")
 	f.IntVar(&compareOpts.iterations, "iterations", 200, "maximum L-BFGS iterations of the full fit")
 	f.IntVar(&compareOpts.patch, "patch", 0, "patch side, pixels (default: from the weights, else the site file, else 64)")
-	f.IntVar(&compareOpts.stride, "stride", 0, "step between patches, pixels (default: the patch side)")
+	f.IntVar(&compareOpts.overlap, "overlap", -1, "overlap of neighbouring patches, pixels, as in restore (default: a quarter of the patch)")
 	f.IntVar(&compareOpts.workers, "workers", 0, "patches processed in parallel (default: all cores)")
-	f.BoolVar(&compareOpts.fromZero, "from-zero", false, "start the full fit from zero instead of the polished coefficients")
+	f.BoolVar(&compareOpts.fromLearned, "from-learned", false, "continue the full fit from the polished coefficients (default: an independent fit from zero)")
 	f.IntVar(&compareOpts.modes, "modes", 0, "number of modes (default: from the weights, else the site file, else 36)")
 	f.StringVar(&compareOpts.basis, "basis", "", "modal basis zernike|kl (default: from the weights, else the site file, else kl)")
 	f.Float64Var(&compareOpts.dOverR0, "d-over-r0", 0, "expected D/r0 at the observing wavelength for the prior (default: from the site seeing, else 5)")
@@ -151,8 +152,8 @@ func (o compareFlags) check() error {
 	if o.polish < 0 || o.iterations < 1 {
 		return fmt.Errorf("compare: --polish must be ≥ 0 and --iterations ≥ 1 (got %d, %d)", o.polish, o.iterations)
 	}
-	if o.patch < 0 || o.stride < 0 || o.modes < 0 {
-		return errors.New("compare: --patch, --stride and --modes must not be negative")
+	if o.patch < 0 || o.overlap < -1 || o.modes < 0 {
+		return errors.New("compare: --patch, --overlap and --modes must not be negative")
 	}
 	return nil
 }
@@ -244,7 +245,7 @@ func (o compareFlags) learnedEstimator(model *net.Model, fitter *infer.Fitter, n
 func (o compareFlags) config(fc infer.Config, burstPath string, notes []string) compare.Config {
 	abs, _ := filepath.Abs(burstPath)
 	return compare.Config{
-		Fit: fc, Polish: o.polish, FromZero: o.fromZero, Stride: o.stride, Workers: o.workers,
+		Fit: fc, Polish: o.polish, FromLearned: o.fromLearned, Overlap: o.overlap, Workers: o.workers,
 		ExamplePatch: -1, Version: version, Source: abs, Notes: notes,
 		Settings: []compare.Setting{{Key: "command", Value: "pdwave " + strings.Join(os.Args[1:], " ")}},
 	}

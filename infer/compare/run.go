@@ -27,16 +27,18 @@ type Config struct {
 	// Polish is the number of L-BFGS iterations of the polish that starts
 	// from the learned coefficients; 0 leaves out the polished estimate.
 	Polish int
-	// FromZero starts the full fit from zero coefficients, independent of
-	// the network. By default the fit continues from the polished (or,
-	// without polish, the learned) coefficients; since every stage only
-	// accepts points that lower the objective, fitted ≤ polished ≤ learned
-	// then holds by construction. From zero it need not hold, and the
-	// order flag marks the patches where the independent fit ends higher.
-	FromZero bool
-	// Stride is the step between patches, pixels; 0 means Fit.Patch
-	// (adjacent patches). Patches always cover the field up to its edges.
-	Stride int
+	// FromLearned continues the full fit from the polished (or, without
+	// polish, the learned) coefficients. By default the fit starts from
+	// zero, independent of the network it judges; from the learned start,
+	// fitted ≤ polished ≤ learned holds by construction (every stage only
+	// accepts points that lower the objective), and the fit is no longer
+	// an independent reference.
+	FromLearned bool
+	// Overlap is the overlap of neighbouring patches, pixels, on the
+	// tiling restore uses (infer.Grid): compare judges restore's own
+	// patches. < 0 means restore's default (infer.DefaultOverlap); 0 gives
+	// adjacent patches.
+	Overlap int
 	// Workers is the number of patches processed in parallel; ≤ 0 uses
 	// one per core.
 	Workers int
@@ -78,9 +80,13 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		return nil, err
 	}
 	basis := fitter.Basis()
-	stride := cfg.Stride
-	if stride <= 0 {
-		stride = n
+	overlap := cfg.Overlap
+	if overlap < 0 {
+		overlap = infer.DefaultOverlap(n)
+	}
+	grid, err := infer.NewGrid(b.Nx, b.Ny, n, overlap)
+	if err != nil {
+		return nil, fmt.Errorf("compare: %w", err)
 	}
 	workers := cfg.Workers
 	if workers <= 0 {
@@ -97,7 +103,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	r.Methods = methods
 	addMetricNotes(r, cfg)
 
-	jobs := patchJobs(b.Nx, b.Ny, n, stride)
+	jobs := patchJobs(grid)
 	truths, truthNote, err := patchTruths(jobs, cfg, truth, truthNote, basis, constrain)
 	if err != nil {
 		return nil, err
@@ -105,13 +111,13 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	if truthNote != "" {
 		r.Notes = append(r.Notes, truthNote)
 	}
-	w := &patchWork{learned: learned, polisher: polisher, fitter: fitter, fromZero: cfg.FromZero,
+	w := &patchWork{learned: learned, polisher: polisher, fitter: fitter, fromZero: !cfg.FromLearned,
 		methods: methods, constrain: constrain, win: pd.Window(n, fc.Metric.Window)}
 	outs := w.runAll(b, jobs, truths, workers)
 	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
 		return nil, err
 	}
-	return finishReport(r, cfg, fitter, div, stride, workers, len(jobs))
+	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs))
 }
 
 // checkRun rejects a missing burst and settings that cannot describe it:
@@ -239,8 +245,10 @@ func addMetricNotes(r *Report, cfg Config) {
 	if cfg.Fit.Metric.TiltConstrain {
 		r.Notes = append(r.Notes, "The metric cannot see a tip/tilt common to all frames; its burst mean is removed from every set of coefficients before they are compared.")
 	}
-	if cfg.FromZero {
+	if !cfg.FromLearned {
 		r.Notes = append(r.Notes, "The classical fit started from zero coefficients, independent of the network: the order flag marks patches where it ended above the polished estimate.")
+	} else {
+		r.Notes = append(r.Notes, "The classical fit continued from the network's coefficients: it is not an independent reference.")
 	}
 }
 
@@ -248,15 +256,12 @@ func addMetricNotes(r *Report, cfg Config) {
 // origin in the field, pixels.
 type patchJob struct{ idx, x, y int }
 
-// patchJobs lists the n px patches of an nx×ny field, row by row, at the
-// origins of tiles along each axis.
-func patchJobs(nx, ny, n, stride int) []patchJob {
-	xs, ys := tiles(nx, n, stride), tiles(ny, n, stride)
-	var jobs []patchJob
-	for _, y := range ys {
-		for _, x := range xs {
-			jobs = append(jobs, patchJob{len(jobs), x, y})
-		}
+// patchJobs lists the patches of the grid in its order (row by row).
+func patchJobs(g *infer.Grid) []patchJob {
+	jobs := make([]patchJob, g.Count())
+	for id := range jobs {
+		x, y := g.Origin(id)
+		jobs[id] = patchJob{id, x, y}
 	}
 	return jobs
 }
@@ -353,8 +358,8 @@ func meanSpectra(spec [][]float64, nspec int, methods []string, cutoff float64, 
 
 // finishReport adds the run's settings and the caller's settings and
 // notes to r, summarises it and attaches the example figure data.
-func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, stride, workers, patches int) (*Report, error) {
-	r.Settings = append(r.Settings, runSettings(cfg, fitter, stride, workers, patches)...)
+func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, overlap, workers, patches int) (*Report, error) {
+	r.Settings = append(r.Settings, runSettings(cfg, fitter, overlap, workers, patches)...)
 	r.Settings = append(r.Settings, cfg.Settings...)
 	r.Notes = append(r.Notes, cfg.Notes...)
 	if err := Summarise(r); err != nil {
@@ -366,19 +371,6 @@ func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, 
 	}
 	r.Example = ex
 	return r, nil
-}
-
-// tiles returns patch origins along one axis of length size: steps of
-// stride from 0, plus a last patch flush with the far edge.
-func tiles(size, n, stride int) []int {
-	var out []int
-	for p := 0; p+n <= size; p += stride {
-		out = append(out, p)
-	}
-	if last := out[len(out)-1]; last+n < size {
-		out = append(out, size-n)
-	}
-	return out
 }
 
 // truthNative converts a truth table to frames × Count native coefficients
@@ -435,14 +427,14 @@ func truthNative(t *burst.Truth, b *modes.Basis, frames int) ([][]float64, strin
 }
 
 // runSettings lists the provenance of a run.
-func runSettings(cfg Config, f *infer.Fitter, stride, workers, patches int) []Setting {
+func runSettings(cfg Config, f *infer.Fitter, overlap, workers, patches int) []Setting {
 	fc := f.Config()
 	t := fc.Telescope
 	start := "polished coefficients"
 	if cfg.Polish == 0 {
 		start = "learned coefficients"
 	}
-	if cfg.FromZero {
+	if !cfg.FromLearned {
 		start = "zero"
 	}
 	div := make([]string, len(fc.Diversity))
@@ -452,7 +444,7 @@ func runSettings(cfg Config, f *infer.Fitter, stride, workers, patches int) []Se
 	return []Setting{
 		{"telescope", fmt.Sprintf("D = %g m, obscuration %g, λ = %g nm, pixel %.4g arcsec", t.Diameter, t.Obscuration, t.Wavelength*1e9, t.PixelScale*180/math.Pi*3600)},
 		{"diversity (waves PV per channel)", strings.Join(div, ", ")},
-		{"patch", fmt.Sprintf("%d px, stride %d px, %d patches", fc.Patch, stride, patches)},
+		{"patch", fmt.Sprintf("%d px, overlap %d px (restore's grid), %d patches", fc.Patch, overlap, patches)},
 		{"frames", fmt.Sprint(fc.Frames)},
 		{"basis", fmt.Sprintf("%s, %d modes", fc.Basis, fc.Modes)},
 		{"expected D/r0 (prior)", fmt.Sprintf("%g", fc.DOverR0)},

@@ -294,6 +294,7 @@ func TestRunNetEstimator(t *testing.T) {
 	cfg := testConfig(32, 3, 8)
 	cfg.Fit.Stop = infer.Stop{Iterations: 25}
 	cfg.Polish = 3
+	cfg.FromLearned = true // the chained fit: the order must hold
 	b, _ := synthBurst(t, cfg, 64, 64, 4, 1e-3)
 	fit, err := infer.NewFitter(cfg.Fit)
 	if err != nil {
@@ -335,26 +336,23 @@ func TestRunNetEstimator(t *testing.T) {
 	}
 }
 
-func TestTiles(t *testing.T) {
-	cases := []struct {
-		size, n, stride int
-		want            []int
-	}{
-		{64, 64, 64, []int{0}},
-		{128, 64, 64, []int{0, 64}},
-		{100, 64, 64, []int{0, 36}},
-		{128, 64, 32, []int{0, 32, 64}},
+// TestPatchesAreRestores checks that compare judges restore's own patches:
+// its jobs are the origins of infer.Grid with the same patch and overlap,
+// in the same order. Planted: compare's former tiling (stride = patch,
+// no overlap) gives 9 patches instead of 16 on a 200 px field.
+func TestPatchesAreRestores(t *testing.T) {
+	g, err := infer.NewGrid(200, 150, 64, 16)
+	if err != nil {
+		t.Fatal(err)
 	}
-	for _, c := range cases {
-		got := tiles(c.size, c.n, c.stride)
-		if len(got) != len(c.want) {
-			t.Errorf("tiles(%d,%d,%d) = %v, want %v", c.size, c.n, c.stride, got, c.want)
-			continue
-		}
-		for i := range got {
-			if got[i] != c.want[i] {
-				t.Errorf("tiles(%d,%d,%d) = %v, want %v", c.size, c.n, c.stride, got, c.want)
-			}
+	jobs := patchJobs(g)
+	if len(jobs) != g.Count() || len(jobs) != 4*3 {
+		t.Fatalf("%d jobs, want the grid's %d (4×3)", len(jobs), g.Count())
+	}
+	for id, jb := range jobs {
+		x, y := g.Origin(id)
+		if jb.idx != id || jb.x != x || jb.y != y {
+			t.Errorf("job %d at (%d, %d), restore's patch %d is at (%d, %d)", jb.idx, jb.x, jb.y, id, x, y)
 		}
 	}
 }
