@@ -28,8 +28,8 @@ type Job struct {
 	Basis      string  // "" = the site's
 	Workers    int     // 0 = all cores
 	LR         float64 // 0 uses 3e-3
-	Prior      float64 // prior weight; 0 uses 0.01
-	Gamma      float64 // noise-filter regulariser of the metric; 0 uses 1e-6 (the fitter uses 1e-3)
+	Prior      float64 // prior weight; 0 uses the fit's (pd.DefaultSettings)
+	Gamma      float64 // noise-filter regulariser of the metric; 0 uses the fit's (pd.DefaultSettings)
 	Init       string  // weights file to start from (fine-tuning); "" = fresh weights from Seed
 	Conv       []int   // channels of the convolutions; nil = net.DefaultArch's (ignored with Init)
 	Hidden     int     // per-frame feature count; 0 = net.DefaultArch's

@@ -96,8 +96,9 @@ func newProblem(s Setup, priorWeight, gamma float64) (*problem, error) {
 		setup: s, pupil: pupil, basis: basis,
 		diversity: [][]float64{nil, div},
 		prior:     pd.KolmogorovPrior(basis, dr),
-		settings:  pd.Settings{PriorWeight: priorWeight, NoiseFilter: true, TiltConstrain: true, Gamma: gamma},
+		settings:  pd.DefaultSettings(),
 	}
+	p.settings.PriorWeight, p.settings.Gamma = priorWeight, gamma // the fit's objective, with the run's weights
 	f := math.Pow(dr, 5.0/3)
 	p.scale = make([]float64, s.Modes)
 	for m := range p.scale {

@@ -19,13 +19,13 @@ type Config struct {
 	Warmup      int        // steps of linear warm-up; 0 uses min(100, Steps/10)
 	MinLR       float64    // final step size as a fraction of LR (cosine decay); 0 uses 0.05
 	ClipNorm    float64    // clip the global gradient norm to this; 0 = no clipping
-	PriorWeight float64    // weight of the Kolmogorov prior against the normalised metric; 0 uses 0.01
+	PriorWeight float64    // weight of the Kolmogorov prior against the normalised metric; 0 uses the fit's (pd.DefaultSettings)
 	WarmStart   int        // first steps supervised on simulated truth (needs truth); 0 = none
 	Seed        uint64     // weights, data order
 	Workers     int        // goroutines for the per-burst work; 0 = all cores
 	Arch        *net.Arch  // nil uses net.DefaultArch(Modes); ignored with Init
 	Init        *net.Model `json:"-"` // start from these weights (fine-tuning) instead of drawing them from Seed; must match the setup; not kept in checkpoints (they hold the weights)
-	Gamma       float64    // noise-filter regulariser of the metric (pd.Settings.Gamma); 0 uses 1e-6
+	Gamma       float64    // noise-filter regulariser of the metric (pd.Settings.Gamma); 0 uses the fit's (pd.DefaultSettings)
 	Reuse       int        // uses of each simulated burst (Job's data stream; recorded for resume)
 	Data        SimData    // how simulated bursts vary (Job's data stream; recorded for resume); zero for runs from before the setting
 }
@@ -44,10 +44,10 @@ func (c *Config) fill() error {
 		c.MinLR = 0.05
 	}
 	if c.PriorWeight == 0 {
-		c.PriorWeight = 0.01
+		c.PriorWeight = pd.DefaultSettings().PriorWeight
 	}
 	if c.Gamma == 0 {
-		c.Gamma = 1e-6
+		c.Gamma = pd.DefaultSettings().Gamma
 	}
 	if c.Workers <= 0 {
 		c.Workers = runtime.GOMAXPROCS(0)

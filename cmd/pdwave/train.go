@@ -10,6 +10,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/instrument"
+	"pdwave/model/pd"
 	"pdwave/train"
 )
 
@@ -60,8 +61,8 @@ func init() {
 	f.StringVar(&o.Basis, "basis", "", "zernike or kl (default: the site's)")
 	f.IntVar(&o.Workers, "workers", 0, "worker goroutines (default: all cores)")
 	f.Float64Var(&o.LR, "lr", 3e-3, "peak learning rate (Adam)")
-	f.Float64Var(&o.Prior, "prior", 0.01, "weight of the turbulence prior in the loss")
-	f.Float64Var(&o.Gamma, "gamma", 1e-6, "noise-filter regulariser of the metric, relative to the image count (the fitter uses 1e-3)")
+	f.Float64Var(&o.Prior, "prior", pd.DefaultSettings().PriorWeight, "weight of the turbulence prior in the loss (default: the fit's)")
+	f.Float64Var(&o.Gamma, "gamma", pd.DefaultSettings().Gamma, "regulariser of the metric's object estimate, relative to the image count (default: the fit's)")
 	f.StringVar(&o.Init, "init", "", "weights file to start from (fine-tuning, e.g. on your own bursts with --data); default: fresh weights from --seed")
 	f.IntSliceVar(&o.Conv, "conv", nil, "channels of the network's stride-2 convolutions, e.g. 16,32,64 (default 8,16,32)")
 	f.IntVar(&o.Hidden, "hidden", 0, "per-frame features of the network (default 64)")
