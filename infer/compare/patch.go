@@ -30,6 +30,28 @@ type patchWork struct {
 	methods   []string
 	constrain func([][]float64) [][]float64
 	win       []float64 // n×n apodisation of the metric's data
+	// ref is the diffraction-limited true object over the field
+	// (infer.DiffractionLimited; refNx columns), nil when unknown.
+	ref   []float64
+	refNx int
+}
+
+// imageError scores a restored patch at (x, y) against the reference
+// (infer.ScoreImage over the central half: the window is flat there);
+// nil without a reference or when the score is undefined.
+func (w *patchWork) imageError(img []float64, x, y, n int) *float64 {
+	if w.ref == nil {
+		return nil
+	}
+	cut := make([]float64, n*n)
+	for r := 0; r < n; r++ {
+		copy(cut[r*n:r*n+n], w.ref[(y+r)*w.refNx+x:])
+	}
+	sc, err := infer.ScoreImage(img, cut, n, n, n/4, max(1, n/16))
+	if err != nil {
+		return nil
+	}
+	return &sc.Error
 }
 
 // runAll computes every job's patch on workers goroutines, each with its
@@ -72,6 +94,7 @@ func (w *patchWork) run(data [][][]float64, jb patchJob, truth [][]float64, plan
 	avg, level := apodisedAverage(data[0], w.win)
 	sc := newScorer(n, level, plan)
 	out.patch.RawContrast = sc.contrast(avg)
+	out.patch.RawImageError = w.imageError(avg, jb.x, jb.y, n)
 	out.spectra = append(out.spectra, sc.spectrum(avg))
 	for _, m := range w.methods {
 		e := ests[m]
@@ -87,6 +110,7 @@ func (w *patchWork) run(data [][][]float64, jb patchJob, truth [][]float64, plan
 			return out
 		}
 		e.Contrast = sc.contrast(img)
+		e.ImageError = w.imageError(img, jb.x, jb.y, n)
 		if m != Truth {
 			out.spectra = append(out.spectra, sc.spectrum(img))
 		}

@@ -63,6 +63,10 @@ type Estimate struct {
 	// Iterations counts optimiser iterations spent in this stage (0 for a
 	// prediction or the truth).
 	Iterations int `json:"iterations"`
+	// ImageError is the error of the restored patch against the
+	// diffraction-limited true object (infer.ScoreImage over the patch's
+	// central half); nil unless the burst carries its OBJECT.
+	ImageError *float64 `json:"image_error,omitempty"`
 }
 
 // Patch is one patch of the field with the estimates of every method.
@@ -74,6 +78,9 @@ type Patch struct {
 	// RawContrast is the rms/mean of the frame-averaged focused data,
 	// apodised the same way as the restorations.
 	RawContrast float64 `json:"raw_contrast"`
+	// RawImageError is ImageError of the frame-averaged focused data; nil
+	// unless the burst carries its OBJECT.
+	RawImageError *float64 `json:"raw_image_error,omitempty"`
 	// Estimates holds one entry per method, in Report.Methods order; the
 	// truth, when known, is an Estimate with Method == Truth.
 	Estimates []Estimate `json:"estimates"`
@@ -198,6 +205,9 @@ type Summary struct {
 	RMSDiff []float64 `json:"rms_diff"`
 	// FlagCount counts patches per flag.
 	FlagCount map[string]int `json:"flag_count"`
+	// ImageError maps "raw" and each method with image errors to the
+	// median over patches of their ImageError (simulated bursts only).
+	ImageError map[string]float64 `json:"image_error,omitempty"`
 }
 
 // Quality flags raised per patch by Summarise.
@@ -325,8 +335,34 @@ func Summarise(r *Report) error {
 			s.FlagCount[f]++
 		}
 	}
+	s.ImageError = medianImageErrors(r)
 	r.Summary = s
 	return nil
+}
+
+// medianImageErrors returns the median ImageError over patches of the raw
+// average and of each method that has one (nil when none has).
+func medianImageErrors(r *Report) map[string]float64 {
+	vals := map[string][]float64{}
+	for _, p := range r.Patches {
+		if p.RawImageError != nil {
+			vals["raw"] = append(vals["raw"], *p.RawImageError)
+		}
+		for _, e := range p.Estimates {
+			if e.ImageError != nil {
+				vals[e.Method] = append(vals[e.Method], *e.ImageError)
+			}
+		}
+	}
+	if len(vals) == 0 {
+		return nil
+	}
+	out := map[string]float64{}
+	for k, v := range vals {
+		sort.Float64s(v)
+		out[k] = stat.Quantile(0.5, stat.Empirical, v, nil)
+	}
+	return out
 }
 
 // comparisonPairs lists the differences the summary reports: every

@@ -113,6 +113,13 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	}
 	w := &patchWork{learned: learned, polisher: polisher, fitter: fitter, fromZero: !cfg.FromLearned,
 		methods: methods, constrain: constrain, win: pd.Window(n, fc.Metric.Window)}
+	if b.Object != nil {
+		if w.ref, err = infer.DiffractionLimited(b.Object, b.Nx, b.Ny, fc.Telescope); err != nil {
+			return nil, fmt.Errorf("compare: %w", err)
+		}
+		w.refNx = b.Nx
+		r.Notes = append(r.Notes, "Image errors compare each restored patch with the true object seen through the perfect telescope (diffraction-limited), after registration, over the patch's central half: rms of the difference of the mean-normalised images over the rms fluctuation of the reference (0 = exact, 1 = no better than a flat image; over-restoration counts).")
+	}
 	outs := w.runAll(b, jobs, truths, workers)
 	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
 		return nil, err

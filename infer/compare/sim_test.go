@@ -118,4 +118,13 @@ func TestRunSimulateField(t *testing.T) {
 	for _, p := range r.Patches {
 		t.Logf("patch %d: fitted %.4g truth %.4g, rms error %.3g of %.3g rad", p.Index, p.Find(Fitted).Metric, p.Find(Truth).Metric, rmsDiff(p.Find(Fitted).Coeffs, p.Find(Truth).Coeffs), rmsDiff(p.Find(Truth).Coeffs, nil))
 	}
+	// Scoring against the true object: the restoration with the true
+	// wavefront must beat the raw average by a clear margin (planted: a
+	// reference made from the raw data instead of the object scores the raw
+	// average near 0 and fails).
+	ie := r.Summary.ImageError
+	t.Logf("image error: %v", ie)
+	if len(ie) != 3 || !(ie[Truth] < 0.8*ie["raw"]) || !(ie[Fitted] < ie["raw"]) {
+		t.Errorf("image errors %v: want raw, fitted and truth, the restorations below the raw average", ie)
+	}
 }
