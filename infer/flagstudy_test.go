@@ -1,0 +1,111 @@
+package infer
+
+import (
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"strconv"
+	"testing"
+
+	"pdwave/model/instrument"
+	"pdwave/model/site"
+	"pdwave/simulate"
+	"pdwave/weights"
+)
+
+// TestFlagStudy is the calibration study of the learned-estimate quality
+// flag, run only with PDWAVE_FLAG_STUDY=N (N bursts per scene set, seed
+// from PDWAVE_FLAG_SEED, default 1). Over bursts of the demo site on the
+// scene mix and on granulation, it records per burst the errors (Noll
+// 2–21, fraction of the true variance) of the learned, 2-step and 5-step
+// polished and fully fitted wavefronts, and the candidate statistics:
+// objective ratios learned/polished and learned/fitted, and the prior chi²
+// of the learned estimate. It writes one CSV line per burst to stdout.
+func TestFlagStudy(t *testing.T) {
+	n, _ := strconv.Atoi(os.Getenv("PDWAVE_FLAG_STUDY"))
+	if n <= 0 {
+		t.Skip("set PDWAVE_FLAG_STUDY=N to run the flag calibration study")
+	}
+	seed, _ := strconv.ParseUint(os.Getenv("PDWAVE_FLAG_SEED"), 10, 64)
+	st, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	model, err := weights.Default()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg, used, note, err := ConfigWithWeights(instrument.Sources{Site: st.Instrument()}, 16, model, false)
+	if err != nil || !used {
+		t.Fatal(err, note)
+	}
+	full, err := NewFitter(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	polish := [2]*Fitter{}
+	for i, k := range []int{2, 5} {
+		pc := cfg
+		pc.Stop = Stop{Iterations: k}
+		pc.Chi2Limit = 0
+		if polish[i], err = NewFitter(pc); err != nil {
+			t.Fatal(err)
+		}
+	}
+	est, err := NewNetEstimator(model, full.Basis())
+	if err != nil {
+		t.Fatal(err)
+	}
+	scenes, err := SimulatedStudyScenes(simulate.ConfigFromSite(st), "mix,granulation", shippedImages)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fmt.Println("scene,d_over_r0,err_learned,err_polish2,err_polish5,err_fit,e_learned,e_polish2,e_polish5,e_fit,chi2_learned")
+	for si, sc := range scenes {
+		for b := 0; b < n; b++ {
+			rng := rand.New(rand.NewPCG(1000+seed, uint64(si)<<20|uint64(b)))
+			c := StudyCase{DOverR0: 3 + 4*rng.Float64(), Patch: 64, Frames: 16, DiversityPV: 1}
+			data, truth, err := sc.Source(c, rng)
+			if err != nil {
+				t.Fatal(err)
+			}
+			line, err := flagStudyBurst(data, truth, est, full, polish)
+			if err != nil {
+				t.Logf("burst %d of %s: %v", b, sc.Name, err)
+				continue
+			}
+			fmt.Printf("%s,%.3f,%s\n", sc.Name, c.DOverR0, line)
+		}
+	}
+}
+
+// flagStudyBurst returns the CSV fields of one burst of TestFlagStudy.
+func flagStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, full *Fitter, polish [2]*Fitter) (string, error) {
+	cl, err := est.Estimate(data)
+	if err != nil {
+		return "", err
+	}
+	var errs, objs [4]float64
+	for i, f := range []*Fitter{polish[0], polish[1], full} {
+		start := cl
+		if f == full {
+			start = nil
+		}
+		r, err := f.Fit(data, start)
+		if err != nil {
+			return "", err
+		}
+		if i == 0 {
+			objs[0] = r.MetricStart
+			if errs[0], err = ResidualFraction(r.StartNoll, truth, 21); err != nil {
+				return "", err
+			}
+		}
+		objs[i+1] = r.MetricEnd
+		if errs[i+1], err = ResidualFraction(r.Noll, truth, 21); err != nil {
+			return "", err
+		}
+	}
+	return fmt.Sprintf("%.5g,%.5g,%.5g,%.5g,%.6g,%.6g,%.6g,%.6g,%.4g", errs[0], errs[1], errs[2], errs[3],
+		objs[0], objs[1], objs[2], objs[3], full.PriorChi2(cl)), nil
+}
