@@ -3,6 +3,7 @@ package train
 import (
 	"fmt"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/site"
 	"pdwave/simulate"
@@ -12,32 +13,24 @@ import (
 // site file. modes (0 = the site's) and basis ("" = the site's) override the
 // site's sizes.
 func FromSite(s *site.Site, nmodes int, basis modes.Kind) (Setup, simulate.Config, error) {
-	if nmodes == 0 {
-		nmodes = s.Sizes.Modes
+	var flags instrument.Partial
+	if nmodes != 0 {
+		flags.Modes = instrument.Some(nmodes)
 	}
-	if basis == "" {
-		basis = s.Sizes.Basis
+	if basis != "" {
+		flags.Basis = instrument.Some(basis)
+	}
+	sc, _, err := simulate.ConfigFromSite(s, flags)
+	if err != nil {
+		return Setup{}, sc, fmt.Errorf("site: %w", err)
 	}
 	name := s.Tel.Name
 	if name == "" {
 		name = "unnamed site"
 	}
 	su := Setup{
-		Site: name, Telescope: s.Telescope(), DiversityPV: s.DiversityPV(), R0: s.R0Median(),
-		Patch: s.Sizes.Patch, Frames: s.Sizes.Frames, Modes: nmodes, Basis: basis,
-	}
-	var layers []simulate.Layer
-	for _, l := range s.Seeing.Layers {
-		layers = append(layers, simulate.Layer{Height: l.HeightM, Weight: l.Weight, Speed: l.WindMS, Direction: l.WindDirection()})
-	}
-	sc := simulate.Config{
-		Telescope:     su.Telescope,
-		DiversityPV:   su.DiversityPV,
-		Turbulence:    simulate.Turbulence{R0: su.R0, L0: s.OuterScale(), Layers: layers},
-		FrameInterval: s.Camera.FrameIntervalS,
-		Camera: simulate.Camera{Photons: s.Camera.PhotonsPerPixel, ReadNoise: s.Camera.ReadNoiseE,
-			Bits: s.Camera.BitDepth, Gain: s.Camera.GainEPerADU},
-		Patch: su.Patch, Frames: su.Frames, Basis: basis, Modes: nmodes,
+		Site: name, Telescope: sc.Telescope, DiversityPV: sc.SecondDiversity(), R0: s.R0Median(),
+		Patch: sc.Patch, Frames: sc.Frames, Modes: sc.Modes, Basis: sc.Basis,
 	}
 	if err := su.Validate(); err != nil {
 		return su, sc, fmt.Errorf("site: %w", err)

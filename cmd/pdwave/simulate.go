@@ -13,6 +13,8 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
+	"pdwave/model/modes"
 	"pdwave/model/site"
 	"pdwave/simulate"
 )
@@ -157,7 +159,10 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return err
 	}
-	cfg := simulate.ConfigFromSite(st)
+	cfg, notes, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		return fmt.Errorf("simulate: site %s: %w", o.site, err)
+	}
 	if o.frames > 0 {
 		cfg.Frames = o.frames
 	}
@@ -197,7 +202,7 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 			return fmt.Errorf("simulate: burst %d: %w", i, err)
 		}
 		b := res.Burst
-		prov := simulateHeader(o, cfg, kind, i, res)
+		prov := simulateHeader(o, cfg, notes, kind, i, res)
 		name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
 		if err := burst.Write(name, b, prov); err != nil {
 			return err
@@ -216,9 +221,12 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 }
 
 // simulateHeader adds the simulation cards (SIMR0, SIMSEED, SIMBURST,
-// SIMSCENE) to burst i of res and returns its provenance cards (all
-// settings as HISTORY).
-func simulateHeader(o simulateFlags, cfg simulate.Config, kind string, i int, res *simulate.Result) []burst.Card {
+// SIMSCENE) to burst i of res and returns its provenance cards (as
+// HISTORY: the instrument's settings, instrument.Instrument.Settings, with
+// "sources" saying where each came from, and the simulation's own; the
+// site file is "site_file", and "basis_for" the clear aperture of the
+// truth's basis).
+func simulateHeader(o simulateFlags, cfg simulate.Config, notes instrument.Notes, kind string, i int, res *simulate.Result) []burst.Card {
 	b := res.Burst
 	b.Cards = append(b.Cards,
 		burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
@@ -226,23 +234,26 @@ func simulateHeader(o simulateFlags, cfg simulate.Config, kind string, i int, re
 		burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
 		burst.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
 	)
-	settings := map[string]string{
+	settings := cfg.Settings()
+	for k, v := range map[string]string{
 		"verb":         "simulate",
-		"site":         o.site,
+		"sources":      notes.String(),
+		"site_file":    o.site,
 		"seed":         strconv.FormatUint(o.seed, 10),
 		"burst":        strconv.Itoa(i),
 		"kind":         kind,
 		"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
 		"frames":       strconv.Itoa(cfg.Frames),
 		"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
-		"patch":        strconv.Itoa(cfg.Patch),
-		"basis":        string(cfg.Basis),
-		"modes":        strconv.Itoa(cfg.Modes),
 		"subharmonics": "true",
 		"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
 		"scene":        o.scene,
 		"scene_drawn":  res.Scene,
+	} {
+		settings[k] = v
 	}
+	// The truth is in the clear-aperture basis (simulate.Simulator.Truth).
+	settings["basis_for"] = instrument.ApertureText(modes.Aperture{})
 	if o.object != "" {
 		settings["object"] = o.object
 		delete(settings, "contrast")
@@ -312,7 +323,11 @@ func simulateScreenRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return err
 	}
-	p, err := simulate.ScreenParamsFor(simulate.ConfigFromSite(st), o.size, o.pixel, o.r0, !o.noSub)
+	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
+	}
+	p, err := simulate.ScreenParamsFor(cfg, o.size, o.pixel, o.r0, !o.noSub)
 	if err != nil {
 		return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
 	}
