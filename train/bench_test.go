@@ -27,7 +27,8 @@ func demoConfig(modes_ int) (Setup, simulate.Config) {
 		Camera:        simulate.Camera{Photons: 10000, ReadNoise: 5, Bits: 16},
 		Frames:        16,
 	}
-	su := Setup{Site: "demo", Telescope: tel, DiversityPV: 1, R0: r0, Patch: 64, Frames: 16, Modes: modes_, Basis: modes.KindKL}
+	su := Setup{Instrument: sc.Instrument, Frames: 16}
+	su.Site, su.DOverR0 = "demo", tel.Diameter/r0
 	return su, sc
 }
 
@@ -38,7 +39,7 @@ func BenchmarkSimulateBurst(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	src, err := NewSimSource(sim, su, 1, LogNormalR0(su.R0, 1.3))
+	src, err := NewSimSource(sim, su, 1, LogNormalR0(sc.Turbulence.R0, 1.3))
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -58,7 +59,7 @@ func BenchmarkStepDemo(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	src, err := NewSimSource(sim, su, 1, LogNormalR0(su.R0, 1.3))
+	src, err := NewSimSource(sim, su, 1, LogNormalR0(sc.Turbulence.R0, 1.3))
 	if err != nil {
 		b.Fatal(err)
 	}

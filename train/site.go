@@ -10,8 +10,10 @@ import (
 )
 
 // FromSite returns the training setup and the simulator configuration of a
-// site file. modes (0 = the site's) and basis ("" = the site's) override the
-// site's sizes.
+// site file, both holding the one instrument simulate.ConfigFromSite
+// resolves (so the simulated bursts and the metric share optics, channels,
+// sizes and the median D/r0). modes (0 = the site's) and basis ("" = the
+// site's) are given as flags over the site's sizes.
 func FromSite(s *site.Site, nmodes int, basis modes.Kind) (Setup, simulate.Config, error) {
 	var flags instrument.Partial
 	if nmodes != 0 {
@@ -24,14 +26,7 @@ func FromSite(s *site.Site, nmodes int, basis modes.Kind) (Setup, simulate.Confi
 	if err != nil {
 		return Setup{}, sc, fmt.Errorf("site: %w", err)
 	}
-	name := s.Tel.Name
-	if name == "" {
-		name = "unnamed site"
-	}
-	su := Setup{
-		Site: name, Telescope: sc.Telescope, DiversityPV: sc.SecondDiversity(), R0: s.R0Median(),
-		Patch: sc.Patch, Frames: sc.Frames, Modes: sc.Modes, Basis: sc.Basis,
-	}
+	su := Setup{Instrument: sc.Instrument, Frames: sc.Frames}
 	if err := su.Validate(); err != nil {
 		return su, sc, fmt.Errorf("site: %w", err)
 	}

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"slices"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -58,7 +59,7 @@ func init() {
 	f.IntVar(&o.Modes, "modes", 0, "wavefront modes to estimate (default: the site's)")
 	f.StringVar(&o.Basis, "basis", "", "zernike or kl (default: the site's)")
 	f.IntVar(&o.Workers, "workers", 0, "worker goroutines (default: all cores)")
-	f.Float64Var(&o.LR, "lr", 3e-3, "peak learning rate (Adam)")
+	f.Float64Var(&o.LR, "lr", train.DefaultLR, "peak learning rate (Adam)")
 	f.Float64Var(&o.Prior, "prior", 0.01, "weight of the turbulence prior in the loss")
 	f.Float64Var(&o.Gamma, "gamma", 1e-6, "noise-filter regulariser of the metric, relative to the image count (the fitter uses 1e-3)")
 	f.StringVar(&o.Init, "init", "", "weights file to start from (fine-tuning, e.g. on your own bursts with --data); default: fresh weights from --seed")
@@ -131,9 +132,9 @@ type fitReferee struct{ f *infer.Fitter }
 func newFitReferee(s train.Setup) (train.Referee, error) {
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = s.Telescope
-	cfg.DiversityPV = []float64{0, s.DiversityPV}
+	cfg.DiversityPV = slices.Clone(s.Diversity)
 	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = s.Patch, s.Frames, s.Modes, s.Basis
-	cfg.DOverR0 = s.Telescope.Diameter / s.R0
+	cfg.DOverR0 = s.DOverR0
 	f, err := infer.NewFitter(cfg)
 	if err != nil {
 		return nil, fmt.Errorf("train: classical fit for validation: %w", err)
