@@ -124,10 +124,9 @@ func newToyTrainer(t *testing.T, cfg Config) (*Trainer, toySource) {
 // phase-diversity objective on a held-out set: the network learns to read
 // wavefronts from the images without truth.
 func TestTrainingLowersLoss(t *testing.T) {
+	// 60 steps also with -short: 40 steps (the former short run) lower the
+	// loss by only 0.15 of the gap (3.678 → 3.271, truth 1.011) and fail.
 	steps := 60
-	if testing.Short() {
-		steps = 40
-	}
 	tr, src := newToyTrainer(t, Config{Steps: steps, Batch: 4, LR: 1e-2, Warmup: 5, Seed: 1, Workers: 2})
 	defer tr.Close()
 	val, err := FetchSet(toySource{prob: src.prob, seed: 99}, 12)
