@@ -190,7 +190,10 @@ func (o compareFlags) loadWeights(fc infer.Config) (*net.Model, string, []string
 	var notes []string
 	if o.weights == "" {
 		want := net.Meta{Diameter: tel.Diameter, Obscuration: tel.Obscuration, Wavelength: tel.Wavelength, PixelScale: tel.PixelScale, DiversityPV: div, Patch: o.patch, Modes: o.modes, Basis: o.basis}
-		m, err := weights.For(want)
+		m, err := weights.Default()
+		if err == nil {
+			err = m.Meta.Compatible(want)
+		}
 		if err != nil {
 			return nil, "", append(notes, "Built-in weights not used: "+err.Error()), nil
 		}
