@@ -7,6 +7,7 @@ import (
 	"strings"
 	"testing"
 
+	"pdwave/model/instrument"
 	"pdwave/model/optics"
 	"pdwave/model/site"
 	"pdwave/simulate"
@@ -27,7 +28,11 @@ func demoSource(tb testing.TB) BurstSource {
 	if err != nil {
 		tb.Fatal(err)
 	}
-	return SimulatedSource(simulate.ConfigFromSite(st))
+	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return SimulatedSource(cfg)
 }
 
 // BenchmarkFit: full fit from zero of one demo burst (64 px, 16 frames ×
@@ -278,7 +283,10 @@ func TestRestoreSharpens(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	scfg := simulate.ConfigFromSite(st)
+	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
 	scfg.Turbulence.R0 = scfg.Telescope.Diameter / 5
 	scfg.Basis, scfg.Modes = "zernike", 20
 	sim, err := simulate.New(scfg)

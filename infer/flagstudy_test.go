@@ -56,7 +56,11 @@ func TestFlagStudy(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	scenes, err := SimulatedStudyScenes(simulate.ConfigFromSite(st), "mix,granulation", shippedImages)
+	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	scenes, err := SimulatedStudyScenes(scfg, "mix,granulation", shippedImages)
 	if err != nil {
 		t.Fatal(err)
 	}

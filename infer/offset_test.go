@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"pdwave/model/fft"
+	"pdwave/model/instrument"
 	"pdwave/model/site"
 	"pdwave/simulate"
 )
@@ -54,7 +55,10 @@ func offsetBurst(t *testing.T, seed uint64, sx, sy float64) [][][]float64 {
 	if err != nil {
 		t.Fatal(err)
 	}
-	cfg := simulate.ConfigFromSite(st)
+	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
 	cfg.Frames = 8
 	cfg.Turbulence.R0 = cfg.Telescope.Diameter / 4
 	sim, err := simulate.New(cfg)

@@ -35,7 +35,7 @@ func SimulatedSceneSource(base simulate.Config, scene simulate.Scene) BurstSourc
 	}
 	return func(c StudyCase, rng *rand.Rand) ([][][]float64, [][]float64, error) {
 		cfg := base
-		cfg.Patch, cfg.Frames, cfg.DiversityPV = c.Patch, c.Frames, c.DiversityPV
+		cfg.Patch, cfg.Frames, cfg.Diversity = c.Patch, c.Frames, []float64{0, c.DiversityPV}
 		cfg.Turbulence.R0 = cfg.Telescope.Diameter / c.DOverR0
 		cfg.Basis, cfg.Modes = modes.KindZernike, 35
 		sim, err := simulate.New(cfg)

@@ -8,6 +8,7 @@ import (
 	"strings"
 	"testing"
 
+	"pdwave/model/instrument"
 	"pdwave/model/site"
 	"pdwave/simulate"
 )
@@ -24,7 +25,11 @@ func smallStudy(t *testing.T) (Config, simulate.Config, []StudyCase) {
 	cfg.Telescope = demoTelescope()
 	cfg.Modes = 10
 	cfg.Stop.Iterations = 15
-	return cfg, simulate.ConfigFromSite(st), []StudyCase{{DOverR0: 4, Patch: 32, Frames: 4, DiversityPV: 1}}
+	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return cfg, scfg, []StudyCase{{DOverR0: 4, Patch: 32, Frames: 4, DiversityPV: 1}}
 }
 
 // shippedImages loads the real scenes of testdata/scenes.

@@ -221,7 +221,7 @@ func TestImagingGrid(t *testing.T) {
 			t.Fatalf("q = %d: imaging pupil %d px, radius %g; fit pupil %d px, radius %g", q, fp.N, fp.Radius, cp.N, cp.Radius)
 		}
 		coarse := make([]float64, n*n)
-		cp.Defocus(coarse, c.DiversityPV)
+		cp.Defocus(coarse, c.Diversity[1])
 		dec := make([]float64, n*n)
 		decimate(dec, s.fdiv[1], n, q)
 		for _, i := range cp.Index {

@@ -102,6 +102,10 @@ func TestInvalidInput(t *testing.T) {
 		func(c *Config) { c.Turbulence.Layers[1].Weight = 0 },
 		func(c *Config) { c.Camera.Bits = 40 },
 		func(c *Config) { c.FrameInterval = math.Inf(1) },
+		func(c *Config) { c.Diversity = []float64{0.5, 0.5} }, // no diversity
+		func(c *Config) { c.Diversity = []float64{0} },        // one channel
+		func(c *Config) { c.Diversity = []float64{0, 1, 2} },  // three channels
+		func(c *Config) { c.Diversity = []float64{0, math.NaN()} },
 	}
 	for i, f := range bad {
 		c := demoConfig()

@@ -12,21 +12,23 @@ import (
 	"gonum.org/v1/gonum/stat"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 )
 
 // Config is everything physical a Simulator needs, in SI units.
 type Config struct {
-	Telescope     optics.Telescope // pupil and sampling
-	DiversityPV   float64          // defocus of channel 2, peak-to-valley waves (Noll Z4)
-	Turbulence    Turbulence       // R0 is the default; Options.R0 overrides per burst
-	FrameInterval float64          // s between frames
-	Camera        Camera           // photons, noise and quantisation
-	Patch         int              // patch and pupil grid side N, px
-	Frames        int              // frames per burst
-	Basis         modes.Kind       // basis of the truth coefficients
-	Modes         int              // number of modes, piston excluded
+	// Instrument is the telescope, the diversity of the two channels
+	// (the simulator forms exactly two; channel 0 usually in focus), the
+	// patch and pupil grid side N, and the basis and mode count of the
+	// truth coefficients. Its DOverR0 is not used (the seeing is
+	// Turbulence's); zero stands for D/Turbulence.R0.
+	instrument.Instrument
+	Turbulence    Turbulence // R0 is the default; Options.R0 overrides per burst
+	FrameInterval float64    // s between frames
+	Camera        Camera     // photons, noise and quantisation
+	Frames        int        // frames per burst
 	// Oversample is the factor q by which image formation samples the
 	// pupil more finely than the fit's N×N grid (see Simulator): PSFs come
 	// from a qN×qN pupil grid, so they have support qN px, and camera
@@ -44,30 +46,45 @@ func (c Config) oversample() int {
 	return c.Oversample
 }
 
-// Validate reports whether the configuration is usable.
-func (c Config) Validate() error {
-	if err := c.Telescope.CheckSampling(max(c.Patch, 1)); err != nil {
-		return fmt.Errorf("simulate: %w", err)
+// instrument returns c.Instrument with a zero DOverR0 replaced by
+// D/Turbulence.R0 (the simulator does not use it; instrument.Build
+// validates it).
+func (c Config) instrument() instrument.Instrument {
+	in := c.Instrument
+	if in.DOverR0 == 0 && c.Turbulence.R0 > 0 {
+		in.DOverR0 = in.Telescope.Diameter / c.Turbulence.R0
 	}
+	return in
+}
+
+// Validate reports whether the configuration is usable: a valid
+// instrument (instrument.Instrument.Validate: optics sampled at least at
+// Nyquist, patch, modes, basis) with two channels of different defocus
+// (Instrument.NeedDiversity), valid turbulence and camera, at least one
+// frame, a finite frame interval ≥ 0 and an oversampling in
+// [0, MaxOversample].
+func (c Config) Validate() error {
 	if err := c.Turbulence.Validate(); err != nil {
 		return err
 	}
 	if err := c.Camera.Validate(); err != nil {
 		return err
 	}
+	if err := c.instrument().Validate(); err != nil {
+		return fmt.Errorf("simulate: %w", err)
+	}
 	switch {
-	case c.Patch < 8:
-		return fmt.Errorf("simulate: patch size %d px, need at least 8", c.Patch)
+	case c.Channels() != 2:
+		return fmt.Errorf("simulate: %d channels, the simulator forms two", c.Channels())
 	case c.Frames < 1:
 		return fmt.Errorf("simulate: %d frames, need at least 1", c.Frames)
 	case !(c.FrameInterval >= 0) || math.IsInf(c.FrameInterval, 0):
 		return fmt.Errorf("simulate: frame interval %g s, need a finite value ≥ 0", c.FrameInterval)
-	case math.IsNaN(c.DiversityPV) || math.IsInf(c.DiversityPV, 0):
-		return fmt.Errorf("simulate: diversity %g waves is not finite", c.DiversityPV)
-	case c.Modes < 1:
-		return fmt.Errorf("simulate: %d modes, need at least 1", c.Modes)
 	case c.Oversample < 0 || c.Oversample > MaxOversample:
 		return fmt.Errorf("simulate: pupil oversampling %d, want 1 to %d (0 = 2)", c.Oversample, MaxOversample)
+	}
+	if err := c.NeedDiversity(); err != nil {
+		return fmt.Errorf("simulate: %w", err)
 	}
 	return nil
 }
@@ -129,35 +146,36 @@ type Simulator struct {
 	gens   *genPool
 }
 
-// New returns a Simulator for cfg, or an error if cfg is invalid.
+// New returns a Simulator for cfg, or an error if cfg is invalid. The fit
+// grid and the imaging grid are both instrument.BuildOversampled with the
+// clear-aperture basis (the basis of the truth), at q = 1 and q =
+// Oversample: optics.NewPupil scales the pupil radius with the grid, so the
+// imaging grid is the same aperture q times more finely sampled.
 func New(cfg Config) (*Simulator, error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
 	}
-	pupil, err := optics.NewPupil(cfg.Telescope, cfg.Patch)
+	in := cfg.instrument()
+	fit, err := instrument.Build(in, instrument.ClearAperture)
 	if err != nil {
 		return nil, fmt.Errorf("simulate: %w", err)
 	}
-	basis, err := modes.New(cfg.Basis, cfg.Modes, cfg.Patch, pupil.Radius)
-	if err != nil {
-		return nil, fmt.Errorf("simulate: %w", err)
-	}
-	s := &Simulator{cfg: cfg, q: cfg.oversample(), pupil: pupil, basis: basis, fpupil: pupil, fbasis: basis, gens: &genPool{}}
+	s := &Simulator{cfg: cfg, q: cfg.oversample(), pupil: fit.Pupil, basis: fit.Basis, gens: &genPool{}}
+	img := fit
 	if s.q > 1 {
-		// NewPupil scales the radius with the grid: CutoffRadius(qN)/2 =
-		// q·r_c/2, the same aperture q times more finely sampled.
-		if s.fpupil, err = optics.NewPupil(cfg.Telescope, s.q*cfg.Patch); err != nil {
-			return nil, fmt.Errorf("simulate: imaging pupil: %w", err)
-		}
-		if s.fbasis, err = modes.New(cfg.Basis, cfg.Modes, s.fpupil.N, s.fpupil.Radius); err != nil {
-			return nil, fmt.Errorf("simulate: imaging basis: %w", err)
+		if img, err = instrument.BuildOversampled(in, instrument.ClearAperture, s.q); err != nil {
+			return nil, fmt.Errorf("simulate: imaging grid: %w", err)
 		}
 	}
+	s.fpupil, s.fbasis = img.Pupil, img.Basis
 	p := s.fpupil.N
-	s.fdiv[0] = make([]float64, p*p)
-	s.fdiv[1] = make([]float64, p*p)
-	s.fpupil.Defocus(s.fdiv[1], cfg.DiversityPV)
-	s.dx = cfg.Telescope.Diameter / (2 * pupil.Radius)
+	for c, d := range img.Diversity {
+		if d == nil {
+			d = make([]float64, p*p) // a focused channel
+		}
+		s.fdiv[c] = d
+	}
+	s.dx = cfg.Telescope.Diameter / (2 * s.pupil.Radius)
 	return s, nil
 }
 
@@ -359,7 +377,8 @@ func (s *Simulator) finish(b *burst.Burst, seeds [][2][2]uint64, scale float64, 
 	}
 }
 
-// optics returns the burst header optics of the configuration.
+// opticsHeader returns the burst header optics of the configuration
+// (the diversity of channel 1 as DIVPV).
 func (s *Simulator) opticsHeader() burst.Optics {
 	t := s.cfg.Telescope
 	return burst.Optics{
@@ -367,7 +386,7 @@ func (s *Simulator) opticsHeader() burst.Optics {
 		PixelScale:  t.PixelScale,
 		Diameter:    t.Diameter,
 		Obscuration: t.Obscuration,
-		DiversityPV: s.cfg.DiversityPV,
+		DiversityPV: s.cfg.SecondDiversity(),
 	}
 }
 

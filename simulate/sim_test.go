@@ -5,6 +5,7 @@ import (
 	"math/rand/v2"
 	"testing"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 )
@@ -18,9 +19,12 @@ const arcsec = math.Pi / (180 * 3600)
 func demoConfig() Config {
 	deg := math.Pi / 180
 	return Config{
-		Telescope: optics.Telescope{Diameter: 0.5, Obscuration: 0.15, FocalRatio: 40,
-			Wavelength: 600e-9, PixelScale: 0.120 * arcsec},
-		DiversityPV: 1,
+		Instrument: instrument.Instrument{
+			Telescope: optics.Telescope{Diameter: 0.5, Obscuration: 0.15, FocalRatio: 40,
+				Wavelength: 600e-9, PixelScale: 0.120 * arcsec},
+			Diversity: []float64{0, 1},
+			Patch:     64, Basis: modes.KindKL, Modes: 36,
+		},
 		Turbulence: Turbulence{R0: 0.10, L0: 30, Layers: []Layer{
 			{Height: 0, Weight: 0.6, Speed: 5, Direction: 30 * deg},
 			{Height: 3000, Weight: 0.25, Speed: 12, Direction: 100 * deg},
@@ -28,10 +32,7 @@ func demoConfig() Config {
 		}},
 		FrameInterval: 0.005,
 		Camera:        Camera{Photons: 10000, ReadNoise: 5, Bits: 16},
-		Patch:         64,
 		Frames:        16,
-		Basis:         modes.KindKL,
-		Modes:         36,
 	}
 }
 

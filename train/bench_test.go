@@ -4,6 +4,7 @@ import (
 	"math"
 	"testing"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 	"pdwave/simulate"
@@ -16,16 +17,18 @@ func demoConfig(modes_ int) (Setup, simulate.Config) {
 	r0 := 0.08 * math.Pow(600.0/500, 1.2)
 	deg := math.Pi / 180
 	sc := simulate.Config{
-		Telescope: tel, DiversityPV: 1,
+		Instrument: instrument.Instrument{Telescope: tel, Diversity: []float64{0, 1},
+			Patch: 64, Basis: modes.KindKL, Modes: modes_},
 		Turbulence: simulate.Turbulence{R0: r0, L0: 30, Layers: []simulate.Layer{
 			{Height: 0, Weight: 0.6, Speed: 5, Direction: 30 * deg},
 			{Height: 3000, Weight: 0.25, Speed: 12, Direction: 100 * deg},
 			{Height: 10000, Weight: 0.15, Speed: 25, Direction: 250 * deg}}},
 		FrameInterval: 0.005,
 		Camera:        simulate.Camera{Photons: 10000, ReadNoise: 5, Bits: 16},
-		Patch:         64, Frames: 16, Basis: modes.KindKL, Modes: modes_,
+		Frames:        16,
 	}
-	su := Setup{Site: "demo", Telescope: tel, DiversityPV: 1, R0: r0, Patch: 64, Frames: 16, Modes: modes_, Basis: modes.KindKL}
+	su := Setup{Instrument: sc.Instrument, Frames: 16}
+	su.Site, su.DOverR0 = "demo", tel.Diameter/r0
 	return su, sc
 }
 
@@ -36,7 +39,7 @@ func BenchmarkSimulateBurst(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	src, err := NewSimSource(sim, su, 1, LogNormalR0(su.R0, 1.3))
+	src, err := NewSimSource(sim, su, 1, LogNormalR0(sc.Turbulence.R0, 1.3))
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -56,7 +59,7 @@ func BenchmarkStepDemo(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	src, err := NewSimSource(sim, su, 1, LogNormalR0(su.R0, 1.3))
+	src, err := NewSimSource(sim, su, 1, LogNormalR0(sc.Turbulence.R0, 1.3))
 	if err != nil {
 		b.Fatal(err)
 	}

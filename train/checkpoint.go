@@ -73,6 +73,9 @@ func Resume(dir string, src Source, workers int) (*Resumed, error) {
 	if st.Format != checkpointFormat {
 		return nil, fmt.Errorf("train: %s is not a checkpoint of this version (%q)", filepath.Join(dir, CheckpointState), st.Format)
 	}
+	if st.Setup, err = upgradeSetup(st.Setup, data); err != nil {
+		return nil, fmt.Errorf("train: reading %s: %w", filepath.Join(dir, CheckpointState), err)
+	}
 	model, err := net.Load(filepath.Join(dir, CheckpointWeights))
 	if err != nil {
 		return nil, fmt.Errorf("train: resuming: %w", err)

@@ -252,9 +252,9 @@ func benchParts(b *testing.B, iter int) (train.Setup, *simulate.Simulator, *infe
 	}
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = setup.Telescope
-	cfg.Diversity = []float64{0, setup.DiversityPV}
+	cfg.Diversity = slices.Clone(setup.Diversity)
 	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = setup.Patch, setup.Frames, setup.Modes, setup.Basis
-	cfg.DOverR0 = setup.Telescope.Diameter / setup.R0
+	cfg.DOverR0 = setup.DOverR0
 	cfg.Stop.Iterations = iter
 	fitter, err := infer.NewFitter(cfg)
 	if err != nil {

@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"time"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -27,9 +28,9 @@ type Job struct {
 	Modes      int     // 0 = the site's
 	Basis      string  // "" = the site's
 	Workers    int     // 0 = all cores
-	LR         float64 // 0 uses 3e-3
+	LR         float64 // 0 uses DefaultLR
 	Prior      float64 // prior weight; 0 uses the fit's (pd.DefaultSettings)
-	Gamma      float64 // noise-filter regulariser of the metric; 0 uses the fit's (pd.DefaultSettings)
+	Gamma      float64 // regulariser of the metric's object estimate; 0 uses the fit's (pd.DefaultSettings)
 	Init       string  // weights file to start from (fine-tuning); "" = fresh weights from Seed
 	Conv       []int   // channels of the convolutions; nil = net.DefaultArch's (ignored with Init)
 	Hidden     int     // per-frame feature count; 0 = net.DefaultArch's
@@ -137,7 +138,7 @@ func (j Job) makeOut(val []*Sample) error {
 }
 
 // setDefaults fills the zero settings with their defaults (2000 steps,
-// batch 4, learning rate 3e-3, reuse 4, 32 validation bursts, mixed
+// batch 4, learning rate DefaultLR, reuse 4, 32 validation bursts, mixed
 // scenes, r0 margin 1.25, photons ×0.5–×2, contrast 0.08–0.16) and
 // rejects a missing site or output folder, a reuse outside 1–8, a negative
 // or non-finite gamma and an unknown scene choice or bad range.
@@ -152,7 +153,7 @@ func (j *Job) setDefaults() error {
 		j.Batch = 4
 	}
 	if j.LR == 0 {
-		j.LR = 3e-3
+		j.LR = DefaultLR
 	}
 	if j.Reuse == 0 {
 		j.Reuse = 4
@@ -223,7 +224,7 @@ func (j Job) problem() (*site.Site, Setup, simulate.Config, *net.Model, error) {
 		if init, err = net.Load(j.Init); err != nil {
 			return nil, Setup{}, simulate.Config{}, nil, err
 		}
-		if err := init.Meta.Compatible(setup.Meta()); err != nil {
+		if err := instrument.Compatible(init.Meta.Instrument(), setup.Instrument); err != nil {
 			return nil, Setup{}, simulate.Config{}, nil, fmt.Errorf("train: starting weights %s: %w", j.Init, err)
 		}
 	}
@@ -329,7 +330,7 @@ func (j Job) validationSet(opts *RunOptions, sim *simulate.Simulator, setup Setu
 		if sc == "" {
 			sc = ScenesGranulation
 		}
-		fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m over %s scenes\n", j.Validation, setup.R0, sc)
+		fmt.Fprintf(j.Progress, "simulating %d validation bursts at the median r0 = %.3f m (D/r0 = %.2f) over %s scenes\n", j.Validation, setup.Telescope.Diameter/setup.DOverR0, setup.DOverR0, sc)
 	}
 	if opts.Validation, err = FetchSet(vsrc, j.Validation); err != nil {
 		return err

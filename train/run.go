@@ -195,7 +195,9 @@ func (t *Trainer) recordSettings(v Validation, seconds float64) {
 	m.Training["gamma"] = f(c.Gamma)
 	m.Training["warm_start"] = strconv.Itoa(c.WarmStart)
 	m.Training["seed"] = strconv.FormatUint(c.Seed, 10)
-	m.Training["r0_median_m"] = f(t.prob.setup.R0)
+	su := t.prob.setup
+	m.Training["r0_median_m"] = f(su.Telescope.Diameter / su.DOverR0)
+	m.Training["d_over_r0"] = f(su.DOverR0)
 	m.Training["wall_seconds"] = f(seconds)
 	if v.Bursts > 0 {
 		m.Training["val_bursts"] = strconv.Itoa(v.Bursts)

@@ -12,11 +12,12 @@
 package train
 
 import (
+	"encoding/json"
 	"fmt"
-	"math"
 
 	"gonum.org/v1/gonum/mat"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/optics"
@@ -25,47 +26,61 @@ import (
 
 // Setup is what training needs to know about the instrument and the data.
 type Setup struct {
-	Site        string           // site name, recorded in the weights
-	Telescope   optics.Telescope // optics of the data
-	DiversityPV float64          // defocus of channel 2, peak-to-valley waves
-	R0          float64          // median Fried parameter at the observing wavelength, m (sets the prior and the output scale)
-	Patch       int              // patch side N, pixels
-	Frames      int              // frames per burst
-	Modes       int              // modes estimated, piston excluded
-	Basis       modes.Kind       // zernike or kl
+	// Instrument is the optics, the two channels' diversity, the patch
+	// side N, the modes estimated and their basis, and the expected D/r0,
+	// which sets the prior and the network's output scale. Its Site is the
+	// name recorded in the weights.
+	instrument.Instrument
+	Frames int // frames per burst
 }
 
-// Validate reports whether s is usable.
+// Validate reports whether s is usable: a valid instrument
+// (instrument.Instrument.Validate) with two channels of different defocus
+// and at least one frame per burst.
 func (s Setup) Validate() error {
-	if err := s.Telescope.Validate(); err != nil {
+	if err := s.Instrument.Validate(); err != nil {
 		return fmt.Errorf("train: %w", err)
 	}
-	switch {
-	case s.Patch < 8:
-		return fmt.Errorf("train: patch size %d too small", s.Patch)
-	case s.Frames < 1:
+	if s.Channels() != 2 {
+		return fmt.Errorf("train: %d channels; training reads two", s.Channels())
+	}
+	if err := s.NeedDiversity(); err != nil {
+		return fmt.Errorf("train: %w", err)
+	}
+	if s.Frames < 1 {
 		return fmt.Errorf("train: %d frames per burst", s.Frames)
-	case s.Modes < 2:
-		return fmt.Errorf("train: %d modes; need at least the two tilts", s.Modes)
-	case !(s.R0 > 0):
-		return fmt.Errorf("train: median r0 %g m must be positive", s.R0)
-	case !(s.DiversityPV != 0) || math.IsNaN(s.DiversityPV):
-		return fmt.Errorf("train: diversity %g waves PV; phase diversity needs a defocused channel", s.DiversityPV)
 	}
 	return nil
 }
 
-// Meta returns the weight-file metadata for s.
-func (s Setup) Meta() net.Meta {
-	t := s.Telescope
-	return net.Meta{
-		Site: s.Site, Basis: string(s.Basis), Modes: s.Modes, Patch: s.Patch, Frames: s.Frames,
-		Diameter: t.Diameter, Obscuration: t.Obscuration, Wavelength: t.Wavelength,
-		PixelScale: t.PixelScale, DiversityPV: s.DiversityPV,
+// Meta returns the weight-file metadata for s (net.MetaFor).
+func (s Setup) Meta() net.Meta { return net.MetaFor(s.Instrument, s.Frames) }
+
+// upgradeSetup returns s, decoded from the JSON checkpoint state data,
+// with the channels' diversity and D/r0 filled from the fields that
+// checkpoints written before Setup embedded instrument.Instrument held
+// instead ("DiversityPV", waves PV of channel 1; "R0", the median r0 at λ,
+// m, so D/r0 = D/R0). A setup that has both is returned as it is.
+func upgradeSetup(s Setup, data []byte) (Setup, error) {
+	if s.Diversity != nil && s.DOverR0 != 0 {
+		return s, nil
 	}
+	var old struct {
+		Setup struct{ DiversityPV, R0 float64 }
+	}
+	if err := json.Unmarshal(data, &old); err != nil {
+		return s, err
+	}
+	if s.Diversity == nil && old.Setup.DiversityPV != 0 {
+		s.Diversity = []float64{0, old.Setup.DiversityPV}
+	}
+	if s.DOverR0 == 0 && old.Setup.R0 > 0 {
+		s.DOverR0 = s.Telescope.Diameter / old.Setup.R0
+	}
+	return s, nil
 }
 
-// optics bundles the pieces of the metric shared by all workers; read-only.
+// problem bundles the pieces of the metric shared by all workers; read-only.
 type problem struct {
 	setup     Setup
 	pupil     *optics.Pupil
@@ -77,36 +92,27 @@ type problem struct {
 	settings  pd.Settings
 }
 
+// newProblem builds the metric's pieces for s with instrument.Build in the
+// clear-aperture basis, the basis of the network's outputs (the learned
+// estimator converts them exactly; modes.New).
 func newProblem(s Setup, priorWeight, gamma float64) (*problem, error) {
 	if err := s.Validate(); err != nil {
 		return nil, err
 	}
-	pupil, err := optics.NewPupil(s.Telescope, s.Patch)
+	bt, err := instrument.Build(s.Instrument, instrument.ClearAperture)
 	if err != nil {
 		return nil, fmt.Errorf("train: %w", err)
 	}
-	basis, err := modes.New(s.Basis, s.Modes, s.Patch, pupil.Radius)
-	if err != nil {
-		return nil, fmt.Errorf("train: %w", err)
-	}
-	div := make([]float64, s.Patch*s.Patch)
-	pupil.Defocus(div, s.DiversityPV)
-	dr := s.Telescope.Diameter / s.R0
 	p := &problem{
-		setup: s, pupil: pupil, basis: basis,
-		diversity: [][]float64{nil, div},
-		prior:     pd.KolmogorovPrior(basis, dr),
-		settings:  pd.DefaultSettings(),
+		setup: s, pupil: bt.Pupil, basis: bt.Basis, diversity: bt.Diversity,
+		prior:    pd.KolmogorovPrior(bt.Basis, s.DOverR0),
+		scale:    bt.Scale,
+		settings: pd.DefaultSettings(),
 	}
 	p.settings.PriorWeight, p.settings.Gamma = priorWeight, gamma // the fit's objective, with the run's weights
-	f := math.Pow(dr, 5.0/3)
-	p.scale = make([]float64, s.Modes)
-	for m := range p.scale {
-		p.scale[m] = math.Sqrt(basis.Variance[m] * f)
-	}
-	if basis.ToNoll != nil {
+	if bt.Basis.ToNoll != nil {
 		var inv mat.Dense
-		if err := inv.Inverse(basis.ToNoll); err != nil {
+		if err := inv.Inverse(bt.Basis.ToNoll); err != nil {
 			return nil, fmt.Errorf("train: basis to Noll matrix not invertible: %w", err)
 		}
 		p.fromNoll = &inv

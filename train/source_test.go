@@ -3,6 +3,8 @@ package train
 import (
 	"math"
 	"path/filepath"
+	"reflect"
+	"slices"
 	"sync/atomic"
 	"testing"
 
@@ -145,8 +147,10 @@ func TestFolderSource(t *testing.T) {
 	}
 }
 
-// The demo site gives the contract's telescope; r0 scales from 500 nm to
-// the observing wavelength as λ^(6/5) (Roddier 1981, Progress in Optics 19).
+// TestFromSite checks the setup and simulator configuration of the demo
+// site: one instrument in both (the --modes override included), and the
+// median D/r0 that of the site's r0 at 600 nm, r0 = 0.08 m·(600/500)^(6/5)
+// (Roddier 1981, r0 ∝ λ^(6/5)), D/r0 = 0.5 m/r0 = 5.022.
 func TestFromSite(t *testing.T) {
 	st, err := site.Load("../testdata/demo-site.yaml")
 	if err != nil {
@@ -156,12 +160,16 @@ func TestFromSite(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	wantR0 := 0.08 * math.Pow(600.0/500, 6.0/5)
-	if su.Telescope.Diameter != 0.5 || su.DiversityPV != 1 || su.Patch != 64 || su.Frames != 16 ||
-		su.Modes != 21 || su.Basis != "kl" || math.Abs(su.R0-wantR0) > 1e-12 {
+	wantDR := 0.5 / (0.08 * math.Pow(600.0/500, 6.0/5))
+	if su.Telescope.Diameter != 0.5 || !slices.Equal(su.Diversity, []float64{0, 1}) || su.Patch != 64 || su.Frames != 16 ||
+		su.Modes != 21 || su.Basis != "kl" || math.Abs(su.DOverR0-wantDR) > 1e-12 {
 		t.Fatalf("setup %+v", su)
 	}
-	if len(sc.Turbulence.Layers) != 3 || sc.Turbulence.L0 != 30 || sc.Modes != 21 || sc.FrameInterval != 0.005 || sc.Camera.Photons != 10000 {
+	if !reflect.DeepEqual(su.Instrument, sc.Instrument) || sc.Frames != su.Frames {
+		t.Fatalf("setup instrument %+v, simulator %+v", su.Instrument, sc.Instrument)
+	}
+	if len(sc.Turbulence.Layers) != 3 || sc.Turbulence.L0 != 30 || sc.FrameInterval != 0.005 || sc.Camera.Photons != 10000 ||
+		math.Abs(sc.Turbulence.R0-st.R0Median()) > 1e-15 {
 		t.Fatalf("simulator config %+v", sc)
 	}
 }

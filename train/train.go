@@ -7,15 +7,21 @@ import (
 	"runtime"
 	"sync"
 
+	"pdwave/model/instrument"
 	"pdwave/model/net"
 	"pdwave/model/pd"
 )
+
+// DefaultLR is the peak Adam step size used when none is given (Config.LR,
+// Job.LR and the --lr flag of pdwave train; the shipped weights were
+// trained with it).
+const DefaultLR = 3e-3
 
 // Config sets up a training run.
 type Config struct {
 	Steps       int        // optimiser steps in all (warm start included)
 	Batch       int        // bursts per step
-	LR          float64    // peak Adam step size; 0 uses 1e-3
+	LR          float64    // peak Adam step size; 0 uses DefaultLR
 	Warmup      int        // steps of linear warm-up; 0 uses min(100, Steps/10)
 	MinLR       float64    // final step size as a fraction of LR (cosine decay); 0 uses 0.05
 	ClipNorm    float64    // clip the global gradient norm to this; 0 = no clipping
@@ -35,7 +41,7 @@ func (c *Config) fill() error {
 		return fmt.Errorf("train: %d steps of %d bursts", c.Steps, c.Batch)
 	}
 	if c.LR == 0 {
-		c.LR = 1e-3
+		c.LR = DefaultLR
 	}
 	if c.Warmup == 0 {
 		c.Warmup = min(100, c.Steps/10)
@@ -130,7 +136,7 @@ func New(setup Setup, cfg Config, src Source) (*Trainer, error) {
 		return nil, err
 	}
 	if m := cfg.Init; m != nil {
-		if err := m.Meta.Compatible(setup.Meta()); err != nil {
+		if err := instrument.Compatible(m.Meta.Instrument(), setup.Instrument); err != nil {
 			return nil, fmt.Errorf("train: starting weights: %w", err)
 		}
 		if m.Arch.Modes != setup.Modes {

@@ -9,6 +9,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/simulate"
@@ -40,7 +41,11 @@ func boundSet(t *testing.T) []boundCase {
 	if err != nil {
 		t.Fatal(err)
 	}
-	sim, err := simulate.New(simulate.ConfigFromSite(st))
+	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sim, err := simulate.New(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}

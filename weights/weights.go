@@ -7,6 +7,7 @@ import (
 	_ "embed"
 	"fmt"
 
+	"pdwave/model/instrument"
 	"pdwave/model/net"
 )
 
@@ -28,15 +29,16 @@ func Default() (*net.Model, error) {
 	return m, nil
 }
 
-// For returns the built-in weights if they were made for the optics, patch
-// size and basis of want (zero fields are not checked), or an error saying
-// what differs.
-func For(want net.Meta) (*net.Model, error) {
+// For returns the built-in weights if they were made for in — its optics,
+// diversity, patch size, mode count and basis (instrument.Compatible with
+// the weights' metadata, Meta.Instrument) — or an error saying what
+// differs.
+func For(in instrument.Instrument) (*net.Model, error) {
 	m, err := Default()
 	if err != nil {
 		return nil, err
 	}
-	if err := m.Meta.Compatible(want); err != nil {
+	if err := instrument.Compatible(m.Meta.Instrument(), in); err != nil {
 		return nil, fmt.Errorf("built-in weights: %w", err)
 	}
 	return m, nil

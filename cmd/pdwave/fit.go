@@ -250,7 +250,11 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	scenes, err := infer.SimulatedStudyScenes(simulate.ConfigFromSite(st), o.scenes, fitStudyImages(o.sceneDir))
+	simCfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		return err
+	}
+	scenes, err := infer.SimulatedStudyScenes(simCfg, o.scenes, fitStudyImages(o.sceneDir))
 	if err != nil {
 		return fmt.Errorf("--scenes %q: %w", o.scenes, err)
 	}

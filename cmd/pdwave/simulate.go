@@ -13,6 +13,8 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
+	"pdwave/model/modes"
 	"pdwave/model/site"
 	"pdwave/simulate"
 )
@@ -131,6 +133,38 @@ func init() {
 
 func simulateRun(cmd *cobra.Command, _ []string) error {
 	o := simulateOpts
+	if err := o.check(cmd); err != nil {
+		return err
+	}
+	st, cfg, notes, err := o.config()
+	if err != nil {
+		return err
+	}
+	sim, err := simulate.New(cfg)
+	if err != nil {
+		return fmt.Errorf("simulate: site %s: %w", o.site, err)
+	}
+	opts, err := o.options()
+	if err != nil {
+		return err
+	}
+	if err := os.MkdirAll(o.out, 0o755); err != nil {
+		return fmt.Errorf("simulate: creating %s: %w", o.out, err)
+	}
+	for i := 1; i <= o.bursts; i++ {
+		rng := rand.New(rand.NewPCG(o.seed, uint64(i)))
+		opts.R0 = st.DrawR0(rng)
+		msg, err := o.burst(sim, notes, i, rng, opts)
+		if err != nil {
+			return err
+		}
+		fmt.Fprintln(cmd.OutOrStdout(), msg)
+	}
+	return nil
+}
+
+// check rejects missing or out-of-range flags.
+func (o simulateFlags) check(cmd *cobra.Command) error {
 	switch {
 	case o.site == "":
 		return errors.New("simulate: --site is required")
@@ -149,76 +183,89 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 	case o.object != "" && cmd.Flags().Changed("scene"):
 		return errors.New("simulate: --object and --scene exclude each other")
 	}
-	source, err := sceneSource(o.scene, simulate.GranulationParams{Contrast: o.contrast})
-	if err != nil {
-		return err
-	}
+	return nil
+}
+
+// config loads the site and returns it with the simulator configuration
+// (simulate.ConfigFromSite, --frames applied) and the notes of where each
+// instrument value came from.
+func (o simulateFlags) config() (*site.Site, simulate.Config, instrument.Notes, error) {
 	st, err := site.Load(o.site)
 	if err != nil {
-		return err
+		return nil, simulate.Config{}, nil, err
 	}
-	cfg := simulate.ConfigFromSite(st)
+	cfg, notes, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		return nil, cfg, nil, fmt.Errorf("simulate: site %s: %w", o.site, err)
+	}
 	if o.frames > 0 {
 		cfg.Frames = o.frames
 	}
 	if o.field > 0 && o.field < cfg.Patch {
-		return fmt.Errorf("simulate: --field %d is smaller than the patch (%d px)", o.field, cfg.Patch)
+		return nil, cfg, nil, fmt.Errorf("simulate: --field %d is smaller than the patch (%d px)", o.field, cfg.Patch)
 	}
-	sim, err := simulate.New(cfg)
+	return st, cfg, notes, nil
+}
+
+// options returns the simulation options of the flags: workers, phases
+// kept for --screens, the scene (--scene) or the object map (--object) and
+// the contrast.
+func (o simulateFlags) options() (simulate.Options, error) {
+	source, err := sceneSource(o.scene, simulate.GranulationParams{Contrast: o.contrast})
 	if err != nil {
-		return fmt.Errorf("simulate: site %s: %w", o.site, err)
+		return simulate.Options{}, err
 	}
 	opts := simulate.Options{Workers: o.workers, KeepPhases: o.screens, Source: source}
 	opts.Scene.Contrast = o.contrast
 	if o.object != "" {
 		data, nx, ny, err := simulate.ReadObject(o.object)
 		if err != nil {
-			return err
+			return opts, err
 		}
 		opts.Object, opts.ObjectNx, opts.ObjectNy = data, nx, ny
 	}
-	if err := os.MkdirAll(o.out, 0o755); err != nil {
-		return fmt.Errorf("simulate: creating %s: %w", o.out, err)
-	}
+	return opts, nil
+}
+
+// burst simulates burst i from rng with opts, writes it (and with
+// --screens its screens) and returns the line to print.
+func (o simulateFlags) burst(sim *simulate.Simulator, notes instrument.Notes, i int, rng *rand.Rand, opts simulate.Options) (string, error) {
 	kind := "patch"
+	var res *simulate.Result
+	var err error
 	if o.field > 0 {
 		kind = "field"
+		res, err = sim.Field(rng, o.field, o.field, opts)
+	} else {
+		res, err = sim.Patch(rng, opts)
 	}
-	for i := 1; i <= o.bursts; i++ {
-		rng := rand.New(rand.NewPCG(o.seed, uint64(i)))
-		opts.R0 = st.DrawR0(rng)
-		var res *simulate.Result
-		if o.field > 0 {
-			res, err = sim.Field(rng, o.field, o.field, opts)
-		} else {
-			res, err = sim.Patch(rng, opts)
-		}
-		if err != nil {
-			return fmt.Errorf("simulate: burst %d: %w", i, err)
-		}
-		b := res.Burst
-		prov := simulateHeader(o, cfg, kind, i, res)
-		name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
-		if err := burst.Write(name, b, prov); err != nil {
-			return err
-		}
-		msg := fmt.Sprintf("wrote %s (%s %d×%d, %d frames, r0 = %.3f m, D/r0 = %.1f)", name, kind, b.Nx, b.Ny, b.Frames, res.R0, cfg.Telescope.Diameter/res.R0)
-		if o.screens {
-			sname := filepath.Join(o.out, fmt.Sprintf("burst-%04d-screens.fits", i))
-			if err := burst.WriteFile(sname, res.ScreenHDUs(sim, prov)...); err != nil {
-				return err
-			}
-			msg += " and " + sname
-		}
-		fmt.Fprintln(cmd.OutOrStdout(), msg)
+	if err != nil {
+		return "", fmt.Errorf("simulate: burst %d: %w", i, err)
 	}
-	return nil
+	b, cfg := res.Burst, sim.Config()
+	prov := simulateHeader(o, cfg, notes, kind, i, res)
+	name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
+	if err := burst.Write(name, b, prov); err != nil {
+		return "", err
+	}
+	msg := fmt.Sprintf("wrote %s (%s %d×%d, %d frames, r0 = %.3f m, D/r0 = %.1f)", name, kind, b.Nx, b.Ny, b.Frames, res.R0, cfg.Telescope.Diameter/res.R0)
+	if o.screens {
+		sname := filepath.Join(o.out, fmt.Sprintf("burst-%04d-screens.fits", i))
+		if err := burst.WriteFile(sname, res.ScreenHDUs(sim, prov)...); err != nil {
+			return "", err
+		}
+		msg += " and " + sname
+	}
+	return msg, nil
 }
 
 // simulateHeader adds the simulation cards (SIMR0, SIMSEED, SIMBURST,
-// SIMSCENE) to burst i of res and returns its provenance cards (all
-// settings as HISTORY).
-func simulateHeader(o simulateFlags, cfg simulate.Config, kind string, i int, res *simulate.Result) []burst.Card {
+// SIMSCENE) to burst i of res and returns its provenance cards (as
+// HISTORY: the instrument's settings, instrument.Instrument.Settings, with
+// "sources" saying where each came from, and the simulation's own; the
+// site file is "site_file", and "basis_for" the clear aperture of the
+// truth's basis).
+func simulateHeader(o simulateFlags, cfg simulate.Config, notes instrument.Notes, kind string, i int, res *simulate.Result) []burst.Card {
 	b := res.Burst
 	b.Cards = append(b.Cards,
 		burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
@@ -226,23 +273,26 @@ func simulateHeader(o simulateFlags, cfg simulate.Config, kind string, i int, re
 		burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
 		burst.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
 	)
-	settings := map[string]string{
+	settings := cfg.Settings()
+	for k, v := range map[string]string{
 		"verb":         "simulate",
-		"site":         o.site,
+		"sources":      notes.String(),
+		"site_file":    o.site,
 		"seed":         strconv.FormatUint(o.seed, 10),
 		"burst":        strconv.Itoa(i),
 		"kind":         kind,
 		"r0_m":         strconv.FormatFloat(res.R0, 'g', 6, 64),
 		"frames":       strconv.Itoa(cfg.Frames),
 		"size":         fmt.Sprintf("%dx%d", b.Nx, b.Ny),
-		"patch":        strconv.Itoa(cfg.Patch),
-		"basis":        string(cfg.Basis),
-		"modes":        strconv.Itoa(cfg.Modes),
 		"subharmonics": "true",
 		"contrast":     strconv.FormatFloat(o.contrast, 'g', 6, 64),
 		"scene":        o.scene,
 		"scene_drawn":  res.Scene,
+	} {
+		settings[k] = v
 	}
+	// The truth is in the clear-aperture basis (simulate.Simulator.Truth).
+	settings["basis_for"] = instrument.ApertureText(modes.Aperture{})
 	if o.object != "" {
 		settings["object"] = o.object
 		delete(settings, "contrast")
@@ -312,7 +362,11 @@ func simulateScreenRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return err
 	}
-	p, err := simulate.ScreenParamsFor(simulate.ConfigFromSite(st), o.size, o.pixel, o.r0, !o.noSub)
+	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
+	}
+	p, err := simulate.ScreenParamsFor(cfg, o.size, o.pixel, o.r0, !o.noSub)
 	if err != nil {
 		return fmt.Errorf("simulate screen: site %s: %w", o.site, err)
 	}

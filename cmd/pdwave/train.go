@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"slices"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -60,7 +61,7 @@ func init() {
 	f.IntVar(&o.Modes, "modes", 0, "wavefront modes to estimate (default: the site's)")
 	f.StringVar(&o.Basis, "basis", "", "zernike or kl (default: the site's)")
 	f.IntVar(&o.Workers, "workers", 0, "worker goroutines (default: all cores)")
-	f.Float64Var(&o.LR, "lr", 3e-3, "peak learning rate (Adam)")
+	f.Float64Var(&o.LR, "lr", train.DefaultLR, "peak learning rate (Adam)")
 	f.Float64Var(&o.Prior, "prior", pd.DefaultSettings().PriorWeight, "weight of the turbulence prior in the loss (default: the fit's)")
 	f.Float64Var(&o.Gamma, "gamma", pd.DefaultSettings().Gamma, "regulariser of the metric's object estimate, relative to the image count (default: the fit's)")
 	f.StringVar(&o.Init, "init", "", "weights file to start from (fine-tuning, e.g. on your own bursts with --data); default: fresh weights from --seed")
@@ -133,10 +134,10 @@ type fitReferee struct{ f *infer.Fitter }
 func newFitReferee(s train.Setup) (train.Referee, error) {
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = s.Telescope
-	cfg.Diversity = []float64{0, s.DiversityPV}
+	cfg.Diversity = slices.Clone(s.Diversity)
 	cfg.BasisFor = instrument.ClearAperture // the network's basis
 	cfg.Patch, cfg.Frames, cfg.Modes, cfg.Basis = s.Patch, s.Frames, s.Modes, s.Basis
-	cfg.DOverR0 = s.Telescope.Diameter / s.R0
+	cfg.DOverR0 = s.DOverR0
 	f, err := infer.NewFitter(cfg)
 	if err != nil {
 		return nil, fmt.Errorf("train: classical fit for validation: %w", err)

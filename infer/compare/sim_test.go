@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/simulate"
 )
@@ -19,8 +20,8 @@ func simConfig(cfg Config) simulate.Config {
 	deg := math.Pi / 180
 	fc := cfg.Fit
 	return simulate.Config{
-		Telescope:   fc.Telescope,
-		DiversityPV: fc.SecondDiversity(),
+		Instrument: instrument.Instrument{Telescope: fc.Telescope, Diversity: []float64{0, fc.SecondDiversity()},
+			Patch: fc.Patch, Basis: modes.KindKL, Modes: fc.Modes},
 		Turbulence: simulate.Turbulence{R0: fc.Telescope.Diameter / fc.DOverR0, L0: 30, Layers: []simulate.Layer{
 			{Height: 0, Weight: 0.6, Speed: 5, Direction: 30 * deg},
 			{Height: 3000, Weight: 0.25, Speed: 12, Direction: 100 * deg},
@@ -28,10 +29,7 @@ func simConfig(cfg Config) simulate.Config {
 		}},
 		FrameInterval: 0.005,
 		Camera:        simulate.Camera{Photons: 10000, ReadNoise: 5, Bits: 16},
-		Patch:         fc.Patch,
 		Frames:        fc.Frames,
-		Basis:         modes.KindKL,
-		Modes:         fc.Modes,
 	}
 }
 

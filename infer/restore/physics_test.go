@@ -11,6 +11,7 @@ import (
 	"pdwave/infer"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/optics"
@@ -43,7 +44,10 @@ func makeScene(t testing.TB, nx, frames int, dOverR0, sx, sy float64, seed uint6
 	if err != nil {
 		t.Fatal(err)
 	}
-	cfg := simulate.ConfigFromSite(st)
+	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
 	cfg.Frames = frames
 	sim, err := simulate.New(cfg)
 	if err != nil {

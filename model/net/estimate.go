@@ -5,8 +5,8 @@ import (
 
 	"gonum.org/v1/gonum/mat"
 
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
-	"pdwave/model/optics"
 )
 
 // Estimator predicts the wavefronts of whole bursts with a Model: features,
@@ -22,32 +22,29 @@ type Estimator struct {
 	x, y  []float64
 }
 
-// NewEstimator builds the pupil and basis the model was made for (from its
-// metadata) and returns an Estimator. It returns an error if the metadata
-// does not describe a usable telescope, patch and basis.
+// NewEstimator builds the pupil and basis the model was made for with
+// instrument.Build, in the clear-aperture basis of the network's outputs,
+// from the instrument the weights' own metadata describe (madeFor) and
+// returns an Estimator. It returns an error if the metadata do not
+// describe a usable telescope, patch and basis.
 func NewEstimator(m *Model) (*Estimator, error) {
 	if err := m.check(); err != nil {
 		return nil, err
 	}
-	md := m.Meta
-	kind, err := modes.ParseKind(md.Basis)
+	in, err := m.madeFor()
 	if err != nil {
-		return nil, fmt.Errorf("net: weights basis: %w", err)
+		return nil, err
 	}
-	tel := optics.Telescope{Diameter: md.Diameter, Obscuration: md.Obscuration, Wavelength: md.Wavelength, PixelScale: md.PixelScale}
-	pupil, err := optics.NewPupil(tel, md.Patch)
+	bt, err := instrument.Build(in, instrument.ClearAperture)
 	if err != nil {
 		return nil, fmt.Errorf("net: weights optics: %w", err)
 	}
-	b, err := modes.New(kind, m.Arch.Modes, md.Patch, pupil.Radius)
-	if err != nil {
-		return nil, fmt.Errorf("net: weights basis: %w", err)
-	}
+	b := bt.Basis
 	e := &Estimator{m: m, basis: b, pred: NewPredictor(m)}
 	if e.feat, err = NewFeaturizer(m); err != nil {
 		return nil, err
 	}
-	if kind != modes.KindZernike && b.ToNoll != nil {
+	if b.Kind != modes.KindZernike && b.ToNoll != nil {
 		var inv mat.Dense
 		if err := inv.Inverse(b.ToNoll); err != nil {
 			return nil, fmt.Errorf("net: basis to Noll matrix: %w", err)
@@ -55,6 +52,26 @@ func NewEstimator(m *Model) (*Estimator, error) {
 		e.inv = &inv
 	}
 	return e, nil
+}
+
+// madeFor returns the instrument the weights were made for, resolved
+// (instrument.Resolve) from their metadata alone (Meta.Instrument) with
+// the network's output count as the mode count. Metadata without a
+// diversity (weights of earlier versions) give one focused channel, and
+// the expected D/r0 is the default: neither matters to the network's
+// pupil and basis. It errors if the metadata lack the telescope or do not
+// describe a usable one.
+func (m *Model) madeFor() (instrument.Instrument, error) {
+	w := m.Meta.Instrument()
+	w.Modes = instrument.Some(m.Arch.Modes)
+	if !w.Diversity.Set {
+		w.Diversity = instrument.Some([]float64{0})
+	}
+	in, _, err := instrument.Resolve(instrument.Sources{Weights: w})
+	if err != nil {
+		return in, fmt.Errorf("net: weights metadata: %w", err)
+	}
+	return in, nil
 }
 
 // Basis returns the basis of the native coefficients (shared; do not modify).

@@ -2,7 +2,12 @@ package net
 
 import (
 	"math"
+	"slices"
+	"strings"
 	"testing"
+
+	"pdwave/model/modes"
+	"pdwave/model/optics"
 )
 
 // The estimator's native and Noll coefficients describe the same wavefront
@@ -47,5 +52,50 @@ func TestEstimatorRemovesMeanTilt(t *testing.T) {
 	}
 	if m.Meta.Basis != "kl" {
 		t.Fatal("test expects a KL model")
+	}
+}
+
+// The estimator's basis is the clear-aperture basis of the weights' optics
+// (modes.New on the pupil of optics.NewPupil for the metadata's telescope,
+// the construction the weights were trained with), also for metadata
+// without a diversity; metadata without a wavelength are refused.
+// Planted: instrument.RealAperture in NewEstimator fails the mode
+// comparison (the annular KL modes differ).
+func TestEstimatorBasis(t *testing.T) {
+	scale := make([]float64, 10)
+	for i := range scale {
+		scale[i] = 1
+	}
+	md := demoMeta()
+	md.DiversityPV = 0
+	m, err := New(DefaultArch(10), md, scale, 3)
+	if err != nil {
+		t.Fatal(err)
+	}
+	e, err := NewEstimator(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tel := optics.Telescope{Diameter: md.Diameter, Obscuration: md.Obscuration, Wavelength: md.Wavelength, PixelScale: md.PixelScale}
+	pu, err := optics.NewPupil(tel, md.Patch)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want, err := modes.New(modes.KindKL, 10, md.Patch, pu.Radius)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := e.Basis()
+	if got.Count != want.Count || got.N != want.N || got.Radius != want.Radius {
+		t.Fatalf("basis %d modes on %d px (radius %g), want %d on %d (radius %g)", got.Count, got.N, got.Radius, want.Count, want.N, want.Radius)
+	}
+	for k := range want.Modes {
+		if !slices.Equal(got.Modes[k], want.Modes[k]) {
+			t.Fatalf("mode %d differs from the clear-aperture basis", k+1)
+		}
+	}
+	m.Meta.Wavelength = 0
+	if _, err := NewEstimator(m); err == nil || !strings.Contains(err.Error(), "wavelength") {
+		t.Errorf("metadata without a wavelength: error %v, want one naming it", err)
 	}
 }

@@ -511,9 +511,10 @@ func (s *Site) OuterScale() float64 {
 
 // Instrument returns what the site file says about the instrument, in SI
 // units, for instrument.Resolve: the telescope, the two channels (0 and the
-// diversity), the sizes, the median r0 at 500 nm and the outer scale (an
-// explicit 0 for Kolmogorov). Sizes the file omits carry the documented
-// defaults of Sizes.
+// diversity), the sizes, the median r0 at the site's wavelength (R0Median,
+// so that D/r0 resolved at that wavelength is D/R0Median exactly) and the
+// outer scale (an explicit 0 for Kolmogorov). Sizes the file omits carry
+// the documented defaults of Sizes.
 func (s *Site) Instrument() instrument.Partial {
 	p := instrument.TelescopeOf(s.Telescope())
 	p.Site = instrument.Some(s.Tel.Name)
@@ -521,8 +522,8 @@ func (s *Site) Instrument() instrument.Partial {
 	p.Patch = instrument.Some(s.Sizes.Patch)
 	p.Modes = instrument.Some(s.Sizes.Modes)
 	p.Basis = instrument.Some(s.Sizes.Basis)
-	p.R0 = instrument.Some(s.Seeing.R0MedianM)
-	p.R0Wavelength = instrument.Some(500e-9)
+	p.R0 = instrument.Some(s.R0Median())
+	p.R0Wavelength = p.Wavelength
 	p.OuterScale = instrument.Some(s.Seeing.OuterScaleM)
 	return p
 }
