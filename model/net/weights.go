@@ -9,9 +9,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"strconv"
-	"strings"
 )
 
 // Weight files use the safetensors layout: an 8-byte little-endian header
@@ -304,47 +302,3 @@ func readTensor(raw map[string]json.RawMessage, body []byte, name string, shape 
 	return v, nil
 }
 
-// Compatible reports whether weights made for m can be applied to data taken
-// with the optics, basis and patch size of want. Zero fields of want (and an
-// empty basis) are not checked. The error lists every difference, e.g.
-// "weights were made for wavelength 600 nm, the data has 500 nm".
-// Numbers agree within a relative 1e-3 (header values are rounded).
-func (m Meta) Compatible(want Meta) error {
-	var diffs []string
-	num := func(what string, have, need, unit float64, u string) {
-		if need == 0 {
-			return
-		}
-		if math.Abs(have-need) > 1e-3*math.Max(math.Abs(have), math.Abs(need)) && math.Abs(have-need) > 1e-12 {
-			diffs = append(diffs, fmt.Sprintf("%s %.4g%s, the data has %.4g%s", what, have/unit, u, need/unit, u))
-		}
-	}
-	num("aperture diameter", m.Diameter, want.Diameter, 1, " m")
-	num("wavelength", m.Wavelength, want.Wavelength, 1e-9, " nm")
-	num("pixel scale", m.PixelScale, want.PixelScale, math.Pi/180/3600, " arcsec")
-	num("diversity", m.DiversityPV, want.DiversityPV, 1, " waves PV")
-	if want.Obscuration != 0 || want.Diameter != 0 {
-		// An obscuration of 0 is meaningful once the telescope is given.
-		if math.Abs(m.Obscuration-want.Obscuration) > 1e-3 {
-			diffs = append(diffs, fmt.Sprintf("central obscuration %.3g, the data has %.3g", m.Obscuration, want.Obscuration))
-		}
-	}
-	if want.Patch != 0 && want.Patch != m.Patch {
-		diffs = append(diffs, fmt.Sprintf("patch size %d px, the data has %d px", m.Patch, want.Patch))
-	}
-	if want.Basis != "" && !strings.EqualFold(want.Basis, m.Basis) {
-		diffs = append(diffs, fmt.Sprintf("basis %q, the request is %q", m.Basis, want.Basis))
-	}
-	if want.Modes != 0 && want.Modes != m.Modes {
-		diffs = append(diffs, fmt.Sprintf("%d modes, the request is %d", m.Modes, want.Modes))
-	}
-	if len(diffs) == 0 {
-		return nil
-	}
-	sort.Strings(diffs)
-	site := m.Site
-	if site == "" {
-		site = "an unnamed site"
-	}
-	return fmt.Errorf("weights were made for other optics (%s): %s", site, strings.Join(diffs, "; "))
-}

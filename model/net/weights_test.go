@@ -7,6 +7,10 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"pdwave/model/instrument"
+	"pdwave/model/modes"
+	"pdwave/model/optics"
 )
 
 // demoMeta is the invented demo telescope of the contract (0.5 m, 600 nm,
@@ -59,7 +63,7 @@ func TestWeightsRoundTrip(t *testing.T) {
 		gm.Training["steps"] != "10" {
 		t.Fatalf("metadata read back as %+v, wrote %+v", gm, wm)
 	}
-	if err := got.Meta.Compatible(wm); err != nil {
+	if err := instrument.Compatible(got.Meta.Instrument(), metaInstrument(wm)); err != nil {
 		t.Fatalf("weights refuse their own optics: %v", err)
 	}
 	// The layout: 8-byte little-endian header length, JSON header with
@@ -84,12 +88,23 @@ func TestWeightsRoundTrip(t *testing.T) {
 	}
 }
 
+// metaInstrument is the instrument the metadata describe (every field
+// taken as given; unknown ones zero).
+func metaInstrument(md Meta) instrument.Instrument {
+	return instrument.Instrument{
+		Telescope: optics.Telescope{Diameter: md.Diameter, Obscuration: md.Obscuration, Wavelength: md.Wavelength, PixelScale: md.PixelScale},
+		Diversity: []float64{0, md.DiversityPV}, Patch: md.Patch, Modes: md.Modes, Basis: modes.Kind(md.Basis),
+	}
+}
+
+// TestWeightsRefuseForeignOptics checks the metadata reach the one
+// compatibility check (instrument.Compatible) with every value they know.
 func TestWeightsRefuseForeignOptics(t *testing.T) {
 	m := demoMeta()
 	other := demoMeta()
 	other.Wavelength = 500e-9
 	other.Diameter = 1.0
-	err := m.Compatible(other)
+	err := instrument.Compatible(m.Instrument(), metaInstrument(other))
 	if err == nil {
 		t.Fatal("weights for 600 nm, 0.5 m accepted for 500 nm, 1 m")
 	}
@@ -101,12 +116,13 @@ func TestWeightsRefuseForeignOptics(t *testing.T) {
 	other = demoMeta()
 	other.Patch = 128
 	other.Basis = "zernike"
-	if err := m.Compatible(other); err == nil || !strings.Contains(err.Error(), "patch size 64 px, the data has 128 px") || !strings.Contains(err.Error(), "zernike") {
+	if err := instrument.Compatible(m.Instrument(), metaInstrument(other)); err == nil || !strings.Contains(err.Error(), "patch size 64 px, the data has 128 px") || !strings.Contains(err.Error(), "zernike") {
 		t.Errorf("foreign patch/basis: %v", err)
 	}
-	// Header values rounded to 4 digits still match; unknown (zero) fields are not checked.
-	other = Meta{Wavelength: 600.0001e-9, PixelScale: m.PixelScale * (1 + 1e-5), Diameter: 0.5, Obscuration: 0.15}
-	if err := m.Compatible(other); err != nil {
+	// Header values rounded to 4 digits still match.
+	other = demoMeta()
+	other.Wavelength, other.PixelScale = 600.0001e-9, m.PixelScale*(1+1e-5)
+	if err := instrument.Compatible(m.Instrument(), metaInstrument(other)); err != nil {
 		t.Errorf("rounded optics refused: %v", err)
 	}
 }
