@@ -43,8 +43,8 @@ func TestFlagStudy(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	polish := [2]*Fitter{}
-	for i, k := range []int{2, 5} {
+	polish := make([]*Fitter, len(flagStudyPolish))
+	for i, k := range flagStudyPolish {
 		pc := cfg
 		pc.Stop = Stop{Iterations: k}
 		pc.Chi2Limit = 0
@@ -64,7 +64,7 @@ func TestFlagStudy(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	fmt.Println("scene,d_over_r0,err_learned,err_polish2,err_polish5,err_fit,e_learned,e_polish2,e_polish5,e_fit,chi2_learned")
+	fmt.Println(flagStudyHeader())
 	for si, sc := range scenes {
 		for b := 0; b < n; b++ {
 			rng := rand.New(rand.NewPCG(1000+seed, uint64(si)<<20|uint64(b)))
@@ -83,14 +83,34 @@ func TestFlagStudy(t *testing.T) {
 	}
 }
 
+// flagStudyPolish are the polish budgets (L-BFGS iterations from the
+// learned start) the study scores.
+var flagStudyPolish = []int{2, 5, 10, 20, 50}
+
+// flagStudyHeader is the CSV header of TestFlagStudy: errors of the
+// learned estimate, each polish and the fit, then their objectives, then
+// the learned estimate's prior chi².
+func flagStudyHeader() string {
+	h := "scene,d_over_r0"
+	for _, what := range []string{"err", "e"} {
+		h += "," + what + "_learned"
+		for _, k := range flagStudyPolish {
+			h += fmt.Sprintf(",%s_polish%d", what, k)
+		}
+		h += "," + what + "_fit"
+	}
+	return h + ",chi2_learned"
+}
+
 // flagStudyBurst returns the CSV fields of one burst of TestFlagStudy.
-func flagStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, full *Fitter, polish [2]*Fitter) (string, error) {
+func flagStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, full *Fitter, polish []*Fitter) (string, error) {
 	cl, err := est.Estimate(data)
 	if err != nil {
 		return "", err
 	}
-	var errs, objs [4]float64
-	for i, f := range []*Fitter{polish[0], polish[1], full} {
+	k := len(polish)
+	errs, objs := make([]float64, k+2), make([]float64, k+2)
+	for i, f := range append(append([]*Fitter{}, polish...), full) {
 		start := cl
 		if f == full {
 			start = nil
@@ -110,6 +130,12 @@ func flagStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, fu
 			return "", err
 		}
 	}
-	return fmt.Sprintf("%.5g,%.5g,%.5g,%.5g,%.6g,%.6g,%.6g,%.6g,%.4g", errs[0], errs[1], errs[2], errs[3],
-		objs[0], objs[1], objs[2], objs[3], full.PriorChi2(cl)), nil
+	line := ""
+	for _, v := range errs {
+		line += fmt.Sprintf("%.5g,", v)
+	}
+	for _, v := range objs {
+		line += fmt.Sprintf("%.6g,", v)
+	}
+	return line + fmt.Sprintf("%.4g", full.PriorChi2(cl)), nil
 }
