@@ -1,7 +1,9 @@
 package net
 
 import (
+	"errors"
 	"fmt"
+	"math"
 
 	"gonum.org/v1/gonum/mat"
 
@@ -77,6 +79,30 @@ func (m *Model) madeFor() (instrument.Instrument, error) {
 // Basis returns the basis of the native coefficients (shared; do not modify).
 func (e *Estimator) Basis() *modes.Basis { return e.basis }
 
+// MaxPredictionSigma bounds a plausible prediction: a coefficient beyond
+// this many output scales (the Kolmogorov standard deviation at the
+// training seeing) has a chance below 1e-100 under the prior, so the
+// network was fed data it does not understand or its weights are broken.
+const MaxPredictionSigma = 30
+
+// ErrImplausible is returned (wrapped) for a prediction that is not finite
+// or exceeds MaxPredictionSigma output scales.
+var ErrImplausible = errors.New("implausible network prediction")
+
+// checkPrediction checks e.y (frames × modes, rad) against
+// MaxPredictionSigma.
+func (e *Estimator) checkPrediction(frames int) error {
+	nm := e.m.Arch.Modes
+	for j := 0; j < frames; j++ {
+		for m, v := range e.y[j*nm : (j+1)*nm] {
+			if !(math.Abs(v) <= MaxPredictionSigma*e.m.Scale[m]) {
+				return fmt.Errorf("%w: frame %d mode %d is %.3g rad, the output scale %.3g rad", ErrImplausible, j+1, m+1, v, e.m.Scale[m])
+			}
+		}
+	}
+	return nil
+}
+
 // Burst returns, for every frame of data (data[channel][frame], N×N images,
 // channel 0 focused), the native coefficients and their Noll equivalents
 // (j = 2..Modes+1), in rad, with the burst mean of Noll tip and tilt
@@ -98,6 +124,9 @@ func (e *Estimator) Burst(data [2][][]float64) (native, noll [][]float64, err er
 	}
 	e.y = e.y[:frames*nm]
 	e.pred.Forward(e.y, e.x, frames)
+	if err := e.checkPrediction(frames); err != nil {
+		return nil, nil, err
+	}
 	// One backing array per result: the caller owns them.
 	nollAll := make([]float64, frames*nm)
 	nativeAll := make([]float64, frames*nm)

@@ -53,28 +53,49 @@ func DefaultArch(modes int) Arch {
 // Validate reports whether the architecture is usable.
 func (a Arch) Validate() error {
 	switch {
-	case a.Channels < 1:
-		return fmt.Errorf("net: architecture has %d input channels", a.Channels)
-	case a.Size < 1:
-		return fmt.Errorf("net: architecture has input size %d", a.Size)
-	case len(a.Conv) < 1:
-		return fmt.Errorf("net: architecture has no convolution layers")
-	case a.Hidden < 1 || a.Head < 1:
-		return fmt.Errorf("net: architecture has hidden=%d head=%d, want ≥ 1", a.Hidden, a.Head)
-	case a.Modes < 1:
-		return fmt.Errorf("net: architecture has %d modes", a.Modes)
+	case a.Channels < 1 || a.Channels > MaxArchWidth:
+		return fmt.Errorf("net: architecture has %d input channels, want 1 to %d", a.Channels, MaxArchWidth)
+	case a.Size < 1 || a.Size > MaxArchWidth:
+		return fmt.Errorf("net: architecture has input size %d, want 1 to %d", a.Size, MaxArchWidth)
+	case len(a.Conv) < 1 || len(a.Conv) > 8:
+		return fmt.Errorf("net: architecture has %d convolution layers, want 1 to 8", len(a.Conv))
+	case a.Hidden < 1 || a.Head < 1 || a.Hidden > MaxArchWidth || a.Head > MaxArchWidth:
+		return fmt.Errorf("net: architecture has hidden=%d head=%d, want 1 to %d", a.Hidden, a.Head, MaxArchWidth)
+	case a.Modes < 1 || a.Modes > MaxArchWidth:
+		return fmt.Errorf("net: architecture has %d modes, want 1 to %d", a.Modes, MaxArchWidth)
 	}
 	s := a.Size
 	for i, c := range a.Conv {
-		if c < 1 {
-			return fmt.Errorf("net: convolution %d has %d channels", i+1, c)
+		if c < 1 || c > MaxArchWidth {
+			return fmt.Errorf("net: convolution %d has %d channels, want 1 to %d", i+1, c, MaxArchWidth)
 		}
 		s = convOut(s)
 	}
 	if s < 1 {
 		return fmt.Errorf("net: input size %d too small for %d convolutions", a.Size, len(a.Conv))
 	}
+	if n := a.paramCount(); n > MaxParams {
+		return fmt.Errorf("net: architecture has %d weights, more than the limit %d", n, MaxParams)
+	}
 	return nil
+}
+
+// Limits on architectures, checked before anything is allocated: no layer
+// wider than MaxArchWidth, at most MaxParams weights (80 MB as float64).
+const (
+	MaxArchWidth = 4096
+	MaxParams    = 10_000_000
+)
+
+// paramCount returns the number of trainable weights of a (whose widths
+// are within MaxArchWidth, so the products cannot overflow).
+func (a Arch) paramCount() int {
+	n, cin := 0, a.Channels
+	for _, c := range a.Conv {
+		n += c*cin*9 + c
+		cin = c
+	}
+	return n + a.flat()*a.Hidden + a.Hidden + 2*a.Hidden*a.Head + a.Head + a.Head*a.Modes + a.Modes
 }
 
 // convOut is the output side of a 3×3, stride 2, padding 1 convolution.

@@ -9,6 +9,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"pdwave/model/instrument"
 	"strconv"
 )
 
@@ -163,6 +164,12 @@ func Read(r io.Reader) (*Model, error) {
 	return Decode(data)
 }
 
+// MaxScale is the largest output scale a weight file may hold, rad: the
+// Kolmogorov standard deviation of tip/tilt at D/r0 = 1000 is about 1000 rad
+// (Noll 1976, Table IV: 0.449·(D/r0)^(5/6)), far beyond any seeing phase
+// diversity can handle.
+const MaxScale = 1000
+
 // Decode parses a weight file held in memory. It returns an error (never
 // panics) for a file that is truncated, not a pdwave weight file, of an
 // unknown layout version, or whose tensors do not match its architecture.
@@ -178,11 +185,22 @@ func Decode(data []byte) (*Model, error) {
 	if err := m.Arch.Validate(); err != nil {
 		return nil, err
 	}
+	if m.Arch.Channels != FeatureChannels {
+		return nil, fmt.Errorf("weight file network reads %d input channels, the features have %d", m.Arch.Channels, FeatureChannels)
+	}
+	if need := 8 * (m.Arch.paramCount() + m.Arch.Modes); need > len(body) {
+		return nil, fmt.Errorf("weight file holds %d bytes of tensors, its architecture needs %d", len(body), need)
+	}
 	if m.Meta, err = decodeMeta(meta); err != nil {
 		return nil, err
 	}
 	if m.Scale, err = readTensor(raw, body, "out.scale", []int{m.Arch.Modes}); err != nil {
 		return nil, err
+	}
+	for i, v := range m.Scale {
+		if !(v > 0 && v <= MaxScale) {
+			return nil, fmt.Errorf("weight file output scale %d is %g rad, want (0, %g]", i, v, float64(MaxScale))
+		}
 	}
 	m.Params = makeParams(m.Arch)
 	for _, p := range m.Params {
@@ -255,6 +273,9 @@ func decodeMeta(meta map[string]string) (Meta, error) {
 		Diameter: num("diameter_m"), Obscuration: num("obscuration"), Wavelength: num("wavelength_m"),
 		PixelScale: num("pixel_scale_rad"), DiversityPV: num("diversity_pv_waves"),
 	}
+	if err == nil {
+		err = md.validate()
+	}
 	if err != nil {
 		return Meta{}, err
 	}
@@ -264,6 +285,31 @@ func decodeMeta(meta map[string]string) (Meta, error) {
 		}
 	}
 	return md, nil
+}
+
+// validate checks the metadata numbers: finite, lengths and scales
+// positive or 0 (unknown), the obscuration in [0, 1), the diversity within
+// ±1000 waves, sizes within the instrument's and the architecture's limits.
+func (m Meta) validate() error {
+	for _, c := range []struct {
+		name string
+		v    float64
+	}{{"diameter_m", m.Diameter}, {"wavelength_m", m.Wavelength}, {"pixel_scale_rad", m.PixelScale}} {
+		if !(c.v >= 0) || math.IsInf(c.v, 0) {
+			return fmt.Errorf("weight file metadata %s = %g, want a finite number ≥ 0", c.name, c.v)
+		}
+	}
+	switch {
+	case !(m.Obscuration >= 0 && m.Obscuration < 1):
+		return fmt.Errorf("weight file metadata obscuration = %g, want [0, 1)", m.Obscuration)
+	case !(math.Abs(m.DiversityPV) <= 1000):
+		return fmt.Errorf("weight file metadata diversity_pv_waves = %g, want a finite number within ±1000", m.DiversityPV)
+	case m.Patch != 0 && (m.Patch < instrument.MinPatch || m.Patch > instrument.MaxPatch):
+		return fmt.Errorf("weight file metadata patch = %d, want %d to %d", m.Patch, instrument.MinPatch, instrument.MaxPatch)
+	case m.Frames < 0 || m.Frames > 100000:
+		return fmt.Errorf("weight file metadata frames = %d, want 0 to 100000", m.Frames)
+	}
+	return nil
 }
 
 // readTensor returns a fresh copy of the tensor name from body, checking
@@ -289,7 +335,7 @@ func readTensor(raw map[string]json.RawMessage, body []byte, name string, shape 
 		n *= s
 	}
 	b, end := e.Offsets[0], e.Offsets[1]
-	if b < 0 || end != b+8*n || end > len(body) {
+	if b < 0 || b > len(body) || n > (len(body)-b)/8 || end != b+8*n {
 		return nil, fmt.Errorf("weight file tensor %s has data offsets %v, want %d values inside %d bytes", name, e.Offsets, n, len(body))
 	}
 	v := make([]float64, n)
@@ -301,4 +347,3 @@ func readTensor(raw map[string]json.RawMessage, body []byte, name string, shape 
 	}
 	return v, nil
 }
-
