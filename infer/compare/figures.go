@@ -12,7 +12,6 @@ import (
 	"gonum.org/v1/plot/palette"
 	"gonum.org/v1/plot/palette/moreland"
 	"gonum.org/v1/plot/plotter"
-	"gonum.org/v1/plot/plotutil"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
 	"gonum.org/v1/plot/vg/vgimg"
@@ -26,21 +25,52 @@ type Figure struct {
 	PNG     []byte // encoded image
 }
 
-// seriesColor gives every series a fixed colour across figures.
+// seriesColor gives every series a fixed colour across figures, from the
+// colour-blind-safe palette of Okabe & Ito (2008, "Color Universal
+// Design"): black, orange, sky blue, bluish green, grey.
 func seriesColor(s string) color.Color {
 	switch s {
 	case Truth:
 		return color.RGBA{A: 255}
 	case Learned:
-		return plotutil.Color(0)
+		return color.RGBA{R: 0xE6, G: 0x9F, B: 0x00, A: 255}
 	case Polished:
-		return plotutil.Color(2)
+		return color.RGBA{R: 0x56, G: 0xB4, B: 0xE9, A: 255}
 	case Fitted:
-		return plotutil.Color(1)
+		return color.RGBA{R: 0x00, G: 0x9E, B: 0x73, A: 255}
 	case "raw":
 		return color.RGBA{R: 140, G: 140, B: 140, A: 255}
 	}
-	return plotutil.Color(3)
+	return color.RGBA{R: 0xCC, G: 0x79, B: 0xA7, A: 255} // reddish purple
+}
+
+// seriesDashes gives every series its own line style, so that curves
+// stay distinguishable without colour and where they overlap: fitted
+// solid, learned long dashes, polished dots, truth dash-dot, raw solid.
+func seriesDashes(s string) []vg.Length {
+	p := vg.Points
+	switch s {
+	case Learned:
+		return []vg.Length{p(6), p(3)}
+	case Polished:
+		return []vg.Length{p(1.5), p(2)}
+	case Truth:
+		return []vg.Length{p(6), p(2), p(1.5), p(2)}
+	}
+	return nil
+}
+
+// seriesGlyph gives every series its own marker shape.
+func seriesGlyph(s string) draw.GlyphDrawer {
+	switch s {
+	case Learned:
+		return draw.TriangleGlyph{}
+	case Polished:
+		return draw.SquareGlyph{}
+	case Truth:
+		return draw.CrossGlyph{}
+	}
+	return draw.CircleGlyph{}
 }
 
 func renderPlot(p *plot.Plot, w, h vg.Length) ([]byte, error) {
@@ -75,14 +105,17 @@ func Figures(r *Report) ([]Figure, error) {
 			"The rms over patches and frames of the difference between two methods, per mode (rad). Differences to the fit measure how far the fast estimates are from the classical answer; differences to the truth (simulations) measure the error of each.",
 			rmsDiffFigure, len(r.Patches) > 0 && len(r.Summary.Pairs) > 0},
 		{FigWavefront, "Wavefronts and PSFs of one patch and frame",
-			"One row per method: the wavefront over the pupil (common colour scale, rad), the focused PSF and the defocused PSF (square root of intensity, common scale per channel, central part).",
+			"One row per method: the wavefront over the pupil (common colour scale, rad), the focused PSF and the defocused PSF (square root of the fraction of the light per pixel, common scale per channel, central part); colour bars below.",
 			wavefrontFigure, r.Example != nil},
 		{FigSpectra, "Power spectra of the restorations",
 			"Azimuthally averaged power spectra of the frame-averaged raw data and of each method's restoration, averaged over patches and normalised by the squared mean. A restoration that recovers more fine structure lies higher at high frequencies; noise amplification shows up as a rise towards and beyond the diffraction cut-off (dashed).",
 			spectraFigure, r.Spectra != nil},
 		{FigRatioMap, "Metric ratio learned / fitted over the field",
 			"Each cell is one patch placed at its position in the field; the colour is the learned metric divided by the fitted metric (1 means the network is as good as the fit).",
-			ratioFigure, r.has(Learned) && r.has(Fitted) && len(r.Patches) > 0},
+			ratioFigure, r.has(Learned) && r.has(Fitted) && len(r.Patches) > 1},
+		{FigRestored, "Restored images of one patch",
+			"The patch of the wavefront figure: the frame-averaged focused data (raw), each method's restoration and, for simulations, the true object seen by the perfect telescope, all on one grey scale (data units, colour bar below). The restorations are apodised towards the patch edges as the fit's data are.",
+			restoredFigure, r.Example != nil && len(r.Example.Images) > 0},
 	}
 	for _, m := range ms {
 		if !m.ok {
@@ -116,7 +149,7 @@ func coeffFigure(r *Report) ([]byte, error) {
 			return nil, err
 		}
 		sc.Color = seriesColor(s)
-		sc.Shape = draw.CircleGlyph{}
+		sc.Shape = seriesGlyph(s)
 		sc.Radius = vg.Points(2)
 		eb, err := plotter.NewYErrorBars(struct {
 			plotter.XYer
@@ -305,7 +338,7 @@ func wavefrontFigure(r *Report) ([]byte, error) {
 	if err != nil {
 		return nil, err
 	}
-	rows := len(ex.Series)
+	rows := len(ex.Series) + 1 // the last row holds the colour bars
 	plots := make([][]*plot.Plot, rows)
 	for k, s := range ex.Series {
 		plots[k] = []*plot.Plot{
@@ -322,16 +355,35 @@ func wavefrontFigure(r *Report) ([]byte, error) {
 			plots[k] = append(plots[k], tilePlot(s+": "+name+" PSF", mapImage(sq[ch][k], n, n, c0, c0, crop, crop, nil, cm)))
 		}
 	}
-	w := 7 * vg.Inch
-	h := vg.Length(rows) * 2.4 * vg.Inch
-	cv := vgimg.New(w, h)
+	plots[rows-1] = []*plot.Plot{colorBar(div, "phase (rad)")}
+	for ch, name := range []string{"focused", "defocused"} {
+		cm := moreland.BlackBody()
+		cm.SetMin(0)
+		cm.SetMax(smax[ch])
+		plots[rows-1] = append(plots[rows-1], colorBar(cm, "√PSF "+name))
+	}
+	return tiledPNG(plots[:rows-1], plots[rows-1], 7*vg.Inch, vg.Length(rows-1)*2.4*vg.Inch)
+}
+
+// tiledPNG draws a grid of plots (equal tiles over the height h) above one
+// row of colour bars (0.8 inch), w wide, and encodes it as PNG.
+func tiledPNG(grid [][]*plot.Plot, bars []*plot.Plot, w, h vg.Length) ([]byte, error) {
+	barH := 0.8 * vg.Inch
+	cv := vgimg.New(w, h+barH)
 	dc := draw.New(cv)
-	t := draw.Tiles{Rows: rows, Cols: 3, PadX: vg.Millimeter, PadY: vg.Millimeter, PadTop: vg.Points(4), PadBottom: vg.Points(4), PadLeft: vg.Points(4), PadRight: vg.Points(4)}
-	cs := plot.Align(plots, t, dc)
-	for i := range plots {
-		for j := range plots[i] {
-			plots[i][j].Draw(cs[i][j])
+	pad := vg.Points(4)
+	top := draw.Crop(dc, 0, 0, barH, 0)
+	t := draw.Tiles{Rows: len(grid), Cols: len(grid[0]), PadX: vg.Millimeter, PadY: vg.Millimeter, PadTop: pad, PadBottom: pad, PadLeft: pad, PadRight: pad}
+	cs := plot.Align(grid, t, top)
+	for i := range grid {
+		for j := range grid[i] {
+			grid[i][j].Draw(cs[i][j])
 		}
+	}
+	bottom := draw.Crop(dc, 0, 0, 0, -h)
+	bt := draw.Tiles{Rows: 1, Cols: len(bars), PadX: 4 * vg.Millimeter, PadTop: pad, PadBottom: pad, PadLeft: pad, PadRight: pad}
+	for j, b := range bars {
+		b.Draw(bt.At(bottom, j, 0))
 	}
 	var buf bytes.Buffer
 	if _, err := (vgimg.PngCanvas{Canvas: cv}).WriteTo(&buf); err != nil {
@@ -339,6 +391,63 @@ func wavefrontFigure(r *Report) ([]byte, error) {
 	}
 	return buf.Bytes(), nil
 }
+
+// FigRestored is the file of the restored-images figure.
+const FigRestored = "restored.png"
+
+// restoredFigure draws the example patch's images side by side on one
+// grey scale: the 1st to 99th percentile of all their pixels.
+func restoredFigure(r *Report) ([]byte, error) {
+	ex := r.Example
+	n := ex.N
+	var all []float64
+	for _, im := range ex.Images {
+		if len(im) != n*n {
+			return nil, fmt.Errorf("example image of %d pixels, want %d", len(im), n*n)
+		}
+		all = append(all, im...)
+	}
+	sort.Float64s(all)
+	lo, hi := all[len(all)/100], all[len(all)-1-len(all)/100]
+	if !(hi > lo) {
+		hi = lo + 1
+	}
+	cm := grayMap{lo: lo, hi: hi}
+	row := make([]*plot.Plot, len(ex.Images))
+	for k, im := range ex.Images {
+		row[k] = tilePlot(ex.ImageSeries[k], mapImage(im, n, n, 0, 0, n, n, nil, &cm))
+	}
+	bar := colorBar(&cm, "intensity (data units: photo-electrons or ADU as in the burst)")
+	return tiledPNG([][]*plot.Plot{row}, []*plot.Plot{bar}, 7*vg.Inch, 7*vg.Inch/vg.Length(len(row)))
+}
+
+// grayMap is a linear grey scale from black at lo to white at hi
+// (palette.ColorMap; values outside are clamped by the callers).
+type grayMap struct{ lo, hi, alpha float64 }
+
+func (g *grayMap) At(v float64) (color.Color, error) {
+	t := (v - g.lo) / (g.hi - g.lo)
+	t = math.Max(0, math.Min(1, t))
+	return color.Gray{Y: uint8(math.Round(255 * t))}, nil
+}
+func (g *grayMap) Max() float64       { return g.hi }
+func (g *grayMap) Min() float64       { return g.lo }
+func (g *grayMap) SetMax(v float64)   { g.hi = v }
+func (g *grayMap) SetMin(v float64)   { g.lo = v }
+func (g *grayMap) Alpha() float64     { return 1 }
+func (g *grayMap) SetAlpha(a float64) { g.alpha = a }
+func (g *grayMap) Palette(n int) palette.Palette {
+	cs := make(grays, n)
+	for i := range cs {
+		cs[i] = color.Gray{Y: uint8(255 * i / max(1, n-1))}
+	}
+	return cs
+}
+
+// grays is a palette.Palette of grey levels.
+type grays []color.Color
+
+func (g grays) Colors() []color.Color { return g }
 
 // phaseRange returns the largest |phase| inside the pupil over all the
 // example's series, rad, or 1 if every phase is 0 there.
@@ -423,6 +532,7 @@ func spectraFigure(r *Report) ([]byte, error) {
 			return nil, err
 		}
 		ln.Color = seriesColor(s)
+		ln.Dashes = seriesDashes(s)
 		ln.Width = vg.Points(1.2)
 		p.Add(ln)
 		p.Legend.Add(s, ln)

@@ -114,6 +114,12 @@ type Example struct {
 	Phase  [][]float64 `json:"-"`      // per series, rad, N*N
 	// PSF[channel][series]: channel 0 focused, 1 defocused.
 	PSF [2][][]float64 `json:"-"`
+	// ImageSeries names each of Images: "raw" (the frame-averaged focused
+	// data), the methods' restorations (in Series order) and "object" (the
+	// diffraction-limited true object, simulations only). Images are N×N,
+	// not shifted, in data units.
+	ImageSeries []string    `json:"image_series"`
+	Images      [][]float64 `json:"-"`
 }
 
 // Spectra holds azimuthally averaged power spectra of the raw data and of

@@ -124,7 +124,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
 		return nil, err
 	}
-	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs))
+	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs), b, w)
 }
 
 // checkRun rejects a missing burst and settings that cannot describe it:
@@ -365,7 +365,7 @@ func meanSpectra(spec [][]float64, nspec int, methods []string, cutoff float64, 
 
 // finishReport adds the run's settings and the caller's settings and
 // notes to r, summarises it and attaches the example figure data.
-func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, overlap, workers, patches int) (*Report, error) {
+func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, overlap, workers, patches int, b *burst.Burst, w *patchWork) (*Report, error) {
 	r.Settings = append(r.Settings, runSettings(cfg, fitter, overlap, workers, patches)...)
 	r.Settings = append(r.Settings, cfg.Settings...)
 	r.Notes = append(r.Notes, cfg.Notes...)
@@ -374,6 +374,9 @@ func finishReport(r *Report, cfg Config, fitter *infer.Fitter, div [][]float64, 
 	}
 	ex, err := example(r, cfg, fitter, div)
 	if err != nil {
+		return nil, err
+	}
+	if err := exampleImages(ex, r, b, w); err != nil {
 		return nil, err
 	}
 	r.Example = ex
@@ -461,6 +464,43 @@ func runSettings(cfg Config, f *infer.Fitter, overlap, workers, patches int) []S
 		{"polish", fmt.Sprintf("%d L-BFGS iterations from the learned coefficients", cfg.Polish)},
 		{"workers", fmt.Sprint(workers)},
 	}
+}
+
+// exampleImages adds to ex the images of its patch side by side: the
+// frame-averaged focused data ("raw"), each method's restoration (truth:
+// the restoration with the true wavefront) and, when the burst carries its
+// OBJECT, the diffraction-limited object ("object").
+func exampleImages(ex *Example, r *Report, b *burst.Burst, w *patchWork) error {
+	var p *Patch
+	for i := range r.Patches {
+		if r.Patches[i].Index == ex.Patch {
+			p = &r.Patches[i]
+		}
+	}
+	n := ex.N
+	data := b.Patch(p.X, p.Y, n)
+	raw := make([]float64, n*n)
+	for _, im := range data[0] {
+		for i, v := range im {
+			raw[i] += v / float64(len(data[0]))
+		}
+	}
+	ex.ImageSeries, ex.Images = []string{"raw"}, [][]float64{raw}
+	for _, m := range ex.Series {
+		img, err := w.fitter.Restore(data, p.Find(m).Coeffs)
+		if err != nil {
+			return fmt.Errorf("compare: example restoration %s: %w", m, err)
+		}
+		ex.ImageSeries, ex.Images = append(ex.ImageSeries, m), append(ex.Images, img)
+	}
+	if w.ref != nil {
+		cut := make([]float64, n*n)
+		for y := 0; y < n; y++ {
+			copy(cut[y*n:y*n+n], w.ref[(p.Y+y)*w.refNx+p.X:])
+		}
+		ex.ImageSeries, ex.Images = append(ex.ImageSeries, "object"), append(ex.Images, cut)
+	}
+	return nil
 }
 
 // example computes the wavefront/PSF figure data of one patch and frame.
