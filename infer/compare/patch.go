@@ -217,12 +217,27 @@ func (s *scorer) contrast(img []float64) float64 {
 }
 
 // spectrum returns a new slice with the azimuthal average of the power
-// spectrum of img minus its mean, |FFT|²/(n² level²).
+// spectrum of img minus its least-squares plane, |FFT|²/(n² level²). The
+// plane goes because a restoration carries the scene's mean plane
+// un-apodised (pd.Solver.Restore with Detrend): its periodic continuation
+// is a sawtooth whose spectrum, falling only as 1/f², would fill the
+// frequencies beyond the noise filter's cut with power no method chose.
 func (s *scorer) spectrum(img []float64) []float64 {
 	n := s.n
 	mu := stat.Mean(img, nil)
+	c := float64(n-1) / 2
+	var sxv, syv, sxx float64
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			v := img[y*n+x] - mu
+			sxv += (float64(x) - c) * v
+			syv += (float64(y) - c) * v
+			sxx += (float64(x) - c) * (float64(x) - c)
+		}
+	}
+	bx, by := sxv/sxx, syv/sxx // the centred x and y grids are orthogonal with equal norms
 	for i, v := range img {
-		s.pbuf[i] = v - mu
+		s.pbuf[i] = v - mu - bx*(float64(i%n)-c) - by*(float64(i/n)-c)
 	}
 	s.plan.ForwardReal(s.zbuf, s.pbuf)
 	scale := 1 / (float64(n*n) * s.norm * s.norm)

@@ -13,6 +13,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"pdwave/model/fft"
 	"regexp"
 	"sort"
 	"strconv"
@@ -486,6 +487,24 @@ func TestAzimuthalAverage(t *testing.T) {
 		}
 		if math.Abs(v-want) > 1e-15 {
 			t.Errorf("bin %d = %g, want %g", k, v, want)
+		}
+	}
+}
+
+// TestSpectrumIgnoresPlane checks the spectra leave out a restoration's
+// mean plane: a pure plane has no power at any non-zero frequency
+// (planted: subtracting only the mean leaves the sawtooth's 1/f² power,
+// 1e-4 of the level² at the highest bin).
+func TestSpectrumIgnoresPlane(t *testing.T) {
+	const n = 32
+	sc := newScorer(n, 100, fft.NewPlan(n, n))
+	img := make([]float64, n*n)
+	for i := range img {
+		img[i] = 100 + 0.3*float64(i%n) - 0.2*float64(i/n)
+	}
+	for b, p := range sc.spectrum(img) {
+		if p > 1e-20 {
+			t.Errorf("bin %d: power %g of a plane, want 0", b, p)
 		}
 	}
 }
