@@ -2,7 +2,6 @@ package infer
 
 import (
 	"math"
-	"math/cmplx"
 	"math/rand/v2"
 	"sort"
 
@@ -19,31 +18,7 @@ import (
 // increasing column) by the Fourier shift theorem: g(x) = f(x − s) has
 // G(u) = F(u)·exp(−2πi u·s/n) for the unnormalised forward DFT.
 func shiftImage(im []float64, n int, sx, sy float64) []float64 {
-	p := fft.NewPlan(n, n)
-	buf := make([]complex128, n*n)
-	for i, v := range im {
-		buf[i] = complex(v, 0)
-	}
-	p.Forward(buf, buf)
-	for y := 0; y < n; y++ {
-		fy := float64(y)
-		if y > n/2 {
-			fy -= float64(n)
-		}
-		for x := 0; x < n; x++ {
-			fx := float64(x)
-			if x > n/2 {
-				fx -= float64(n)
-			}
-			buf[y*n+x] *= cmplx.Exp(complex(0, -2*math.Pi*(fx*sx+fy*sy)/float64(n)))
-		}
-	}
-	p.Inverse(buf, buf)
-	out := make([]float64, n*n)
-	for i, z := range buf {
-		out[i] = real(z)
-	}
-	return out
+	return fourierShift(fft.NewPlan(n, n), im, n, n, sx, sy)
 }
 
 // offsetBurst simulates a 96 px field burst on the demo site (8 frames,
