@@ -55,7 +55,7 @@ func ConfigFor(s *site.Site, o burst.Optics, frames int, ov Overrides) (Config, 
 		o = o.Fill(def)
 		cfg.Telescope = s.Telescope()
 		cfg.Patch, cfg.Modes, cfg.Basis = s.Sizes.Patch, s.Sizes.Modes, s.Sizes.Basis
-		r0 = s.MedianR0() * math.Pow(o.Wavelength/def.Wavelength, 1.2)
+		r0 = s.MedianR0() * math.Pow(o.Wavelength.V/def.Wavelength.V, 1.2)
 		if !(r0 > 0) {
 			return cfg, errors.New("the site file gives no r0")
 		}
@@ -64,7 +64,7 @@ func ConfigFor(s *site.Site, o burst.Optics, frames int, ov Overrides) (Config, 
 		for _, c := range []struct {
 			v    float64
 			name string
-		}{{o.Wavelength, "wavelength (WAVELNTH)"}, {o.PixelScale, "pixel scale (CDELT1)"}, {o.Diameter, "diameter (TELDIAM)"}, {o.DiversityPV, "diversity (DIVPV)"}} {
+		}{{o.Wavelength.V, "wavelength (WAVELNTH)"}, {o.PixelScale.V, "pixel scale (CDELT1)"}, {o.Diameter.V, "diameter (TELDIAM)"}, {o.DiversityPV.V, "diversity (DIVPV)"}} {
 			if !(c.v > 0) {
 				missing = append(missing, c.name)
 			}
@@ -74,8 +74,8 @@ func ConfigFor(s *site.Site, o burst.Optics, frames int, ov Overrides) (Config, 
 		}
 	}
 	tel := &cfg.Telescope
-	tel.Wavelength, tel.PixelScale, tel.Diameter, tel.Obscuration = o.Wavelength, o.PixelScale, o.Diameter, o.Obscuration
-	cfg.DiversityPV = []float64{0, o.DiversityPV}
+	tel.Wavelength, tel.PixelScale, tel.Diameter, tel.Obscuration = o.Wavelength.V, o.PixelScale.V, o.Diameter.V, o.Obscuration.V
+	cfg.DiversityPV = []float64{0, o.DiversityPV.V}
 	if r0 > 0 {
 		cfg.DOverR0 = tel.Diameter / r0
 	}
@@ -99,7 +99,7 @@ func ConfigFor(s *site.Site, o burst.Optics, frames int, ov Overrides) (Config, 
 }
 
 // Settings describes the configuration for provenance (FITS HISTORY cards
-// via burst.Provenance, "# key: value" lines of a coefficient CSV): basis,
+// via fits.Provenance, "# key: value" lines of a coefficient CSV): basis,
 // modes, frames, iterations, prior, d_over_r0, diversity (waves PV of the
 // second channel), wavelength (nm), pixel_scale (arcsec), diameter (m) and
 // obscuration, as text with units. The caller adds its own keys (command,

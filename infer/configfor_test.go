@@ -8,6 +8,8 @@ import (
 	"testing"
 
 	"pdwave/model/burst"
+	"pdwave/model/fits"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/site"
 )
@@ -36,25 +38,25 @@ func TestConfigFor(t *testing.T) {
 	if cfg.Telescope != st.Telescope() {
 		t.Errorf("telescope %+v, want the site's %+v", cfg.Telescope, st.Telescope())
 	}
-	dr0 := def.Diameter / st.R0Median()
+	dr0 := def.Diameter.V / st.R0Median()
 	if math.Abs(cfg.DOverR0-dr0) > 1e-12*dr0 {
 		t.Errorf("D/r0 = %g, want D/R0Median = %g", cfg.DOverR0, dr0)
 	}
-	if len(cfg.DiversityPV) != 2 || cfg.DiversityPV[0] != 0 || cfg.DiversityPV[1] != def.DiversityPV {
-		t.Errorf("diversity %v, want [0 %g]", cfg.DiversityPV, def.DiversityPV)
+	if len(cfg.DiversityPV) != 2 || cfg.DiversityPV[0] != 0 || cfg.DiversityPV[1] != def.DiversityPV.V {
+		t.Errorf("diversity %v, want [0 %g]", cfg.DiversityPV, def.DiversityPV.V)
 	}
 
 	// Header values win over the site; D/r0 follows the header wavelength.
-	hdr := burst.Optics{Wavelength: 2 * def.Wavelength, Diameter: 2 * def.Diameter, DiversityPV: 0.5}
+	hdr := burst.Optics{Wavelength: instrument.Some(2 * def.Wavelength.V), Diameter: instrument.Some(2 * def.Diameter.V), DiversityPV: instrument.Some(0.5)}
 	cfg, err = ConfigFor(st, hdr, 7, Overrides{})
 	if err != nil {
 		t.Fatal(err)
 	}
-	if cfg.Telescope.Wavelength != hdr.Wavelength || cfg.Telescope.Diameter != hdr.Diameter ||
-		cfg.Telescope.PixelScale != def.PixelScale || cfg.DiversityPV[1] != 0.5 {
+	if cfg.Telescope.Wavelength != hdr.Wavelength.V || cfg.Telescope.Diameter != hdr.Diameter.V ||
+		cfg.Telescope.PixelScale != def.PixelScale.V || cfg.DiversityPV[1] != 0.5 {
 		t.Errorf("optics %+v, diversity %v: header values must win, the site fill the rest", cfg.Telescope, cfg.DiversityPV)
 	}
-	want := hdr.Diameter / (st.R0Median() * math.Pow(2, 6.0/5))
+	want := hdr.Diameter.V / (st.R0Median() * math.Pow(2, 6.0/5))
 	if math.Abs(cfg.DOverR0-want) > 1e-12*want {
 		t.Errorf("D/r0 at 2λ = %g, want %g (r0 ∝ λ^(6/5))", cfg.DOverR0, want)
 	}
@@ -70,7 +72,7 @@ func TestConfigFor(t *testing.T) {
 	}
 
 	// No site: the header must give the optics; sizes and D/r0 default.
-	full := burst.Optics{Wavelength: def.Wavelength, PixelScale: def.PixelScale, Diameter: def.Diameter, DiversityPV: 1}
+	full := burst.Optics{Wavelength: def.Wavelength, PixelScale: def.PixelScale, Diameter: def.Diameter, DiversityPV: instrument.Some(1.0)}
 	cfg, err = ConfigFor(nil, full, 7, Overrides{})
 	if err != nil {
 		t.Fatal(err)
@@ -96,7 +98,7 @@ func TestCoefficientTableCSV(t *testing.T) {
 		Noll:   [][]float64{{1, 2}, {3, 4}},
 		Title:  "pdwave test fit", Settings: map[string]string{"b": "2", "a": "1"}, Notes: []string{"iterations: 3"},
 	}
-	img := &burst.Image{Dims: []int{2, 2}, Data: []float64{1, 2, 3, 4}}
+	img := &fits.Image{Dims: []int{2, 2}, Data: []float64{1, 2, 3, 4}}
 	csvPath, err := WriteCoefficients(filepath.Join(dir, "f.fits"), img, tab)
 	if err != nil {
 		t.Fatal(err)

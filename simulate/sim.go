@@ -12,6 +12,7 @@ import (
 	"gonum.org/v1/gonum/stat"
 
 	"pdwave/model/burst"
+	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
 )
@@ -363,11 +364,11 @@ func (s *Simulator) finish(b *burst.Burst, seeds [][2][2]uint64, scale float64, 
 func (s *Simulator) opticsHeader() burst.Optics {
 	t := s.cfg.Telescope
 	return burst.Optics{
-		Wavelength:  t.Wavelength,
-		PixelScale:  t.PixelScale,
-		Diameter:    t.Diameter,
-		Obscuration: t.Obscuration,
-		DiversityPV: s.cfg.DiversityPV,
+		Wavelength:  instrument.Some(t.Wavelength),
+		PixelScale:  instrument.Some(t.PixelScale),
+		Diameter:    instrument.Some(t.Diameter),
+		Obscuration: instrument.Some(t.Obscuration),
+		DiversityPV: instrument.Some(s.cfg.DiversityPV),
 	}
 }
 

@@ -11,6 +11,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -91,8 +92,8 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	for _, f := range []struct {
 		v    float64
 		name string
-	}{{opt.Wavelength, "wavelength (WAVELNTH)"}, {opt.PixelScale, "pixel scale (CDELT1/2)"},
-		{opt.Diameter, "aperture (TELDIAM)"}, {opt.DiversityPV, "diversity (DIVPV)"}} {
+	}{{opt.Wavelength.V, "wavelength (WAVELNTH)"}, {opt.PixelScale.V, "pixel scale (CDELT1/2)"},
+		{opt.Diameter.V, "aperture (TELDIAM)"}, {opt.DiversityPV.V, "diversity (DIVPV)"}} {
 		if f.v == 0 {
 			missing = append(missing, f.name)
 		}
@@ -100,8 +101,8 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	if len(missing) > 0 {
 		return fmt.Errorf("predict: %s: optics unknown: %s; add the header keywords or give --site", args[0], strings.Join(missing, ", "))
 	}
-	want := net.Meta{Wavelength: opt.Wavelength, PixelScale: opt.PixelScale, Diameter: opt.Diameter,
-		Obscuration: opt.Obscuration, DiversityPV: opt.DiversityPV}
+	want := net.Meta{Wavelength: opt.Wavelength.V, PixelScale: opt.PixelScale.V, Diameter: opt.Diameter.V,
+		Obscuration: opt.Obscuration.V, DiversityPV: opt.DiversityPV.V}
 	if err := m.Meta.Compatible(want); err != nil {
 		return fmt.Errorf("predict: %s: %w", args[0], err)
 	}
@@ -137,12 +138,12 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	} else {
 		hdu := table.HDU()
 		hdu.Cards = append(hdu.Cards,
-			burst.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
-			burst.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
-			burst.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
-			burst.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
-		primary := &burst.Image{Cards: burst.Provenance(version, settings)}
-		if err := burst.WriteFile(o.out, primary, hdu); err != nil {
+			fits.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
+			fits.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
+			fits.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
+			fits.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
+		primary := &fits.Image{Cards: fits.Provenance(version, settings)}
+		if err := fits.WriteFile(o.out, primary, hdu); err != nil {
 			return err
 		}
 		if err := table.WriteCSV(infer.CSVPath(o.out)); err != nil {

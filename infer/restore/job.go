@@ -17,6 +17,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/net"
 	"pdwave/model/site"
 )
@@ -270,13 +271,13 @@ func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Me
 		calNote = strings.Join(parts, ", ")
 	}
 	tel := cfg.Telescope
-	cards := append(append([]burst.Card{}, b.Cards...),
-		burst.Card{Key: "WAVELNTH", Value: tel.Wavelength * 1e9, Comment: "wavelength used, nm"},
-		burst.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
-		burst.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
-		burst.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
-		burst.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"},
-		burst.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
+	cards := append(append([]fits.Card{}, b.Cards...),
+		fits.Card{Key: "WAVELNTH", Value: tel.Wavelength * 1e9, Comment: "wavelength used, nm"},
+		fits.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
+		fits.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
+		fits.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
+		fits.Card{Key: "DIVPV", Value: cfg.DiversityPV[1], Comment: "defocus of channel 2 used, waves PV"},
+		fits.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
 	return &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
 		Basis: string(cfg.Basis), Modes: cfg.Modes, Estimator: method.Name, ShiftX: off.DX, ShiftY: off.DY,
 		Cards: cards, Settings: settings, Mean: field.Mean, Inputs: inputs, CalibrationNotes: calNote}
