@@ -64,18 +64,14 @@ func (h *Unit) Empty() bool {
 // the HDU and the keyword.
 func (h *Unit) Image() ([]float64, error) {
 	if h.Compressed() {
-		out, err := h.decompress()
-		if err != nil {
-			return nil, fmt.Errorf("%s: %w", h.what(), err)
-		}
-		return out, nil
+		return h.decompress()
 	}
 	if !h.IsImage() {
 		return nil, fmt.Errorf("%s %v", h.what(), errNoImage)
 	}
 	n, err := h.pixelCount(h.Axes)
 	if err != nil {
-		return nil, err
+		return nil, fmt.Errorf("%s: %w", h.what(), err)
 	}
 	sc, err := readScaling(h.Header, h.Bitpix, "BZERO", "BSCALE", "BLANK")
 	if err != nil {
@@ -97,13 +93,13 @@ func (h *Unit) pixelCount(axes []int) (int, error) {
 	}
 	for _, a := range axes {
 		if a < 0 {
-			return 0, fmt.Errorf("%s: negative axis %d", h.what(), a)
+			return 0, fmt.Errorf("negative axis %d", a)
 		}
 		if a == 0 {
 			return 0, nil
 		}
 		if int64(a) > max || n > max/int64(a) {
-			return 0, fmt.Errorf("%s: image %v is more than the limit of %d pixels (%d bytes as float64)", h.what(), axes, max, h.lim.maxBytes())
+			return 0, fmt.Errorf("image %v is more than the limit of %d pixels (%d bytes as float64)", axes, max, h.lim.maxBytes())
 		}
 		n *= int64(a)
 	}

@@ -107,7 +107,10 @@ func (h *Unit) table() (*table, error) {
 	if off != t.rowBytes {
 		return nil, fmt.Errorf("%s: the columns fill %d bytes of a row, NAXIS1 = %d", t.what, off, t.rowBytes)
 	}
-	fixed := t.rowBytes * t.rows // bounded by the data unit, checked by the scan
+	fixed := t.rowBytes * t.rows // no overflow: the scan bounded NAXIS1·NAXIS2 by the file
+	if fixed > len(h.data) {
+		return nil, fmt.Errorf("%s: %d rows of %d bytes but a data unit of %d bytes (GCOUNT = 0?)", t.what, t.rows, t.rowBytes, len(h.data))
+	}
 	t.fixed = h.data[:fixed]
 	theap, ok, err := h.Header.Int("THEAP")
 	if err != nil {

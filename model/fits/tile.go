@@ -181,16 +181,18 @@ func (z *zimage) findColumns(what string) error {
 			tiles = 0
 			break
 		}
-		tiles *= (n + z.tile[i] - 1) / z.tile[i]
-		if tiles > t.rows {
+		per := (n + z.tile[i] - 1) / z.tile[i]
+		if per > t.rows || tiles > t.rows/per {
+			tiles = t.rows + 1 // more tiles than rows; no overflow
 			break
 		}
+		tiles *= per
 	}
 	if len(z.axes) == 0 {
 		tiles = 0
 	}
 	if tiles != t.rows {
-		return fmt.Errorf("%s: %d rows for the %d tiles of a %v image in %v tiles", what, t.rows, tiles, z.axes, z.tile)
+		return fmt.Errorf("%s: %d rows but a %v image in %v tiles needs %s", what, t.rows, z.axes, z.tile, tileCount(tiles, t.rows))
 	}
 	return nil
 }
@@ -202,7 +204,8 @@ func (z *zimage) quantised() bool {
 	return z.bitpix < 0 && (z.cScale >= 0 || z.hasKScale)
 }
 
-// decompress decodes the whole image of the tile-compressed HDU h.
+// decompress decodes the whole image of the tile-compressed HDU h; errors
+// name the HDU.
 func (h *Unit) decompress() ([]float64, error) {
 	z, err := h.zimage()
 	if err != nil {
@@ -210,19 +213,19 @@ func (h *Unit) decompress() ([]float64, error) {
 	}
 	n, err := h.pixelCount(z.axes)
 	if err != nil {
-		return nil, err
+		return nil, fmt.Errorf("%s: %w", h.what(), err)
 	}
 	w := z.bitpix / 8
 	if w < 0 {
 		w = -w
 	}
 	if int64(n)*int64(w) > maxRatio*int64(len(h.data))+blockSize {
-		return nil, fmt.Errorf("a %v image of %d-byte pixels in a %d-byte data unit is beyond any compression ratio", z.axes, w, len(h.data))
+		return nil, fmt.Errorf("%s: a %v image of %d-byte pixels in a %d-byte data unit is beyond any compression ratio", h.what(), z.axes, w, len(h.data))
 	}
 	out := make([]float64, n)
 	for k := 0; k < z.t.rows; k++ {
 		if err := z.decodeTile(k, out); err != nil {
-			return nil, fmt.Errorf("tile %d (%s): %w", k+1, z.cmp, err)
+			return nil, fmt.Errorf("%s: tile %d (%s): %w", h.what(), k+1, z.cmp, err)
 		}
 	}
 	return out, nil
@@ -555,4 +558,12 @@ func elemBitpix(code byte) int {
 		return -64
 	}
 	return 0
+}
+
+// tileCount describes the needed number of tiles for a message.
+func tileCount(tiles, rows int) string {
+	if tiles > rows {
+		return "more"
+	}
+	return strconv.Itoa(tiles)
 }
