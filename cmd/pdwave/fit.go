@@ -103,6 +103,7 @@ takes roughly 3 to 4 times as long as --quick.`,
 
 func init() {
 	f := fitCmd.Flags()
+	addBurstFlags(fitCmd)
 	f.StringVar(&fitOpts.site, "site", "", "site/telescope YAML file (required)")
 	f.StringVar(&fitOpts.out, "out", "", "output FITS file (required); a CSV is written next to it")
 	f.StringVar(&fitOpts.basis, "basis", "", "modal basis zernike|kl (default: the site file's)")
@@ -166,7 +167,7 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	b, err := burst.Read(args[0])
+	b, err := readBurst(args[0], cmd.ErrOrStderr())
 	if err != nil {
 		return err
 	}

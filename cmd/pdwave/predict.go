@@ -10,7 +10,6 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
-	"pdwave/model/burst"
 	"pdwave/model/fits"
 	"pdwave/model/modes"
 	"pdwave/model/net"
@@ -49,6 +48,7 @@ optics keywords); otherwise predict refuses and says what differs.`,
 
 func init() {
 	f := predictCmd.Flags()
+	addBurstFlags(predictCmd)
 	f.StringVar(&predictOpts.weights, "weights", "", "weight file (default: built-in weights)")
 	f.StringVar(&predictOpts.site, "site", "", "site file giving the optics of bursts without optics keywords")
 	f.StringVar(&predictOpts.out, "out", "", "output table (FITS, plus a CSV copy; or .csv)")
@@ -76,7 +76,7 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		}
 		from = "built-in (" + weights.DefaultName + ")"
 	}
-	b, err := burst.Read(args[0])
+	b, err := readBurst(args[0], cmd.ErrOrStderr())
 	if err != nil {
 		return err
 	}

@@ -29,6 +29,9 @@ type Job struct {
 	// 3-D files alternating.
 	Inputs []string
 	Pairs  bool // Inputs are focused/defocused pairs of 3-D files
+	// Reading says how bursts are read (image HDUs, limits); each input
+	// may join several files with '+' (burst.ReadRef).
+	Reading burst.Options
 	// Out is the output FITS file for a single burst, or a directory (made
 	// if needed) for several: DIR/<input name>_restored.fits. Shard runs
 	// write partial files instead (same names with .part).
@@ -98,13 +101,18 @@ func (j *Job) Run(ctx context.Context) error {
 		var err error
 		inputs := []string{u.a}
 		if u.b != "" {
-			b, err = burst.ReadPair(u.a, u.b)
+			b, err = burst.ReadPairWith(u.a, u.b, j.Reading)
 			inputs = append(inputs, u.b)
 		} else {
-			b, err = burst.Read(u.a)
+			b, err = burst.ReadRef(u.a, j.Reading)
 		}
 		if err != nil {
 			return err
+		}
+		for _, n := range b.Notes {
+			if j.Log != nil {
+				fmt.Fprintf(j.Log, "note: %s\n", n)
+			}
 		}
 		if k == 0 || cal == nil {
 			if cal, err = j.calibration(b.Nx, b.Ny); err != nil {

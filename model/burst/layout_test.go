@@ -238,3 +238,13 @@ func TestGzipLimits(t *testing.T) {
 		t.Errorf("limit: %v", err)
 	}
 }
+
+// TestIsFITSName: the names a folder of bursts is listed by.
+func TestIsFITSName(t *testing.T) {
+	for name, want := range map[string]bool{"a.fits": true, "A.FIT": true, "b.fts": true, "c.fz": true, "d.fits.gz": true,
+		"e.gz": false, "f.txt": false, "fits": false} {
+		if IsFITSName(name) != want {
+			t.Errorf("IsFITSName(%q) = %v", name, !want)
+		}
+	}
+}

@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"pdwave/model/fits"
 	"pdwave/model/instrument"
@@ -40,7 +41,13 @@ func Read(path string) (*Burst, error) { return ReadFiles([]string{path}, Option
 // carries DIVPV); set values in both must agree. Cards, TRUTH and OBJECT
 // come from the focused file.
 func ReadPair(focused, defocused string) (*Burst, error) {
-	parts, err := readParts([]string{focused, defocused}, Options{})
+	return ReadPairWith(focused, defocused, Options{})
+}
+
+// ReadPairWith is ReadPair with reading options (the image HDUs of each
+// file, limits).
+func ReadPairWith(focused, defocused string, opt Options) (*Burst, error) {
+	parts, err := readParts([]string{focused, defocused}, opt, true)
 	if err != nil {
 		return nil, err
 	}
@@ -69,7 +76,7 @@ func ReadPair(focused, defocused string) (*Burst, error) {
 // file filled from the others; Cards and OBJECT come from the first file,
 // TRUTH only from a single file. Errors name the file.
 func ReadFiles(paths []string, opt Options) (*Burst, error) {
-	parts, err := readParts(paths, opt)
+	parts, err := readParts(paths, opt, false)
 	if err != nil {
 		return nil, err
 	}
@@ -89,8 +96,8 @@ type part struct {
 	object []float64
 }
 
-// readParts reads every file.
-func readParts(paths []string, opt Options) ([]*part, error) {
+// readParts reads every file; pair names the files as channels in errors.
+func readParts(paths []string, opt Options, pair bool) ([]*part, error) {
 	if len(paths) == 0 {
 		return nil, errors.New("reading burst: no files")
 	}
@@ -98,7 +105,7 @@ func readParts(paths []string, opt Options) ([]*part, error) {
 	for i, p := range paths {
 		pt, err := readPart(p, opt)
 		if err != nil {
-			if len(paths) == 2 && len(opt.HDUs) == 0 {
+			if pair {
 				return nil, fmt.Errorf("reading burst %s %s: %w", channelName(i), p, err)
 			}
 			return nil, fmt.Errorf("reading burst %s: %w", p, err)
@@ -310,4 +317,41 @@ func readBytes(path string, lim fits.Limits) ([]byte, error) {
 		return nil, err
 	}
 	return data, nil
+}
+
+// RefSep joins the files of one burst in a burst reference (see SplitRef).
+const RefSep = "+"
+
+// SplitRef returns the files of the burst reference ref: ref itself when
+// it names an existing file or holds no RefSep, else its parts split at
+// RefSep ("f1.fits+f2.fits" is the burst of two files, see ReadFiles).
+func SplitRef(ref string) []string {
+	if !strings.Contains(ref, RefSep) {
+		return []string{ref}
+	}
+	if _, err := os.Stat(ref); err == nil {
+		return []string{ref}
+	}
+	return strings.Split(ref, RefSep)
+}
+
+// ReadRef reads the burst named by the reference ref (SplitRef) with opt.
+func ReadRef(ref string, opt Options) (*Burst, error) {
+	return ReadFiles(SplitRef(ref), opt)
+}
+
+// FileExts are the file-name endings of FITS files a folder of bursts may
+// hold (compared without case): plain, tile-compressed (.fz, as fpack
+// names them) and gzip-compressed.
+var FileExts = []string{".fits", ".fit", ".fts", ".fz", ".fits.gz", ".fit.gz", ".fts.gz"}
+
+// IsFITSName reports whether a file name ends in one of FileExts.
+func IsFITSName(name string) bool {
+	name = strings.ToLower(name)
+	for _, e := range FileExts {
+		if strings.HasSuffix(name, e) {
+			return true
+		}
+	}
+	return false
 }
