@@ -1,40 +1,64 @@
 // Package burst holds a phase-diversity burst (two channels × frames of
-// images) and reads and writes it as FITS, plus a generic writer for the
-// FITS products of the other verbs.
+// images) and maps it to and from FITS files, read and written with package
+// fits.
 //
-// # Burst file (contract version 1, keyword BURSTVER = 1)
+// # Layouts read (contract version 1, keyword BURSTVER = 1)
 //
-// The primary HDU is a 4-D image: NAXIS1 = nx, NAXIS2 = ny, NAXIS3 = frames,
-// NAXIS4 = 2 (channel 1 focused, channel 2 defocused). Read accepts BITPIX
-// −32, −64, 8, 16, 32 and 64 and applies BZERO/BSCALE (physical = BZERO +
-// BSCALE·stored, FITS Standard 4.0 §5.3, eq. 3); cameras write unsigned
-// 16-bit data as BITPIX 16 with BZERO = 32768. Integer pixels equal to BLANK
-// are undefined and rejected like NaN. Write always writes BITPIX −32.
-// ReadPair reads one 3-D file (NAXIS1, NAXIS2, NAXIS3 = frames) per channel.
+// A burst is read from one file or several (ReadFiles, ReadRef with
+// "a.fits+b.fits"):
 //
-// Optics keywords (zero in Optics where absent):
+//   - a 4-D image NAXIS1 = nx, NAXIS2 = ny, NAXIS3 = frames, NAXIS4 = 2
+//     (channel 1 focused, channel 2 defocused) in any image HDU, plain or
+//     tile-compressed;
+//   - two one-channel images (3-D, or 2-D for one frame) of the same shape
+//     in one file, one per HDU (as astropy writes one CompImageHDU per
+//     channel);
+//   - one-channel files, the focused channel's first, then as many of the
+//     defocused channel (ReadPair for two);
+//   - files each holding both channels of some frames, in frame order.
 //
-//	WAVELNTH  wavelength, in units of 10^WAVEUNIT m. WAVEUNIT is the power of
-//	          ten exponent (−9 = nm, −10 = Ångström). Without WAVEUNIT,
-//	          WAVELNTH is read in metres; a value outside 10 nm – 1 mm is then
-//	          an error (it is almost surely nm or Å). Written as nm, WAVEUNIT = −9.
+// Options.HDUs chooses the HDUs by EXTNAME or index; by default the first
+// HDU with a non-empty image and, for a one-channel image, the next image
+// HDU of the same shape not named OBJECT. Whole-file gzip and the
+// tile-compression convention are handled by package fits, as are pixels of
+// BITPIX −32, −64, 8, 16, 32 and 64 with BZERO/BSCALE (FITS Standard 4.0
+// §5.3, eq. 3; cameras write unsigned 16-bit data as BITPIX 16 with BZERO
+// = 32768). Undefined pixels (NaN, Inf, BLANK, ZBLANK) are rejected with
+// channel, frame and position. The header of an image in an extension is
+// its own, completed by the primary header's cards for keywords it lacks.
+// Write always writes a 4-D BITPIX −32 primary image.
+//
+// Optics keywords (unset in Optics where absent; an explicit 0 is set):
+//
+//	WAVELNTH  wavelength, in units given by WAVEUNIT: an integer power of
+//	          ten exponent (−9 = nm, −10 = Ångström) or a unit string
+//	          (nm, Angstrom, angstrom, AA, um, micron, mm, cm, m, pm; FITS
+//	          Standard 4.0 §4.3). Without WAVEUNIT, WAVELNTH is read in
+//	          metres; a value outside 10 nm – 1 mm is then an error (it is
+//	          almost surely nm or Å). Written as nm, WAVEUNIT = −9.
 //	CDELT1/2  pixel scale with CUNIT1/2 ('arcsec', 'arcmin', 'deg', 'mas',
 //	          'rad'; absent = 'deg', the celestial default of Greisen &
 //	          Calabretta 2002). |CDELT1| and |CDELT2| must agree to 1 %.
 //	          Written in the unit of a carried CUNITi card, else 'arcsec';
-//	          the sign of a carried CDELTi is kept.
+//	          the sign of a carried CDELTi is kept. Without carried
+//	          CTYPEi/CRPIXi/CRVALi, Write adds CTYPEi = 'XOFFSET'/'YOFFSET',
+//	          CRPIXi at the image centre, CRVALi = 0.
 //	TELDIAM   aperture diameter, m.
-//	          Without carried CTYPEi/CRPIXi/CRVALi, Write adds CTYPEi =
-//	          'XOFFSET'/'YOFFSET', CRPIXi at the image centre, CRVALi = 0.
 //	OBSCUR    central obscuration, fraction of the diameter.
 //	DIVPV     defocus of channel 2, peak-to-valley waves.
 //
-// Every other header card of the primary HDU except the structural ones
-// (SIMPLE, BITPIX, NAXISn, EXTEND, BZERO, BSCALE, BLANK, EXTNAME, CHECKSUM,
-// DATASUM, BURSTVER, ...) is kept in Burst.Cards in file order, including
-// COMMENT and HISTORY, so outputs carry WCS (CTYPEi, CRPIXi, CRVALi, CDELTi,
-// CUNITi, PCi_j), DATE-OBS, TELESCOP, OBJECT and the like. HIERARCH cards and
-// cards with complex or oversized integer values are dropped.
+// Header values are read as fits.ParseValue says (FITS Standard 4.0 §4.2);
+// the reader's notes (lower-case exponents, repeated keywords, dropped
+// cards) are in Burst.Notes. Every other header card except the structural
+// ones (SIMPLE, BITPIX, NAXISn, EXTEND, BZERO, BSCALE, BLANK, EXTNAME,
+// CHECKSUM, DATASUM, BURSTVER, the tile-compression keywords, ...) is kept
+// in Burst.Cards in file order, including COMMENT and HISTORY, so outputs
+// carry WCS (CTYPEi, CRPIXi, CRVALi, CDELTi, CUNITi, PCi_j), DATE-OBS,
+// TELESCOP, OBJECT and the like. Cards that would make an output invalid
+// are dropped with a note: HIERARCH and other non-standard names, complex,
+// oversized integer and unparsable values, WCS cards of the wrong type or
+// of an axis beyond the fourth, dates not in the ISO-8601 form of FITS
+// Standard 4.0 §9.1.1.
 //
 // Simulated bursts add two extensions:
 //

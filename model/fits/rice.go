@@ -83,7 +83,6 @@ func riceDecode(data []byte, n, bytepix, blockSize int) ([]int64, error) {
 		return nil, fmt.Errorf("RICE_1 BLOCKSIZE = %d is invalid", blockSize)
 	}
 	nbits := uint(8 * bytepix)
-	mask := uint64(1)<<nbits - 1
 	if len(data) < bytepix {
 		return nil, errShortRice
 	}
@@ -94,42 +93,51 @@ func riceDecode(data []byte, n, bytepix, blockSize int) ([]int64, error) {
 	r := &bitReader{buf: data[bytepix:]}
 	out := make([]int64, n)
 	for i := 0; i < n; i += blockSize {
-		end := min(i+blockSize, n)
-		fs0, err := r.bits(fsBits)
-		if err != nil {
+		if err := r.riceBlock(out[i:min(i+blockSize, n)], &last, fsBits, fsMax, nbits, bytepix); err != nil {
 			return nil, err
-		}
-		fs := int(fs0) - 1
-		for j := i; j < end; j++ {
-			var m uint64
-			switch {
-			case fs < 0:
-				m = 0
-			case uint(fs) == fsMax:
-				if m, err = r.bits(nbits); err != nil {
-					return nil, err
-				}
-			default:
-				hi, err := r.unary()
-				if err != nil {
-					return nil, err
-				}
-				lo, err := r.bits(uint(fs))
-				if err != nil {
-					return nil, err
-				}
-				m = hi<<uint(fs) | lo
-			}
-			// Undo the mapping: even m is d = m/2, odd m is d = −(m+1)/2.
-			d := m >> 1
-			if m&1 != 0 {
-				d = ^d
-			}
-			last = (last + d) & mask
-			out[j] = signed(last, bytepix)
 		}
 	}
 	return out, nil
+}
+
+// riceBlock decodes one block of len(out) values, last being the value
+// before the block (updated).
+func (r *bitReader) riceBlock(out []int64, last *uint64, fsBits, fsMax, nbits uint, bytepix int) error {
+	mask := uint64(1)<<nbits - 1
+	fs0, err := r.bits(fsBits)
+	if err != nil {
+		return err
+	}
+	fs := int(fs0) - 1
+	for j := range out {
+		var m uint64
+		switch {
+		case fs < 0:
+			m = 0
+		case uint(fs) == fsMax:
+			if m, err = r.bits(nbits); err != nil {
+				return err
+			}
+		default:
+			hi, err := r.unary()
+			if err != nil {
+				return err
+			}
+			lo, err := r.bits(uint(fs))
+			if err != nil {
+				return err
+			}
+			m = hi<<uint(fs) | lo
+		}
+		// Undo the mapping: even m is d = m/2, odd m is d = −(m+1)/2.
+		d := m >> 1
+		if m&1 != 0 {
+			d = ^d
+		}
+		*last = (*last + d) & mask
+		out[j] = signed(*last, bytepix)
+	}
+	return nil
 }
 
 // signed converts a value of bytepix bytes to int64: unsigned for one
