@@ -184,10 +184,15 @@ func parseCard(card string) (Card, string) {
 			return c, noteFor(c.Key, note)
 		}
 	}
-	if isCommentary(key) || card[8:10] != "= " {
-		// Commentary text, or a card without a value indicator, which
-		// §4.1.2.2 reads as commentary.
+	if isCommentary(key) {
 		return Card{Key: key, Comment: strings.TrimRight(card[8:], " ")}, ""
+	}
+	if card[8:10] != "= " {
+		// Without the value indicator the card has no value (§4.1.2.2);
+		// keep its text as Unparsed so that it is neither read as a value
+		// nor written back as one.
+		text := strings.TrimSpace(card[8:])
+		return Card{Key: key, Value: Unparsed(text)}, noteFor(key, "no value indicator '= ' in columns 9-10 (FITS Standard 4.0 §4.1.2.2); not read as a value")
 	}
 	c := Card{Key: key}
 	v, comment, note := ParseValue(card[10:])

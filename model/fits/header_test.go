@@ -265,3 +265,20 @@ func TestParseValueForms(t *testing.T) {
 		}
 	}
 }
+
+// TestNoValueIndicator: a card without "= " in columns 9–10 has no value
+// (FITS Standard 4.0 §4.1.2.2): it is kept as Unparsed with a note, so a
+// keyword such as TELDIAM written that way is an error, never "absent".
+// Planted: reading such cards as commentary makes Number report absent.
+func TestNoValueIndicator(t *testing.T) {
+	h := ParseHeader(rawHeader("TELDIAM   1.5", "CONTINUE  'orphan'", "COMMENT   text"))
+	if _, _, err := h.Number("TELDIAM"); err == nil {
+		t.Error("TELDIAM without '= ' read as absent or as a number")
+	}
+	if c, _ := h.Get("CONTINUE"); c.Value != Unparsed("'orphan'") {
+		t.Errorf("orphan CONTINUE = %#v", c)
+	}
+	if len(h.Notes) != 2 || h.Cards[2].Comment != "  text" {
+		t.Errorf("notes %q, cards %+v", h.Notes, h.Cards)
+	}
+}
