@@ -9,7 +9,8 @@ import (
 	"slices"
 	"strings"
 
-	"pdwave/model/burst"
+	"pdwave/internal/atomicfile"
+	"pdwave/model/fits"
 	"pdwave/model/modes"
 )
 
@@ -32,19 +33,19 @@ type CoefficientTable struct {
 // and NOLL (rad, one vector of modes per frame), with the cards FITBASIS
 // (basis of NATIVE) and NOLLJ0 = 2 (Noll index of the first NOLL element).
 // The table shares the coefficient slices of t.
-func (t *CoefficientTable) HDU() *burst.Table {
+func (t *CoefficientTable) HDU() *fits.Table {
 	frames := make([]int64, len(t.Native))
 	for j := range frames {
 		frames[j] = int64(j + 1)
 	}
-	return &burst.Table{
+	return &fits.Table{
 		Name: "COEFFS",
-		Columns: []burst.Column{
+		Columns: []fits.Column{
 			{Name: "FRAME", Int: frames},
 			{Name: "NATIVE", Unit: "rad", Float: t.Native},
 			{Name: "NOLL", Unit: "rad", Float: t.Noll},
 		},
-		Cards: []burst.Card{
+		Cards: []fits.Card{
 			{Key: "FITBASIS", Value: string(t.Basis), Comment: "basis of NATIVE"},
 			{Key: "NOLLJ0", Value: 2, Comment: "Noll index of the first NOLL element"},
 		},
@@ -87,11 +88,11 @@ func (t *CoefficientTable) WriteCSV(path string) error {
 		}
 		b.WriteByte('\n')
 	}
-	if err := burst.WriteAtomic(path, func(w io.Writer) error {
+	if err := atomicfile.Write(path, func(w io.Writer) error {
 		_, err := io.WriteString(w, b.String())
 		return err
 	}); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
+		return err
 	}
 	return nil
 }
@@ -106,8 +107,8 @@ func CSVPath(fitsPath string) string {
 // COEFFS table of t.HDU) and the same coefficients as CSV to CSVPath(fitsPath)
 // (t.WriteCSV). Both files are written atomically; if the CSV fails, the FITS
 // file is removed again. It returns the CSV path.
-func WriteCoefficients(fitsPath string, primary *burst.Image, t *CoefficientTable) (csvPath string, err error) {
-	if err := burst.WriteFile(fitsPath, primary, t.HDU()); err != nil {
+func WriteCoefficients(fitsPath string, primary *fits.Image, t *CoefficientTable) (csvPath string, err error) {
+	if err := fits.WriteFile(fitsPath, primary, t.HDU()); err != nil {
 		return "", err
 	}
 	csvPath = CSVPath(fitsPath)

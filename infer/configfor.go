@@ -26,22 +26,13 @@ func ConfigFor(src instrument.Sources, frames int) (Config, error) {
 }
 
 // HeaderInstrument returns what a burst header says about the instrument
-// (zero fields of burst.Optics are unknown): wavelength, pixel scale,
-// diameter, obscuration (known once the diameter is) and the diversity of
-// the second channel.
+// (burst.Optics; an explicit value, zero included, is set): wavelength,
+// pixel scale, diameter, obscuration and the diversity of the second
+// channel (channel 0 in focus).
 func HeaderInstrument(o burst.Optics) instrument.Partial {
-	var p instrument.Partial
-	set := func(dst *instrument.Opt[float64], v float64) {
-		if v != 0 {
-			*dst = instrument.Some(v)
-		}
-	}
-	set(&p.Wavelength, o.Wavelength)
-	set(&p.PixelScale, o.PixelScale)
-	set(&p.Diameter, o.Diameter)
-	set(&p.Obscuration, o.Obscuration)
-	if o.DiversityPV != 0 {
-		p.Diversity = instrument.Some([]float64{0, o.DiversityPV})
+	p := instrument.Partial{Wavelength: o.Wavelength, PixelScale: o.PixelScale, Diameter: o.Diameter, Obscuration: o.Obscuration}
+	if v, ok := o.DiversityPV.Get(); ok {
+		p.Diversity = instrument.Some([]float64{0, v})
 	}
 	return p
 }

@@ -8,6 +8,7 @@ import (
 	"testing"
 
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/site"
@@ -37,24 +38,24 @@ func TestConfigFor(t *testing.T) {
 	if cfg.Telescope != st.Telescope() || cfg.Notes["wavelength"] != instrument.FromSite {
 		t.Errorf("telescope %+v (%v), want the site's %+v", cfg.Telescope, cfg.Notes, st.Telescope())
 	}
-	if dr0 := def.Diameter / st.R0Median(); math.Abs(cfg.DOverR0-dr0) > 1e-12*dr0 {
+	if dr0 := def.Diameter.V / st.R0Median(); math.Abs(cfg.DOverR0-dr0) > 1e-12*dr0 {
 		t.Errorf("D/r0 = %g, want D/R0Median = %g", cfg.DOverR0, dr0)
 	}
-	if len(cfg.Diversity) != 2 || cfg.Diversity[0] != 0 || cfg.Diversity[1] != def.DiversityPV {
-		t.Errorf("diversity %v, want [0 %g]", cfg.Diversity, def.DiversityPV)
+	if len(cfg.Diversity) != 2 || cfg.Diversity[0] != 0 || cfg.Diversity[1] != def.DiversityPV.V {
+		t.Errorf("diversity %v, want [0 %g]", cfg.Diversity, def.DiversityPV.V)
 	}
 
-	hdr := HeaderInstrument(burst.Optics{Wavelength: 2 * def.Wavelength, Diameter: 2 * def.Diameter, DiversityPV: 0.5})
-	hdr.Obscuration = instrument.Some(0.0) // an explicit zero in the header
+	hdr := HeaderInstrument(burst.Optics{Wavelength: instrument.Some(2 * def.Wavelength.V), Diameter: instrument.Some(2 * def.Diameter.V),
+		DiversityPV: instrument.Some(0.5), Obscuration: instrument.Some(0.0)}) // an explicit zero in the header
 	cfg, err = ConfigFor(instrument.Sources{Header: hdr, Site: st.Instrument()}, 7)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if cfg.Telescope.Wavelength != 2*def.Wavelength || cfg.Telescope.Diameter != 2*def.Diameter ||
-		cfg.Telescope.PixelScale != def.PixelScale || cfg.Diversity[1] != 0.5 || cfg.Telescope.Obscuration != 0 {
+	if cfg.Telescope.Wavelength != 2*def.Wavelength.V || cfg.Telescope.Diameter != 2*def.Diameter.V ||
+		cfg.Telescope.PixelScale != def.PixelScale.V || cfg.Diversity[1] != 0.5 || cfg.Telescope.Obscuration != 0 {
 		t.Errorf("optics %+v, diversity %v: header values must win, the site fill the rest", cfg.Telescope, cfg.Diversity)
 	}
-	if want := 2 * def.Diameter / (st.R0Median() * math.Pow(2, 6.0/5)); math.Abs(cfg.DOverR0-want) > 1e-12*want {
+	if want := 2 * def.Diameter.V / (st.R0Median() * math.Pow(2, 6.0/5)); math.Abs(cfg.DOverR0-want) > 1e-12*want {
 		t.Errorf("D/r0 at 2λ = %g, want %g (r0 ∝ λ^(6/5))", cfg.DOverR0, want)
 	}
 
@@ -87,7 +88,7 @@ func TestCoefficientTableCSV(t *testing.T) {
 		Noll:   [][]float64{{1, 2}, {3, 4}},
 		Title:  "pdwave test fit", Settings: map[string]string{"b": "2", "a": "1"}, Notes: []string{"iterations: 3"},
 	}
-	img := &burst.Image{Dims: []int{2, 2}, Data: []float64{1, 2, 3, 4}}
+	img := &fits.Image{Dims: []int{2, 2}, Data: []float64{1, 2, 3, 4}}
 	csvPath, err := WriteCoefficients(filepath.Join(dir, "f.fits"), img, tab)
 	if err != nil {
 		t.Fatal(err)

@@ -7,7 +7,7 @@ import (
 	"strconv"
 	"text/tabwriter"
 
-	"pdwave/model/burst"
+	"pdwave/internal/atomicfile"
 )
 
 // studyColumns is the header of the study CSV. err_* are fractions of the
@@ -98,8 +98,8 @@ func parseStudyRow(r *StudyRow, rec []string) error {
 // temporary file in the same folder that is renamed into place (no partial
 // file on error). Errors name the path.
 func WriteStudyFile(path string, rows []StudyRow) error {
-	if err := burst.WriteAtomic(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
+	if err := atomicfile.Write(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
+		return err
 	}
 	return nil
 }

@@ -8,6 +8,7 @@ import (
 	"testing"
 
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 )
 
 // TestPatchFITSRoundTrip writes a simulated burst with burst.Write and reads
@@ -21,7 +22,7 @@ func TestPatchFITSRoundTrip(t *testing.T) {
 		t.Fatal(err)
 	}
 	path := filepath.Join(t.TempDir(), "b.fits")
-	if err := burst.Write(path, r.Burst, burst.Provenance("test", map[string]string{"seed": "14"})); err != nil {
+	if err := burst.Write(path, r.Burst, fits.Provenance("test", map[string]string{"seed": "14"})); err != nil {
 		t.Fatal(err)
 	}
 	b, err := burst.Read(path)
@@ -34,7 +35,7 @@ func TestPatchFITSRoundTrip(t *testing.T) {
 	if b.Data[1][2][100] != r.Burst.Data[1][2][100] { // integers < 2^24 are exact in float32
 		t.Errorf("data %g, wrote %g", b.Data[1][2][100], r.Burst.Data[1][2][100])
 	}
-	if math.Abs(b.Optics.DiversityPV-1) > 1e-6 || math.Abs(b.Optics.PixelScale/c.Telescope.PixelScale-1) > 1e-6 {
+	if math.Abs(b.Optics.DiversityPV.V-1) > 1e-6 || math.Abs(b.Optics.PixelScale.V/c.Telescope.PixelScale-1) > 1e-6 {
 		t.Errorf("optics %+v", b.Optics)
 	}
 	if b.Truth.Basis != "kl" || b.Truth.Modes != 36 || b.Truth.Coeffs[2][5] != r.Burst.Truth.Coeffs[2][5] {
@@ -53,7 +54,7 @@ func TestReadObject(t *testing.T) {
 		data[i] = 100 + float64(i%nx)
 	}
 	path := filepath.Join(dir, "obj.fits")
-	if err := burst.WriteFile(path, &burst.Image{Dims: []int{nx, ny}, Data: data}); err != nil {
+	if err := fits.WriteFile(path, &fits.Image{Dims: []int{nx, ny}, Data: data}); err != nil {
 		t.Fatal(err)
 	}
 	got, gx, gy, err := ReadObject(path)

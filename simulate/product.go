@@ -4,11 +4,11 @@ import (
 	"fmt"
 	"math"
 
-	"pdwave/model/burst"
+	"pdwave/model/fits"
 )
 
 // ScreenHDUs lays out the phase-screen file of one burst for
-// burst.WriteFile: one image LAYERi per layer (N×N, rad at the observing
+// fits.WriteFile: one image LAYERi per layer (N×N, rad at the observing
 // wavelength; cards BUNIT, SCRPIX = pixel size in m, LAYERH = height in m,
 // LAYERW = share of r0^(−5/3), LAYERR0 = the layer's r0 in m, WINDV in m/s,
 // WINDDIR in degrees from +x towards +y; the first image also carries
@@ -17,12 +17,12 @@ import (
 // grid pixel in m, PUPRAD = pupil radius in pixels). sim must be the
 // simulator that made r. The images share r's slices except PHASE, which is
 // a new N·N·frames slice.
-func (r *Result) ScreenHDUs(sim *Simulator, prov []burst.Card) []burst.HDU {
+func (r *Result) ScreenHDUs(sim *Simulator, prov []fits.Card) []fits.HDU {
 	atm := r.Atmosphere
-	var hdus []burst.HDU
+	var hdus []fits.HDU
 	for i, s := range atm.Screens {
 		l := atm.Layers[i]
-		cards := []burst.Card{
+		cards := []fits.Card{
 			{Key: "BUNIT", Value: "rad", Comment: "phase at the observing wavelength"},
 			{Key: "SCRPIX", Value: s.Dx, Comment: "screen pixel size, m"},
 			{Key: "LAYERH", Value: l.Height, Comment: "layer height, m"},
@@ -34,7 +34,7 @@ func (r *Result) ScreenHDUs(sim *Simulator, prov []burst.Card) []burst.HDU {
 		if i == 0 {
 			cards = append(cards, prov...)
 		}
-		hdus = append(hdus, &burst.Image{Name: fmt.Sprintf("LAYER%d", i+1), Dims: []int{s.N, s.N}, Data: s.Data, Cards: cards})
+		hdus = append(hdus, &fits.Image{Name: fmt.Sprintf("LAYER%d", i+1), Dims: []int{s.N, s.N}, Data: s.Data, Cards: cards})
 	}
 	if r.Phases != nil {
 		n := sim.Config().Patch
@@ -42,7 +42,7 @@ func (r *Result) ScreenHDUs(sim *Simulator, prov []burst.Card) []burst.HDU {
 		for _, p := range r.Phases {
 			data = append(data, p...)
 		}
-		hdus = append(hdus, &burst.Image{Name: "PHASE", Dims: []int{n, n, len(r.Phases)}, Data: data, Cards: []burst.Card{
+		hdus = append(hdus, &fits.Image{Name: "PHASE", Dims: []int{n, n, len(r.Phases)}, Data: data, Cards: []fits.Card{
 			{Key: "BUNIT", Value: "rad", Comment: "wavefront on the pupil grid per frame"},
 			{Key: "SCRPIX", Value: sim.PupilPixel(), Comment: "pupil grid pixel size, m"},
 			{Key: "PUPRAD", Value: sim.Pupil().Radius, Comment: "pupil radius, pixels; centre (N/2, N/2)"},
@@ -87,13 +87,13 @@ func (p ScreenParams) OuterScale() float64 {
 // (N×N, rad at the observing wavelength, shared) with the cards BUNIT,
 // SCRPIX = pixel size in m, SCRR0 = r0 in m, SCRL0 = outer scale in m (0 =
 // Kolmogorov), SCRLEV = subharmonic levels (0 = none), then prov.
-func ScreenImage(s *Screen, p ScreenParams, prov []burst.Card) *burst.Image {
-	cards := []burst.Card{
+func ScreenImage(s *Screen, p ScreenParams, prov []fits.Card) *fits.Image {
+	cards := []fits.Card{
 		{Key: "BUNIT", Value: "rad", Comment: "phase at the observing wavelength"},
 		{Key: "SCRPIX", Value: p.Dx, Comment: "screen pixel size, m"},
 		{Key: "SCRR0", Value: p.R0, Comment: "Fried parameter r0, m"},
 		{Key: "SCRL0", Value: p.OuterScale(), Comment: "outer scale L0, m (0 = Kolmogorov)"},
 		{Key: "SCRLEV", Value: p.Levels, Comment: "subharmonic levels (0 = none)"},
 	}
-	return &burst.Image{Dims: []int{p.N, p.N}, Data: s.Data, Cards: append(cards, prov...)}
+	return &fits.Image{Dims: []int{p.N, p.N}, Data: s.Data, Cards: append(cards, prov...)}
 }

@@ -8,7 +8,7 @@ import (
 
 	"github.com/astrogo/fitsio"
 
-	"pdwave/model/burst"
+	"pdwave/model/fits"
 )
 
 // Contrast returns the rms contrast std/mean of im (0 for a constant or
@@ -107,7 +107,7 @@ func ReadObject(path string) (data []float64, nx, ny int, err error) {
 // imagePlane returns the first n values of img as float64, with BZERO and
 // BSCALE applied.
 func imagePlane(img fitsio.Image, n int) ([]float64, error) {
-	v, err := burst.ImagePixels(img)
+	v, err := fits.ImagePixels(img)
 	if err != nil {
 		return nil, err
 	}

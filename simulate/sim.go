@@ -382,11 +382,11 @@ func (s *Simulator) finish(b *burst.Burst, seeds [][2][2]uint64, scale float64, 
 func (s *Simulator) opticsHeader() burst.Optics {
 	t := s.cfg.Telescope
 	return burst.Optics{
-		Wavelength:  t.Wavelength,
-		PixelScale:  t.PixelScale,
-		Diameter:    t.Diameter,
-		Obscuration: t.Obscuration,
-		DiversityPV: s.cfg.SecondDiversity(),
+		Wavelength:  instrument.Some(t.Wavelength),
+		PixelScale:  instrument.Some(t.PixelScale),
+		Diameter:    instrument.Some(t.Diameter),
+		Obscuration: instrument.Some(t.Obscuration),
+		DiversityPV: instrument.Some(s.cfg.SecondDiversity()),
 	}
 }
 

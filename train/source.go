@@ -63,7 +63,8 @@ type FolderSource struct {
 	cache map[string]*burst.Burst
 }
 
-// NewFolderSource lists the .fits/.fit/.fts files of dir. It returns an
+// NewFolderSource lists the FITS files of dir (burst.IsFITSName: plain,
+// tile- or gzip-compressed). It returns an
 // error if there is none.
 func NewFolderSource(dir string, patch, frames int, seed uint64) (*FolderSource, error) {
 	ents, err := os.ReadDir(dir)
@@ -72,13 +73,12 @@ func NewFolderSource(dir string, patch, frames int, seed uint64) (*FolderSource,
 	}
 	var files []string
 	for _, e := range ents {
-		ext := strings.ToLower(filepath.Ext(e.Name()))
-		if !e.IsDir() && (ext == ".fits" || ext == ".fit" || ext == ".fts") {
+		if !e.IsDir() && burst.IsFITSName(e.Name()) {
 			files = append(files, filepath.Join(dir, e.Name()))
 		}
 	}
 	if len(files) == 0 {
-		return nil, fmt.Errorf("burst folder %s holds no FITS files (.fits, .fit, .fts)", dir)
+		return nil, fmt.Errorf("burst folder %s holds no FITS files (%s)", dir, strings.Join(burst.FileExts, ", "))
 	}
 	sort.Strings(files)
 	s := &FolderSource{Files: files, Patch: patch, Frames: frames, Seed: seed, cache: map[string]*burst.Burst{}}

@@ -64,6 +64,7 @@ place when complete; an existing DIR is replaced.`,
 
 func init() {
 	f := compareCmd.Flags()
+	addBurstFlags(compareCmd)
 	f.StringVar(&compareOpts.out, "out", "", "output folder (required)")
 	f.StringVar(&compareOpts.site, "site", "", "site/telescope YAML file (fills optics the burst header lacks, expected seeing, sizes)")
 	f.StringVar(&compareOpts.weights, "weights", "", "network weight file (default: the built-in weights, if they fit the telescope)")
@@ -87,7 +88,7 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if err := o.check(); err != nil {
 		return err
 	}
-	b, err := burst.Read(args[0])
+	b, err := readBurst(args[0], cmd.ErrOrStderr())
 	if err != nil {
 		return err
 	}

@@ -13,6 +13,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/instrument"
 	"pdwave/model/site"
 	"pdwave/simulate"
@@ -102,6 +103,7 @@ takes roughly 3 to 4 times as long as --quick.`,
 
 func init() {
 	f := fitCmd.Flags()
+	addBurstFlags(fitCmd)
 	f.StringVar(&fitOpts.site, "site", "", "site/telescope YAML file (required)")
 	f.StringVar(&fitOpts.out, "out", "", "output FITS file (required); a CSV is written next to it")
 	f.StringVar(&fitOpts.basis, "basis", "", "modal basis zernike|kl (default: the site file's)")
@@ -150,7 +152,7 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	b, err := burst.Read(args[0])
+	b, err := readBurst(args[0], cmd.ErrOrStderr())
 	if err != nil {
 		return err
 	}
@@ -200,23 +202,23 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	settings["burst"] = filepath.Base(args[0])
 	settings["site"] = filepath.Base(o.site)
 	settings["patch"] = fmt.Sprintf("%d px at (%d, %d) of %d×%d", n, x0, y0, b.Nx, b.Ny)
-	cards := burst.Provenance(version, settings)
+	cards := fits.Provenance(version, settings)
 	cards = append(cards,
-		burst.Card{Key: "FITBASIS", Value: string(cfg.Basis), Comment: "modal basis of the coefficients"},
-		burst.Card{Key: "FITMODES", Value: cfg.Modes, Comment: "modes per frame, piston excluded"},
-		burst.Card{Key: "FITITER", Value: res.Iterations, Comment: "L-BFGS iterations"},
-		burst.Card{Key: "FITSTAT", Value: fitStatus(res.Status), Comment: "why the optimiser stopped"},
-		burst.Card{Key: "FITFLAGS", Value: guardText(res.Flags), Comment: "guard: implausible, refitted, rejected or none"},
-		burst.Card{Key: "PRIORCHI", Value: res.Chi2, Comment: "mean coefficient^2 / Kolmogorov variance"},
-		burst.Card{Key: "METRIC0", Value: res.MetricStart, Comment: "objective before the fit (metric/power + prior)"},
-		burst.Card{Key: "METRIC1", Value: res.MetricEnd, Comment: "objective after the fit"},
-		burst.Card{Key: "DATAM0", Value: res.DataStart, Comment: "normalised metric L/P before the fit"},
-		burst.Card{Key: "DATAM1", Value: res.DataEnd, Comment: "normalised metric L/P after the fit"},
-		burst.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
-		burst.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"},
+		fits.Card{Key: "FITBASIS", Value: string(cfg.Basis), Comment: "modal basis of the coefficients"},
+		fits.Card{Key: "FITMODES", Value: cfg.Modes, Comment: "modes per frame, piston excluded"},
+		fits.Card{Key: "FITITER", Value: res.Iterations, Comment: "L-BFGS iterations"},
+		fits.Card{Key: "FITSTAT", Value: fitStatus(res.Status), Comment: "why the optimiser stopped"},
+		fits.Card{Key: "FITFLAGS", Value: guardText(res.Flags), Comment: "guard: implausible, refitted, rejected or none"},
+		fits.Card{Key: "PRIORCHI", Value: res.Chi2, Comment: "mean coefficient^2 / Kolmogorov variance"},
+		fits.Card{Key: "METRIC0", Value: res.MetricStart, Comment: "objective before the fit (metric/power + prior)"},
+		fits.Card{Key: "METRIC1", Value: res.MetricEnd, Comment: "objective after the fit"},
+		fits.Card{Key: "DATAM0", Value: res.DataStart, Comment: "normalised metric L/P before the fit"},
+		fits.Card{Key: "DATAM1", Value: res.DataEnd, Comment: "normalised metric L/P after the fit"},
+		fits.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
+		fits.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"},
 	)
 	cards = append(cards, burst.CutoutCards(b.Cards, x0, y0)...)
-	img := &burst.Image{Dims: []int{n, n}, Data: res.Restored, Cards: cards}
+	img := &fits.Image{Dims: []int{n, n}, Data: res.Restored, Cards: cards}
 	table := &infer.CoefficientTable{
 		Basis: cfg.Basis, Native: res.Coeffs, Noll: res.Noll,
 		Title: "pdwave " + version + " fit", Settings: settings, Notes: res.Notes(),

@@ -10,7 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
-	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
@@ -49,6 +49,7 @@ optics keywords); otherwise predict refuses and says what differs.`,
 
 func init() {
 	f := predictCmd.Flags()
+	addBurstFlags(predictCmd)
 	f.StringVar(&predictOpts.weights, "weights", "", "weight file (default: built-in weights)")
 	f.StringVar(&predictOpts.site, "site", "", "site file giving the optics of bursts without optics keywords")
 	f.StringVar(&predictOpts.out, "out", "", "output table (FITS, plus a CSV copy; or .csv)")
@@ -76,7 +77,7 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		}
 		from = "built-in (" + weights.DefaultName + ")"
 	}
-	b, err := burst.Read(args[0])
+	b, err := readBurst(args[0], cmd.ErrOrStderr())
 	if err != nil {
 		return err
 	}
@@ -123,12 +124,12 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	} else {
 		hdu := table.HDU()
 		hdu.Cards = append(hdu.Cards,
-			burst.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
-			burst.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
-			burst.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
-			burst.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
-		primary := &burst.Image{Cards: burst.Provenance(version, settings)}
-		if err := burst.WriteFile(o.out, primary, hdu); err != nil {
+			fits.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
+			fits.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
+			fits.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
+			fits.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
+		primary := &fits.Image{Cards: fits.Provenance(version, settings)}
+		if err := fits.WriteFile(o.out, primary, hdu); err != nil {
 			return err
 		}
 		if err := table.WriteCSV(infer.CSVPath(o.out)); err != nil {

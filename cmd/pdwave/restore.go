@@ -81,6 +81,7 @@ patch exactly once, and writes the same FITS file and sidecars as a single run.`
 
 func init() {
 	f := restoreCmd.Flags()
+	addBurstFlags(restoreCmd)
 	o := &restoreFlags
 	f.StringVar(&o.out, "out", "", "output FITS file (a folder when restoring several bursts; a partial file with --shard)")
 	f.StringVar(&o.site, "site", "", "site file (YAML): optics the header lacks, seeing for the prior, patch size, basis")
@@ -119,7 +120,7 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		return fmt.Errorf("restore: %w", err)
 	}
 	job := &restore.Job{
-		Inputs: args, Pairs: o.pairs, Out: o.out, Flags: fl, Overlap: o.overlap,
+		Inputs: args, Pairs: o.pairs, Reading: burstOptions(), Out: o.out, Flags: fl, Overlap: o.overlap,
 		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,
 		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
 		Command: "pdwave " + strings.Join(os.Args[1:], " "),

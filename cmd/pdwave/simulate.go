@@ -13,6 +13,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/site"
@@ -251,7 +252,7 @@ func (o simulateFlags) burst(sim *simulate.Simulator, notes instrument.Notes, i 
 	msg := fmt.Sprintf("wrote %s (%s %d×%d, %d frames, r0 = %.3f m, D/r0 = %.1f)", name, kind, b.Nx, b.Ny, b.Frames, res.R0, cfg.Telescope.Diameter/res.R0)
 	if o.screens {
 		sname := filepath.Join(o.out, fmt.Sprintf("burst-%04d-screens.fits", i))
-		if err := burst.WriteFile(sname, res.ScreenHDUs(sim, prov)...); err != nil {
+		if err := fits.WriteFile(sname, res.ScreenHDUs(sim, prov)...); err != nil {
 			return "", err
 		}
 		msg += " and " + sname
@@ -265,13 +266,13 @@ func (o simulateFlags) burst(sim *simulate.Simulator, notes instrument.Notes, i 
 // "sources" saying where each came from, and the simulation's own; the
 // site file is "site_file", and "basis_for" the clear aperture of the
 // truth's basis).
-func simulateHeader(o simulateFlags, cfg simulate.Config, notes instrument.Notes, kind string, i int, res *simulate.Result) []burst.Card {
+func simulateHeader(o simulateFlags, cfg simulate.Config, notes instrument.Notes, kind string, i int, res *simulate.Result) []fits.Card {
 	b := res.Burst
 	b.Cards = append(b.Cards,
-		burst.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
-		burst.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
-		burst.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
-		burst.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
+		fits.Card{Key: "SIMR0", Value: res.R0, Comment: "simulated r0 at WAVELNTH, m"},
+		fits.Card{Key: "SIMSEED", Value: strconv.FormatUint(o.seed, 10), Comment: "simulation seed; burst stream SIMBURST"},
+		fits.Card{Key: "SIMBURST", Value: i, Comment: "burst number (random stream)"},
+		fits.Card{Key: "SIMSCENE", Value: res.Scene, Comment: "what the object was drawn from"},
 	)
 	settings := cfg.Settings()
 	for k, v := range map[string]string{
@@ -298,7 +299,7 @@ func simulateHeader(o simulateFlags, cfg simulate.Config, notes instrument.Notes
 		delete(settings, "contrast")
 		delete(settings, "scene")
 	}
-	return burst.Provenance(version, settings)
+	return fits.Provenance(version, settings)
 }
 
 // sceneSource returns the scene of --scene: nil (the simulator's built-in
@@ -374,11 +375,11 @@ func simulateScreenRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return fmt.Errorf("simulate screen: %w", err)
 	}
-	prov := burst.Provenance(version, map[string]string{
+	prov := fits.Provenance(version, map[string]string{
 		"verb": "simulate screen", "site": o.site, "seed": strconv.FormatUint(o.seed, 10),
 		"size": strconv.Itoa(o.size),
 	})
-	if err := burst.WriteFile(o.out, simulate.ScreenImage(s, p, prov)); err != nil {
+	if err := fits.WriteFile(o.out, simulate.ScreenImage(s, p, prov)); err != nil {
 		return err
 	}
 	l0 := p.OuterScale()

@@ -8,7 +8,7 @@ import (
 
 	"github.com/astrogo/fitsio"
 
-	"pdwave/model/burst"
+	"pdwave/model/fits"
 )
 
 // Calibration is what Calibrate does to each frame: d ← (d − Dark)/Gain.
@@ -117,7 +117,7 @@ func ReadFrame(path string) (data []float64, nx, ny int, err error) {
 	if nx < 1 || ny < 1 || nz < 1 {
 		return nil, 0, 0, fmt.Errorf("reading %s: empty image %v", path, axes)
 	}
-	raw, err := burst.ImagePixels(img)
+	raw, err := fits.ImagePixels(img)
 	if err != nil {
 		return nil, 0, 0, fmt.Errorf("reading %s: %w", path, err)
 	}

@@ -17,6 +17,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/model/burst"
+	"pdwave/model/fits"
 	"pdwave/model/instrument"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -29,6 +30,9 @@ type Job struct {
 	// 3-D files alternating.
 	Inputs []string
 	Pairs  bool // Inputs are focused/defocused pairs of 3-D files
+	// Reading says how bursts are read (image HDUs, limits); each input
+	// may join several files with '+' (burst.ReadRef).
+	Reading burst.Options
 	// Out is the output FITS file for a single burst, or a directory (made
 	// if needed) for several: DIR/<input name>_restored.fits. Shard runs
 	// write partial files instead (same names with .part).
@@ -100,13 +104,18 @@ func (j *Job) Run(ctx context.Context) error {
 		var err error
 		inputs := []string{u.a}
 		if u.b != "" {
-			b, err = burst.ReadPair(u.a, u.b)
+			b, err = burst.ReadPairWith(u.a, u.b, j.Reading)
 			inputs = append(inputs, u.b)
 		} else {
-			b, err = burst.Read(u.a)
+			b, err = burst.ReadRef(u.a, j.Reading)
 		}
 		if err != nil {
 			return err
+		}
+		for _, n := range b.Notes {
+			if j.Log != nil {
+				fmt.Fprintf(j.Log, "note: %s\n", n)
+			}
 		}
 		if k == 0 || cal == nil {
 			if cal, err = j.calibration(b.Nx, b.Ny); err != nil {
@@ -285,13 +294,13 @@ func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Me
 		calNote = strings.Join(parts, ", ")
 	}
 	tel := cfg.Telescope
-	cards := append(append([]burst.Card{}, b.Cards...),
-		burst.Card{Key: "WAVELNTH", Value: tel.Wavelength * 1e9, Comment: "wavelength used, nm"},
-		burst.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
-		burst.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
-		burst.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
-		burst.Card{Key: "DIVPV", Value: cfg.SecondDiversity(), Comment: "defocus of channel 2 used, waves PV"},
-		burst.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
+	cards := append(append([]fits.Card{}, b.Cards...),
+		fits.Card{Key: "WAVELNTH", Value: tel.Wavelength * 1e9, Comment: "wavelength used, nm"},
+		fits.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
+		fits.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
+		fits.Card{Key: "OBSCUR", Value: tel.Obscuration, Comment: "central obscuration used, fraction of diameter"},
+		fits.Card{Key: "DIVPV", Value: cfg.SecondDiversity(), Comment: "defocus of channel 2 used, waves PV"},
+		fits.Card{Key: "PDSHMETH", Value: off.Method, Comment: "how the defocused channel offset was found"})
 	return &Meta{Nx: b.Nx, Ny: b.Ny, Frames: b.Frames, Patch: cfg.Patch, Overlap: overlap,
 		Basis: string(cfg.Basis), Modes: cfg.Modes, Estimator: method.Name, ShiftX: off.DX, ShiftY: off.DY,
 		Cards: cards, Settings: settings, Mean: field.Mean, Inputs: inputs, CalibrationNotes: calNote}

@@ -11,7 +11,7 @@ import (
 	"sort"
 	"strings"
 
-	"pdwave/model/burst"
+	"pdwave/internal/atomicfile"
 )
 
 // The journal is a sidecar directory holding
@@ -145,12 +145,9 @@ func (j *restoreJournal) flush() error {
 	return nil
 }
 
-// restoreWriteAtomic writes path through fn with burst.WriteAtomic (a
-// temporary file in the same directory, synced and renamed into place) and
-// names the path in errors.
+// restoreWriteAtomic writes path through fn with atomicfile.Write (a
+// temporary file in the same directory, synced and renamed into place);
+// errors name the path.
 func restoreWriteAtomic(path string, fn func(io.Writer) error) error {
-	if err := burst.WriteAtomic(path, fn); err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
+	return atomicfile.Write(path, fn)
 }

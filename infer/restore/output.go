@@ -13,7 +13,7 @@ import (
 	"strconv"
 	"strings"
 
-	"pdwave/model/burst"
+	"pdwave/model/fits"
 )
 
 // Product is a finished restoration: the blended field and the per-patch
@@ -83,7 +83,7 @@ func (p *Product) Write(out, version string) error {
 	for k, v := range m.Settings {
 		settings[k] = v
 	}
-	var cards []burst.Card
+	var cards []fits.Card
 	for _, c := range m.Cards {
 		// The burst's description of its 4-D axes does not apply to the
 		// restored image.
@@ -92,25 +92,25 @@ func (p *Product) Write(out, version string) error {
 		}
 		cards = append(cards, c)
 	}
-	cards = append(cards, burst.Provenance(version, settings)...)
+	cards = append(cards, fits.Provenance(version, settings)...)
 	cards = append(cards,
-		burst.Card{Key: "PDPATCH", Value: m.Patch, Comment: "restoration patch side, pixels"},
-		burst.Card{Key: "PDOVERLP", Value: m.Overlap, Comment: "patch overlap, pixels"},
-		burst.Card{Key: "PDNPATCH", Value: len(p.Patches), Comment: "number of patches"},
-		burst.Card{Key: "PDFRAMES", Value: m.Frames, Comment: "frames per channel"},
-		burst.Card{Key: "PDBASIS", Value: m.Basis, Comment: "wavefront basis of COEFFS"},
-		burst.Card{Key: "PDMODES", Value: m.Modes, Comment: "coefficients per frame"},
-		burst.Card{Key: "PDESTIM", Value: m.Estimator, Comment: "wavefront estimator"},
-		burst.Card{Key: "PDSHIFTX", Value: m.ShiftX, Comment: "defocused channel x offset removed, pixels"},
-		burst.Card{Key: "PDSHIFTY", Value: m.ShiftY, Comment: "defocused channel y offset removed, pixels"},
+		fits.Card{Key: "PDPATCH", Value: m.Patch, Comment: "restoration patch side, pixels"},
+		fits.Card{Key: "PDOVERLP", Value: m.Overlap, Comment: "patch overlap, pixels"},
+		fits.Card{Key: "PDNPATCH", Value: len(p.Patches), Comment: "number of patches"},
+		fits.Card{Key: "PDFRAMES", Value: m.Frames, Comment: "frames per channel"},
+		fits.Card{Key: "PDBASIS", Value: m.Basis, Comment: "wavefront basis of COEFFS"},
+		fits.Card{Key: "PDMODES", Value: m.Modes, Comment: "coefficients per frame"},
+		fits.Card{Key: "PDESTIM", Value: m.Estimator, Comment: "wavefront estimator"},
+		fits.Card{Key: "PDSHIFTX", Value: m.ShiftX, Comment: "defocused channel x offset removed, pixels"},
+		fits.Card{Key: "PDSHIFTY", Value: m.ShiftY, Comment: "defocused channel y offset removed, pixels"},
 	)
 	if m.CalibrationNotes != "" {
-		cards = append(cards, burst.Card{Key: "PDCALIB", Value: m.CalibrationNotes, Comment: "calibration applied"})
+		cards = append(cards, fits.Card{Key: "PDCALIB", Value: m.CalibrationNotes, Comment: "calibration applied"})
 	}
-	primary := &burst.Image{Dims: []int{m.Nx, m.Ny}, Data: p.Image, Cards: cards}
-	raw := &burst.Image{Name: "RAWMEAN", Dims: []int{m.Nx, m.Ny}, Data: m.Mean,
-		Cards: append(restoreWCSCards(m.Cards), burst.Card{Key: "COMMENT", Value: "burst-mean focused image after calibration"})}
-	if err := burst.WriteFile(out, primary, raw, p.table()); err != nil {
+	primary := &fits.Image{Dims: []int{m.Nx, m.Ny}, Data: p.Image, Cards: cards}
+	raw := &fits.Image{Name: "RAWMEAN", Dims: []int{m.Nx, m.Ny}, Data: m.Mean,
+		Cards: append(restoreWCSCards(m.Cards), fits.Card{Key: "COMMENT", Value: "burst-mean focused image after calibration"})}
+	if err := fits.WriteFile(out, primary, raw, p.table()); err != nil {
 		return err
 	}
 	base := SidecarBase(out)
@@ -130,8 +130,8 @@ func (p *Product) Write(out, version string) error {
 }
 
 // restoreWCSCards picks the world-coordinate cards of the input.
-func restoreWCSCards(cards []burst.Card) []burst.Card {
-	var out []burst.Card
+func restoreWCSCards(cards []fits.Card) []fits.Card {
+	var out []fits.Card
 	for _, c := range cards {
 		k := strings.ToUpper(c.Key)
 		for _, p := range []string{"CRPIX", "CRVAL", "CDELT", "CUNIT", "CTYPE", "CROTA", "PC1_", "PC2_", "CD1_", "CD2_", "WCSNAME", "RADESYS", "EQUINOX", "DATE-OBS"} {
@@ -145,7 +145,7 @@ func restoreWCSCards(cards []burst.Card) []burst.Card {
 }
 
 // table builds the PATCHES binary table.
-func (p *Product) table() *burst.Table {
+func (p *Product) table() *fits.Table {
 	n := len(p.Patches)
 	ids, x0, y0, flags := make([]int64, n), make([]int64, n), make([]int64, n), make([]int64, n)
 	col := func() [][]float64 { return make([][]float64, n) }
@@ -163,26 +163,26 @@ func (p *Product) table() *burst.Table {
 		coeffs[i] = restoreFixed(r.Coeffs, nc)
 		noll[i] = restoreFixed(r.Noll, nc)
 	}
-	cols := []burst.Column{
+	cols := []fits.Column{
 		{Name: "ID", Int: ids},
 		{Name: "X0", Unit: "pixel", Int: x0},
 		{Name: "Y0", Unit: "pixel", Int: y0},
 	}
 	if nc > 0 {
 		cols = append(cols,
-			burst.Column{Name: "COEFFS", Unit: "rad", Float: coeffs},
-			burst.Column{Name: "NOLL", Unit: "rad", Float: noll})
+			fits.Column{Name: "COEFFS", Unit: "rad", Float: coeffs},
+			fits.Column{Name: "NOLL", Unit: "rad", Float: noll})
 	}
 	cols = append(cols,
-		burst.Column{Name: "METRIC", Float: metric},
-		burst.Column{Name: "MRATIO", Float: mratio},
-		burst.Column{Name: "COEFRMS", Float: crms},
-		burst.Column{Name: "CONTRAST", Float: con},
-		burst.Column{Name: "RAWCONTR", Float: rcon},
-		burst.Column{Name: "RINGING", Float: ring},
-		burst.Column{Name: "FLAGS", Int: flags},
+		fits.Column{Name: "METRIC", Float: metric},
+		fits.Column{Name: "MRATIO", Float: mratio},
+		fits.Column{Name: "COEFRMS", Float: crms},
+		fits.Column{Name: "CONTRAST", Float: con},
+		fits.Column{Name: "RAWCONTR", Float: rcon},
+		fits.Column{Name: "RINGING", Float: ring},
+		fits.Column{Name: "FLAGS", Int: flags},
 	)
-	return &burst.Table{Name: "PATCHES", Columns: cols, Cards: []burst.Card{
+	return &fits.Table{Name: "PATCHES", Columns: cols, Cards: []fits.Card{
 		{Key: "PDBASIS", Value: p.Meta.Basis, Comment: "basis of COEFFS (frame-major, frames x modes)"},
 		{Key: "PDMODES", Value: p.Meta.Modes, Comment: "modes per frame"},
 		{Key: "PDFRAMES", Value: p.Meta.Frames, Comment: "frames"},

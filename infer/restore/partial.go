@@ -9,7 +9,7 @@ import (
 	"os"
 	"sort"
 
-	"pdwave/model/burst"
+	"pdwave/model/fits"
 )
 
 // Meta describes one restoration: everything the output writer needs besides
@@ -23,7 +23,7 @@ type Meta struct {
 	Modes            int               // coefficients per frame
 	Estimator        string            // how the coefficients were obtained
 	ShiftX, ShiftY   float64           // defocused channel offset removed, pixels
-	Cards            []burst.Card      // header cards of the input to carry over
+	Cards            []fits.Card       // header cards of the input to carry over
 	Settings         map[string]string // provenance settings
 	Mean             []float64         // burst-mean focused calibrated image, Nx·Ny
 	Inputs           []string          // input file names

@@ -9,6 +9,9 @@ import (
 	"strconv"
 	"strings"
 	"testing"
+
+	"pdwave/model/fits"
+	"pdwave/model/instrument"
 )
 
 const arcsec = math.Pi / (180 * 3600)
@@ -23,8 +26,9 @@ func testBurst(nx, ny, frames, modes int) *Burst {
 			}
 		}
 	}
-	b.Optics = Optics{Wavelength: 600e-9, PixelScale: 0.12 * arcsec, Diameter: 0.5, Obscuration: 0.15, DiversityPV: 1}
-	b.Cards = []Card{
+	s := instrument.Some[float64]
+	b.Optics = Optics{Wavelength: s(600e-9), PixelScale: s(0.12 * arcsec), Diameter: s(0.5), Obscuration: s(0.15), DiversityPV: s(1)}
+	b.Cards = []fits.Card{
 		{Key: "TELESCOP", Value: "demo", Comment: "invented test telescope"},
 		{Key: "DATE-OBS", Value: "2026-01-02T03:04:05.678"},
 		{Key: "CTYPE1", Value: "HPLN-TAN"},
@@ -62,7 +66,7 @@ func testBurst(nx, ny, frames, modes int) *Burst {
 	return b
 }
 
-func cardValue(cards []Card, key string) (any, bool) {
+func cardValue(cards []fits.Card, key string) (any, bool) {
 	for _, c := range cards {
 		if c.Key == key {
 			return c.Value, true
@@ -79,7 +83,7 @@ func TestRoundTripFloat32(t *testing.T) {
 	dir := t.TempDir()
 	path := filepath.Join(dir, "burst.fits")
 	in := testBurst(9, 7, 3, 5)
-	if err := Write(path, in, Provenance("0.0-test", map[string]string{"seed": "1"})); err != nil {
+	if err := Write(path, in, fits.Provenance("0.0-test", map[string]string{"seed": "1"})); err != nil {
 		t.Fatal(err)
 	}
 	out, err := Read(path)
@@ -100,8 +104,8 @@ func TestRoundTripFloat32(t *testing.T) {
 		}
 	}
 	o := out.Optics
-	if !relClose(o.Wavelength, 600e-9, 1e-14) || !relClose(o.PixelScale, 0.12*arcsec, 1e-14) ||
-		o.Diameter != 0.5 || o.Obscuration != 0.15 || o.DiversityPV != 1 {
+	if !relClose(o.Wavelength.V, 600e-9, 1e-14) || !relClose(o.PixelScale.V, 0.12*arcsec, 1e-14) ||
+		o.Diameter.V != 0.5 || o.Obscuration.V != 0.15 || o.DiversityPV.V != 1 {
 		t.Errorf("optics %+v", o)
 	}
 	for _, want := range []struct {
@@ -176,22 +180,18 @@ func TestRoundTripFloat32(t *testing.T) {
 // rawFITS writes a primary image with the given BITPIX and raw big-endian
 // pixel bytes, plus extra header cards. It uses the package's own card
 // formatter; the formatter itself is checked by fitsverify and astropy.
-func rawFITS(t *testing.T, path string, bitpix int, axes []int, cards []Card, raw []byte) {
+func rawFITS(t *testing.T, path string, bitpix int, axes []int, cards []fits.Card, raw []byte) {
 	t.Helper()
-	h := newHeader()
-	must(h.add(Card{Key: "SIMPLE", Value: true}))
-	must(h.add(Card{Key: "BITPIX", Value: bitpix}))
-	must(h.add(Card{Key: "NAXIS", Value: len(axes)}))
+	hdr := []fits.Card{{Key: "SIMPLE", Value: true}, {Key: "BITPIX", Value: bitpix}, {Key: "NAXIS", Value: len(axes)}}
 	for i, a := range axes {
-		must(h.add(Card{Key: "NAXIS" + strconv.Itoa(i+1), Value: a}))
+		hdr = append(hdr, fits.Card{Key: "NAXIS" + strconv.Itoa(i+1), Value: a})
 	}
-	for _, c := range cards {
-		if err := h.add(c); err != nil {
-			t.Fatal(err)
-		}
+	h, err := fits.EncodeHeader(append(hdr, cards...))
+	if err != nil {
+		t.Fatal(err)
 	}
-	data := append(h.bytes(), raw...)
-	data = append(data, make([]byte, roundBlock(len(raw))-len(raw))...)
+	data := append(h, raw...)
+	data = append(data, make([]byte, (len(raw)+blockSize-1)/blockSize*blockSize-len(raw))...)
 	if err := os.WriteFile(path, data, 0o644); err != nil {
 		t.Fatal(err)
 	}
@@ -214,7 +214,7 @@ func TestReadIntegerScaled(t *testing.T) {
 		binary.BigEndian.PutUint16(raw16[2*i:], u^0x8000) // stored = u − 32768
 	}
 	p16 := filepath.Join(dir, "u16.fits")
-	rawFITS(t, p16, 16, []int{nx, ny, frames, 2}, []Card{{Key: "BZERO", Value: 32768}, {Key: "BSCALE", Value: 1}}, raw16)
+	rawFITS(t, p16, 16, []int{nx, ny, frames, 2}, []fits.Card{{Key: "BZERO", Value: 32768}, {Key: "BSCALE", Value: 1}}, raw16)
 
 	// Signed 32-bit with BSCALE/BZERO: physical = 10 + 0.5·stored.
 	raw32 := make([]byte, 4*n)
@@ -225,7 +225,7 @@ func TestReadIntegerScaled(t *testing.T) {
 		binary.BigEndian.PutUint32(raw32[4*i:], uint32(s))
 	}
 	p32 := filepath.Join(dir, "i32.fits")
-	rawFITS(t, p32, 32, []int{nx, ny, frames, 2}, []Card{{Key: "BZERO", Value: 10.0}, {Key: "BSCALE", Value: 0.5}}, raw32)
+	rawFITS(t, p32, 32, []int{nx, ny, frames, 2}, []fits.Card{{Key: "BZERO", Value: 10.0}, {Key: "BSCALE", Value: 0.5}}, raw32)
 
 	// Float64.
 	raw64 := make([]byte, 8*n)
@@ -268,12 +268,12 @@ func TestReadPair(t *testing.T) {
 		for i := range data {
 			data[i] = float64(100*c + i)
 		}
-		cards := []Card{{Key: "WAVELNTH", Value: 6000.0}, {Key: "WAVEUNIT", Value: -10}, {Key: "CDELT1", Value: 0.12 / 3600}, {Key: "CDELT2", Value: 0.12 / 3600}}
+		cards := []fits.Card{{Key: "WAVELNTH", Value: 6000.0}, {Key: "WAVEUNIT", Value: -10}, {Key: "CDELT1", Value: 0.12 / 3600}, {Key: "CDELT2", Value: 0.12 / 3600}}
 		if c == 1 {
-			cards = []Card{{Key: "DIVPV", Value: 1.25}}
+			cards = []fits.Card{{Key: "DIVPV", Value: 1.25}}
 		}
 		paths[c] = filepath.Join(dir, "ch"+strconv.Itoa(c)+".fits")
-		if err := WriteFile(paths[c], &Image{Dims: []int{nx, ny, frames}, Data: data, Cards: cards}); err != nil {
+		if err := fits.WriteFile(paths[c], &fits.Image{Dims: []int{nx, ny, frames}, Data: data, Cards: cards}); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -294,14 +294,16 @@ func TestReadPair(t *testing.T) {
 		}
 	}
 	// 6000 Å = 600 nm; CDELT in degrees (no CUNIT: the WCS default).
-	if !relClose(b.Optics.Wavelength, 600e-9, 1e-14) || !relClose(b.Optics.PixelScale, 0.12*arcsec, 1e-12) || b.Optics.DiversityPV != 1.25 {
+	if !relClose(b.Optics.Wavelength.V, 600e-9, 1e-14) || !relClose(b.Optics.PixelScale.V, 0.12*arcsec, 1e-12) || b.Optics.DiversityPV.V != 1.25 {
 		t.Errorf("optics %+v", b.Optics)
 	}
 }
 
 func TestOpticsFill(t *testing.T) {
-	got := Optics{Wavelength: 1, DiversityPV: 2}.Fill(Optics{Wavelength: 5, PixelScale: 3, Diameter: 4, DiversityPV: 9})
-	if got != (Optics{Wavelength: 1, PixelScale: 3, Diameter: 4, DiversityPV: 2}) {
+	s := instrument.Some[float64]
+	// An explicit 0 (OBSCUR = 0) is kept; unset fields come from the defaults.
+	got := Optics{Wavelength: s(1), Obscuration: s(0), DiversityPV: s(2)}.Fill(Optics{Wavelength: s(5), PixelScale: s(3), Diameter: s(4), Obscuration: s(0.3), DiversityPV: s(9)})
+	if got != (Optics{Wavelength: s(1), PixelScale: s(3), Diameter: s(4), Obscuration: s(0), DiversityPV: s(2)}) {
 		t.Errorf("Fill: %+v", got)
 	}
 }
@@ -328,7 +330,7 @@ func TestBadInput(t *testing.T) {
 		}
 		return raw
 	}
-	file := func(name string, bitpix int, axes []int, cards []Card, raw []byte) string {
+	file := func(name string, bitpix int, axes []int, cards []fits.Card, raw []byte) string {
 		p := filepath.Join(dir, name)
 		rawFITS(t, p, bitpix, axes, cards, raw)
 		return p
@@ -356,8 +358,8 @@ func TestBadInput(t *testing.T) {
 				cube = append(cube, b.Data[c][f]...)
 			}
 		}
-		if err := WriteFile(p, &Image{Dims: []int{4, 3, 3, 2}, Data: cube},
-			&Table{Name: "TRUTH", Columns: []Column{{Name: "COEFFS", Float: b.Truth.Coeffs}}, Cards: []Card{{Key: "BASIS", Value: "kl"}, {Key: "NMODES", Value: 2}}}); err != nil {
+		if err := fits.WriteFile(p, &fits.Image{Dims: []int{4, 3, 3, 2}, Data: cube},
+			&fits.Table{Name: "TRUTH", Columns: []fits.Column{{Name: "COEFFS", Float: b.Truth.Coeffs}}, Cards: []fits.Card{{Key: "BASIS", Value: "kl"}, {Key: "NMODES", Value: 2}}}); err != nil {
 			t.Fatal(err)
 		}
 		return p
@@ -380,12 +382,12 @@ func TestBadInput(t *testing.T) {
 		{"empty images", file("zeronx.fits", -32, []int{0, 3, 2, 2}, nil, nil), "empty"},
 		{"NaN pixel", file("nan.fits", -32, []int{4, 3, 3, 2}, nil, f32(72, map[int]float32{bad: nan})), "channel 2 (defocused) frame 3: pixel (x=2, y=1) is NaN"},
 		{"Inf pixel", file("inf.fits", -32, []int{4, 3, 3, 2}, nil, f32(72, map[int]float32{5: inf})), "channel 1 (focused) frame 1: pixel (x=2, y=2) is +Inf"},
-		{"BLANK pixel", file("blank.fits", 16, []int{2, 1, 1, 2}, []Card{{Key: "BLANK", Value: -32768}}, []byte{0, 1, 0x80, 0, 0, 3, 0, 4}), "channel 1 (focused) frame 1: pixel (x=2, y=1) is NaN"},
+		{"BLANK pixel", file("blank.fits", 16, []int{2, 1, 1, 2}, []fits.Card{{Key: "BLANK", Value: -32768}}, []byte{0, 1, 0x80, 0, 0, 3, 0, 4}), "channel 1 (focused) frame 1: pixel (x=2, y=1) is NaN"},
 		{"bad BITPIX", file("bitpix.fits", 24, []int{1, 1, 1, 2}, nil, make([]byte, 6)), "BITPIX = 24"},
-		{"wavelength without unit", file("wave.fits", -32, []int{1, 1, 1, 2}, []Card{{Key: "WAVELNTH", Value: 600}}, f32(2, nil)), "WAVEUNIT"},
-		{"non-square pixels", file("cdelt.fits", -32, []int{1, 1, 1, 2}, []Card{{Key: "CDELT1", Value: 0.1}, {Key: "CDELT2", Value: 0.2}, {Key: "CUNIT1", Value: "arcsec"}, {Key: "CUNIT2", Value: "arcsec"}}, f32(2, nil)), "not square"},
-		{"unknown CUNIT", file("cunit.fits", -32, []int{1, 1, 1, 2}, []Card{{Key: "CDELT1", Value: 0.1}, {Key: "CUNIT1", Value: "furlong"}}, f32(2, nil)), "CUNIT1"},
-		{"newer contract", file("ver.fits", -32, []int{1, 1, 1, 2}, []Card{{Key: "BURSTVER", Value: 2}}, f32(2, nil)), "BURSTVER"},
+		{"wavelength without unit", file("wave.fits", -32, []int{1, 1, 1, 2}, []fits.Card{{Key: "WAVELNTH", Value: 600}}, f32(2, nil)), "WAVEUNIT"},
+		{"non-square pixels", file("cdelt.fits", -32, []int{1, 1, 1, 2}, []fits.Card{{Key: "CDELT1", Value: 0.1}, {Key: "CDELT2", Value: 0.2}, {Key: "CUNIT1", Value: "arcsec"}, {Key: "CUNIT2", Value: "arcsec"}}, f32(2, nil)), "not square"},
+		{"unknown CUNIT", file("cunit.fits", -32, []int{1, 1, 1, 2}, []fits.Card{{Key: "CDELT1", Value: 0.1}, {Key: "CUNIT1", Value: "furlong"}}, f32(2, nil)), "CUNIT1"},
+		{"newer contract", file("ver.fits", -32, []int{1, 1, 1, 2}, []fits.Card{{Key: "BURSTVER", Value: 2}}, f32(2, nil)), "BURSTVER"},
 		{"truth rows", withTruth(2), "2 rows for 3 frames"},
 		{"NAXIS huge", bytesFile("huge.fits", hugeHeader()), "truncated"},
 	}
@@ -407,15 +409,19 @@ func TestBadInput(t *testing.T) {
 
 // hugeHeader declares a 2^60-byte data unit in a one-block file.
 func hugeHeader() []byte {
-	h := newHeader()
-	must(h.add(Card{Key: "SIMPLE", Value: true}))
-	must(h.add(Card{Key: "BITPIX", Value: -64}))
-	must(h.add(Card{Key: "NAXIS", Value: 4}))
+	cards := []fits.Card{{Key: "SIMPLE", Value: true}, {Key: "BITPIX", Value: -64}, {Key: "NAXIS", Value: 4}}
 	for i, a := range []int{1 << 20, 1 << 20, 1 << 17, 2} {
-		must(h.add(Card{Key: "NAXIS" + strconv.Itoa(i+1), Value: a}))
+		cards = append(cards, fits.Card{Key: "NAXIS" + strconv.Itoa(i+1), Value: a})
 	}
-	return h.bytes()
+	h, err := fits.EncodeHeader(cards)
+	if err != nil {
+		panic(err)
+	}
+	return h
 }
+
+// blockSize is the FITS block (FITS Standard 4.0 §3.1).
+const blockSize = 2880
 
 func TestReadPairBad(t *testing.T) {
 	dir := t.TempDir()
@@ -425,7 +431,7 @@ func TestReadPairBad(t *testing.T) {
 			n *= d
 		}
 		p := filepath.Join(dir, name)
-		if err := WriteFile(p, &Image{Dims: dims, Data: make([]float64, n)}); err != nil {
+		if err := fits.WriteFile(p, &fits.Image{Dims: dims, Data: make([]float64, n)}); err != nil {
 			t.Fatal(err)
 		}
 		return p
@@ -463,16 +469,16 @@ func TestWriteErrors(t *testing.T) {
 	if err := Write(path, b, nil); err == nil || !strings.Contains(err.Error(), "truth frame 2") {
 		t.Errorf("short truth row: %v", err)
 	}
-	for name, hdus := range map[string][]HDU{
-		"table first":   {&Table{Name: "X", Columns: []Column{{Name: "A", Int: []int64{1}}}}},
-		"bad key":       {&Image{Dims: []int{1}, Data: []float64{1}, Cards: []Card{{Key: "lower", Value: 1}}}},
-		"NaN card":      {&Image{Dims: []int{1}, Data: []float64{1}, Cards: []Card{{Key: "X", Value: math.NaN()}}}},
-		"size mismatch": {&Image{Dims: []int{2, 2}, Data: []float64{1}}},
-		"ragged column": {&Image{}, &Table{Name: "T", Columns: []Column{{Name: "A", Float: [][]float64{{1, 2}, {3}}}}}},
-		"two sets":      {&Image{}, &Table{Name: "T", Columns: []Column{{Name: "A", Int: []int64{1}, Text: []string{"a"}}}}},
-		"unnamed ext":   {&Image{}, &Image{Dims: []int{1}, Data: []float64{1}}},
+	for name, hdus := range map[string][]fits.HDU{
+		"table first":   {&fits.Table{Name: "X", Columns: []fits.Column{{Name: "A", Int: []int64{1}}}}},
+		"bad key":       {&fits.Image{Dims: []int{1}, Data: []float64{1}, Cards: []fits.Card{{Key: "lower", Value: 1}}}},
+		"NaN card":      {&fits.Image{Dims: []int{1}, Data: []float64{1}, Cards: []fits.Card{{Key: "X", Value: math.NaN()}}}},
+		"size mismatch": {&fits.Image{Dims: []int{2, 2}, Data: []float64{1}}},
+		"ragged column": {&fits.Image{}, &fits.Table{Name: "T", Columns: []fits.Column{{Name: "A", Float: [][]float64{{1, 2}, {3}}}}}},
+		"two sets":      {&fits.Image{}, &fits.Table{Name: "T", Columns: []fits.Column{{Name: "A", Int: []int64{1}, Text: []string{"a"}}}}},
+		"unnamed ext":   {&fits.Image{}, &fits.Image{Dims: []int{1}, Data: []float64{1}}},
 	} {
-		if err := WriteFile(path, hdus...); err == nil {
+		if err := fits.WriteFile(path, hdus...); err == nil {
 			t.Errorf("%s: no error", name)
 		}
 	}
@@ -487,7 +493,7 @@ func TestWriteErrors(t *testing.T) {
 	if err := os.WriteFile(path, []byte("old"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	if err := WriteFile(path, &Image{Dims: []int{2}, Data: []float64{1}}); err == nil {
+	if err := fits.WriteFile(path, &fits.Image{Dims: []int{2}, Data: []float64{1}}); err == nil {
 		t.Error("no error")
 	}
 	if got, _ := os.ReadFile(path); string(got) != "old" {
@@ -503,7 +509,7 @@ func TestLongStringQuotes(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "q.fits")
 	v := strings.Repeat("it's 'quoted' here ", 9)
 	b := testBurst(2, 2, 1, 1)
-	b.Cards = []Card{{Key: "NOTE", Value: v}, {Key: "SHORT", Value: "x"}}
+	b.Cards = []fits.Card{{Key: "NOTE", Value: v}, {Key: "SHORT", Value: "x"}}
 	if err := Write(path, b, nil); err != nil {
 		t.Fatal(err)
 	}
@@ -520,14 +526,14 @@ func TestLongStringQuotes(t *testing.T) {
 }
 
 // productHDUs exercises everything WriteFile can write.
-func productHDUs() []HDU {
+func productHDUs() []fits.HDU {
 	// No quote is followed by a space: astropy 5.2.1 cuts a CONTINUE piece
 	// at "'' " (a doubled quote then a blank), although the card is valid
 	// under FITS Standard 4.0 §4.2.1.2. fitsio and Read handle it (see
 	// TestLongStringQuotes).
 	long := longValue
-	return []HDU{
-		&Image{Dims: []int{5, 4}, Data: make([]float64, 20), Cards: []Card{
+	return []fits.HDU{
+		&fits.Image{Dims: []int{5, 4}, Data: make([]float64, 20), Cards: []fits.Card{
 			{Key: "LONGSTR", Value: long, Comment: "continued over several cards"},
 			{Key: "BIGINT", Value: int64(1) << 40},
 			{Key: "TINY", Value: 6e-7},
@@ -535,35 +541,35 @@ func productHDUs() []HDU {
 			{Key: "COMMENT", Comment: strings.Repeat("wrapped commentary ", 10)},
 			{Key: "NAXIS", Value: 7}, // structural: ignored
 		}},
-		&Table{Name: "PATCHES", Columns: []Column{
+		&fits.Table{Name: "PATCHES", Columns: []fits.Column{
 			{Name: "COEFFS", Unit: "rad", Float: [][]float64{{1, 2, 3}, {4, 5, math.NaN()}}},
 			{Name: "INDEX", Int: []int64{7, -8}},
 			{Name: "LABEL", Text: []string{"x", "longer label"}},
-		}, Cards: []Card{{Key: "BASIS", Value: "zernike"}}},
-		&Image{Name: "MAP", Dims: []int{3, 2, 2}, Data: []float64{0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, math.Inf(-1)}},
-		&Table{Name: "EMPTY", Columns: []Column{{Name: "V", Float: [][]float64{}}}},
+		}, Cards: []fits.Card{{Key: "BASIS", Value: "zernike"}}},
+		&fits.Image{Name: "MAP", Dims: []int{3, 2, 2}, Data: []float64{0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, math.Inf(-1)}},
+		&fits.Table{Name: "EMPTY", Columns: []fits.Column{{Name: "V", Float: [][]float64{}}}},
 	}
 }
 
 func TestWriteFileLongString(t *testing.T) {
 	dir := t.TempDir()
 	path := filepath.Join(dir, "p.fits")
-	if err := WriteFile(path, productHDUs()...); err != nil {
+	if err := fits.WriteFile(path, productHDUs()...); err != nil {
 		t.Fatal(err)
 	}
 	data, _ := os.ReadFile(path)
-	ff, err := openFITS(data)
+	ff, err := fits.Decode(data, fits.Limits{})
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(ff.spans) != 4 {
-		t.Fatalf("%d HDUs, want 4", len(ff.spans))
+	if len(ff.HDUs) != 4 {
+		t.Fatalf("%d HDUs, want 4", len(ff.HDUs))
 	}
-	// fitsio reads CONTINUE cards back into one string.
-	if c := ff.hdr.Get("LONGSTR"); c == nil || c.Value != longValue {
+	// CONTINUE cards are read back into one string.
+	if c, ok := ff.HDUs[0].Header.Get("LONGSTR"); !ok || c.Value != longValue {
 		t.Errorf("LONGSTR = %#v", c)
 	}
-	if c := ff.hdr.Get("BIGINT"); c == nil || c.Value != 1<<40 {
+	if c, ok := ff.HDUs[0].Header.Get("BIGINT"); !ok || c.Value != 1<<40 {
 		t.Errorf("BIGINT = %#v", c)
 	}
 }
@@ -588,11 +594,11 @@ func TestFitsverify(t *testing.T) {
 	needTool(t, tool)
 	dir := t.TempDir()
 	burstPath := filepath.Join(dir, "burst.fits")
-	if err := Write(burstPath, testBurst(9, 7, 3, 5), Provenance("0.0-test", map[string]string{"site": strings.Repeat("/very/long/path", 8) + ".yaml", "seed": "7"})); err != nil {
+	if err := Write(burstPath, testBurst(9, 7, 3, 5), fits.Provenance("0.0-test", map[string]string{"site": strings.Repeat("/very/long/path", 8) + ".yaml", "seed": "7"})); err != nil {
 		t.Fatal(err)
 	}
 	prodPath := filepath.Join(dir, "product.fits")
-	if err := WriteFile(prodPath, productHDUs()...); err != nil {
+	if err := fits.WriteFile(prodPath, productHDUs()...); err != nil {
 		t.Fatal(err)
 	}
 	// A burst with no carried cards (only the optics keywords) and one
@@ -604,7 +610,7 @@ func TestFitsverify(t *testing.T) {
 		t.Fatal(err)
 	}
 	chanPath := filepath.Join(dir, "chan.fits")
-	if err := WriteFile(chanPath, &Image{Dims: []int{4, 4, 3}, Data: make([]float64, 48), Cards: []Card{{Key: "DIVPV", Value: 1.0}}}); err != nil {
+	if err := fits.WriteFile(chanPath, &fits.Image{Dims: []int{4, 4, 3}, Data: make([]float64, 48), Cards: []fits.Card{{Key: "DIVPV", Value: 1.0}}}); err != nil {
 		t.Fatal(err)
 	}
 	for _, p := range []string{burstPath, prodPath, plainPath, chanPath} {
@@ -632,11 +638,11 @@ func TestAstropy(t *testing.T) {
 	dir := t.TempDir()
 	burstPath := filepath.Join(dir, "burst.fits")
 	in := testBurst(9, 7, 3, 5)
-	if err := Write(burstPath, in, Provenance("0.0-test", nil)); err != nil {
+	if err := Write(burstPath, in, fits.Provenance("0.0-test", nil)); err != nil {
 		t.Fatal(err)
 	}
 	prodPath := filepath.Join(dir, "product.fits")
-	if err := WriteFile(prodPath, productHDUs()...); err != nil {
+	if err := fits.WriteFile(prodPath, productHDUs()...); err != nil {
 		t.Fatal(err)
 	}
 	u16Path := filepath.Join(dir, "u16.fits")

@@ -1,6 +1,10 @@
 package burst
 
-import "testing"
+import (
+	"testing"
+
+	"pdwave/model/fits"
+)
 
 // TestPatchAndCutoutCards cuts a 2×2 patch at (1, 2) out of a 4×5 burst and
 // checks the pixels of both channels and the moved reference pixel: a
@@ -27,13 +31,13 @@ func TestPatchAndCutoutCards(t *testing.T) {
 			}
 		}
 	}
-	cards := []Card{
+	cards := []fits.Card{
 		{Key: "CRPIX1", Value: 2.5}, {Key: "CRPIX2", Value: 3}, {Key: "CRPIX3", Value: 1},
 		{Key: "CTYPE4", Value: "STOKES"}, {Key: "DATE-OBS", Value: "2026-01-01"},
 		{Key: "CRPIX1", Value: "not a number"},
 	}
 	got := CutoutCards(cards, 1, 2)
-	want := []Card{{Key: "CRPIX1", Value: 1.5}, {Key: "CRPIX2", Value: 1.0}, {Key: "DATE-OBS", Value: "2026-01-01"}}
+	want := []fits.Card{{Key: "CRPIX1", Value: 1.5}, {Key: "CRPIX2", Value: 1.0}, {Key: "DATE-OBS", Value: "2026-01-01"}}
 	if len(got) != len(want) {
 		t.Fatalf("cards %v, want %v", got, want)
 	}

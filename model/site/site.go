@@ -469,11 +469,11 @@ func (s *Site) DiversityPV() float64 {
 func (s *Site) Optics() burst.Optics {
 	t := s.Telescope()
 	return burst.Optics{
-		Wavelength:  t.Wavelength,
-		PixelScale:  t.PixelScale,
-		Diameter:    t.Diameter,
-		Obscuration: t.Obscuration,
-		DiversityPV: s.DiversityPV(),
+		Wavelength:  instrument.Some(t.Wavelength),
+		PixelScale:  instrument.Some(t.PixelScale),
+		Diameter:    instrument.Some(t.Diameter),
+		Obscuration: instrument.Some(t.Obscuration),
+		DiversityPV: instrument.Some(s.DiversityPV()),
 	}
 }
 

@@ -67,7 +67,7 @@ func TestLoadDemo(t *testing.T) {
 		t.Errorf("sizes %+v", z)
 	}
 	o := s.Optics()
-	if o.Wavelength != tel.Wavelength || o.PixelScale != tel.PixelScale || o.Diameter != 0.5 || o.Obscuration != 0.15 || o.DiversityPV != 1 {
+	if o.Wavelength.V != tel.Wavelength || o.PixelScale.V != tel.PixelScale || o.Diameter.V != 0.5 || o.Obscuration.V != 0.15 || o.DiversityPV.V != 1 || !o.Obscuration.Set {
 		t.Errorf("optics %+v", o)
 	}
 }

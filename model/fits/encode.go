@@ -1,4 +1,4 @@
-package burst
+package fits
 
 import (
 	"bufio"
@@ -9,6 +9,8 @@ import (
 	"regexp"
 	"strconv"
 	"strings"
+
+	"pdwave/internal/atomicfile"
 )
 
 // The writer formats headers and data itself, following FITS Standard 4.0
@@ -23,10 +25,6 @@ var keyRE = regexp.MustCompile(`^[A-Z0-9_-]{1,8}$`)
 // structural keywords are written by the encoder itself and never taken
 // from Card lists.
 var structuralRE = regexp.MustCompile(`^(SIMPLE|XTENSION|BITPIX|NAXIS[0-9]*|EXTEND|PCOUNT|GCOUNT|GROUPS|BZERO|BSCALE|BLANK|END|EXTNAME|EXTVER|EXTLEVEL|CHECKSUM|DATASUM|TFIELDS|THEAP|T(TYPE|FORM|UNIT|DIM|NULL|SCAL|ZERO|DISP|BCOL)[0-9]+)$`)
-
-func isCommentary(key string) bool {
-	return key == "COMMENT" || key == "HISTORY" || key == ""
-}
 
 // header accumulates 80-character card images.
 type header struct {
@@ -47,7 +45,7 @@ func (h *header) add(c Card) error {
 				text = s
 			}
 		}
-		text = printable(text)
+		text = ASCII(text)
 		for {
 			n := min(len(text), 72)
 			h.lines = append(h.lines, pad80(fmt.Sprintf("%-8s%s", key, text[:n])))
@@ -122,9 +120,20 @@ func pad80(s string) string {
 	return s + strings.Repeat(" ", cardSize-len(s))
 }
 
-// printable replaces characters outside ASCII 32–126 (FITS Standard 4.0
-// §4.1.2.3 allows only those in headers) by '?'.
-func printable(s string) string {
+// asciiFor spells common non-ASCII characters of pdwave's own text in
+// ASCII (common practice).
+var asciiFor = map[rune]string{
+	'×': "x", '·': "*", '−': "-", '–': "-", '—': "-", '²': "2", '³': "3",
+	'°': "deg", 'µ': "u", 'μ': "u", 'Å': "A", 'å': "a", 'é': "e", 'è': "e",
+	'ö': "o", 'ü': "u", 'ä': "a", 'λ': "lambda", '≤': "<=", '≥': ">=",
+	'‘': "'", '’': "'", '“': "\"", '”': "\"", '…': "...",
+}
+
+// ASCII returns s with only the characters FITS headers allow (printable
+// ASCII 32–126, FITS Standard 4.0 §4.1.2.3): common non-ASCII characters
+// are spelled in ASCII ('×' as "x", '−' as "-", 'µ' as "u", 'Å' as "A", ...),
+// any other character, and control characters, become '?'.
+func ASCII(s string) string {
 	ok := true
 	for i := 0; i < len(s); i++ {
 		if s[i] < 32 || s[i] > 126 {
@@ -137,10 +146,13 @@ func printable(s string) string {
 	}
 	var b strings.Builder
 	for _, r := range s {
-		if r < 32 || r > 126 {
-			b.WriteByte('?')
-		} else {
+		switch {
+		case r >= 32 && r <= 126:
 			b.WriteRune(r)
+		case asciiFor[r] != "":
+			b.WriteString(asciiFor[r])
+		default:
+			b.WriteByte('?')
 		}
 	}
 	return b.String()
@@ -193,17 +205,6 @@ func formatCard(key string, value any, comment string) ([]string, error) {
 	return []string{withComment(prefix+val, comment)}, nil
 }
 
-// sig12 rounds x to 12 significant digits, removing the noise of unit
-// conversions (6e-7 m · 1e9 = 600.0000000000001 nm) so that values written
-// from converted units are stable over repeated read/write cycles.
-func sig12(x float64) float64 {
-	y, err := strconv.ParseFloat(strconv.FormatFloat(x, 'g', 12, 64), 64)
-	if err != nil {
-		return x
-	}
-	return y
-}
-
 // formatReal writes the shortest decimal that reads back to the same
 // float64, with the decimal point the fixed format requires.
 func formatReal(v float64) (string, error) {
@@ -223,7 +224,7 @@ func formatReal(v float64) (string, error) {
 
 func withComment(line, comment string) string {
 	if comment != "" {
-		c := " / " + printable(comment)
+		c := " / " + ASCII(comment)
 		if room := cardSize - len(line); room > 3 {
 			if len(c) > room {
 				c = c[:room]
@@ -236,15 +237,11 @@ func withComment(line, comment string) string {
 
 func quote(s string) string { return strings.ReplaceAll(s, "'", "''") }
 
-// formatString renders a string value; values longer than 68 characters
+// formatString renders a string value (made ASCII with ASCII); values longer than 68 characters
 // (after doubling quotes) are split over CONTINUE cards, each piece but
 // the last ending in '&' (FITS Standard 4.0 §4.2.1.2).
 func formatString(prefix, s, comment string) ([]string, error) {
-	for i := 0; i < len(s); i++ {
-		if s[i] < 32 || s[i] > 126 {
-			return nil, fmt.Errorf("keyword %s: string value %q has characters outside printable ASCII", strings.TrimSpace(prefix[:8]), s)
-		}
-	}
+	s = ASCII(s)
 	q := quote(s)
 	if len(q) <= 68 {
 		v := "'" + q + "'"
@@ -522,11 +519,11 @@ func tableRows(cols []Column, widths []int, rows int) func(w *bufio.Writer) erro
 	}
 }
 
-// writeAtomic writes the units to path with WriteAtomic: path is either the
-// old file or the complete new one.
-func writeAtomic(path string, units []dataUnit) error {
-	return WriteAtomic(path, func(iw io.Writer) error {
-		w, ok := iw.(*bufio.Writer) // WriteAtomic passes a buffered writer
+// writeUnits writes the units to path atomically (atomicfile.Write): path
+// is either the old file or the complete new one.
+func writeUnits(path string, units []dataUnit) error {
+	return atomicfile.Write(path, func(iw io.Writer) error {
+		w, ok := iw.(*bufio.Writer) // atomicfile passes a buffered writer
 		if !ok {
 			w = bufio.NewWriter(iw)
 		}
@@ -546,4 +543,35 @@ func writeAtomic(path string, units []dataUnit) error {
 		}
 		return w.Flush()
 	})
+}
+
+// ValidKey reports whether key is a valid standard keyword name: 1–8
+// characters of A–Z, 0–9, '-' and '_' (FITS Standard 4.0 §4.1.2.1).
+func ValidKey(key string) bool { return keyRE.MatchString(key) }
+
+// Structural reports whether key is one of the keywords that describe an
+// HDU's structure (SIMPLE, XTENSION, BITPIX, NAXISn, EXTEND, PCOUNT,
+// GCOUNT, GROUPS, BZERO, BSCALE, BLANK, END, EXTNAME, EXTVER, EXTLEVEL,
+// CHECKSUM, DATASUM, TFIELDS, THEAP and the table's TTYPEn ... TBCOLn).
+// WriteFile writes these itself and ignores them in Card lists.
+func Structural(key string) bool { return structuralRE.MatchString(key) }
+
+// IsCommentary reports whether key is COMMENT, HISTORY or blank, the
+// keywords whose text is in Card.Comment.
+func IsCommentary(key string) bool { return isCommentary(key) }
+
+// EncodeHeader returns a header of the given cards in order, in the fixed
+// format of FITS Standard 4.0 §4.2, with the END card, padded with blanks
+// to whole 2880-byte blocks. Unlike WriteFile it neither adds nor skips
+// structural keywords: the caller gives them all (tests and tools that
+// build files of other BITPIX use it). A later card with the keyword of an
+// earlier one replaces it.
+func EncodeHeader(cards []Card) ([]byte, error) {
+	h := newHeader()
+	for _, c := range cards {
+		if err := h.add(c); err != nil {
+			return nil, err
+		}
+	}
+	return h.bytes(), nil
 }

@@ -1,4 +1,4 @@
-package burst
+package fits
 
 import (
 	"bytes"
