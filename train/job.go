@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"time"
 
+	"pdwave/internal/atomicfile"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -127,11 +128,17 @@ func (j Job) Run() (Validation, error) {
 	return t.Run(opts)
 }
 
-// makeOut creates the run directory and lists the validation bursts in it
+// makeOut creates the run directory, removes the temporaries an
+// interrupted run left in it and lists the validation bursts in it
 // (ValidationFile).
 func (j Job) makeOut(val []*Sample) error {
 	if err := os.MkdirAll(j.Out, 0o755); err != nil {
 		return fmt.Errorf("train: output folder: %w", err)
+	}
+	for _, n := range []string{WeightsFile, LossPlot, HistoryFile, CheckpointWeights, CheckpointState, ValidationFile} {
+		if _, err := atomicfile.RemoveStale(filepath.Join(j.Out, n)); err != nil {
+			return fmt.Errorf("train: %w", err)
+		}
 	}
 	return writeValidationList(filepath.Join(j.Out, ValidationFile), val)
 }

@@ -10,6 +10,8 @@ import (
 	"slices"
 	"strconv"
 	"time"
+
+	"pdwave/internal/atomicfile"
 )
 
 // Output file names of a run directory.
@@ -152,15 +154,28 @@ func (o RunOptions) refereeSet() (*refereeSet, error) {
 }
 
 // writeOutputs writes the weights, the per-step record and the loss curve
-// into the run directory dir.
+// into the run directory dir as one atomicfile.Set (the weights renamed
+// last).
 func (t *Trainer) writeOutputs(dir string, hist []StepStats, vals []Validation) error {
-	if err := t.model.Save(filepath.Join(dir, WeightsFile)); err != nil {
+	png, err := plotLossPNG(LossPlot, hist, vals)
+	if err != nil {
 		return err
 	}
-	if err := writeFileAtomic(filepath.Join(dir, HistoryFile), historyCSV(hist, vals)); err != nil {
-		return err
+	set := atomicfile.NewSet()
+	for _, f := range []struct {
+		name  string
+		write func(io.Writer) error
+	}{
+		{HistoryFile, bytesTo(historyCSV(hist, vals))},
+		{LossPlot, bytesTo(png)},
+		{WeightsFile, t.model.Write},
+	} {
+		if err := set.Add(filepath.Join(dir, f.name), f.write); err != nil {
+			set.Abort()
+			return err
+		}
 	}
-	return PlotLoss(filepath.Join(dir, LossPlot), hist, vals)
+	return set.Commit()
 }
 
 // printProgress writes the progress line of the step just taken (st, the

@@ -142,11 +142,7 @@ func predictRun(cmd *cobra.Command, args []string) error {
 			burst.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
 			burst.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
 		primary := &burst.Image{Cards: burst.Provenance(version, settings)}
-		if err := burst.WriteFile(o.out, primary, hdu); err != nil {
-			return err
-		}
-		if err := table.WriteCSV(infer.CSVPath(o.out)); err != nil {
-			os.Remove(o.out)
+		if _, err := infer.WriteProduct(o.out, []burst.HDU{primary, hdu}, table); err != nil {
 			return err
 		}
 	}

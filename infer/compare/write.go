@@ -10,6 +10,8 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+
+	"pdwave/internal/atomicfile"
 )
 
 // Output file names inside the folder written by WriteDir.
@@ -255,7 +257,7 @@ func WriteDir(dir string, r *Report) error {
 		return fmt.Errorf("writing %s: %w", dir, err)
 	}
 	for name, data := range files {
-		if err := os.WriteFile(filepath.Join(tmp, name), data, 0o644); err != nil {
+		if err := atomicfile.WriteBytes(filepath.Join(tmp, name), data); err != nil {
 			return fail(err)
 		}
 	}

@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"pdwave/infer"
+	"pdwave/internal/atomicfile"
 	"pdwave/model/burst"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -186,9 +187,23 @@ func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error
 	return cfg, m, nil
 }
 
+// removeStale removes the temporaries an interrupted run left beside the
+// outputs of out (the product and its sidecars, or the part file).
+func removeStale(out string) error {
+	for _, p := range append(ProductPaths(out), out) {
+		if _, err := atomicfile.RemoveStale(p); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 // one restores one burst into out.
 func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out string) error {
 	t0 := time.Now()
+	if err := removeStale(out); err != nil {
+		return err
+	}
 	cfg, method, err := j.Configure(b.Optics, b.Frames)
 	if err != nil {
 		return err

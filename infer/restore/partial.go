@@ -9,6 +9,7 @@ import (
 	"os"
 	"sort"
 
+	"pdwave/internal/atomicfile"
 	"pdwave/model/burst"
 )
 
@@ -48,8 +49,7 @@ type restorePartHeader struct {
 // appears under its final name only on a successful Close.
 type PartWriter struct {
 	path   string
-	tmp    *os.File
-	bw     *bufio.Writer
+	tmp    *atomicfile.File
 	enc    *gob.Encoder
 	lo, hi int
 	next   int
@@ -57,31 +57,18 @@ type PartWriter struct {
 
 // CreatePart starts a partial file for shard sh covering patches [lo, hi).
 func CreatePart(path string, meta *Meta, sh Shard, lo, hi int) (*PartWriter, error) {
-	dir := "."
-	if d, _ := splitDir(path); d != "" {
-		dir = d
-	}
-	f, err := os.CreateTemp(dir, ".part.tmp*")
+	f, err := atomicfile.Create(path)
 	if err != nil {
-		return nil, fmt.Errorf("writing %s: %w", path, err)
+		return nil, err
 	}
-	w := &PartWriter{path: path, tmp: f, bw: bufio.NewWriterSize(f, 1<<20), lo: lo, hi: hi, next: lo}
-	w.enc = gob.NewEncoder(w.bw)
+	w := &PartWriter{path: path, tmp: f, lo: lo, hi: hi, next: lo}
+	w.enc = gob.NewEncoder(f)
 	h := restorePartHeader{Magic: restorePartMagic, Version: restorePartVersion, Meta: *meta, Shard: sh, Lo: lo, Hi: hi}
 	if err := w.enc.Encode(&h); err != nil {
 		w.Abort()
 		return nil, fmt.Errorf("writing %s: %w", path, err)
 	}
 	return w, nil
-}
-
-func splitDir(path string) (string, string) {
-	for i := len(path) - 1; i >= 0; i-- {
-		if os.IsPathSeparator(path[i]) {
-			return path[:i+1], path[i+1:]
-		}
-	}
-	return "", path
 }
 
 // Write appends one patch; it is a Sink. Errors on an out-of-order id.
@@ -108,28 +95,11 @@ func (w *PartWriter) Close() error {
 		w.Abort()
 		return fmt.Errorf("writing %s: %w", w.path, err)
 	}
-	err := w.bw.Flush()
-	if err == nil {
-		err = w.tmp.Sync()
-	}
-	if cerr := w.tmp.Close(); err == nil {
-		err = cerr
-	}
-	if err == nil {
-		err = os.Rename(w.tmp.Name(), w.path)
-	}
-	if err != nil {
-		os.Remove(w.tmp.Name())
-		return fmt.Errorf("writing %s: %w", w.path, err)
-	}
-	return nil
+	return w.tmp.Commit()
 }
 
 // Abort discards the partial file.
-func (w *PartWriter) Abort() {
-	w.tmp.Close()
-	os.Remove(w.tmp.Name())
-}
+func (w *PartWriter) Abort() { w.tmp.Abort() }
 
 type restorePartReader struct {
 	path string
