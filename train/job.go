@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"pdwave/internal/atomicfile"
+	"pdwave/internal/outpath"
 	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -74,6 +75,15 @@ func (j Job) Run() (Validation, error) {
 	if err := j.setDefaults(); err != nil {
 		return Validation{}, err
 	}
+	// A run folder that exists is locked before anything is read from it;
+	// a new one when it is made (makeOut).
+	var lock *outpath.Lock
+	defer func() { lock.Release() }()
+	if st, err := os.Stat(j.Out); err == nil && st.IsDir() {
+		if lock, err = j.lock(); err != nil {
+			return Validation{}, err
+		}
+	}
 	st, setup, simCfg, init, err := j.problem()
 	if err != nil {
 		return Validation{}, err
@@ -122,18 +132,41 @@ func (j Job) Run() (Validation, error) {
 		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
 			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
 	}
-	if err := j.makeOut(opts.Validation); err != nil {
+	if err := j.makeOut(opts.Validation, &lock); err != nil {
 		return Validation{}, err
 	}
 	return t.Run(opts)
 }
 
-// makeOut creates the run directory, removes the temporaries an
-// interrupted run left in it and lists the validation bursts in it
-// (ValidationFile).
-func (j Job) makeOut(val []*Sample) error {
+// LockFile is the lock file inside a run folder that keeps a second run off
+// it (internal/outpath.Acquire).
+const LockFile = "train.lock"
+
+// lock takes the run folder's lock, reporting a takeover on Progress.
+func (j Job) lock() (*outpath.Lock, error) {
+	l, note, err := outpath.Acquire(filepath.Join(j.Out, LockFile), j.Command)
+	if err != nil {
+		return nil, fmt.Errorf("train: %s: %w", j.Out, err)
+	}
+	if note != "" && j.Progress != nil {
+		fmt.Fprintf(j.Progress, "train: %s\n", note)
+	}
+	return l, nil
+}
+
+// makeOut creates the run directory, takes its lock unless *lock holds it
+// already, removes the temporaries an interrupted run left in it and lists
+// the validation bursts in it (ValidationFile).
+func (j Job) makeOut(val []*Sample, lock **outpath.Lock) error {
 	if err := os.MkdirAll(j.Out, 0o755); err != nil {
 		return fmt.Errorf("train: output folder: %w", err)
+	}
+	if *lock == nil {
+		l, err := j.lock()
+		if err != nil {
+			return err
+		}
+		*lock = l
 	}
 	for _, n := range []string{WeightsFile, LossPlot, HistoryFile, CheckpointWeights, CheckpointState, ValidationFile} {
 		if _, err := atomicfile.RemoveStale(filepath.Join(j.Out, n)); err != nil {

@@ -56,7 +56,9 @@ compared as well. Without weights (no --weights and no built-in weights for
 this telescope) the report holds the fit alone and says so.
 
 The folder is built next to DIR under a temporary name and renamed into
-place when complete; an existing DIR is replaced.`,
+place when complete; an existing DIR is replaced only if pdwave wrote
+everything in it (listed in its .pdwave-files), any other non-empty folder
+is refused.`,
 	Args: cobra.ExactArgs(1),
 	RunE: compareRun,
 }
@@ -84,6 +86,9 @@ func init() {
 func compareRun(cmd *cobra.Command, args []string) error {
 	o := compareOpts
 	if err := o.check(); err != nil {
+		return err
+	}
+	if err := checkReplaceDir("compare", o.out, args[0], o.site, o.weights); err != nil {
 		return err
 	}
 	b, err := burst.Read(args[0])

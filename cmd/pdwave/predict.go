@@ -59,6 +59,13 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	if o.out == "" {
 		return fmt.Errorf("predict: --out is required")
 	}
+	outs := productFiles(o.out)
+	if strings.EqualFold(filepath.Ext(o.out), ".csv") {
+		outs = outs[:1]
+	}
+	if err := checkFiles("predict", outs, args[0], o.weights, o.site); err != nil {
+		return err
+	}
 	var (
 		m    *net.Model
 		from string

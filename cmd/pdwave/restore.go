@@ -118,7 +118,8 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		Inputs: args, Pairs: o.pairs, Out: o.out, Patch: o.patch, Overlap: o.overlap,
 		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,
 		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
-		Command: "pdwave " + strings.Join(os.Args[1:], " "),
+		Command:  "pdwave " + strings.Join(os.Args[1:], " "),
+		SiteFile: o.site, WeightsFile: o.weights,
 	}
 	if !o.quiet {
 		job.Progress = os.Stderr
@@ -147,6 +148,9 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 			job.Shard = sh
 			fmt.Fprintf(os.Stderr, "restore: shard %v from the job-array environment\n", sh)
 		}
+	}
+	if err := job.Check(); err != nil {
+		return err
 	}
 	if o.site != "" {
 		s, err := site.Load(o.site)

@@ -149,6 +149,9 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 	case o.object != "" && cmd.Flags().Changed("scene"):
 		return errors.New("simulate: --object and --scene exclude each other")
 	}
+	if err := checkDir("simulate", o.out, append(sceneInputs(o.scene), o.site, o.object)...); err != nil {
+		return err
+	}
 	source, err := sceneSource(o.scene, simulate.GranulationParams{Contrast: o.contrast})
 	if err != nil {
 		return err
@@ -307,6 +310,9 @@ func simulateScreenRun(cmd *cobra.Command, _ []string) error {
 		return fmt.Errorf("simulate screen: --r0 %g, want a positive value in m (0 = the site's)", o.r0)
 	case !(o.pixel >= 0) || math.IsInf(o.pixel, 0):
 		return fmt.Errorf("simulate screen: --pixel %g, want a positive value in m (0 = the pupil-grid pixel)", o.pixel)
+	}
+	if err := checkFiles("simulate screen", []string{o.out}, o.site); err != nil {
+		return err
 	}
 	st, err := site.Load(o.site)
 	if err != nil {

@@ -97,6 +97,9 @@ func trainRun(cmd *cobra.Command, args []string) error {
 	if o.Out == "" {
 		return fmt.Errorf("train: --out is required")
 	}
+	if err := checkDir("train", o.Out, o.Site, o.Data, o.Init, o.SceneDir); err != nil {
+		return err
+	}
 	if o.RefereeBursts < 0 {
 		return fmt.Errorf("train: --fit-check %d is negative", o.RefereeBursts)
 	}

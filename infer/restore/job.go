@@ -17,6 +17,7 @@ import (
 
 	"pdwave/infer"
 	"pdwave/internal/atomicfile"
+	"pdwave/internal/outpath"
 	"pdwave/model/burst"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -54,66 +55,182 @@ type Job struct {
 	Log           io.Writer // one-line reports (offset, timing); nil = silent
 	Version       string    // program version for the provenance cards
 	Command       string    // command line for the provenance cards
+	SiteFile      string    // the site file Site was read from, if any (checked as an input)
+	WeightsFile   string    // the weight file Model was read from, if any (checked as an input)
 }
 
-// Run restores every burst of the job in turn.
-func (j *Job) Run(ctx context.Context) error {
-	if j.Out == "" {
-		return errors.New("restore: no output (--out)")
-	}
-	if err := j.Shard.Validate(); err != nil {
-		return err
-	}
-	type unit struct{ name, a, b string }
+// unit is one burst of a job: its name (the focused file), its file or
+// files, the output it is restored into, and the other spellings of its
+// file that were given.
+type unit struct {
+	name, a, b, out string
+	again           []string
+}
+
+// units lists the bursts of the job with their outputs. One file given
+// twice (under any spelling) is one burst, restored once.
+func (j *Job) units() ([]unit, error) {
 	var units []unit
 	if j.Pairs {
 		if len(j.Inputs) == 0 || len(j.Inputs)%2 != 0 {
-			return fmt.Errorf("restore: --pairs needs focused/defocused files two by two, got %d files", len(j.Inputs))
+			return nil, fmt.Errorf("restore: --pairs needs focused/defocused files two by two, got %d files", len(j.Inputs))
 		}
 		for i := 0; i < len(j.Inputs); i += 2 {
-			units = append(units, unit{j.Inputs[i], j.Inputs[i], j.Inputs[i+1]})
+			if outpath.SameFile(j.Inputs[i], j.Inputs[i+1]) {
+				return nil, fmt.Errorf("restore: --pairs: %s is given as its own defocused channel (%s)", j.Inputs[i], j.Inputs[i+1])
+			}
+			units = append(units, unit{name: j.Inputs[i], a: j.Inputs[i], b: j.Inputs[i+1]})
 		}
 	} else {
 		if len(j.Inputs) == 0 {
-			return errors.New("restore: no burst files given")
+			return nil, errors.New("restore: no burst files given")
 		}
+	next:
 		for _, in := range j.Inputs {
-			units = append(units, unit{in, in, ""})
+			for k := range units {
+				if outpath.SameFile(units[k].a, in) {
+					units[k].again = append(units[k].again, in)
+					continue next
+				}
+			}
+			units = append(units, unit{name: in, a: in})
+		}
+	}
+	for k := range units {
+		units[k].out = j.outFor(units[k].name, len(units) > 1)
+	}
+	return units, nil
+}
+
+// outFor returns the output of the burst named name: Out itself for a
+// single burst, else a file in the folder Out named after the burst.
+func (j *Job) outFor(name string, several bool) string {
+	if !several {
+		return j.Out
+	}
+	base := strings.TrimSuffix(filepath.Base(name), filepath.Ext(name))
+	if j.Shard.Partial() {
+		return filepath.Join(j.Out, fmt.Sprintf("%s_%d-%d.part", base, j.Shard.Index, j.Shard.Count))
+	}
+	return filepath.Join(j.Out, base+"_restored.fits")
+}
+
+// Outputs returns every file and folder a run of the job for out may
+// write: the product and its sidecars (or the part file), the journal
+// folder and the lock file.
+func (j *Job) outputs(out string) (files, dirs []string) {
+	if j.Shard.Partial() {
+		files = []string{out}
+	} else {
+		files = ProductPaths(out)
+	}
+	return append(files, outpath.LockPath(out)), []string{JournalPath(out)}
+}
+
+// JournalPath returns the journal folder of the output out.
+func JournalPath(out string) string { return out + ".journal" }
+
+// checkPaths refuses, before any work, outputs that are inputs, are not
+// regular files (or folders where folders go), hold inputs, or clash
+// (see internal/outpath).
+func (j *Job) checkPaths(units []unit) error {
+	p := outpath.New("restore").Input(j.Inputs...).Input(j.Dark, j.Flat, j.SiteFile, j.WeightsFile)
+	if len(units) > 1 {
+		p.Dir(j.Out)
+	}
+	for _, u := range units {
+		files, dirs := j.outputs(u.out)
+		for _, f := range files {
+			p.File(f)
+		}
+		for _, d := range dirs {
+			p.Dir(d)
+		}
+	}
+	return p.Err()
+}
+
+// logf writes a line to j.Log, if set.
+func (j *Job) logf(format string, a ...any) {
+	if j.Log != nil {
+		fmt.Fprintf(j.Log, format, a...)
+	}
+}
+
+// Check validates the job's output, shard and inputs and checks the
+// outputs against the inputs (internal/outpath: no output may be an input
+// under any spelling, or a device or folder where a file goes, or a folder
+// holding an input; no two outputs may share a name), without reading or
+// writing anything. Run calls it first.
+func (j *Job) Check() error {
+	_, err := j.checked()
+	return err
+}
+
+// checked is Check returning the job's units.
+func (j *Job) checked() ([]unit, error) {
+	if j.Out == "" {
+		return nil, errors.New("restore: no output (--out)")
+	}
+	if err := j.Shard.Validate(); err != nil {
+		return nil, err
+	}
+	units, err := j.units()
+	if err != nil {
+		return nil, err
+	}
+	return units, j.checkPaths(units)
+}
+
+// Run restores every burst of the job in turn, after Check.
+func (j *Job) Run(ctx context.Context) error {
+	units, err := j.checked()
+	if err != nil {
+		return err
+	}
+	if len(units) > 1 {
+		if err := os.MkdirAll(j.Out, 0o755); err != nil {
+			return fmt.Errorf("restore: creating %s: %w", j.Out, err)
 		}
 	}
 	var cal *Calibration
-	for k, u := range units {
-		out := j.Out
-		if len(units) > 1 {
-			if err := os.MkdirAll(j.Out, 0o755); err != nil {
-				return fmt.Errorf("restore: creating %s: %w", j.Out, err)
-			}
-			base := strings.TrimSuffix(filepath.Base(u.name), filepath.Ext(u.name))
-			out = filepath.Join(j.Out, base+"_restored.fits")
-			if j.Shard.Partial() {
-				out = filepath.Join(j.Out, fmt.Sprintf("%s_%d-%d.part", base, j.Shard.Index, j.Shard.Count))
-			}
+	for _, u := range units {
+		for _, a := range u.again {
+			j.logf("restore: %s is %s given again; restoring it once\n", a, u.a)
 		}
-		var b *burst.Burst
-		var err error
-		inputs := []string{u.a}
-		if u.b != "" {
-			b, err = burst.ReadPair(u.a, u.b)
-			inputs = append(inputs, u.b)
-		} else {
-			b, err = burst.Read(u.a)
-		}
-		if err != nil {
+		if err := j.unit(ctx, u, &cal); err != nil {
 			return err
 		}
-		if k == 0 || cal == nil {
-			if cal, err = j.calibration(b.Nx, b.Ny); err != nil {
-				return err
-			}
+	}
+	return nil
+}
+
+// unit restores one burst: it takes the output's lock, reads the burst,
+// makes the calibration on first use (*cal) and restores it.
+func (j *Job) unit(ctx context.Context, u unit, cal **Calibration) error {
+	l, err := j.lock(u.out)
+	if err != nil {
+		return err
+	}
+	defer l.Release()
+	var b *burst.Burst
+	inputs := []string{u.a}
+	if u.b != "" {
+		b, err = burst.ReadPair(u.a, u.b)
+		inputs = append(inputs, u.b)
+	} else {
+		b, err = burst.Read(u.a)
+	}
+	if err != nil {
+		return err
+	}
+	if *cal == nil {
+		if *cal, err = j.calibration(b.Nx, b.Ny); err != nil {
+			return err
 		}
-		if err := j.one(ctx, b, cal, inputs, out); err != nil {
-			return fmt.Errorf("restoring %s: %w", u.name, err)
-		}
+	}
+	if err := j.one(ctx, b, *cal, inputs, u.out); err != nil {
+		return fmt.Errorf("restoring %s: %w", u.name, err)
 	}
 	return nil
 }
@@ -198,12 +315,26 @@ func removeStale(out string) error {
 	return nil
 }
 
+// lock takes the lock of the output out (see outpath.Acquire), reporting a
+// takeover on Log, and removes the temporaries an interrupted run left.
+func (j *Job) lock(out string) (*outpath.Lock, error) {
+	l, note, err := outpath.Acquire(outpath.LockPath(out), j.Command)
+	if err != nil {
+		return nil, fmt.Errorf("restore: %s: %w", out, err)
+	}
+	if note != "" {
+		j.logf("restore: %s\n", note)
+	}
+	if err := removeStale(out); err != nil {
+		l.Release()
+		return nil, err
+	}
+	return l, nil
+}
+
 // one restores one burst into out.
 func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out string) error {
 	t0 := time.Now()
-	if err := removeStale(out); err != nil {
-		return err
-	}
 	cfg, method, err := j.Configure(b.Optics, b.Frames)
 	if err != nil {
 		return err
@@ -237,8 +368,8 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	if err != nil {
 		return err
 	}
-	if err := os.RemoveAll(opt.Journal); err != nil {
-		return fmt.Errorf("removing journal: %w", err)
+	if err := removeJournal(opt.Journal); err != nil {
+		return err
 	}
 	if j.Log != nil {
 		j.logDone(out, results, method.Name, t0)
@@ -374,10 +505,33 @@ func restoreKey(f *Field, settings map[string]string) string {
 	return fmt.Sprintf("%d×%d×%d %016x", f.Nx, f.Ny, f.Frames, h.Sum64())
 }
 
+// CheckMerge checks, before a merge reads anything, that its outputs (the
+// product at out and its sidecars) are none of the parts, regular files
+// where they exist, and distinct (internal/outpath).
+func CheckMerge(parts []string, out string) error {
+	p := outpath.New("restore merge").Input(parts...)
+	for _, f := range append(ProductPaths(out), outpath.LockPath(out)) {
+		p.File(f)
+	}
+	return p.Err()
+}
+
 // MergeFiles assembles the partial files of a sharded restoration into the
 // same output a single run writes (FITS product and sidecars) at out, and
-// returns the product.
+// returns the product. It runs CheckMerge first and holds the output's
+// lock while it writes.
 func MergeFiles(parts []string, out, version string) (*Product, error) {
+	if err := CheckMerge(parts, out); err != nil {
+		return nil, err
+	}
+	l, _, err := outpath.Acquire(outpath.LockPath(out), "pdwave restore merge")
+	if err != nil {
+		return nil, fmt.Errorf("restore merge: %s: %w", out, err)
+	}
+	defer l.Release()
+	if err := removeStale(out); err != nil {
+		return nil, err
+	}
 	var col *Collector
 	meta, _, err := Merge(parts, func(_ *Meta, g *Grid) (Sink, error) {
 		col = NewCollector(g)

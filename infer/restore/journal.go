@@ -76,6 +76,44 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 	return j, nil
 }
 
+// removeJournal removes the journal folder dir once its output is
+// written: only the files the journal writes (key, batches and their
+// temporaries); a folder holding anything else is left, with its other
+// files.
+func removeJournal(dir string) error {
+	ents, err := os.ReadDir(dir)
+	if errors.Is(err, os.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return fmt.Errorf("removing journal %s: %w", dir, err)
+	}
+	for _, e := range ents {
+		n := e.Name()
+		if e.Type().IsRegular() && (n == "key" || journalBatch(n) || strings.HasPrefix(n, ".key.tmp-") || strings.HasPrefix(n, ".0")) {
+			if err := os.Remove(filepath.Join(dir, n)); err != nil {
+				return fmt.Errorf("removing journal %s: %w", dir, err)
+			}
+		}
+	}
+	os.Remove(dir) // fails, harmlessly, if something else is in it
+	return nil
+}
+
+// journalBatch reports whether name is a batch file name (NNNNNN.gob).
+func journalBatch(name string) bool {
+	num, ok := strings.CutSuffix(name, ".gob")
+	if !ok || len(num) != 6 {
+		return false
+	}
+	for _, c := range num {
+		if c < '0' || c > '9' {
+			return false
+		}
+	}
+	return true
+}
+
 // batches lists the batch files in order.
 func (j *restoreJournal) batches() ([]string, error) {
 	ents, err := os.ReadDir(j.dir)
@@ -87,7 +125,7 @@ func (j *restoreJournal) batches() ([]string, error) {
 	}
 	var names []string
 	for _, e := range ents {
-		if strings.HasSuffix(e.Name(), ".gob") && !strings.HasPrefix(e.Name(), ".") {
+		if journalBatch(e.Name()) {
 			names = append(names, e.Name())
 		}
 	}

@@ -28,6 +28,10 @@ import (
 // process umask cleared (see umask, POSIX.1-2017 "umask").
 func Mode() os.FileMode { return 0o644 &^ umask() }
 
+// DirMode is the permission of a folder built under a temporary name and
+// renamed into place: 0755 with the bits of the process umask cleared.
+func DirMode() os.FileMode { return 0o755 &^ umask() }
+
 // tempPattern is the pattern of the temporary file for a destination name.
 func tempPattern(base string) string { return "." + base + ".tmp-*" }
 
@@ -63,6 +67,10 @@ func (a *File) Path() string { return a.path }
 // destination is left as it was. Commit after Commit or Abort is an error.
 func (a *File) Commit() error {
 	if err := a.finish(); err != nil {
+		return err
+	}
+	if err := checkDest(a.path); err != nil {
+		os.Remove(a.f.Name())
 		return err
 	}
 	if err := os.Rename(a.f.Name(), a.path); err != nil {
@@ -159,6 +167,20 @@ func RemoveStale(path string) (int, error) {
 		}
 	}
 	return n, nil
+}
+
+// checkDest refuses a destination that exists and is neither a regular
+// file nor a symbolic link (a device such as /dev/null, a pipe, a socket,
+// a folder): renaming over it would replace it.
+func checkDest(path string) error {
+	st, err := os.Lstat(path)
+	if err != nil {
+		return nil
+	}
+	if m := st.Mode(); !m.IsRegular() && m&os.ModeSymlink == 0 {
+		return fmt.Errorf("writing %s: it exists and is not a regular file (%v); not replaced", path, m.Type())
+	}
+	return nil
 }
 
 // syncDir syncs a folder so that a rename in it is durable (best effort).

@@ -20,6 +20,9 @@ import (
 //     caller must call Abort after a failed Add).
 //   - Commit renames in the order the files were added; put the file whose
 //     presence marks the set complete (the FITS product) last.
+//   - A destination that exists and is not a regular file or a symbolic
+//     link (a device such as /dev/null, a pipe, a folder) is refused before
+//     the first rename, so it is never replaced.
 //   - A rename can still fail midway (a destination replaced by a folder,
 //     a full or read-only file system). Commit then undoes the renames
 //     already made: a destination that existed before is restored from a
@@ -139,6 +142,14 @@ func (s *Set) Commit() error {
 		return errors.New("atomicfile: set already finished")
 	}
 	s.done = true
+	for _, f := range s.files {
+		if err := checkDest(f.path); err != nil {
+			for _, g := range s.files {
+				os.Remove(g.tmp)
+			}
+			return err
+		}
+	}
 	backups, existed := s.backup()
 	defer func() {
 		for _, b := range backups {

@@ -150,3 +150,30 @@ func TestRemoveStaleSet(t *testing.T) {
 		t.Errorf("missing folder: %d, %v", n, err)
 	}
 }
+
+// TestNoReplaceOfSpecialFiles checks a named pipe standing where a file
+// goes is refused, by Write and by a Set before any rename, and left in
+// place (as root, a rename would replace even /dev/null). Planted: without
+// checkDest the pipe was replaced by a regular file and the test failed.
+func TestNoReplaceOfSpecialFiles(t *testing.T) {
+	dir := t.TempDir()
+	pipe := filepath.Join(dir, "pipe.fits")
+	if err := mkfifo(pipe); err != nil {
+		t.Skipf("no named pipes here: %v", err)
+	}
+	if err := WriteBytes(pipe, []byte("x")); err == nil {
+		t.Error("Write over a named pipe succeeded")
+	}
+	s := NewSet()
+	s.Add(filepath.Join(dir, "a.csv"), text("a"))
+	s.Add(pipe, text("x"))
+	if err := s.Commit(); err == nil {
+		t.Error("Set over a named pipe succeeded")
+	}
+	if st, err := os.Lstat(pipe); err != nil || st.Mode()&os.ModeNamedPipe == 0 {
+		t.Errorf("the named pipe was replaced: %v %v", st.Mode(), err)
+	}
+	if got := names(t, dir); len(got) != 1 {
+		t.Errorf("left %v, want the pipe alone", got)
+	}
+}
