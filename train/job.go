@@ -63,8 +63,11 @@ type Job struct {
 	Referee       func(Setup) (Referee, error)
 	RefereeBursts int
 	Progress      io.Writer // progress lines; nil = none
-	Command       string    // command line, recorded in the weights
-	Version       string    // program version, recorded in the weights
+	// Stop, when closed, ends the run after the step in progress with a
+	// checkpoint and an *Interrupted error (RunOptions.Stop); nil = never.
+	Stop    <-chan struct{}
+	Command string // command line, recorded in the weights
+	Version string // program version, recorded in the weights
 
 	data  SimData        // the variety of simulated bursts in use (from the settings above, or the checkpoint's)
 	scene simulate.Scene // the scene source of data (nil = granulation)
@@ -109,7 +112,7 @@ func (j Job) Run() (Validation, error) {
 		return Validation{}, err
 	}
 	var t *Trainer
-	opts := RunOptions{Out: j.Out, Progress: j.Progress, MaxWall: j.MaxWall}
+	opts := RunOptions{Out: j.Out, Progress: j.Progress, MaxWall: j.MaxWall, Stop: j.Stop}
 	if res != nil {
 		t = res.Trainer
 		t.src = src

@@ -1,15 +1,15 @@
 package main
 
 import (
-	"context"
 	"fmt"
 	"os"
-	"os/signal"
 	"strings"
+	"time"
 
 	"github.com/spf13/cobra"
 
 	"pdwave/infer/restore"
+	"pdwave/internal/progress"
 	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/weights"
@@ -122,7 +122,11 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		SiteFile: o.site, WeightsFile: o.weights,
 	}
 	if !o.quiet {
-		job.Progress = os.Stderr
+		w, terminal := progress.Stderr()
+		job.Progress = w
+		if !terminal {
+			job.ProgressEvery = restoreLogEvery
+		}
 	}
 	if o.offset != "" {
 		var off restore.Offset
@@ -178,7 +182,15 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 			fmt.Fprintln(os.Stderr, "restore: no network weights; using the classical fit in every patch")
 		}
 	}
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	ctx, intr, stop := catchInterrupts(os.Stderr, "restore")
 	defer stop()
-	return job.Run(ctx)
+	err := job.Run(ctx)
+	if s := intr.received(); s != nil && err != nil {
+		return stopped(s, err)
+	}
+	return err
 }
+
+// restoreLogEvery is how often restore logs a progress line when standard
+// error is not a terminal.
+const restoreLogEvery = 10 * time.Second

@@ -9,6 +9,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
+	"pdwave/internal/progress"
 	"pdwave/train"
 )
 
@@ -113,10 +114,16 @@ func trainRun(cmd *cobra.Command, args []string) error {
 		return err
 	}
 	o.Referee = newFitReferee
-	o.Progress = os.Stderr
+	o.Progress, _ = progress.Stderr()
 	o.Command = "pdwave " + strings.Join(os.Args[1:], " ")
 	o.Version = version
+	ctx, intr, stop := catchInterrupts(os.Stderr, "train")
+	defer stop()
+	o.Stop = ctx.Done()
 	v, err := o.Run()
+	if s := intr.received(); s != nil && err != nil {
+		return stopped(s, err)
+	}
 	if err != nil {
 		return err
 	}

@@ -52,6 +52,9 @@ type Job struct {
 	Resume        bool      // continue from the journal next to Out
 	Workers       int       // goroutines; 0 = all cores
 	Progress      io.Writer // progress lines; nil = silent
+	// ProgressEvery > 0 writes whole progress lines at most that often
+	// (for logs); 0 rewrites one line in place (for a terminal).
+	ProgressEvery time.Duration
 	Log           io.Writer // one-line reports (offset, timing); nil = silent
 	Version       string    // program version for the provenance cards
 	Command       string    // command line for the provenance cards
@@ -362,9 +365,12 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	// The command line itself may differ between shards and the merge; it
 	// is recorded but not part of the key.
 	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
-		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress}
+		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress, ProgressEvery: j.ProgressEvery, Log: j.Log}
 	g, _ := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap)
 	results, err := j.runPatches(ctx, field, opt, g, meta, out)
+	if ie := (*Interrupted)(nil); errors.As(err, &ie) {
+		ie.Out = out
+	}
 	if err != nil {
 		return err
 	}
