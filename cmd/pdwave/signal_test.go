@@ -133,6 +133,9 @@ func TestRestoreSignalResume(t *testing.T) {
 		}
 		t.Logf("%v after %d of %d patches: %s", sig, k, n, strings.TrimSpace(stderr[strings.LastIndex(strings.TrimSpace(stderr), "\n")+1:]))
 		rargs := resumeArgs(t, stderr)
+		if sig == syscall.SIGTERM {
+			refusedResumes(t, repo, p, args(out), rargs)
+		}
 		code, _, rerr := runCLI(t, repo, rargs...)
 		if code != 0 {
 			t.Fatalf("resume %v: exit %d\n%s", rargs, code, rerr)
@@ -141,6 +144,59 @@ func TestRestoreSignalResume(t *testing.T) {
 			t.Errorf("resume did not replay the %d finished patches:\n%s", k, rerr)
 		}
 		sameRestoration(t, p("clean.fits"), p(out))
+	}
+
+	// Killed outright: the lock stays behind and the next run takes it over.
+	if code, _ := signalled(t, repo, clean/2, syscall.SIGKILL, args("kill.fits")...); code == 0 {
+		t.Fatal("the killed run finished")
+	}
+	if _, err := os.Stat(p("kill.fits.lock")); err != nil {
+		t.Fatalf("no lock left by the killed run: %v", err)
+	}
+	code, _, kerr := runCLI(t, repo, append(args("kill.fits"), "--resume")...)
+	if code != 0 || !strings.Contains(kerr, "took over the lock") {
+		t.Fatalf("run after a kill: exit %d\n%s", code, kerr)
+	}
+	sameRestoration(t, p("clean.fits"), p("kill.fits"))
+	if _, err := os.Stat(p("kill.fits.lock")); !os.IsNotExist(err) {
+		t.Errorf("lock left after a finished run: %v", err)
+	}
+}
+
+// refusedResumes checks that an interrupted restore (run with args, resumed
+// with rargs) is not continued with other inputs or settings, nor
+// restarted without --resume: each refusal says what differs.
+func refusedResumes(t *testing.T, repo string, p func(string) string, args, rargs []string) {
+	t.Helper()
+	burst := p("b/burst-0001.fits")
+	orig, err := os.ReadFile(burst)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if code, _, stderr := runCLI(t, repo, "simulate", "--site", args[3], "--out", p("c"), "--field", "192", "--frames", "4", "--seed", "6"); code != 0 {
+		t.Fatal(stderr)
+	}
+	other, err := os.ReadFile(p("c/burst-0001.fits"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	os.WriteFile(burst, other, 0o644)
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{rargs, "the burst file's content differs"},
+		{args, "add --resume"},
+	} {
+		code, _, stderr := runCLI(t, repo, c.args...)
+		if code == 0 || !strings.Contains(stderr, c.want) {
+			t.Errorf("pdwave %v: exit %d, want a refusal saying %q\n%s", c.args, code, c.want, stderr)
+		}
+		os.WriteFile(burst, orig, 0o644)
+	}
+	code, _, stderr := runCLI(t, repo, append(rargs, "--overlap", "12")...)
+	if code == 0 || !strings.Contains(stderr, "setting overlap differs: 16 in the journal, 12 now") {
+		t.Errorf("resume with another setting: exit %d\n%s", code, stderr)
 	}
 }
 

@@ -2,15 +2,11 @@ package restore
 
 import (
 	"context"
-	"encoding/binary"
 	"errors"
 	"fmt"
-	"hash/crc64"
 	"io"
-	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"strconv"
 	"strings"
 	"time"
@@ -60,6 +56,9 @@ type Job struct {
 	Command       string    // command line for the provenance cards
 	SiteFile      string    // the site file Site was read from, if any (checked as an input)
 	WeightsFile   string    // the weight file Model was read from, if any (checked as an input)
+
+	hashes      map[string]string // content hashes of the files read, by path
+	weightsHash string            // content hash of Model, once computed
 }
 
 // unit is one burst of a job: its name (the focused file), its file or
@@ -361,7 +360,12 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		return err
 	}
 	meta := j.meta(b, cal, cfg, method, overlap, off, field, inputs)
-	meta.Key = restoreKey(field, meta.Settings)
+	id, err := j.identity(inputs, method, meta.Settings)
+	if err != nil {
+		return err
+	}
+	meta.Key = id.Key()
+	recordIdentity(meta.Settings, id)
 	// The command line itself may differ between shards and the merge; it
 	// is recorded but not part of the key.
 	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
@@ -482,33 +486,74 @@ func (j *Job) logOffset(off Coregistration) {
 	fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px (%s%s),%s\n", off.DX, off.DY, off.Method, spread, done)
 }
 
-// restoreKey identifies the calibrated data and the settings that shape the
-// result (CRC-64 of the pixels and of the sorted settings without the
-// command line).
-func restoreKey(f *Field, settings map[string]string) string {
-	h := crc64.New(crc64.MakeTable(crc64.ECMA))
-	var b [8]byte
-	for c := range f.Data {
-		for _, fr := range f.Data[c] {
-			buf := make([]byte, 0, 8*len(fr))
-			for _, v := range fr {
-				binary.LittleEndian.PutUint64(b[:], math.Float64bits(v))
-				buf = append(buf, b[:]...)
+// identity returns what the restoration of the burst files inputs depends
+// on: their content, that of the dark, flat and site files, the weights'
+// if the network is used, and the settings without the command line and
+// file names.
+func (j *Job) identity(inputs []string, method Method, settings map[string]string) (Identity, error) {
+	var id Identity
+	files := []struct{ role, path string }{{"burst", inputs[0]}}
+	if len(inputs) > 1 {
+		files = append(files, struct{ role, path string }{"defocused", inputs[1]})
+	}
+	files = append(files, []struct{ role, path string }{{"dark", j.Dark}, {"flat", j.Flat}, {"site", j.SiteFile}}...)
+	for _, f := range files {
+		if f.path == "" {
+			continue
+		}
+		h, err := j.hash(f.path)
+		if err != nil {
+			return id, err
+		}
+		id.Files = append(id.Files, FileID{Role: f.role, Name: f.path, Hash: h})
+	}
+	id.Weights = "none"
+	if method.Start != nil && j.Model != nil {
+		if j.weightsHash == "" {
+			h, err := HashWeights(j.Model)
+			if err != nil {
+				return id, err
 			}
-			h.Write(buf)
+			j.weightsHash = h
+		}
+		id.Weights = j.weightsHash
+	}
+	id.Settings = map[string]string{}
+	for k, v := range settings {
+		switch k {
+		case "command", "inputs", "dark", "flat", "weights":
+		default:
+			id.Settings[k] = v
 		}
 	}
-	keys := make([]string, 0, len(settings))
-	for k := range settings {
-		if k != "command" {
-			keys = append(keys, k)
-		}
+	return id, nil
+}
+
+// hash returns HashFile of path, once per path and job.
+func (j *Job) hash(path string) (string, error) {
+	if h, ok := j.hashes[path]; ok {
+		return h, nil
 	}
-	sort.Strings(keys)
-	for _, k := range keys {
-		fmt.Fprintf(h, "%s=%s\n", k, settings[k])
+	h, err := HashFile(path)
+	if err != nil {
+		return "", err
 	}
-	return fmt.Sprintf("%d×%d×%d %016x", f.Nx, f.Ny, f.Frames, h.Sum64())
+	if j.hashes == nil {
+		j.hashes = map[string]string{}
+	}
+	j.hashes[path] = h
+	return h, nil
+}
+
+// recordIdentity adds the content hashes of id to the provenance settings
+// ("sha256 <role>", "sha256 weights").
+func recordIdentity(settings map[string]string, id Identity) {
+	for _, f := range id.Files {
+		settings["sha256 "+f.Role] = strings.TrimPrefix(f.Hash, "sha256:")
+	}
+	if w, ok := strings.CutPrefix(id.Weights, "sha256:"); ok {
+		settings["sha256 weights"] = w
+	}
 }
 
 // CheckMerge checks, before a merge reads anything, that its outputs (the

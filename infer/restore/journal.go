@@ -40,8 +40,8 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 	if resume {
 		old, err := os.ReadFile(keyPath)
 		if err == nil {
-			if string(old) != full {
-				return nil, fmt.Errorf("restore: journal %s was written for other inputs or settings; remove it or run without --resume", dir)
+			if d := DiffKeys(string(old), full, "in the journal", "now"); d != "" {
+				return nil, fmt.Errorf("restore: journal %s was written for other inputs or settings (%s); resume with the same inputs and settings, or remove the journal to start over", dir, d)
 			}
 			names, err := j.batches()
 			if err != nil {
@@ -54,18 +54,16 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 			return nil, fmt.Errorf("reading %s: %w", keyPath, err)
 		}
 	}
-	// Fresh journal: clear old batches.
-	if err := os.MkdirAll(dir, 0o755); err != nil {
-		return nil, fmt.Errorf("creating journal %s: %w", dir, err)
-	}
+	// A fresh run never discards an earlier run's finished patches.
 	names, err := j.batches()
 	if err != nil {
 		return nil, err
 	}
-	for _, n := range names {
-		if err := os.Remove(filepath.Join(dir, n)); err != nil {
-			return nil, fmt.Errorf("clearing journal: %w", err)
-		}
+	if len(names) > 0 {
+		return nil, fmt.Errorf("restore: journal %s holds finished patches of an earlier run; add --resume to continue it, or remove the journal to start over", dir)
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, fmt.Errorf("creating journal %s: %w", dir, err)
 	}
 	if err := restoreWriteAtomic(keyPath, func(w io.Writer) error {
 		_, err := io.WriteString(w, full)

@@ -17,7 +17,7 @@ import (
 // the patches. It travels in partial files, so a merge writes the same output
 // as a single run.
 type Meta struct {
-	Key              string            // identity of inputs and settings (see Options.Key)
+	Key              string            // identity of inputs, weights and settings (Identity.Key)
 	Nx, Ny, Frames   int               // field size, pixels, and frames per channel
 	Patch, Overlap   int               // patch side and overlap, pixels
 	Basis            string            // native basis of the coefficients ("kl", "zernike", "" if none)
@@ -175,8 +175,8 @@ func Merge(paths []string, start func(*Meta, *Grid) (Sink, error)) (meta *Meta, 
 	total = g.Count()
 	at := 0
 	for _, p := range parts {
-		if p.h.Meta.Key != first.h.Meta.Key {
-			return nil, 0, fmt.Errorf("restore: merge: %s and %s come from different inputs or settings", first.path, p.path)
+		if d := DiffKeys(first.h.Meta.Key, p.h.Meta.Key, "in "+first.path, "in "+p.path); d != "" {
+			return nil, 0, fmt.Errorf("restore: merge: %s and %s come from different inputs or settings: %s", first.path, p.path, d)
 		}
 		if p.h.Shard.Count != first.h.Shard.Count {
 			return nil, 0, fmt.Errorf("restore: merge: %s is shard %v, %s is shard %v", first.path, first.h.Shard, p.path, p.h.Shard)

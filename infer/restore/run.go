@@ -115,8 +115,10 @@ type Options struct {
 	// patches recorded there are replayed instead of recomputed.
 	Journal string
 	Resume  bool // replay the patches recorded in Journal
-	// Key identifies the inputs and settings; a journal written under another
-	// key is refused.
+	// Key identifies the inputs and settings (Identity.Key); resuming from
+	// a journal written under another key is refused with what differs
+	// (DiffKeys), and a run without Resume refuses a journal that holds
+	// finished patches rather than discard them.
 	Key string
 	// BatchSize is the number of patches per journal batch (0 = 16).
 	BatchSize int
