@@ -265,6 +265,9 @@ func TestBadInput(t *testing.T) {
 		{"restore truncated dark", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("truncated.fits"), "--out", "OUT/r.fits"}, "truncated.fits"},
 		{"restore flat of another size", []string{"restore", p("good.fits"), "--site", demoSite, "--flat", p("defocused-small.fits"), "--out", "OUT/r.fits"}, "defocused-small.fits"},
 		{"merge missing part", []string{"restore", "merge", p("nopart.part"), "--out", "OUT/m.fits"}, "nopart.part"},
+		{"merge with no parts found", []string{"restore", "merge", "--out", "OUT/m.fits"}, "no part files"},
+		{"merge of a file that is not a part", []string{"restore", "merge", p("good.fits"), "--out", "OUT/m.fits"}, "not a pdwave restore part"},
+		{"restore shard array outside a job array", []string{"restore", p("good.fits"), "--site", demoSite, "--shard", "array", "--out", "OUT/r.fits"}, "SLURM_ARRAY_TASK_ID"},
 		// compare
 		{"compare wrong naxis", []string{"compare", p("naxis3.fits"), "--site", demoSite, "--out", "OUT/report"}, "naxis"},
 		{"compare malformed yaml", []string{"compare", p("good.fits"), "--site", p("malformed.yaml"), "--out", "OUT/report"}, "yaml"},
@@ -519,9 +522,10 @@ func TestCommandsEndToEnd(t *testing.T) {
 	field := p("field/burst-0001.fits")
 	run("restore", field, "--site", site, "--out", p("restored.fits"), "--dark", p("dark.fits"), "--flat", p("flat.fits"), "--polish", "1", "--quiet")
 	exists("restored.fits", "restored_preview.png", "restored_patches.csv", "restored_summary.json")
-	run("restore", field, "--site", site, "--out", p("part0"), "--shard", "0/2", "--quiet")
-	run("restore", field, "--site", site, "--out", p("part1"), "--shard", "1/2", "--quiet")
-	run("restore", "merge", p("part0"), p("part1"), "--out", p("merged.fits"))
+	run("restore", field, "--site", site, "--out", p("merged.fits"), "--shard", "0/2", "--quiet")
+	run("restore", field, "--site", site, "--out", p("merged.fits"), "--shard", "1/2", "--quiet")
+	exists("merged.part-0-of-2.fits", "merged.part-1-of-2.fits")
+	run("restore", "merge", "--out", p("merged.fits"))
 	exists("merged.fits")
 
 	run("compare", p("patch/burst-0001.fits"), "--site", site, "--out", p("report"), "--polish", "1", "--iterations", "5")

@@ -104,17 +104,20 @@ func (j *Job) units() ([]unit, error) {
 	return units, nil
 }
 
-// outFor returns the output of the burst named name: Out itself for a
-// single burst, else a file in the folder Out named after the burst.
+// outFor returns the file the burst named name is restored into: the
+// product, Out itself for a single burst or a file in the folder Out named
+// after the burst, or with a partial shard that product's part file
+// (PartPath).
 func (j *Job) outFor(name string, several bool) string {
-	if !several {
-		return j.Out
+	out := j.Out
+	if several {
+		base := strings.TrimSuffix(filepath.Base(name), filepath.Ext(name))
+		out = filepath.Join(j.Out, base+"_restored.fits")
 	}
-	base := strings.TrimSuffix(filepath.Base(name), filepath.Ext(name))
 	if j.Shard.Partial() {
-		return filepath.Join(j.Out, fmt.Sprintf("%s_%d-%d.part", base, j.Shard.Index, j.Shard.Count))
+		return PartPath(out, j.Shard)
 	}
-	return filepath.Join(j.Out, base+"_restored.fits")
+	return out
 }
 
 // Outputs returns every file and folder a run of the job for out may
@@ -567,15 +570,30 @@ func CheckMerge(parts []string, out string) error {
 	return p.Err()
 }
 
-// MergeFiles assembles the partial files of a sharded restoration into the
-// same output a single run writes (FITS product and sidecars) at out, and
-// returns the product. It runs CheckMerge first and holds the output's
-// lock while it writes.
-func MergeFiles(parts []string, out, version string) (*Product, error) {
+// MergeParts returns the part files to merge into out: parts if any are
+// given, else the files matching PartGlob(out) (an error if there are
+// none).
+func MergeParts(parts []string, out string) ([]string, error) {
+	if len(parts) > 0 {
+		return parts, nil
+	}
+	found, err := filepath.Glob(PartGlob(out))
+	if err != nil || len(found) == 0 {
+		return nil, fmt.Errorf("restore merge: no part files %s (run \"pdwave restore --shard i/n --out %s\" for every i, or name the parts)", PartGlob(out), out)
+	}
+	return found, nil
+}
+
+// MergeFiles assembles the part files of a sharded restoration into the
+// same output a single run writes (FITS product and sidecars, identical
+// pixels and patch table) at out, and returns the product. The
+// provenance records command as the command and every shard's command. It
+// runs CheckMerge first and holds the output's lock while it writes.
+func MergeFiles(parts []string, out, version, command string) (*Product, error) {
 	if err := CheckMerge(parts, out); err != nil {
 		return nil, err
 	}
-	l, _, err := outpath.Acquire(outpath.LockPath(out), "pdwave restore merge")
+	l, _, err := outpath.Acquire(outpath.LockPath(out), command)
 	if err != nil {
 		return nil, fmt.Errorf("restore merge: %s: %w", out, err)
 	}
@@ -591,6 +609,7 @@ func MergeFiles(parts []string, out, version string) (*Product, error) {
 	if err != nil {
 		return nil, err
 	}
+	meta.Settings["command"] = command
 	p := col.Product(meta)
 	if err := p.Write(out, version); err != nil {
 		return nil, err
