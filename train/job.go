@@ -22,7 +22,10 @@ type Job struct {
 	Out        string  // run directory; required
 	Data       string  // folder of burst FITS files to train on; "" = simulate from the site
 	Resume     bool    // continue the run checkpointed in Out
-	Steps      int     // optimiser steps; 0 uses 2000
+	// Steps is the number of optimiser steps; 0 uses 2000, or with Resume
+	// the checkpoint's plan. With Resume, another value continues the run
+	// to that step (the learning-rate schedule is stretched to end there).
+	Steps int
 	Batch      int     // bursts per step; 0 uses 4
 	Seed       uint64  // weights and data order
 	WarmStart  int     // supervised steps on simulated truth first
@@ -117,8 +120,8 @@ func (j Job) Run() (Validation, error) {
 		t = res.Trainer
 		t.src = src
 		opts.History, opts.Vals, opts.Seconds = res.History, res.Vals, res.Seconds
-		if j.Progress != nil {
-			fmt.Fprintf(j.Progress, "resuming %s at step %d of %d\n", j.Out, t.Steps(), t.Config().Steps)
+		if err := j.continueTo(t); err != nil {
+			return Validation{}, err
 		}
 	} else {
 		if t, err = j.newTrainer(setup, init, src); err != nil {
@@ -139,6 +142,28 @@ func (j Job) Run() (Validation, error) {
 		return Validation{}, err
 	}
 	return t.Run(opts)
+}
+
+// continueTo sets the resumed trainer t to run to j.Steps, if given, and
+// says where the run resumes and where it goes. A target at or below the
+// step already reached is an error.
+func (j Job) continueTo(t *Trainer) error {
+	planned := t.cfg.Steps
+	if j.Steps > 0 && j.Steps != planned {
+		if j.Steps <= t.step {
+			return fmt.Errorf("train: --steps %d: the run in %s is already at step %d (of %d planned)", j.Steps, j.Out, t.step, planned)
+		}
+		t.cfg.Steps = j.Steps
+		if j.Progress != nil {
+			fmt.Fprintf(j.Progress, "resuming %s at step %d: continuing to step %d as --steps asks (the checkpoint planned %d; the learning-rate schedule now ends at step %d)\n",
+				j.Out, t.step, j.Steps, planned, j.Steps)
+		}
+		return nil
+	}
+	if j.Progress != nil {
+		fmt.Fprintf(j.Progress, "resuming %s at step %d of %d\n", j.Out, t.step, planned)
+	}
+	return nil
 }
 
 // LockFile is the lock file inside a run folder that keeps a second run off
@@ -188,7 +213,10 @@ func (j *Job) setDefaults() error {
 	if j.Site == "" || j.Out == "" {
 		return fmt.Errorf("train: a site file and an output folder are required")
 	}
-	if j.Steps == 0 {
+	if j.Steps < 0 {
+		return fmt.Errorf("train: %d steps", j.Steps)
+	}
+	if j.Steps == 0 && !j.Resume {
 		j.Steps = 2000
 	}
 	if j.Batch == 0 {

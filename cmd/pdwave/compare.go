@@ -164,6 +164,9 @@ func (o compareFlags) check() error {
 	if o.patch < 0 || o.stride < 0 || o.modes < 0 {
 		return errors.New("compare: --patch, --stride and --modes must not be negative")
 	}
+	if err := checkWorkers("compare", o.workers); err != nil {
+		return err
+	}
 	return nil
 }
 

@@ -129,6 +129,15 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	if o.polish < 0 || o.workers < 0 || o.patch < 0 || o.overlap < -1 {
 		return fmt.Errorf("restore: --patch, --overlap, --polish and --workers must not be negative")
 	}
+	if err := checkWorkers("restore", o.workers); err != nil {
+		return err
+	}
+	if err := exclusive("restore", fmt.Sprintf("--polish %d", o.polish), o.polish > 0, "--fit", o.fit); err != nil {
+		return err
+	}
+	if err := exclusive("restore", "--offset", o.offset != "", "--no-align", o.noAlign); err != nil {
+		return err
+	}
 	job := &restore.Job{
 		Inputs: args, Pairs: o.pairs, Out: o.out, Patch: o.patch, Overlap: o.overlap,
 		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,

@@ -288,3 +288,34 @@ func TestTrainSignalResume(t *testing.T) {
 		}
 	}
 }
+
+// TestTrainResumeSteps checks "train --resume --steps N" continues a
+// finished run to step N and says so, and refuses a target already
+// passed. Planted: resuming with the checkpoint's plan whatever --steps
+// says (the former behaviour) stopped at step 3 and failed.
+func TestTrainResumeSteps(t *testing.T) {
+	repo, _ := filepath.Abs(filepath.Join("..", ".."))
+	site := filepath.Join(repo, "testdata", "demo-site.yaml")
+	out := filepath.Join(t.TempDir(), "run")
+	args := []string{"train", "--site", site, "--out", out, "--batch", "1", "--validation", "-1",
+		"--conv", "4,4,4", "--hidden", "8", "--head", "8", "--modes", "6", "--workers", "1", "--reuse", "1"}
+	if code, _, stderr := runCLI(t, repo, append(args, "--steps", "3")...); code != 0 {
+		t.Fatal(stderr)
+	}
+	resume := []string{"train", "--site", site, "--out", out, "--resume", "--workers", "1", "--validation", "-1"}
+	code, _, stderr := runCLI(t, repo, append(resume, "--steps", "5")...)
+	if code != 0 || !strings.Contains(stderr, "continuing to step 5 as --steps asks (the checkpoint planned 3") {
+		t.Fatalf("resume to 5 steps: exit %d\n%s", code, stderr)
+	}
+	hist, err := os.ReadFile(filepath.Join(out, "history.csv"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if rows := strings.Count(string(hist), "\n") - 1; rows != 5 {
+		t.Errorf("history holds %d steps, want 5", rows)
+	}
+	code, _, stderr = runCLI(t, repo, append(resume, "--steps", "4")...)
+	if code == 0 || !strings.Contains(stderr, "already at step 5") {
+		t.Errorf("resume to a step already passed: exit %d\n%s", code, stderr)
+	}
+}

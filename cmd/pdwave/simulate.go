@@ -144,8 +144,8 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 		return fmt.Errorf("simulate: --field %d, want 0 (patches) or a side up to %d", o.field, simulate.MaxField)
 	case !(o.contrast > 0 && o.contrast < 1):
 		return fmt.Errorf("simulate: --contrast %g, want in (0, 1)", o.contrast)
-	case o.workers < 0:
-		return fmt.Errorf("simulate: --workers %d, want ≥ 0", o.workers)
+	case o.workers < 0 || o.workers > maxWorkers():
+		return checkWorkers("simulate", o.workers)
 	case o.object != "" && cmd.Flags().Changed("scene"):
 		return errors.New("simulate: --object and --scene exclude each other")
 	}
