@@ -18,14 +18,14 @@ import (
 
 // Job is one training run as the command line describes it.
 type Job struct {
-	Site       string  // site file (optics, seeing, sizes); required
-	Out        string  // run directory; required
-	Data       string  // folder of burst FITS files to train on; "" = simulate from the site
-	Resume     bool    // continue the run checkpointed in Out
+	Site   string // site file (optics, seeing, sizes); required
+	Out    string // run directory; required
+	Data   string // folder of burst FITS files to train on; "" = simulate from the site
+	Resume bool   // continue the run checkpointed in Out
 	// Steps is the number of optimiser steps; 0 uses 2000, or with Resume
 	// the checkpoint's plan. With Resume, another value continues the run
 	// to that step (the learning-rate schedule is stretched to end there).
-	Steps int
+	Steps      int
 	Batch      int     // bursts per step; 0 uses 4
 	Seed       uint64  // weights and data order
 	WarmStart  int     // supervised steps on simulated truth first
