@@ -97,3 +97,44 @@ func TestShardsCLI(t *testing.T) {
 		t.Errorf("merge with a shard missing: exit %d\n%s", code, stderr)
 	}
 }
+
+// TestSeriesCLI restores a series of bursts into one folder, checks the
+// series summary, then reruns it: bursts already restored from the same
+// content and settings are skipped, a burst whose content changed is
+// restored again. Planted: done() always false (every rerun restored both
+// bursts again) failed.
+func TestSeriesCLI(t *testing.T) {
+	repo, _ := filepath.Abs(filepath.Join("..", ".."))
+	site := filepath.Join(repo, "testdata", "demo-site.yaml")
+	dir := t.TempDir()
+	p := func(n string) string { return filepath.Join(dir, n) }
+	if code, _, stderr := runCLI(t, repo, "simulate", "--site", site, "--out", p("in"), "--bursts", "2", "--field", "128", "--frames", "4", "--seed", "8"); code != 0 {
+		t.Fatal(stderr)
+	}
+	args := []string{"restore", p("in/burst-0001.fits"), p("in/burst-0002.fits"), "--site", site, "--out", p("out"), "--quiet", "--workers", "1"}
+	if code, _, stderr := runCLI(t, repo, args...); code != 0 {
+		t.Fatal(stderr)
+	}
+	series, err := os.ReadFile(p("out/" + restore.SeriesFile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if lines := strings.Split(strings.TrimSpace(string(series)), "\n"); len(lines) != 3 || !strings.HasPrefix(lines[0], "burst,product,patches") || !strings.Contains(lines[2], "burst-0002_restored.fits") {
+		t.Fatalf("series summary:\n%s", series)
+	}
+	code, _, stderr := runCLI(t, repo, args...)
+	if code != 0 || strings.Count(stderr, "already restored") != 2 {
+		t.Fatalf("rerun: exit %d, want both bursts skipped\n%s", code, stderr)
+	}
+	// New content for the second burst: only it is restored again.
+	b1, _ := os.ReadFile(p("in/burst-0001.fits"))
+	os.WriteFile(p("in/burst-0002.fits"), b1, 0o644)
+	code, _, stderr = runCLI(t, repo, args...)
+	if code != 0 || strings.Count(stderr, "already restored") != 1 || !strings.Contains(stderr, "burst-0002_restored.fits: ") {
+		t.Fatalf("rerun after a change: exit %d\n%s", code, stderr)
+	}
+	after, _ := os.ReadFile(p("out/" + restore.SeriesFile))
+	if l := strings.Split(strings.TrimSpace(string(after)), "\n"); len(l) != 3 || strings.Split(l[1], ",")[5] != strings.Split(l[2], ",")[5] {
+		t.Errorf("series summary after the change (both bursts now hold the same data):\n%s", after)
+	}
+}

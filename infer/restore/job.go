@@ -142,6 +142,9 @@ func (j *Job) checkPaths(units []unit) error {
 	p := outpath.New("restore").Input(j.Inputs...).Input(j.Dark, j.Flat, j.SiteFile, j.WeightsFile)
 	if len(units) > 1 {
 		p.Dir(j.Out)
+		if !j.Shard.Partial() {
+			p.File(filepath.Join(j.Out, SeriesFile))
+		}
 	}
 	for _, u := range units {
 		files, dirs := j.outputs(u.out)
@@ -199,20 +202,35 @@ func (j *Job) Run(ctx context.Context) error {
 		}
 	}
 	var cal *Calibration
+	series := len(units) > 1 && !j.Shard.Partial()
 	for _, u := range units {
 		for _, a := range u.again {
 			j.logf("restore: %s is %s given again; restoring it once\n", a, u.a)
 		}
-		if err := j.unit(ctx, u, &cal); err != nil {
+		req, err := j.request(u)
+		if err != nil {
 			return err
 		}
+		if (series || j.Resume) && !j.Shard.Partial() && j.done(u, req) {
+			j.logf("restore: %s: already restored from the same inputs and settings; skipped\n", u.out)
+		} else if err := j.unit(ctx, u, &cal, req); err != nil {
+			return err
+		}
+		if series {
+			if err := j.writeSeries(units); err != nil {
+				return err
+			}
+		}
+	}
+	if series {
+		j.logf("restore: series of %d bursts summarised in %s\n", len(units), filepath.Join(j.Out, SeriesFile))
 	}
 	return nil
 }
 
 // unit restores one burst: it takes the output's lock, reads the burst,
 // makes the calibration on first use (*cal) and restores it.
-func (j *Job) unit(ctx context.Context, u unit, cal **Calibration) error {
+func (j *Job) unit(ctx context.Context, u unit, cal **Calibration, req string) error {
 	l, err := j.lock(u.out)
 	if err != nil {
 		return err
@@ -234,7 +252,7 @@ func (j *Job) unit(ctx context.Context, u unit, cal **Calibration) error {
 			return err
 		}
 	}
-	if err := j.one(ctx, b, *cal, inputs, u.out); err != nil {
+	if err := j.one(ctx, b, *cal, inputs, u.out, req); err != nil {
 		return fmt.Errorf("restoring %s: %w", u.name, err)
 	}
 	return nil
@@ -338,7 +356,7 @@ func (j *Job) lock(out string) (*outpath.Lock, error) {
 }
 
 // one restores one burst into out.
-func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out string) error {
+func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out, req string) error {
 	t0 := time.Now()
 	cfg, method, err := j.Configure(b.Optics, b.Frames)
 	if err != nil {
@@ -369,6 +387,7 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	}
 	meta.Key = id.Key()
 	recordIdentity(meta.Settings, id)
+	meta.Settings["request"] = req
 	// The command line itself may differ between shards and the merge; it
 	// is recorded but not part of the key.
 	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
