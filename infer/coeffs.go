@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"io"
 	"maps"
-	"os"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -58,6 +57,11 @@ func (t *CoefficientTable) HDU() *fits.Table {
 // is written to a temporary name in the same folder and renamed, so no
 // partial file is left on error.
 func (t *CoefficientTable) WriteCSV(path string) error {
+	return atomicfile.Write(path, t.writeCSV)
+}
+
+// writeCSV writes the CSV of WriteCSV to w.
+func (t *CoefficientTable) writeCSV(w io.Writer) error {
 	var b strings.Builder
 	fmt.Fprintf(&b, "# %s\n", t.Title)
 	for _, k := range slices.Sorted(maps.Keys(t.Settings)) {
@@ -88,13 +92,8 @@ func (t *CoefficientTable) WriteCSV(path string) error {
 		}
 		b.WriteByte('\n')
 	}
-	if err := atomicfile.Write(path, func(w io.Writer) error {
-		_, err := io.WriteString(w, b.String())
-		return err
-	}); err != nil {
-		return err
-	}
-	return nil
+	_, err := io.WriteString(w, b.String())
+	return err
 }
 
 // CSVPath returns the name of the CSV written next to the FITS file
@@ -105,18 +104,25 @@ func CSVPath(fitsPath string) string {
 
 // WriteCoefficients writes the FITS product fitsPath (primary image, then the
 // COEFFS table of t.HDU) and the same coefficients as CSV to CSVPath(fitsPath)
-// (t.WriteCSV). Both files are written atomically; if the CSV fails, the FITS
-// file is removed again. It returns the CSV path.
+// (t.WriteCSV). It returns the CSV path.
 func WriteCoefficients(fitsPath string, primary *fits.Image, t *CoefficientTable) (csvPath string, err error) {
-	if err := fits.WriteFile(fitsPath, primary, t.HDU()); err != nil {
-		return "", err
-	}
+	return WriteProduct(fitsPath, []fits.HDU{primary, t.HDU()}, t)
+}
+
+// WriteProduct writes the FITS file fitsPath of the HDUs and the CSV of t
+// at CSVPath(fitsPath) as one atomicfile.Set: both appear together or
+// neither does (the FITS file is renamed last). It returns the CSV path.
+func WriteProduct(fitsPath string, hdus []fits.HDU, t *CoefficientTable) (csvPath string, err error) {
 	csvPath = CSVPath(fitsPath)
-	if err := t.WriteCSV(csvPath); err != nil {
-		os.Remove(fitsPath)
+	set := atomicfile.NewSet()
+	defer set.Abort()
+	if err := set.Add(csvPath, t.writeCSV); err != nil {
 		return "", err
 	}
-	return csvPath, nil
+	if err := set.AddPath(fitsPath, func(tmp string) error { return fits.WriteFile(tmp, hdus...) }); err != nil {
+		return "", err
+	}
+	return csvPath, set.Commit()
 }
 
 // Notes returns the CSV comment lines that summarise a fit: the objective and

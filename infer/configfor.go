@@ -38,7 +38,7 @@ func HeaderInstrument(o burst.Optics) instrument.Partial {
 }
 
 // Settings describes the configuration for provenance (FITS HISTORY cards
-// via burst.Provenance, "# key: value" lines of a coefficient CSV): the
+// via fits.Provenance, "# key: value" lines of a coefficient CSV): the
 // instrument's settings (instrument.Instrument.Settings), frames,
 // iterations, prior and, when known, where each instrument value came from
 // ("from"). The caller adds its own keys (command, input files, patch

@@ -98,10 +98,7 @@ func parseStudyRow(r *StudyRow, rec []string) error {
 // temporary file in the same folder that is renamed into place (no partial
 // file on error). Errors name the path.
 func WriteStudyFile(path string, rows []StudyRow) error {
-	if err := atomicfile.Write(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) }); err != nil {
-		return err
-	}
-	return nil
+	return atomicfile.Write(path, func(w io.Writer) error { return WriteStudyCSV(w, rows) })
 }
 
 // WriteStudySummary writes the rows as an aligned text table, one line per

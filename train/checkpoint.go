@@ -3,9 +3,11 @@ package train
 import (
 	"encoding/json"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 
+	"pdwave/internal/atomicfile"
 	"pdwave/model/net"
 )
 
@@ -32,8 +34,9 @@ type checkpointState struct {
 const checkpointFormat = "pdwave-train-checkpoint-1"
 
 // SaveCheckpoint writes the weights and the optimiser state to dir (created
-// if needed), each atomically. history, vals and seconds are carried for
-// the loss curve and the ETA.
+// if needed) as one atomicfile.Set: both files are replaced together or
+// not at all. history, vals and seconds are carried for the loss curve and
+// the ETA.
 func (t *Trainer) SaveCheckpoint(dir string, history []StepStats, vals []Validation, seconds float64) error {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return fmt.Errorf("train: checkpoint folder: %w", err)
@@ -44,11 +47,25 @@ func (t *Trainer) SaveCheckpoint(dir string, history []StepStats, vals []Validat
 	if err != nil {
 		return fmt.Errorf("train: encoding checkpoint: %w", err)
 	}
-	// Weights first: a state file always has weights at least as new.
-	if err := t.model.Save(filepath.Join(dir, CheckpointWeights)); err != nil {
+	// The state file is renamed last: a state file always has its weights.
+	set := atomicfile.NewSet()
+	if err := set.Add(filepath.Join(dir, CheckpointWeights), t.model.Write); err != nil {
+		set.Abort()
 		return err
 	}
-	return writeFileAtomic(filepath.Join(dir, CheckpointState), data)
+	if err := set.Add(filepath.Join(dir, CheckpointState), bytesTo(data)); err != nil {
+		set.Abort()
+		return err
+	}
+	return set.Commit()
+}
+
+// bytesTo returns a writer function for atomicfile that writes data.
+func bytesTo(data []byte) func(io.Writer) error {
+	return func(w io.Writer) error {
+		_, err := w.Write(data)
+		return err
+	}
 }
 
 // Resumed is a trainer restored from a checkpoint with the run's record.
@@ -105,25 +122,4 @@ func Resume(dir string, src Source, workers int) (*Resumed, error) {
 	t.adam = st.Adam
 	t.step = st.Step
 	return &Resumed{Trainer: t, History: st.History, Vals: st.Vals, Seconds: st.Seconds}, nil
-}
-
-func writeFileAtomic(path string, data []byte) error {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	name := tmp.Name()
-	_, werr := tmp.Write(data)
-	cerr := tmp.Close()
-	if werr == nil {
-		werr = cerr
-	}
-	if werr == nil {
-		werr = os.Rename(name, path)
-	}
-	if werr != nil {
-		os.Remove(name)
-		return fmt.Errorf("writing %s: %w", path, werr)
-	}
-	return nil
 }

@@ -8,6 +8,8 @@ import (
 	"path/filepath"
 	"time"
 
+	"pdwave/internal/atomicfile"
+	"pdwave/internal/outpath"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
@@ -17,11 +19,14 @@ import (
 
 // Job is one training run as the command line describes it.
 type Job struct {
-	Site       string  // site file (optics, seeing, sizes); required
-	Out        string  // run directory; required
-	Data       string  // folder of burst FITS files to train on; "" = simulate from the site
-	Resume     bool    // continue the run checkpointed in Out
-	Steps      int     // optimiser steps; 0 uses 2000
+	Site   string // site file (optics, seeing, sizes); required
+	Out    string // run directory; required
+	Data   string // folder of burst FITS files to train on; "" = simulate from the site
+	Resume bool   // continue the run checkpointed in Out
+	// Steps is the number of optimiser steps; 0 uses 2000, or with Resume
+	// the checkpoint's plan. With Resume, another value continues the run
+	// to that step (the learning-rate schedule is stretched to end there).
+	Steps      int
 	Batch      int     // bursts per step; 0 uses 4
 	Seed       uint64  // weights and data order
 	WarmStart  int     // supervised steps on simulated truth first
@@ -62,8 +67,11 @@ type Job struct {
 	Referee       func(Setup) (Referee, error)
 	RefereeBursts int
 	Progress      io.Writer // progress lines; nil = none
-	Command       string    // command line, recorded in the weights
-	Version       string    // program version, recorded in the weights
+	// Stop, when closed, ends the run after the step in progress with a
+	// checkpoint and an *Interrupted error (RunOptions.Stop); nil = never.
+	Stop    <-chan struct{}
+	Command string // command line, recorded in the weights
+	Version string // program version, recorded in the weights
 
 	data  SimData        // the variety of simulated bursts in use (from the settings above, or the checkpoint's)
 	scene simulate.Scene // the scene source of data (nil = granulation)
@@ -73,6 +81,15 @@ type Job struct {
 func (j Job) Run() (Validation, error) {
 	if err := j.setDefaults(); err != nil {
 		return Validation{}, err
+	}
+	// A run folder that exists is locked before anything is read from it;
+	// a new one when it is made (makeOut).
+	var lock *outpath.Lock
+	defer func() { lock.Release() }()
+	if st, err := os.Stat(j.Out); err == nil && st.IsDir() {
+		if lock, err = j.lock(); err != nil {
+			return Validation{}, err
+		}
 	}
 	st, setup, simCfg, init, err := j.problem()
 	if err != nil {
@@ -99,13 +116,13 @@ func (j Job) Run() (Validation, error) {
 		return Validation{}, err
 	}
 	var t *Trainer
-	opts := RunOptions{Out: j.Out, Progress: j.Progress, MaxWall: j.MaxWall}
+	opts := RunOptions{Out: j.Out, Progress: j.Progress, MaxWall: j.MaxWall, Stop: j.Stop}
 	if res != nil {
 		t = res.Trainer
 		t.src = src
 		opts.History, opts.Vals, opts.Seconds = res.History, res.Vals, res.Seconds
-		if j.Progress != nil {
-			fmt.Fprintf(j.Progress, "resuming %s at step %d of %d\n", j.Out, t.Steps(), t.Config().Steps)
+		if err := j.continueTo(t); err != nil {
+			return Validation{}, err
 		}
 	} else {
 		if t, err = j.newTrainer(setup, init, src); err != nil {
@@ -122,17 +139,68 @@ func (j Job) Run() (Validation, error) {
 		fmt.Fprintf(j.Progress, "training %d weights on %s: %d steps of %d bursts (%d×%d px, %d frames, %d %s modes)\n",
 			m.NumParams(), data, t.Config().Steps, t.Config().Batch, setup.Patch, setup.Patch, setup.Frames, setup.Modes, setup.Basis)
 	}
-	if err := j.makeOut(opts.Validation); err != nil {
+	if err := j.makeOut(opts.Validation, &lock); err != nil {
 		return Validation{}, err
 	}
 	return t.Run(opts)
 }
 
-// makeOut creates the run directory and lists the validation bursts in it
-// (ValidationFile).
-func (j Job) makeOut(val []*Sample) error {
+// continueTo sets the resumed trainer t to run to j.Steps, if given, and
+// says where the run resumes and where it goes. A target at or below the
+// step already reached is an error.
+func (j Job) continueTo(t *Trainer) error {
+	planned := t.cfg.Steps
+	if j.Steps > 0 && j.Steps != planned {
+		if j.Steps <= t.step {
+			return fmt.Errorf("train: --steps %d: the run in %s is already at step %d (of %d planned)", j.Steps, j.Out, t.step, planned)
+		}
+		t.cfg.Steps = j.Steps
+		if j.Progress != nil {
+			fmt.Fprintf(j.Progress, "resuming %s at step %d: continuing to step %d as --steps asks (the checkpoint planned %d; the learning-rate schedule now ends at step %d)\n",
+				j.Out, t.step, j.Steps, planned, j.Steps)
+		}
+		return nil
+	}
+	if j.Progress != nil {
+		fmt.Fprintf(j.Progress, "resuming %s at step %d of %d\n", j.Out, t.step, planned)
+	}
+	return nil
+}
+
+// LockFile is the lock file inside a run folder that keeps a second run off
+// it (internal/outpath.Acquire).
+const LockFile = "train.lock"
+
+// lock takes the run folder's lock, reporting a takeover on Progress.
+func (j Job) lock() (*outpath.Lock, error) {
+	l, note, err := outpath.Acquire(filepath.Join(j.Out, LockFile), j.Command)
+	if err != nil {
+		return nil, fmt.Errorf("train: %s: %w", j.Out, err)
+	}
+	if note != "" && j.Progress != nil {
+		fmt.Fprintf(j.Progress, "train: %s\n", note)
+	}
+	return l, nil
+}
+
+// makeOut creates the run directory, takes its lock unless *lock holds it
+// already, removes the temporaries an interrupted run left in it and lists
+// the validation bursts in it (ValidationFile).
+func (j Job) makeOut(val []*Sample, lock **outpath.Lock) error {
 	if err := os.MkdirAll(j.Out, 0o755); err != nil {
 		return fmt.Errorf("train: output folder: %w", err)
+	}
+	if *lock == nil {
+		l, err := j.lock()
+		if err != nil {
+			return err
+		}
+		*lock = l
+	}
+	for _, n := range []string{WeightsFile, LossPlot, HistoryFile, CheckpointWeights, CheckpointState, ValidationFile} {
+		if _, err := atomicfile.RemoveStale(filepath.Join(j.Out, n)); err != nil {
+			return fmt.Errorf("train: %w", err)
+		}
 	}
 	return writeValidationList(filepath.Join(j.Out, ValidationFile), val)
 }
@@ -146,7 +214,10 @@ func (j *Job) setDefaults() error {
 	if j.Site == "" || j.Out == "" {
 		return fmt.Errorf("train: a site file and an output folder are required")
 	}
-	if j.Steps == 0 {
+	if j.Steps < 0 {
+		return fmt.Errorf("train: %d steps", j.Steps)
+	}
+	if j.Steps == 0 && !j.Resume {
 		j.Steps = 2000
 	}
 	if j.Batch == 0 {

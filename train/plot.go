@@ -6,6 +6,8 @@ import (
 	"image/color"
 	"math"
 
+	"pdwave/internal/atomicfile"
+
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
@@ -16,8 +18,19 @@ import (
 // PlotLoss writes a PNG with two panels: the training loss (running mean of
 // 25 steps) and the validation loss against the step, and, if the
 // validation has truth, the wavefront error over Noll 2–10 and 2–21 as a
-// fraction of the true variance.
+// fraction of the true variance. The file is written atomically
+// (internal/atomicfile).
 func PlotLoss(path string, hist []StepStats, vals []Validation) error {
+	png, err := plotLossPNG(path, hist, vals)
+	if err != nil {
+		return err
+	}
+	return atomicfile.WriteBytes(path, png)
+}
+
+// plotLossPNG draws the figure of PlotLoss and returns the PNG; path only
+// names the figure in errors.
+func plotLossPNG(path string, hist []StepStats, vals []Validation) ([]byte, error) {
 	top := plot.New()
 	top.Title.Text = "pdwave training"
 	top.X.Label.Text = "step"
@@ -44,20 +57,20 @@ func PlotLoss(path string, hist []StepStats, vals []Validation) error {
 		}
 	}
 	if err := addLine(top, tr, "training (mean of 25 steps)", 0); err != nil {
-		return err
+		return nil, err
 	}
 	if err := addLine(top, vl, "validation", 1); err != nil {
-		return err
+		return nil, err
 	}
 	top.Legend.Top = true
 	bottom := plot.New()
 	bottom.X.Label.Text = "step"
 	bottom.Y.Label.Text = "error / true variance"
 	if err := addLine(bottom, e10, "Noll 2–10", 2); err != nil {
-		return err
+		return nil, err
 	}
 	if err := addLine(bottom, e21, "Noll 2–21", 3); err != nil {
-		return err
+		return nil, err
 	}
 	bottom.Legend.Top = true
 	bottom.Y.Min = 0
@@ -71,9 +84,9 @@ func PlotLoss(path string, hist []StepStats, vals []Validation) error {
 	var buf bytes.Buffer
 	png := vgimg.PngCanvas{Canvas: img}
 	if _, err := png.WriteTo(&buf); err != nil {
-		return fmt.Errorf("train: drawing %s: %w", path, err)
+		return nil, fmt.Errorf("train: drawing %s: %w", path, err)
 	}
-	return writeFileAtomic(path, buf.Bytes())
+	return buf.Bytes(), nil
 }
 
 func addLine(p *plot.Plot, xy plotter.XYs, name string, color int) error {

@@ -10,6 +10,8 @@ import (
 	"slices"
 	"strconv"
 	"time"
+
+	"pdwave/internal/atomicfile"
 )
 
 // Output file names of a run directory.
@@ -33,6 +35,22 @@ type RunOptions struct {
 	Seconds         float64 // wall time already spent (resumed runs)
 	Referee         Referee // classical fit to score the network against on part of Validation; nil = none
 	RefereeBursts   int     // validation bursts fitted for the referee; 0 uses 8
+	// Stop, when closed, ends the run after the step in progress with a
+	// checkpoint and an *Interrupted error; nil = never.
+	Stop <-chan struct{}
+}
+
+// Interrupted is the error of a run ended through RunOptions.Stop (a
+// signal): the checkpoint in Out holds step Step of Steps, and a run with
+// Job.Resume continues from it exactly.
+type Interrupted struct {
+	Step, Steps int
+	Out         string
+}
+
+// Error describes the stop.
+func (e *Interrupted) Error() string {
+	return fmt.Sprintf("train: interrupted at step %d of %d; checkpoint saved in %s", e.Step, e.Steps, e.Out)
 }
 
 // Run trains until all steps are taken (or MaxWall is reached), writing
@@ -87,10 +105,14 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 			}
 		}
 		stop := o.MaxWall > 0 && time.Since(start) >= o.MaxWall
-		if t.step%o.CheckpointEvery == 0 || t.Done() || stop {
+		asked := o.stopped()
+		if t.step%o.CheckpointEvery == 0 || t.Done() || stop || asked {
 			if err := t.SaveCheckpoint(o.Out, hist, vals, elapsed()); err != nil {
 				return last, err
 			}
+		}
+		if asked && !t.Done() {
+			return last, &Interrupted{Step: t.step, Steps: t.cfg.Steps, Out: o.Out}
 		}
 		if stop {
 			o.printf("stopping at step %d after %s of wall time (checkpoint saved; resume to continue)\n", t.step, o.MaxWall)
@@ -99,6 +121,16 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 	}
 	t.recordSettings(last, elapsed())
 	return last, t.writeOutputs(o.Out, hist, vals)
+}
+
+// stopped reports whether Stop has been closed.
+func (o RunOptions) stopped() bool {
+	select {
+	case <-o.Stop:
+		return true
+	default:
+		return false
+	}
 }
 
 // printf writes a progress line, if there is a progress writer.
@@ -152,15 +184,28 @@ func (o RunOptions) refereeSet() (*refereeSet, error) {
 }
 
 // writeOutputs writes the weights, the per-step record and the loss curve
-// into the run directory dir.
+// into the run directory dir as one atomicfile.Set (the weights renamed
+// last).
 func (t *Trainer) writeOutputs(dir string, hist []StepStats, vals []Validation) error {
-	if err := t.model.Save(filepath.Join(dir, WeightsFile)); err != nil {
+	png, err := plotLossPNG(LossPlot, hist, vals)
+	if err != nil {
 		return err
 	}
-	if err := writeFileAtomic(filepath.Join(dir, HistoryFile), historyCSV(hist, vals)); err != nil {
-		return err
+	set := atomicfile.NewSet()
+	for _, f := range []struct {
+		name  string
+		write func(io.Writer) error
+	}{
+		{HistoryFile, bytesTo(historyCSV(hist, vals))},
+		{LossPlot, bytesTo(png)},
+		{WeightsFile, t.model.Write},
+	} {
+		if err := set.Add(filepath.Join(dir, f.name), f.write); err != nil {
+			set.Abort()
+			return err
+		}
 	}
-	return PlotLoss(filepath.Join(dir, LossPlot), hist, vals)
+	return set.Commit()
 }
 
 // printProgress writes the progress line of the step just taken (st, the

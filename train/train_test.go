@@ -1,6 +1,7 @@
 package train
 
 import (
+	"bytes"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -525,5 +526,44 @@ func TestJobArchitecture(t *testing.T) {
 	}
 	if _, err := os.Stat(j.Out); err == nil {
 		t.Error("the refused job left its output folder behind")
+	}
+}
+
+// TestCheckpointIsOneSet checks that the checkpoint's weights and state are
+// replaced together: when the state cannot be renamed into place (here a
+// folder stands where it goes), the weights of the previous checkpoint
+// stay. Planted: saving the weights and the state as two separate atomic
+// writes left step-2 weights beside no state and failed.
+func TestCheckpointIsOneSet(t *testing.T) {
+	tr, _ := newToyTrainer(t, Config{Steps: 4, Batch: 2, LR: 1e-2, Seed: 3, Workers: 1})
+	defer tr.Close()
+	dir := t.TempDir()
+	if _, err := tr.Step(); err != nil {
+		t.Fatal(err)
+	}
+	if err := tr.SaveCheckpoint(dir, nil, nil, 1); err != nil {
+		t.Fatal(err)
+	}
+	before, _ := os.ReadFile(filepath.Join(dir, CheckpointWeights))
+	if _, err := tr.Step(); err != nil {
+		t.Fatal(err)
+	}
+	state := filepath.Join(dir, CheckpointState)
+	if err := os.Remove(state); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.MkdirAll(filepath.Join(state, "x"), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	if err := tr.SaveCheckpoint(dir, nil, nil, 2); err == nil {
+		t.Fatal("checkpoint over a folder succeeded")
+	}
+	after, _ := os.ReadFile(filepath.Join(dir, CheckpointWeights))
+	if len(before) == 0 || !bytes.Equal(before, after) {
+		t.Error("the checkpoint weights were replaced although the state was not")
+	}
+	ents, _ := os.ReadDir(dir)
+	if len(ents) != 2 {
+		t.Errorf("%d entries left, want the weights and the folder", len(ents))
 	}
 }

@@ -9,6 +9,7 @@ import (
 
 	"gonum.org/v1/gonum/floats"
 
+	"pdwave/internal/atomicfile"
 	"pdwave/model/pd"
 )
 
@@ -248,7 +249,7 @@ func writeValidationList(path string, set []*Sample) error {
 		}
 		fmt.Fprintf(&b, "%d,%s,%q,%.6g,%.6g,%s\n", i, SceneGroup(s.Scene), s.Scene, s.R0, s.Photons, c)
 	}
-	return writeFileAtomic(path, b.Bytes())
+	return atomicfile.WriteBytes(path, b.Bytes())
 }
 
 // removeMeanTilt subtracts the burst mean of Noll j = 2, 3 (indices 0, 1) of

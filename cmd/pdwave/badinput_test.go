@@ -2,8 +2,10 @@ package main
 
 import (
 	"bytes"
+	"crypto/sha256"
 	"encoding/binary"
 	"fmt"
+	"io/fs"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -11,6 +13,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"pdwave/internal/outpath"
 )
 
 // The command line is tested as a user meets it: the test binary re-executes
@@ -197,6 +201,18 @@ func TestBadInput(t *testing.T) {
 	if err := os.WriteFile(p("garbage.safetensors"), []byte("\x10\x00\x00\x00\x00\x00\x00\x00{not json}"), 0o644); err != nil {
 		t.Fatal(err)
 	}
+	safetyInputs(t, in, repo)
+	// An output in use: this test holds its lock.
+	held, _, err := outpath.Acquire(outpath.LockPath(p("locked.fits")), "test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer held.Release()
+	relGood, err := filepath.Rel(repo, p("good.fits"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	before := snapshot(t, in)
 
 	type tc struct {
 		name string
@@ -249,6 +265,9 @@ func TestBadInput(t *testing.T) {
 		{"restore truncated dark", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("truncated.fits"), "--out", "OUT/r.fits"}, "truncated.fits"},
 		{"restore flat of another size", []string{"restore", p("good.fits"), "--site", demoSite, "--flat", p("defocused-small.fits"), "--out", "OUT/r.fits"}, "defocused-small.fits"},
 		{"merge missing part", []string{"restore", "merge", p("nopart.part"), "--out", "OUT/m.fits"}, "nopart.part"},
+		{"merge with no parts found", []string{"restore", "merge", "--out", "OUT/m.fits"}, "no part files"},
+		{"merge of a file that is not a part", []string{"restore", "merge", p("good.fits"), "--out", "OUT/m.fits"}, "not a pdwave restore part"},
+		{"restore shard array outside a job array", []string{"restore", p("good.fits"), "--site", demoSite, "--shard", "array", "--out", "OUT/r.fits"}, "SLURM_ARRAY_TASK_ID"},
 		// compare
 		{"compare wrong naxis", []string{"compare", p("naxis3.fits"), "--site", demoSite, "--out", "OUT/report"}, "naxis"},
 		{"compare malformed yaml", []string{"compare", p("good.fits"), "--site", p("malformed.yaml"), "--out", "OUT/report"}, "yaml"},
@@ -266,6 +285,51 @@ func TestBadInput(t *testing.T) {
 		{"train empty data folder", []string{"train", "--site", demoSite, "--data", t.TempDir(), "--out", "OUT/w", "--steps", "1"}, "no FITS"},
 		// demo
 		{"demo missing site", []string{"demo", "--site", p("nope.yaml"), "--out", "OUT/demo"}, "nope.yaml"},
+		// outputs that would overwrite inputs or what pdwave did not write
+		{"fit output is the input", []string{"fit", p("good.fits"), "--site", demoSite, "--out", p("good.fits")}, "is the input"},
+		{"fit output is the input, relative", []string{"fit", relGood, "--site", demoSite, "--out", p("good.fits")}, "is the input"},
+		{"fit output links to the input", []string{"fit", p("good.fits"), "--site", demoSite, "--out", p("link.fits")}, "is the input"},
+		{"fit output through a linked folder", []string{"fit", p("good.fits"), "--site", demoSite, "--out", p("inlink/good.fits")}, "is the input"},
+		{"fit output is a hard link to the input", []string{"fit", p("good.fits"), "--site", demoSite, "--out", p("hard.fits")}, "is the input"},
+		{"fit output is a folder", []string{"fit", p("good.fits"), "--site", demoSite, "--out", p("dir.fits")}, "not a regular file"},
+		{"fit CSV is the input", []string{"fit", p("table.csv"), "--site", demoSite, "--out", p("table.fits")}, "is the input"},
+		{"predict output is a named pipe", []string{"predict", p("good.fits"), "--out", p("pipe.fits")}, "named pipe"},
+		{"predict output is the weights", []string{"predict", p("good.fits"), "--weights", p("garbage.safetensors"), "--out", p("garbage.safetensors")}, "is the input"},
+		{"simulate into the site's folder", []string{"simulate", "--site", p("site.yaml"), "--out", in}, "holds the input"},
+		{"simulate into a file", []string{"simulate", "--site", demoSite, "--out", p("good.fits")}, "not a folder"},
+		{"screen output is the site", []string{"simulate", "screen", "--site", p("site.yaml"), "--out", p("site.yaml")}, "is the input"},
+		{"restore output is the input", []string{"restore", p("good.fits"), "--site", demoSite, "--out", p("good.fits")}, "is the input"},
+		{"restore output is the dark", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("small.fits"), "--out", p("small.fits")}, "is the input"},
+		{"restore output is a folder", []string{"restore", p("good.fits"), "--site", demoSite, "--out", "OUT"}, "not a regular file"},
+		{"restore output is a named pipe", []string{"restore", p("good.fits"), "--site", demoSite, "--out", p("pipe.fits")}, "named pipe"},
+		{"restore sidecar is an input", []string{"restore", p("good.fits"), "--site", demoSite, "--flat", p("r_preview.png"), "--out", p("r.fits")}, "is the input"},
+		{"restore two inputs with one name", []string{"restore", p("good.fits"), p("b/good.fits"), "--site", demoSite, "--out", "OUT/r"}, "two outputs"},
+		{"restore into the inputs' folder", []string{"restore", p("good.fits"), p("small.fits"), "--site", demoSite, "--out", in}, "holds the input"},
+		{"restore into a folder above the inputs", []string{"restore", p("good.fits"), p("small.fits"), "--site", demoSite, "--out", filepath.Dir(in)}, "holds the input"},
+		{"restore output in use", []string{"restore", p("good.fits"), "--site", demoSite, "--out", p("locked.fits")}, "in use by process"},
+		{"merge output is a part", []string{"restore", "merge", p("good.fits"), "--out", p("good.fits")}, "is the input"},
+		{"compare into a foreign folder", []string{"compare", p("good.fits"), "--site", demoSite, "--out", p("foreign")}, "did not write"},
+		{"compare into the inputs' folder", []string{"compare", p("good.fits"), "--site", demoSite, "--out", in}, "holds the input"},
+		{"demo into a foreign folder", []string{"demo", "--out", p("foreign")}, "did not write"},
+		{"demo into a pdwave folder with a foreign file", []string{"demo", "--out", p("ours")}, "notes.txt"},
+		{"demo into the site's folder", []string{"demo", "--site", p("site.yaml"), "--out", in}, "holds the input"},
+		{"train into the starting weights' folder", []string{"train", "--site", demoSite, "--init", p("w/start.safetensors"), "--out", p("w"), "--steps", "1", "--validation", "-1"}, "holds the input"},
+		{"train into the data folder", []string{"train", "--site", demoSite, "--data", fewFrames, "--out", fewFrames, "--steps", "1", "--validation", "-1"}, "is the input"},
+		// flags out of bounds or contradicting each other, refused before any work
+		{"train zero steps", []string{"train", "--site", demoSite, "--out", "OUT/w", "--steps", "0"}, "--steps 0"},
+		{"train negative wall", []string{"train", "--site", demoSite, "--out", "OUT/w", "--max-wall", "-5m"}, "max-wall"},
+		{"train too many workers", []string{"train", "--site", demoSite, "--out", "OUT/w", "--workers", "100000"}, "--workers 100000"},
+		{"train resume and init", []string{"train", "--site", demoSite, "--out", "OUT/w", "--resume", "--init", p("w/start.safetensors")}, "contradict"},
+		{"train resume and architecture", []string{"train", "--site", demoSite, "--out", "OUT/w", "--resume", "--hidden", "32"}, "contradict"},
+		{"train init and architecture", []string{"train", "--site", demoSite, "--out", "OUT/w", "--init", p("w/start.safetensors"), "--conv", "8,8,8"}, "contradict"},
+		{"train resume without checkpoint", []string{"train", "--site", demoSite, "--out", "OUT/w", "--resume", "--validation", "-1"}, "checkpoint"},
+		{"fit negative wall", []string{"fit", p("good.fits"), "--site", demoSite, "--out", "OUT/f.fits", "--wall", "-1s"}, "wall"},
+		{"fit study too many workers", []string{"fit", "study", "--site", demoSite, "--out", "OUT/s", "--workers", "100000"}, "workers"},
+		{"simulate too many workers", []string{"simulate", "--site", demoSite, "--out", "OUT", "--workers", "100000"}, "workers"},
+		{"restore too many workers", []string{"restore", p("good.fits"), "--site", demoSite, "--out", "OUT/r.fits", "--workers", "100000"}, "workers"},
+		{"restore polish and fit", []string{"restore", p("good.fits"), "--site", demoSite, "--out", "OUT/r.fits", "--polish", "3", "--fit"}, "contradict"},
+		{"restore offset and no-align", []string{"restore", p("good.fits"), "--site", demoSite, "--out", "OUT/r.fits", "--offset", "0.1,0.2", "--no-align"}, "contradict"},
+		{"compare too many workers", []string{"compare", p("good.fits"), "--site", demoSite, "--out", "OUT/report", "--workers", "100000"}, "workers"},
 		// the command line itself
 		{"unknown command", []string{"sharpen"}, "unknown command"},
 		{"unknown flag", []string{"fit", "--sharpness", "3"}, "unknown flag"},
@@ -320,8 +384,84 @@ func TestBadInput(t *testing.T) {
 			if len(names) > 0 {
 				t.Errorf("left output behind: %v", names)
 			}
+			if after := snapshot(t, in); after != before {
+				t.Errorf("the inputs' folder changed:\nbefore %s\nafter  %s", before, after)
+			}
 		})
 	}
+}
+
+// safetyInputs adds to the bad-input folder in the inputs of the output
+// checks: a link to good.fits and one to the folder itself, a hard link, a
+// folder named like a FITS file, a CSV beside a FITS name, a copy of
+// good.fits under the same name in b/, a copy of the demo site, a folder
+// that pdwave did not write, one that it wrote but that holds a foreign
+// file, and starting weights in w/.
+func safetyInputs(t *testing.T, in, repo string) {
+	t.Helper()
+	p := func(name string) string { return filepath.Join(in, name) }
+	must := func(err error) {
+		t.Helper()
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	must(os.Symlink(p("good.fits"), p("link.fits")))
+	must(os.Symlink(in, p("inlink")))
+	must(os.Link(p("good.fits"), p("hard.fits")))
+	must(os.MkdirAll(p("dir.fits"), 0o755))
+	// A named pipe stands for devices such as /dev/null, which a test run as
+	// root must never risk replacing (internal/outpath's tests check
+	// /dev/null itself without writing).
+	must(exec.Command("mkfifo", p("pipe.fits")).Run())
+	must(os.WriteFile(p("table.csv"), []byte("frame\n"), 0o644))
+	must(os.WriteFile(p("r_preview.png"), []byte("png"), 0o644))
+	good, err := os.ReadFile(p("good.fits"))
+	must(err)
+	must(os.MkdirAll(p("b"), 0o755))
+	must(os.WriteFile(p("b/good.fits"), good, 0o644))
+	site, err := os.ReadFile(filepath.Join(repo, "testdata", "demo-site.yaml"))
+	must(err)
+	must(os.WriteFile(p("site.yaml"), site, 0o644))
+	must(os.MkdirAll(p("foreign"), 0o755))
+	must(os.WriteFile(p("foreign/thesis.tex"), []byte("mine"), 0o644))
+	must(os.MkdirAll(p("ours/report"), 0o755))
+	must(os.WriteFile(p("ours/restored.fits"), good, 0o644))
+	must(outpath.WriteManifest(p("ours")))
+	must(os.WriteFile(p("ours/report/notes.txt"), []byte("mine"), 0o644))
+	w, err := os.ReadFile(filepath.Join(repo, "weights", "demo.safetensors"))
+	must(err)
+	must(os.MkdirAll(p("w"), 0o755))
+	must(os.WriteFile(p("w/start.safetensors"), w, 0o644))
+}
+
+// snapshot describes every file under dir (name, size, mode and a hash of
+// the content), so that a change by a refused command is seen.
+func snapshot(t *testing.T, dir string) string {
+	t.Helper()
+	h := sha256.New()
+	err := filepath.WalkDir(dir, func(path string, d fs.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		st, err := os.Lstat(path)
+		if err != nil {
+			return err
+		}
+		fmt.Fprintf(h, "%s %v %d\n", path, st.Mode(), st.Size())
+		if st.Mode().IsRegular() {
+			b, err := os.ReadFile(path)
+			if err != nil {
+				return err
+			}
+			h.Write(b)
+		}
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return fmt.Sprintf("%x", h.Sum(nil))
 }
 
 // TestCommandsEndToEnd runs every command once on small simulated data, as a
@@ -397,9 +537,10 @@ func TestCommandsEndToEnd(t *testing.T) {
 	field := p("field/burst-0001.fits")
 	run("restore", field, "--site", site, "--out", p("restored.fits"), "--dark", p("dark.fits"), "--flat", p("flat.fits"), "--polish", "1", "--quiet")
 	exists("restored.fits", "restored_preview.png", "restored_patches.csv", "restored_summary.json")
-	run("restore", field, "--site", site, "--out", p("part0"), "--shard", "0/2", "--quiet")
-	run("restore", field, "--site", site, "--out", p("part1"), "--shard", "1/2", "--quiet")
-	run("restore", "merge", p("part0"), p("part1"), "--out", p("merged.fits"))
+	run("restore", field, "--site", site, "--out", p("merged.fits"), "--shard", "0/2", "--quiet")
+	run("restore", field, "--site", site, "--out", p("merged.fits"), "--shard", "1/2", "--quiet")
+	exists("merged.part-0-of-2.fits", "merged.part-1-of-2.fits")
+	run("restore", "merge", "--out", p("merged.fits"))
 	exists("merged.fits")
 
 	run("compare", p("patch/burst-0001.fits"), "--site", site, "--out", p("report"), "--polish", "1", "--iterations", "5")

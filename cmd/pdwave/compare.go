@@ -57,7 +57,9 @@ compared as well. Without weights (no --weights and no built-in weights for
 this telescope) the report holds the fit alone and says so.
 
 The folder is built next to DIR under a temporary name and renamed into
-place when complete; an existing DIR is replaced.`,
+place when complete; an existing DIR is replaced only if pdwave wrote
+everything in it (listed in its .pdwave-files), any other non-empty folder
+is refused.`,
 	Args: cobra.ExactArgs(1),
 	RunE: compareRun,
 }
@@ -86,6 +88,9 @@ func init() {
 func compareRun(cmd *cobra.Command, args []string) error {
 	o := compareOpts
 	if err := o.check(); err != nil {
+		return err
+	}
+	if err := checkReplaceDir("compare", o.out, args[0], o.site, o.weights); err != nil {
 		return err
 	}
 	b, err := readBurst(args[0], cmd.ErrOrStderr())
@@ -155,6 +160,9 @@ func (o compareFlags) check() error {
 	}
 	if o.patch < 0 || o.overlap < -1 || o.modes < 0 {
 		return errors.New("compare: --patch, --overlap and --modes must not be negative")
+	}
+	if err := checkWorkers("compare", o.workers); err != nil {
+		return err
 	}
 	return nil
 }

@@ -11,6 +11,9 @@ import (
 	"time"
 
 	"github.com/spf13/cobra"
+
+	"pdwave/internal/atomicfile"
+	"pdwave/internal/outpath"
 )
 
 // demoFlags holds the flags of "pdwave demo".
@@ -38,7 +41,9 @@ you would type yourself (they are printed as they run):
 DIR receives burst/ (the simulated burst), restored.fits with its preview PNG,
 CSV and JSON, and report/ (open report/index.html). The folder is assembled
 under a temporary name beside DIR and renamed into place when every step has
-succeeded, so a failed demo leaves no half-written DIR.`,
+succeeded, so a failed demo leaves no half-written DIR. An existing DIR is
+replaced only if pdwave wrote everything in it (it lists its files in
+.pdwave-files); any other non-empty folder is refused.`,
 	Args: cobra.NoArgs,
 	RunE: demoRun,
 }
@@ -47,7 +52,7 @@ func init() {
 	f := demoCmd.Flags()
 	o := &demoFlags
 	f.StringVar(&o.site, "site", filepath.Join("testdata", "demo-site.yaml"), "site file (YAML)")
-	f.StringVar(&o.out, "out", "demo-out", "output folder (replaced if it exists)")
+	f.StringVar(&o.out, "out", "demo-out", "output folder (a previous demo output is replaced; any other non-empty folder is refused)")
 	f.IntVar(&o.field, "field", 256, "side of the simulated field, pixels")
 	f.IntVar(&o.frames, "frames", 0, "frames per burst (0 = the site's)")
 	f.Uint64Var(&o.seed, "seed", 2026, "random seed of the simulation")
@@ -68,6 +73,9 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 	}
 	if _, err := os.Stat(o.site); err != nil {
 		return fmt.Errorf("demo: site file: %w (run from the repository root, or give --site)", err)
+	}
+	if err := checkReplaceDir("demo", o.out, o.site); err != nil {
+		return err
 	}
 	self, err := os.Executable()
 	if err != nil {
@@ -113,6 +121,16 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 			return fmt.Errorf("demo step %d (pdwave %s): %w", i+1, args[0], err)
 		}
 		fmt.Fprintf(log, "demo step %d/%d: done in %.1f s\n", i+1, len(steps), time.Since(t0).Seconds())
+	}
+	if err := outpath.WriteManifest(tmp); err != nil {
+		return fmt.Errorf("demo: %w", err)
+	}
+	if err := os.Chmod(tmp, atomicfile.DirMode()); err != nil {
+		return fmt.Errorf("demo: %w", err)
+	}
+	// Checked again: something may have been put there since the start.
+	if err := outpath.Replaceable("demo", out); err != nil {
+		return err
 	}
 	if err := os.RemoveAll(out); err != nil {
 		return fmt.Errorf("demo: replacing %s: %w", out, err)

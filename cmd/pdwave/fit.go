@@ -148,6 +148,12 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	if !strings.HasSuffix(strings.ToLower(o.out), ".fits") {
 		return fmt.Errorf("--out %q: want a file name ending in .fits", o.out)
 	}
+	if o.wall < 0 {
+		return fmt.Errorf("fit: --wall %v is negative (0 = no limit)", o.wall)
+	}
+	if err := checkFiles("fit", productFiles(o.out), args[0], o.site); err != nil {
+		return err
+	}
 	st, err := site.Load(o.site)
 	if err != nil {
 		return err
@@ -243,6 +249,12 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 	o := fitStudyOpts
 	if o.bursts < 1 {
 		return fmt.Errorf("--bursts must be at least 1, got %d", o.bursts)
+	}
+	if err := checkWorkers("fit study", o.workers); err != nil {
+		return err
+	}
+	if err := checkDir("fit study", o.out, o.site, o.sceneDir); err != nil {
+		return err
 	}
 	cases, err := fitStudyCases(o.cases, o.quick, cmd.Flags().Changed("cases"))
 	if err != nil {

@@ -61,6 +61,13 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	if o.out == "" {
 		return fmt.Errorf("predict: --out is required")
 	}
+	outs := productFiles(o.out)
+	if strings.EqualFold(filepath.Ext(o.out), ".csv") {
+		outs = outs[:1]
+	}
+	if err := checkFiles("predict", outs, args[0], o.weights, o.site); err != nil {
+		return err
+	}
 	var (
 		m    *net.Model
 		from string
@@ -129,11 +136,7 @@ func predictRun(cmd *cobra.Command, args []string) error {
 			fits.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
 			fits.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
 		primary := &fits.Image{Cards: fits.Provenance(version, settings)}
-		if err := fits.WriteFile(o.out, primary, hdu); err != nil {
-			return err
-		}
-		if err := table.WriteCSV(infer.CSVPath(o.out)); err != nil {
-			os.Remove(o.out)
+		if _, err := infer.WriteProduct(o.out, []fits.HDU{primary, hdu}, table); err != nil {
 			return err
 		}
 	}

@@ -1,15 +1,15 @@
 package main
 
 import (
-	"context"
 	"fmt"
 	"os"
-	"os/signal"
 	"strings"
+	"time"
 
 	"github.com/spf13/cobra"
 
 	"pdwave/infer/restore"
+	"pdwave/internal/progress"
 	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/weights"
@@ -48,11 +48,19 @@ basis and as Noll Zernikes, metric and quality flags), and beside it
 FILE_preview.png (raw beside restored, same scale), FILE_patches.csv and
 FILE_summary.json. With several bursts, --out is a folder.
 
-Large jobs: --shard i/n (or a job array: SLURM_ARRAY_TASK_ID, _COUNT, _MIN)
-restores a fixed share of the patches into a partial file; 
-"pdwave restore merge PARTS... --out FILE" assembles the parts into exactly
-the output of a single run. A killed run continues with --resume: finished
-patches are kept in FILE.journal/ and not computed again.`,
+Large jobs: --shard i/n restores a fixed share of the patches into the part
+file FILE.part-i-of-n.fits (FITS tables); --shard array takes i and n from a
+job array (SLURM_ARRAY_TASK_ID, and _COUNT or _MIN/_MAX); the environment
+alone never shards. "pdwave restore merge --out FILE" assembles the parts
+into exactly the output of a single run.
+
+Interruptions: SIGINT or SIGTERM stops after the patches in flight, keeps the
+finished ones in FILE.journal/ and prints the command that resumes (the same
+command with --resume); a resumed run checks that the inputs' content, the
+weights and the settings are those of the journal. FILE.lock keeps a second
+run off an output in progress; the lock of a process that died is taken
+over. Outputs are checked before any work: none may be an input (under any
+spelling), a device or a folder, or a folder holding an input.`,
 	Args: cobra.ArbitraryArgs,
 	RunE: restoreRun,
 }
@@ -60,17 +68,24 @@ patches are kept in FILE.journal/ and not computed again.`,
 var restoreMergeOut string
 
 var restoreMergeCmd = &cobra.Command{
-	Use:   "merge PARTS... --out FILE",
-	Short: "Assemble the partial files of a sharded restoration",
-	Long: `merge reads the partial files written by "pdwave restore --shard i/n" for
-every i, checks that they come from the same data and settings and cover every
-patch exactly once, and writes the same FITS file and sidecars as a single run.`,
-	Args: cobra.MinimumNArgs(1),
+	Use:   "merge [PARTS...] --out FILE",
+	Short: "Assemble the part files of a sharded restoration",
+	Long: `merge reads the part files written by "pdwave restore --shard i/n --out FILE"
+for every i (FILE.part-i-of-n.fits; found beside FILE when no PARTS are
+named), checks that they come from the same input content, weights and
+settings (saying what differs otherwise) and cover every patch exactly once,
+and writes the same FITS file and sidecars as a single run (pixels and patch
+table identical), recording every shard's command in the provenance.`,
+	Args: cobra.ArbitraryArgs,
 	RunE: func(cmd *cobra.Command, args []string) error {
 		if restoreMergeOut == "" {
 			return fmt.Errorf("restore merge: --out is required")
 		}
-		p, err := restore.MergeFiles(args, restoreMergeOut, version)
+		parts, err := restore.MergeParts(args, restoreMergeOut)
+		if err != nil {
+			return err
+		}
+		p, err := restore.MergeFiles(parts, restoreMergeOut, version, "pdwave "+strings.Join(os.Args[1:], " "))
 		if err != nil {
 			return err
 		}
@@ -83,7 +98,7 @@ func init() {
 	f := restoreCmd.Flags()
 	addBurstFlags(restoreCmd)
 	o := &restoreFlags
-	f.StringVar(&o.out, "out", "", "output FITS file (a folder when restoring several bursts; a partial file with --shard)")
+	f.StringVar(&o.out, "out", "", "output FITS file (a folder when restoring several bursts; with --shard, the part files are named after it)")
 	f.StringVar(&o.site, "site", "", "site file (YAML): optics the header lacks, seeing for the prior, patch size, basis")
 	f.StringVar(&o.weights, "weights", "", "network weight file (default: the built-in weights, if they fit the telescope)")
 	f.IntVar(&o.patch, "patch", 0, "patch side, pixels (default: the weights', else the site's, else 64)")
@@ -92,7 +107,7 @@ func init() {
 	f.BoolVar(&o.fit, "fit", false, "full classical fit in every patch instead of the learned estimate")
 	f.StringVar(&o.dark, "dark", "", "dark frame (FITS, 2-D or a stack to average)")
 	f.StringVar(&o.flat, "flat", "", "flat field (FITS, dark-corrected; normalised to mean 1)")
-	f.StringVar(&o.shard, "shard", "", "restore only share i of n of the patches (i/n, 0-based) into a partial file")
+	f.StringVar(&o.shard, "shard", "", "restore only share i of n of the patches (i/n, 0-based; or \"array\": from SLURM_ARRAY_TASK_ID and _COUNT or _MIN/_MAX) into the part file FILE.part-i-of-n.fits")
 	f.BoolVar(&o.resume, "resume", false, "continue an interrupted run from its journal (FILE.journal)")
 	f.IntVar(&o.workers, "workers", 0, "worker goroutines (default: all cores)")
 	f.BoolVar(&o.pairs, "pairs", false, "arguments are focused/defocused 3-D files, two by two")
@@ -115,6 +130,15 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	if o.polish < 0 || o.workers < 0 || o.patch < 0 || o.overlap < -1 {
 		return fmt.Errorf("restore: --patch, --overlap, --polish and --workers must not be negative")
 	}
+	if err := checkWorkers("restore", o.workers); err != nil {
+		return err
+	}
+	if err := exclusive("restore", fmt.Sprintf("--polish %d", o.polish), o.polish > 0, "--fit", o.fit); err != nil {
+		return err
+	}
+	if err := exclusive("restore", "--offset", o.offset != "", "--no-align", o.noAlign); err != nil {
+		return err
+	}
 	fl, err := flagInstrument(cmd.Flags())
 	if err != nil {
 		return fmt.Errorf("restore: %w", err)
@@ -123,10 +147,15 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		Inputs: args, Pairs: o.pairs, Reading: burstOptions(), Out: o.out, Flags: fl, Overlap: o.overlap,
 		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,
 		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
-		Command: "pdwave " + strings.Join(os.Args[1:], " "),
+		Command:  "pdwave " + strings.Join(os.Args[1:], " "),
+		SiteFile: o.site, WeightsFile: o.weights,
 	}
 	if !o.quiet {
-		job.Progress = os.Stderr
+		w, terminal := progress.Stderr()
+		job.Progress = w
+		if !terminal {
+			job.ProgressEvery = restoreLogEvery
+		}
 	}
 	if o.offset != "" {
 		var off restore.Offset
@@ -136,22 +165,20 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		}
 		job.Offset = &off
 	}
-	switch {
-	case o.shard != "":
-		sh, err := restore.ParseShard(o.shard)
+	if o.shard != "" {
+		sh, err := restore.ParseShardFlag(o.shard, os.Getenv)
 		if err != nil {
 			return err
 		}
 		job.Shard = sh
-	default:
-		sh, ok, err := restore.ShardFromEnv(os.Getenv)
-		if err != nil {
-			return err
+		if o.shard == restore.ShardArray {
+			fmt.Fprintf(os.Stderr, "restore: shard %v from the job array\n", sh)
 		}
-		if ok {
-			job.Shard = sh
-			fmt.Fprintf(os.Stderr, "restore: shard %v from the job-array environment\n", sh)
-		}
+	} else if os.Getenv("SLURM_ARRAY_TASK_ID") != "" {
+		fmt.Fprintln(os.Stderr, "restore: this is a job-array task but --shard is not given: restoring every patch (--shard array shares them out)")
+	}
+	if err := job.Check(); err != nil {
+		return err
 	}
 	if o.site != "" {
 		s, err := site.Load(o.site)
@@ -179,7 +206,15 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 			fmt.Fprintln(os.Stderr, "restore: no network weights; using the classical fit in every patch")
 		}
 	}
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	ctx, intr, stop := catchInterrupts(os.Stderr, "restore")
 	defer stop()
-	return job.Run(ctx)
+	err = job.Run(ctx)
+	if s := intr.received(); s != nil && err != nil {
+		return stopped(s, err)
+	}
+	return err
 }
+
+// restoreLogEvery is how often restore logs a progress line when standard
+// error is not a terminal.
+const restoreLogEvery = 10 * time.Second

@@ -179,12 +179,12 @@ func (o simulateFlags) check(cmd *cobra.Command) error {
 		return fmt.Errorf("simulate: --field %d, want 0 (patches) or a side up to %d", o.field, simulate.MaxField)
 	case !(o.contrast > 0 && o.contrast < 1):
 		return fmt.Errorf("simulate: --contrast %g, want in (0, 1)", o.contrast)
-	case o.workers < 0:
-		return fmt.Errorf("simulate: --workers %d, want ≥ 0", o.workers)
+	case o.workers < 0 || o.workers > maxWorkers():
+		return checkWorkers("simulate", o.workers)
 	case o.object != "" && cmd.Flags().Changed("scene"):
 		return errors.New("simulate: --object and --scene exclude each other")
 	}
-	return nil
+	return checkDir("simulate", o.out, append(sceneInputs(o.scene), o.site, o.object)...)
 }
 
 // config loads the site and returns it with the simulator configuration
@@ -358,6 +358,9 @@ func simulateScreenRun(cmd *cobra.Command, _ []string) error {
 		return fmt.Errorf("simulate screen: --r0 %g, want a positive value in m (0 = the site's)", o.r0)
 	case !(o.pixel >= 0) || math.IsInf(o.pixel, 0):
 		return fmt.Errorf("simulate screen: --pixel %g, want a positive value in m (0 = the pupil-grid pixel)", o.pixel)
+	}
+	if err := checkFiles("simulate screen", []string{o.out}, o.site); err != nil {
+		return err
 	}
 	st, err := site.Load(o.site)
 	if err != nil {

@@ -10,6 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
+	"pdwave/internal/progress"
 	"pdwave/model/instrument"
 	"pdwave/model/pd"
 	"pdwave/train"
@@ -39,7 +40,10 @@ writes into DIR:
   checkpoint.*          weights and optimiser state, every 100 steps
 
 A killed run continues exactly where it stopped with --resume (same DIR,
-site and --data). A fixed set of bursts simulated at the site's median seeing
+site and --data); --resume --steps N continues it to step N instead of the
+planned count. SIGINT or SIGTERM ends a run after the step in progress with a
+checkpoint and prints the command that resumes it; DIR/train.lock keeps a
+second run off the folder. A fixed set of bursts simulated at the site's median seeing
 scores the network as it learns (error per wavefront mode as a fraction of
 the true variance); the first --fit-check of them are also fitted classically
 once, and each validation reports the network's objective against the fit's.`,
@@ -54,7 +58,7 @@ func init() {
 	f.StringVar(&o.Out, "out", "", "output folder for weights, checkpoints and the loss curve")
 	f.StringVar(&o.Data, "data", "", "folder of burst FITS files to train on instead of simulations")
 	f.BoolVar(&o.Resume, "resume", false, "continue the run checkpointed in --out")
-	f.IntVar(&o.Steps, "steps", 2000, "optimiser steps")
+	f.IntVar(&o.Steps, "steps", 2000, "optimiser steps (with --resume: continue to this step; default the checkpoint's plan)")
 	f.IntVar(&o.Batch, "batch", 4, "bursts per step")
 	f.Uint64Var(&o.Seed, "seed", 1, "random seed (weights and data)")
 	f.IntVar(&o.WarmStart, "warm-start", 0, "first N steps supervised on the simulated truth")
@@ -100,6 +104,12 @@ func trainRun(cmd *cobra.Command, args []string) error {
 	if o.Out == "" {
 		return fmt.Errorf("train: --out is required")
 	}
+	if err := checkDir("train", o.Out, o.Site, o.Data, o.Init, o.SceneDir); err != nil {
+		return err
+	}
+	if err := trainFlagsCheck(cmd, &o); err != nil {
+		return err
+	}
 	if o.RefereeBursts < 0 {
 		return fmt.Errorf("train: --fit-check %d is negative", o.RefereeBursts)
 	}
@@ -113,10 +123,16 @@ func trainRun(cmd *cobra.Command, args []string) error {
 		return err
 	}
 	o.Referee = newFitReferee
-	o.Progress = os.Stderr
+	o.Progress, _ = progress.Stderr()
 	o.Command = "pdwave " + strings.Join(os.Args[1:], " ")
 	o.Version = version
+	ctx, intr, stop := catchInterrupts(os.Stderr, "train")
+	defer stop()
+	o.Stop = ctx.Done()
 	v, err := o.Run()
+	if s := intr.received(); s != nil && err != nil {
+		return stopped(s, err)
+	}
 	if err != nil {
 		return err
 	}
@@ -124,6 +140,37 @@ func trainRun(cmd *cobra.Command, args []string) error {
 		fmt.Fprintf(os.Stderr, "final validation: %s\n", v.Summary())
 	}
 	fmt.Fprintf(os.Stderr, "weights written to %s\n", o.Out+string(os.PathSeparator)+train.WeightsFile)
+	return nil
+}
+
+// trainFlagsCheck refuses, before any work, a step count below 1, a
+// negative wall-time limit, a worker count out of bounds and contradictory
+// flags (--init or an architecture with --resume, an architecture with
+// --init). With --resume and no --steps, o.Steps becomes 0: the
+// checkpoint's plan.
+func trainFlagsCheck(cmd *cobra.Command, o *train.Job) error {
+	if o.Steps < 1 {
+		return fmt.Errorf("train: --steps %d: want at least 1", o.Steps)
+	}
+	if o.MaxWall < 0 {
+		return fmt.Errorf("train: --max-wall %v is negative (0 = no limit)", o.MaxWall)
+	}
+	if err := checkWorkers("train", o.Workers); err != nil {
+		return err
+	}
+	arch := cmd.Flags().Changed("conv") || cmd.Flags().Changed("hidden") || cmd.Flags().Changed("head")
+	if err := exclusive("train", "--resume", o.Resume, "--init", o.Init != ""); err != nil {
+		return err
+	}
+	if err := exclusive("train", "--resume", o.Resume, "--conv/--hidden/--head (the checkpoint's network is continued)", arch); err != nil {
+		return err
+	}
+	if err := exclusive("train", "--init", o.Init != "", "--conv/--hidden/--head (the starting weights fix the network)", arch); err != nil {
+		return err
+	}
+	if o.Resume && !cmd.Flags().Changed("steps") {
+		o.Steps = 0
+	}
 	return nil
 }
 

@@ -19,6 +19,8 @@ import (
 	"strconv"
 	"strings"
 	"testing"
+
+	"pdwave/internal/outpath"
 )
 
 // synthReport builds a report from random numbers: a 3×2 grid of patches,
@@ -398,20 +400,28 @@ func TestCheckRejects(t *testing.T) {
 	}
 }
 
+// TestWriteDirAtomic checks the folder is replaced whole, that a file
+// pdwave did not write in it blocks the replacement (and survives), and that
+// a failed report leaves the folder as it was. Planted: replacing without
+// outpath.Replaceable deleted "mine.txt" and failed.
 func TestWriteDirAtomic(t *testing.T) {
 	parent := t.TempDir()
 	dir := filepath.Join(parent, "out")
 	if err := WriteDir(dir, synthReport(6)); err != nil {
 		t.Fatal(err)
 	}
-	if err := os.WriteFile(filepath.Join(dir, "stale.txt"), []byte("x"), 0o644); err != nil {
+	if err := os.WriteFile(filepath.Join(dir, "mine.txt"), []byte("x"), 0o644); err != nil {
 		t.Fatal(err)
 	}
+	if err := WriteDir(dir, synthReport(7)); err == nil || !strings.Contains(err.Error(), "mine.txt") {
+		t.Errorf("replacing a folder with a foreign file: %v", err)
+	}
+	if _, err := os.Stat(filepath.Join(dir, "mine.txt")); err != nil {
+		t.Fatal("a file pdwave did not write was removed")
+	}
+	os.Remove(filepath.Join(dir, "mine.txt"))
 	if err := WriteDir(dir, synthReport(7)); err != nil {
 		t.Fatal(err)
-	}
-	if _, err := os.Stat(filepath.Join(dir, "stale.txt")); !os.IsNotExist(err) {
-		t.Error("old folder content survived the replacement")
 	}
 	ents, _ := os.ReadDir(parent)
 	if len(ents) != 1 {
@@ -424,6 +434,9 @@ func TestWriteDirAtomic(t *testing.T) {
 	files := map[string][]byte{}
 	ents, _ = os.ReadDir(dir)
 	for _, e := range ents {
+		if e.Name() == outpath.ManifestName {
+			continue
+		}
 		b, err := os.ReadFile(filepath.Join(dir, e.Name()))
 		if err != nil {
 			t.Fatal(err)

@@ -10,6 +10,9 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+
+	"pdwave/internal/atomicfile"
+	"pdwave/internal/outpath"
 )
 
 // Output file names inside the folder written by WriteDir.
@@ -232,10 +235,12 @@ func Outputs(r *Report) (map[string][]byte, error) {
 }
 
 // WriteDir writes every output of the report (see Outputs) into the folder
-// dir. The folder is built under a temporary name in the same parent folder
-// and renamed into place, so readers never see a partial folder. An existing
-// dir is replaced: it is first renamed aside and removed after the new one
-// is in place. Errors leave any existing dir untouched.
+// dir, with the manifest of internal/outpath listing them. The folder is
+// built under a temporary name in the same parent folder and renamed into
+// place, so readers never see a partial folder. An existing dir is replaced
+// only if pdwave wrote everything in it (outpath.Replaceable; any other
+// non-empty folder is refused): it is first renamed aside and removed after
+// the new one is in place. Errors leave any existing dir untouched.
 func WriteDir(dir string, r *Report) error {
 	files, err := Outputs(r)
 	if err != nil {
@@ -255,12 +260,19 @@ func WriteDir(dir string, r *Report) error {
 		return fmt.Errorf("writing %s: %w", dir, err)
 	}
 	for name, data := range files {
-		if err := os.WriteFile(filepath.Join(tmp, name), data, 0o644); err != nil {
+		if err := atomicfile.WriteBytes(filepath.Join(tmp, name), data); err != nil {
 			return fail(err)
 		}
 	}
-	if err := os.Chmod(tmp, 0o755); err != nil {
+	if err := outpath.WriteManifest(tmp); err != nil {
 		return fail(err)
+	}
+	if err := os.Chmod(tmp, atomicfile.DirMode()); err != nil {
+		return fail(err)
+	}
+	if err := outpath.Replaceable("compare", dir); err != nil {
+		os.RemoveAll(tmp)
+		return err
 	}
 	var old string
 	if st, err := os.Lstat(dir); err == nil {

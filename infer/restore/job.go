@@ -2,20 +2,18 @@ package restore
 
 import (
 	"context"
-	"encoding/binary"
 	"errors"
 	"fmt"
-	"hash/crc64"
 	"io"
-	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"strconv"
 	"strings"
 	"time"
 
 	"pdwave/infer"
+	"pdwave/internal/atomicfile"
+	"pdwave/internal/outpath"
 	"pdwave/model/burst"
 	"pdwave/model/fits"
 	"pdwave/model/instrument"
@@ -57,74 +55,212 @@ type Job struct {
 	Resume   bool      // continue from the journal next to Out
 	Workers  int       // goroutines; 0 = all cores
 	Progress io.Writer // progress lines; nil = silent
-	Log      io.Writer // one-line reports (offset, timing); nil = silent
-	Version  string    // program version for the provenance cards
-	Command  string    // command line for the provenance cards
+	// ProgressEvery > 0 writes whole progress lines at most that often
+	// (for logs); 0 rewrites one line in place (for a terminal).
+	ProgressEvery time.Duration
+	Log           io.Writer // one-line reports (offset, timing); nil = silent
+	Version       string    // program version for the provenance cards
+	Command       string    // command line for the provenance cards
+	SiteFile      string    // the site file Site was read from, if any (checked as an input)
+	WeightsFile   string    // the weight file Model was read from, if any (checked as an input)
+
+	hashes      map[string]string // content hashes of the files read, by path
+	weightsHash string            // content hash of Model, once computed
 }
 
-// Run restores every burst of the job in turn.
-func (j *Job) Run(ctx context.Context) error {
-	if j.Out == "" {
-		return errors.New("restore: no output (--out)")
-	}
-	if err := j.Shard.Validate(); err != nil {
-		return err
-	}
-	type unit struct{ name, a, b string }
+// unit is one burst of a job: its name (the focused file), its file or
+// files, the output it is restored into, and the other spellings of its
+// file that were given.
+type unit struct {
+	name, a, b, out string
+	again           []string
+}
+
+// units lists the bursts of the job with their outputs. One file given
+// twice (under any spelling) is one burst, restored once.
+func (j *Job) units() ([]unit, error) {
 	var units []unit
 	if j.Pairs {
 		if len(j.Inputs) == 0 || len(j.Inputs)%2 != 0 {
-			return fmt.Errorf("restore: --pairs needs focused/defocused files two by two, got %d files", len(j.Inputs))
+			return nil, fmt.Errorf("restore: --pairs needs focused/defocused files two by two, got %d files", len(j.Inputs))
 		}
 		for i := 0; i < len(j.Inputs); i += 2 {
-			units = append(units, unit{j.Inputs[i], j.Inputs[i], j.Inputs[i+1]})
+			if outpath.SameFile(j.Inputs[i], j.Inputs[i+1]) {
+				return nil, fmt.Errorf("restore: --pairs: %s is given as its own defocused channel (%s)", j.Inputs[i], j.Inputs[i+1])
+			}
+			units = append(units, unit{name: j.Inputs[i], a: j.Inputs[i], b: j.Inputs[i+1]})
 		}
 	} else {
 		if len(j.Inputs) == 0 {
-			return errors.New("restore: no burst files given")
+			return nil, errors.New("restore: no burst files given")
 		}
+	next:
 		for _, in := range j.Inputs {
-			units = append(units, unit{in, in, ""})
+			for k := range units {
+				if outpath.SameFile(units[k].a, in) {
+					units[k].again = append(units[k].again, in)
+					continue next
+				}
+			}
+			units = append(units, unit{name: in, a: in})
+		}
+	}
+	for k := range units {
+		units[k].out = j.outFor(units[k].name, len(units) > 1)
+	}
+	return units, nil
+}
+
+// outFor returns the file the burst named name is restored into: the
+// product, Out itself for a single burst or a file in the folder Out named
+// after the burst, or with a partial shard that product's part file
+// (PartPath).
+func (j *Job) outFor(name string, several bool) string {
+	out := j.Out
+	if several {
+		base := strings.TrimSuffix(filepath.Base(name), filepath.Ext(name))
+		out = filepath.Join(j.Out, base+"_restored.fits")
+	}
+	if j.Shard.Partial() {
+		return PartPath(out, j.Shard)
+	}
+	return out
+}
+
+// Outputs returns every file and folder a run of the job for out may
+// write: the product and its sidecars (or the part file), the journal
+// folder and the lock file.
+func (j *Job) outputs(out string) (files, dirs []string) {
+	if j.Shard.Partial() {
+		files = []string{out}
+	} else {
+		files = ProductPaths(out)
+	}
+	return append(files, outpath.LockPath(out)), []string{JournalPath(out)}
+}
+
+// JournalPath returns the journal folder of the output out.
+func JournalPath(out string) string { return out + ".journal" }
+
+// checkPaths refuses, before any work, outputs that are inputs, are not
+// regular files (or folders where folders go), hold inputs, or clash
+// (see internal/outpath).
+func (j *Job) checkPaths(units []unit) error {
+	p := outpath.New("restore").Input(j.Inputs...).Input(j.Dark, j.Flat, j.SiteFile, j.WeightsFile)
+	if len(units) > 1 {
+		p.Dir(j.Out)
+		if !j.Shard.Partial() {
+			p.File(filepath.Join(j.Out, SeriesFile))
+		}
+	}
+	for _, u := range units {
+		files, dirs := j.outputs(u.out)
+		for _, f := range files {
+			p.File(f)
+		}
+		for _, d := range dirs {
+			p.Dir(d)
+		}
+	}
+	return p.Err()
+}
+
+// logf writes a line to j.Log, if set.
+func (j *Job) logf(format string, a ...any) {
+	if j.Log != nil {
+		fmt.Fprintf(j.Log, format, a...)
+	}
+}
+
+// Check validates the job's output, shard and inputs and checks the
+// outputs against the inputs (internal/outpath: no output may be an input
+// under any spelling, or a device or folder where a file goes, or a folder
+// holding an input; no two outputs may share a name), without reading or
+// writing anything. Run calls it first.
+func (j *Job) Check() error {
+	_, err := j.checked()
+	return err
+}
+
+// checked is Check returning the job's units.
+func (j *Job) checked() ([]unit, error) {
+	if j.Out == "" {
+		return nil, errors.New("restore: no output (--out)")
+	}
+	if err := j.Shard.Validate(); err != nil {
+		return nil, err
+	}
+	units, err := j.units()
+	if err != nil {
+		return nil, err
+	}
+	return units, j.checkPaths(units)
+}
+
+// Run restores every burst of the job in turn, after Check.
+func (j *Job) Run(ctx context.Context) error {
+	units, err := j.checked()
+	if err != nil {
+		return err
+	}
+	if len(units) > 1 {
+		if err := os.MkdirAll(j.Out, 0o755); err != nil {
+			return fmt.Errorf("restore: creating %s: %w", j.Out, err)
 		}
 	}
 	var cal *Calibration
-	for k, u := range units {
-		out := j.Out
-		if len(units) > 1 {
-			if err := os.MkdirAll(j.Out, 0o755); err != nil {
-				return fmt.Errorf("restore: creating %s: %w", j.Out, err)
-			}
-			base := strings.TrimSuffix(filepath.Base(u.name), filepath.Ext(u.name))
-			out = filepath.Join(j.Out, base+"_restored.fits")
-			if j.Shard.Partial() {
-				out = filepath.Join(j.Out, fmt.Sprintf("%s_%d-%d.part", base, j.Shard.Index, j.Shard.Count))
-			}
+	series := len(units) > 1 && !j.Shard.Partial()
+	for _, u := range units {
+		for _, a := range u.again {
+			j.logf("restore: %s is %s given again; restoring it once\n", a, u.a)
 		}
-		var b *burst.Burst
-		var err error
-		inputs := []string{u.a}
-		if u.b != "" {
-			b, err = burst.ReadPairWith(u.a, u.b, j.Reading)
-			inputs = append(inputs, u.b)
-		} else {
-			b, err = burst.ReadRef(u.a, j.Reading)
-		}
+		req, err := j.request(u)
 		if err != nil {
 			return err
 		}
-		for _, n := range b.Notes {
-			if j.Log != nil {
-				fmt.Fprintf(j.Log, "note: %s\n", n)
-			}
+		if (series || j.Resume) && !j.Shard.Partial() && j.done(u, req) {
+			j.logf("restore: %s: already restored from the same inputs and settings; skipped\n", u.out)
+		} else if err := j.unit(ctx, u, &cal, req); err != nil {
+			return err
 		}
-		if k == 0 || cal == nil {
-			if cal, err = j.calibration(b.Nx, b.Ny); err != nil {
+		if series {
+			if err := j.writeSeries(units); err != nil {
 				return err
 			}
 		}
-		if err := j.one(ctx, b, cal, inputs, out); err != nil {
-			return fmt.Errorf("restoring %s: %w", u.name, err)
+	}
+	if series {
+		j.logf("restore: series of %d bursts summarised in %s\n", len(units), filepath.Join(j.Out, SeriesFile))
+	}
+	return nil
+}
+
+// unit restores one burst: it takes the output's lock, reads the burst,
+// makes the calibration on first use (*cal) and restores it.
+func (j *Job) unit(ctx context.Context, u unit, cal **Calibration, req string) error {
+	l, err := j.lock(u.out)
+	if err != nil {
+		return err
+	}
+	defer l.Release()
+	var b *burst.Burst
+	inputs := []string{u.a}
+	if u.b != "" {
+		b, err = burst.ReadPairWith(u.a, u.b, j.Reading)
+		inputs = append(inputs, u.b)
+	} else {
+		b, err = burst.ReadRef(u.a, j.Reading)
+	}
+	if err != nil {
+		return err
+	}
+	if *cal == nil {
+		if *cal, err = j.calibration(b.Nx, b.Ny); err != nil {
+			return err
 		}
+	}
+	if err := j.one(ctx, b, *cal, inputs, u.out, req); err != nil {
+		return fmt.Errorf("restoring %s: %w", u.name, err)
 	}
 	return nil
 }
@@ -209,8 +345,36 @@ func (j *Job) hint(err error) error {
 	return fmt.Errorf("restore: %w", err)
 }
 
+// removeStale removes the temporaries an interrupted run left beside the
+// outputs of out (the product and its sidecars, or the part file).
+func removeStale(out string) error {
+	for _, p := range append(ProductPaths(out), out) {
+		if _, err := atomicfile.RemoveStale(p); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// lock takes the lock of the output out (see outpath.Acquire), reporting a
+// takeover on Log, and removes the temporaries an interrupted run left.
+func (j *Job) lock(out string) (*outpath.Lock, error) {
+	l, note, err := outpath.Acquire(outpath.LockPath(out), j.Command)
+	if err != nil {
+		return nil, fmt.Errorf("restore: %s: %w", out, err)
+	}
+	if note != "" {
+		j.logf("restore: %s\n", note)
+	}
+	if err := removeStale(out); err != nil {
+		l.Release()
+		return nil, err
+	}
+	return l, nil
+}
+
 // one restores one burst into out.
-func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out string) error {
+func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out, req string) error {
 	t0 := time.Now()
 	cfg, method, err := j.Configure(b.Optics, b.Frames)
 	if err != nil {
@@ -235,18 +399,27 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 		return err
 	}
 	meta := j.meta(b, cal, cfg, method, overlap, off, field, inputs)
-	meta.Key = restoreKey(field, meta.Settings)
-	// The command line itself may differ between shards and the merge; it
-	// is recorded but not part of the key.
-	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
-		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress}
-	g, _ := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap)
-	results, err := j.runPatches(ctx, field, opt, g, meta, out)
+	id, err := j.identity(inputs, method, meta.Settings)
 	if err != nil {
 		return err
 	}
-	if err := os.RemoveAll(opt.Journal); err != nil {
-		return fmt.Errorf("removing journal: %w", err)
+	meta.Key = id.Key()
+	recordIdentity(meta.Settings, id)
+	meta.Settings["request"] = req
+	// The command line itself may differ between shards and the merge; it
+	// is recorded but not part of the key.
+	opt := Options{Patch: cfg.Patch, Overlap: overlap, Workers: j.Workers, NewEngine: phys.NewEngine,
+		Shard: j.Shard, Journal: out + ".journal", Resume: j.Resume, Key: meta.Key, Progress: j.Progress, ProgressEvery: j.ProgressEvery, Log: j.Log}
+	g, _ := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap)
+	results, err := j.runPatches(ctx, field, opt, g, meta, out)
+	if ie := (*Interrupted)(nil); errors.As(err, &ie) {
+		ie.Out = out
+	}
+	if err != nil {
+		return err
+	}
+	if err := removeJournal(opt.Journal); err != nil {
+		return err
 	}
 	if j.Log != nil {
 		j.logDone(out, results, method.Name, t0)
@@ -354,39 +527,118 @@ func (j *Job) logOffset(off Coregistration) {
 	fmt.Fprintf(j.Log, "restore: defocused channel offset (%.3f, %.3f) px (%s%s),%s\n", off.DX, off.DY, off.Method, spread, done)
 }
 
-// restoreKey identifies the calibrated data and the settings that shape the
-// result (CRC-64 of the pixels and of the sorted settings without the
-// command line).
-func restoreKey(f *Field, settings map[string]string) string {
-	h := crc64.New(crc64.MakeTable(crc64.ECMA))
-	var b [8]byte
-	for c := range f.Data {
-		for _, fr := range f.Data[c] {
-			buf := make([]byte, 0, 8*len(fr))
-			for _, v := range fr {
-				binary.LittleEndian.PutUint64(b[:], math.Float64bits(v))
-				buf = append(buf, b[:]...)
+// identity returns what the restoration of the burst files inputs depends
+// on: their content, that of the dark, flat and site files, the weights'
+// if the network is used, and the settings without the command line and
+// file names.
+func (j *Job) identity(inputs []string, method Method, settings map[string]string) (Identity, error) {
+	var id Identity
+	files := []struct{ role, path string }{{"burst", inputs[0]}}
+	if len(inputs) > 1 {
+		files = append(files, struct{ role, path string }{"defocused", inputs[1]})
+	}
+	files = append(files, []struct{ role, path string }{{"dark", j.Dark}, {"flat", j.Flat}, {"site", j.SiteFile}}...)
+	for _, f := range files {
+		if f.path == "" {
+			continue
+		}
+		h, err := j.hash(f.path)
+		if err != nil {
+			return id, err
+		}
+		id.Files = append(id.Files, FileID{Role: f.role, Name: f.path, Hash: h})
+	}
+	id.Weights = "none"
+	if method.Start != nil && j.Model != nil {
+		if j.weightsHash == "" {
+			h, err := HashWeights(j.Model)
+			if err != nil {
+				return id, err
 			}
-			h.Write(buf)
+			j.weightsHash = h
+		}
+		id.Weights = j.weightsHash
+	}
+	id.Settings = map[string]string{}
+	for k, v := range settings {
+		switch k {
+		case "command", "inputs", "dark", "flat", "weights":
+		default:
+			id.Settings[k] = v
 		}
 	}
-	keys := make([]string, 0, len(settings))
-	for k := range settings {
-		if k != "command" {
-			keys = append(keys, k)
-		}
-	}
-	sort.Strings(keys)
-	for _, k := range keys {
-		fmt.Fprintf(h, "%s=%s\n", k, settings[k])
-	}
-	return fmt.Sprintf("%d×%d×%d %016x", f.Nx, f.Ny, f.Frames, h.Sum64())
+	return id, nil
 }
 
-// MergeFiles assembles the partial files of a sharded restoration into the
-// same output a single run writes (FITS product and sidecars) at out, and
-// returns the product.
-func MergeFiles(parts []string, out, version string) (*Product, error) {
+// hash returns HashFile of path, once per path and job.
+func (j *Job) hash(path string) (string, error) {
+	if h, ok := j.hashes[path]; ok {
+		return h, nil
+	}
+	h, err := HashFile(path)
+	if err != nil {
+		return "", err
+	}
+	if j.hashes == nil {
+		j.hashes = map[string]string{}
+	}
+	j.hashes[path] = h
+	return h, nil
+}
+
+// recordIdentity adds the content hashes of id to the provenance settings
+// ("sha256 <role>", "sha256 weights").
+func recordIdentity(settings map[string]string, id Identity) {
+	for _, f := range id.Files {
+		settings["sha256 "+f.Role] = strings.TrimPrefix(f.Hash, "sha256:")
+	}
+	if w, ok := strings.CutPrefix(id.Weights, "sha256:"); ok {
+		settings["sha256 weights"] = w
+	}
+}
+
+// CheckMerge checks, before a merge reads anything, that its outputs (the
+// product at out and its sidecars) are none of the parts, regular files
+// where they exist, and distinct (internal/outpath).
+func CheckMerge(parts []string, out string) error {
+	p := outpath.New("restore merge").Input(parts...)
+	for _, f := range append(ProductPaths(out), outpath.LockPath(out)) {
+		p.File(f)
+	}
+	return p.Err()
+}
+
+// MergeParts returns the part files to merge into out: parts if any are
+// given, else the files matching PartGlob(out) (an error if there are
+// none).
+func MergeParts(parts []string, out string) ([]string, error) {
+	if len(parts) > 0 {
+		return parts, nil
+	}
+	found, err := filepath.Glob(PartGlob(out))
+	if err != nil || len(found) == 0 {
+		return nil, fmt.Errorf("restore merge: no part files %s (run \"pdwave restore --shard i/n --out %s\" for every i, or name the parts)", PartGlob(out), out)
+	}
+	return found, nil
+}
+
+// MergeFiles assembles the part files of a sharded restoration into the
+// same output a single run writes (FITS product and sidecars, identical
+// pixels and patch table) at out, and returns the product. The
+// provenance records command as the command and every shard's command. It
+// runs CheckMerge first and holds the output's lock while it writes.
+func MergeFiles(parts []string, out, version, command string) (*Product, error) {
+	if err := CheckMerge(parts, out); err != nil {
+		return nil, err
+	}
+	l, _, err := outpath.Acquire(outpath.LockPath(out), command)
+	if err != nil {
+		return nil, fmt.Errorf("restore merge: %s: %w", out, err)
+	}
+	defer l.Release()
+	if err := removeStale(out); err != nil {
+		return nil, err
+	}
 	var col *Collector
 	meta, _, err := Merge(parts, func(_ *Meta, g *Grid) (Sink, error) {
 		col = NewCollector(g)
@@ -395,6 +647,7 @@ func MergeFiles(parts []string, out, version string) (*Product, error) {
 	if err != nil {
 		return nil, err
 	}
+	meta.Settings["command"] = command
 	p := col.Product(meta)
 	if err := p.Write(out, version); err != nil {
 		return nil, err

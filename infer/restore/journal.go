@@ -40,8 +40,8 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 	if resume {
 		old, err := os.ReadFile(keyPath)
 		if err == nil {
-			if string(old) != full {
-				return nil, fmt.Errorf("restore: journal %s was written for other inputs or settings; remove it or run without --resume", dir)
+			if d := DiffKeys(string(old), full, "in the journal", "now"); d != "" {
+				return nil, fmt.Errorf("restore: journal %s was written for other inputs or settings (%s); resume with the same inputs and settings, or remove the journal to start over", dir, d)
 			}
 			names, err := j.batches()
 			if err != nil {
@@ -54,18 +54,16 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 			return nil, fmt.Errorf("reading %s: %w", keyPath, err)
 		}
 	}
-	// Fresh journal: clear old batches.
-	if err := os.MkdirAll(dir, 0o755); err != nil {
-		return nil, fmt.Errorf("creating journal %s: %w", dir, err)
-	}
+	// A fresh run never discards an earlier run's finished patches.
 	names, err := j.batches()
 	if err != nil {
 		return nil, err
 	}
-	for _, n := range names {
-		if err := os.Remove(filepath.Join(dir, n)); err != nil {
-			return nil, fmt.Errorf("clearing journal: %w", err)
-		}
+	if len(names) > 0 {
+		return nil, fmt.Errorf("restore: journal %s holds finished patches of an earlier run; add --resume to continue it, or remove the journal to start over", dir)
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, fmt.Errorf("creating journal %s: %w", dir, err)
 	}
 	if err := restoreWriteAtomic(keyPath, func(w io.Writer) error {
 		_, err := io.WriteString(w, full)
@@ -74,6 +72,44 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 		return nil, err
 	}
 	return j, nil
+}
+
+// removeJournal removes the journal folder dir once its output is
+// written: only the files the journal writes (key, batches and their
+// temporaries); a folder holding anything else is left, with its other
+// files.
+func removeJournal(dir string) error {
+	ents, err := os.ReadDir(dir)
+	if errors.Is(err, os.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return fmt.Errorf("removing journal %s: %w", dir, err)
+	}
+	for _, e := range ents {
+		n := e.Name()
+		if e.Type().IsRegular() && (n == "key" || journalBatch(n) || strings.HasPrefix(n, ".key.tmp-") || strings.HasPrefix(n, ".0")) {
+			if err := os.Remove(filepath.Join(dir, n)); err != nil {
+				return fmt.Errorf("removing journal %s: %w", dir, err)
+			}
+		}
+	}
+	os.Remove(dir) // fails, harmlessly, if something else is in it
+	return nil
+}
+
+// journalBatch reports whether name is a batch file name (NNNNNN.gob).
+func journalBatch(name string) bool {
+	num, ok := strings.CutSuffix(name, ".gob")
+	if !ok || len(num) != 6 {
+		return false
+	}
+	for _, c := range num {
+		if c < '0' || c > '9' {
+			return false
+		}
+	}
+	return true
 }
 
 // batches lists the batch files in order.
@@ -87,7 +123,7 @@ func (j *restoreJournal) batches() ([]string, error) {
 	}
 	var names []string
 	for _, e := range ents {
-		if strings.HasSuffix(e.Name(), ".gob") && !strings.HasPrefix(e.Name(), ".") {
+		if journalBatch(e.Name()) {
 			names = append(names, e.Name())
 		}
 	}

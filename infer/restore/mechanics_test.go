@@ -2,11 +2,13 @@ package restore
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"reflect"
 	"sync/atomic"
 	"testing"
 )
@@ -373,12 +375,33 @@ func TestShardMergeEqualsSingleRun(t *testing.T) {
 	if err := c.Product(meta).Write(outB, "test"); err != nil {
 		t.Fatal(err)
 	}
-	for _, suffix := range []string{"_patches.csv", "_summary.json", "_preview.png"} {
+	for _, suffix := range []string{"_patches.csv", "_preview.png"} {
 		a, _ := os.ReadFile(SidecarBase(outA) + suffix)
 		b, _ := os.ReadFile(SidecarBase(outB) + suffix)
 		if len(a) == 0 || string(a) != string(b) {
 			t.Errorf("%s differs between single run and merge", suffix)
 		}
+	}
+	// The summaries differ only by the shards' commands the merge records.
+	var sa, sb Summary
+	for _, s := range []struct {
+		suffix string
+		dst    *Summary
+	}{{outA, &sa}, {outB, &sb}} {
+		b, _ := os.ReadFile(SidecarBase(s.suffix) + "_summary.json")
+		if err := json.Unmarshal(b, s.dst); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for i := range n {
+		k := "command shard " + Shard{i, n}.String()
+		if _, ok := sb.Settings[k]; !ok {
+			t.Errorf("merged summary lacks %q", k)
+		}
+		delete(sb.Settings, k)
+	}
+	if !reflect.DeepEqual(sa, sb) {
+		t.Errorf("summaries differ:\n%+v\n%+v", sa, sb)
 	}
 }
 

@@ -13,6 +13,7 @@ import (
 	"strconv"
 	"strings"
 
+	"pdwave/internal/atomicfile"
 	"pdwave/model/fits"
 )
 
@@ -75,7 +76,8 @@ func SidecarBase(out string) string {
 
 // Write writes the product: the FITS file out (restored field in the primary
 // HDU with the input's cards and provenance, extensions RAWMEAN and PATCHES)
-// and the sidecars of SidecarBase(out). Every file is written atomically.
+// and the sidecars of SidecarBase(out), as one atomicfile.Set: the four
+// files appear together or not at all (the FITS file is renamed last).
 // version is the program version recorded in the provenance.
 func (p *Product) Write(out, version string) error {
 	m := p.Meta
@@ -110,23 +112,36 @@ func (p *Product) Write(out, version string) error {
 	primary := &fits.Image{Dims: []int{m.Nx, m.Ny}, Data: p.Image, Cards: cards}
 	raw := &fits.Image{Name: "RAWMEAN", Dims: []int{m.Nx, m.Ny}, Data: m.Mean,
 		Cards: append(restoreWCSCards(m.Cards), fits.Card{Key: "COMMENT", Value: "burst-mean focused image after calibration"})}
-	if err := fits.WriteFile(out, primary, raw, p.table()); err != nil {
-		return err
-	}
+	set := atomicfile.NewSet()
+	defer set.Abort()
 	base := SidecarBase(out)
-	if err := restoreWriteAtomic(base+"_preview.png", func(w io.Writer) error {
-		return png.Encode(w, Preview(m.Mean, p.Image, m.Nx, m.Ny))
-	}); err != nil {
+	for _, f := range []struct {
+		path  string
+		write func(io.Writer) error
+	}{
+		{base + "_preview.png", func(w io.Writer) error { return png.Encode(w, Preview(m.Mean, p.Image, m.Nx, m.Ny)) }},
+		{base + "_patches.csv", p.writeCSV},
+		{base + "_summary.json", func(w io.Writer) error {
+			enc := json.NewEncoder(w)
+			enc.SetIndent("", "  ")
+			return enc.Encode(p.Summary())
+		}},
+	} {
+		if err := set.Add(f.path, f.write); err != nil {
+			return err
+		}
+	}
+	if err := set.AddPath(out, func(tmp string) error { return fits.WriteFile(tmp, primary, raw, p.table()) }); err != nil {
 		return err
 	}
-	if err := restoreWriteAtomic(base+"_patches.csv", p.writeCSV); err != nil {
-		return err
-	}
-	return restoreWriteAtomic(base+"_summary.json", func(w io.Writer) error {
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(p.Summary())
-	})
+	return set.Commit()
+}
+
+// ProductPaths returns the files Product.Write writes for out: the three
+// sidecars and out itself, in the order they are renamed into place.
+func ProductPaths(out string) []string {
+	base := SidecarBase(out)
+	return []string{base + "_preview.png", base + "_patches.csv", base + "_summary.json", out}
 }
 
 // restoreWCSCards picks the world-coordinate cards of the input.

@@ -115,14 +115,22 @@ type Options struct {
 	// patches recorded there are replayed instead of recomputed.
 	Journal string
 	Resume  bool // replay the patches recorded in Journal
-	// Key identifies the inputs and settings; a journal written under another
-	// key is refused.
+	// Key identifies the inputs and settings (Identity.Key); resuming from
+	// a journal written under another key is refused with what differs
+	// (DiffKeys), and a run without Resume refuses a journal that holds
+	// finished patches rather than discard them.
 	Key string
 	// BatchSize is the number of patches per journal batch (0 = 16).
 	BatchSize int
-	// Progress receives a progress line with an ETA (carriage-return
-	// updates); nil = silent.
-	Progress io.Writer
+	// Progress receives a progress line with an ETA; nil = silent. With
+	// ProgressEvery 0 the line is rewritten in place (carriage return, for
+	// a terminal) at most every 0.5 s; with ProgressEvery > 0 a whole line
+	// is written at most that often, and at the end.
+	Progress      io.Writer
+	ProgressEvery time.Duration
+	// Log receives one-line reports (how many patches a resumed run
+	// replayed); nil = silent.
+	Log io.Writer
 }
 
 // Sink receives finished patches in increasing id order. Run calls it from a
@@ -352,6 +360,7 @@ func (m *Mosaic) Image(dst []float64) []float64 {
 // restoreProgress writes "restore: k/n patches, elapsed, ETA" lines.
 type restoreProgress struct {
 	w          io.Writer
+	every      time.Duration // 0: rewrite in place every 0.5 s; > 0: whole lines
 	total, k   int
 	start      int
 	t0, last   time.Time
@@ -359,21 +368,27 @@ type restoreProgress struct {
 }
 
 // restoreNewProgress returns a progress writer for total patches of which
-// done are already finished (replayed); w nil writes nothing.
-func restoreNewProgress(w io.Writer, total, done int) *restoreProgress {
-	return &restoreProgress{w: w, total: total, k: done, start: done, t0: time.Now()}
+// done are already finished (replayed); w nil writes nothing. every is
+// Options.ProgressEvery.
+func restoreNewProgress(w io.Writer, every time.Duration, total, done int) *restoreProgress {
+	now := time.Now()
+	return &restoreProgress{w: w, every: every, total: total, k: done, start: done, t0: now, last: now}
 }
 
-// step counts one more finished patch and, at most every 0.5 s and at the
-// last patch, rewrites the progress line with the ETA from the patches
-// computed in this run.
+// step counts one more finished patch and, at most every 0.5 s (or every
+// p.every) and at the last patch, writes the progress line with the ETA
+// from the patches computed in this run.
 func (p *restoreProgress) step() {
 	p.k++
 	if p.w == nil {
 		return
 	}
 	now := time.Now()
-	if now.Sub(p.last) < 500*time.Millisecond && p.k < p.total {
+	gap := p.every
+	if gap <= 0 {
+		gap = 500 * time.Millisecond
+	}
+	if now.Sub(p.last) < gap && p.k < p.total {
 		return
 	}
 	p.last = now
@@ -382,11 +397,16 @@ func (p *restoreProgress) step() {
 	if p.k > p.start {
 		eta = el / float64(p.k-p.start) * float64(p.total-p.k)
 	}
-	fmt.Fprintf(p.w, "\rrestore: %d/%d patches (%.0f%%), %.1f s elapsed, ETA %.1f s   ", p.k, p.total, 100*float64(p.k)/float64(max(p.total, 1)), el, eta)
+	line := fmt.Sprintf("restore: %d/%d patches (%.0f%%), %.1f s elapsed, ETA %.1f s", p.k, p.total, 100*float64(p.k)/float64(max(p.total, 1)), el, eta)
+	if p.every > 0 {
+		fmt.Fprintln(p.w, line)
+		return
+	}
+	fmt.Fprintf(p.w, "\r%s   ", line)
 	p.wroteEnded = true
 }
 
-// finish ends the progress line, if one was written.
+// finish ends the progress line, if one was rewritten in place.
 func (p *restoreProgress) finish() {
 	if p.w != nil && p.wroteEnded {
 		fmt.Fprintln(p.w)

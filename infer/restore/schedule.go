@@ -42,13 +42,17 @@ func (o *inOrder) openJournal(opt Options, lo, hi int) error {
 	if !opt.Resume {
 		return nil
 	}
-	return jr.replay(func(r *PatchResult) error {
+	err = jr.replay(func(r *PatchResult) error {
 		if r.ID != o.next || r.ID >= hi {
 			return fmt.Errorf("restore: journal %s: patch %d out of order (want %d)", opt.Journal, r.ID, o.next)
 		}
 		o.next++
 		return o.emit(r)
 	})
+	if err == nil && opt.Log != nil {
+		fmt.Fprintf(opt.Log, "restore: resuming from %s: replayed %d of %d patches\n", opt.Journal, o.next-lo, hi-lo)
+	}
+	return err
 }
 
 // restoreRest restores the patches o.next..hi−1 of the shard [lo, hi) on
@@ -65,7 +69,7 @@ func (o *inOrder) restoreRest(ctx context.Context, f *Field, g *Grid, opt Option
 		return err
 	}
 	go s.feed(o.next, hi)
-	prog := restoreNewProgress(opt.Progress, hi-lo, o.next-lo)
+	prog := restoreNewProgress(opt.Progress, opt.ProgressEvery, hi-lo, o.next-lo)
 	firstErr := o.collect(s, hi, prog)
 	cancel()
 	s.wg.Wait()
@@ -82,10 +86,35 @@ func (o *inOrder) restoreRest(ctx context.Context, f *Field, g *Grid, opt Option
 		if err := context.Cause(ctx); err != nil && !errors.Is(err, context.Canceled) {
 			return err
 		}
-		return fmt.Errorf("restore: interrupted after %d of %d patches: %w", o.next-lo, hi-lo, context.Canceled)
+		return &Interrupted{Done: o.next - lo, Total: hi - lo, Journal: opt.Journal}
 	}
 	return nil
 }
+
+// Interrupted is the error of a Run stopped by its context (a signal): the
+// patches finished before the stop are recorded in the journal, if there
+// is one, and a run with Resume continues from them. It unwraps to
+// context.Canceled.
+type Interrupted struct {
+	Done, Total int    // patches of the shard finished, and in all
+	Journal     string // the journal holding the finished patches; "" if none
+	Out         string // the output being written (set by Job)
+}
+
+// Error describes the stop.
+func (e *Interrupted) Error() string {
+	s := fmt.Sprintf("restore: interrupted after %d of %d patches", e.Done, e.Total)
+	if e.Out != "" {
+		s += " of " + e.Out
+	}
+	if e.Journal != "" {
+		s += "; the finished patches are kept in " + e.Journal
+	}
+	return s
+}
+
+// Unwrap returns context.Canceled.
+func (e *Interrupted) Unwrap() error { return context.Canceled }
 
 // collect receives finished patches until id hi−1 is emitted or the run is
 // cancelled, emitting each as soon as all lower ids are out. On a sink or

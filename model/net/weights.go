@@ -1,16 +1,16 @@
 package net
 
 import (
-	"bytes"
 	"encoding/binary"
 	"encoding/json"
 	"fmt"
 	"io"
 	"math"
 	"os"
-	"path/filepath"
-	"pdwave/model/instrument"
 	"strconv"
+
+	"pdwave/internal/atomicfile"
+	"pdwave/model/instrument"
 )
 
 // Weight files use the safetensors layout: an 8-byte little-endian header
@@ -109,37 +109,10 @@ func (m *Model) Write(w io.Writer) error {
 	return nil
 }
 
-// Save writes m to path atomically (temporary file in the same directory,
-// then rename).
+// Save writes m to path atomically with internal/atomicfile (temporary file
+// in the same directory, synced, mode 0644 under the umask, renamed).
 func (m *Model) Save(path string) error {
-	var b bytes.Buffer
-	if err := m.Write(&b); err != nil {
-		return err
-	}
-	return writeAtomic(path, b.Bytes())
-}
-
-// writeAtomic writes data to a temporary file beside path and renames it.
-func writeAtomic(path string, data []byte) error {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	name := tmp.Name()
-	if _, err := tmp.Write(data); err != nil {
-		tmp.Close()
-		os.Remove(name)
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err := tmp.Close(); err != nil {
-		os.Remove(name)
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	if err := os.Rename(name, path); err != nil {
-		os.Remove(name)
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
+	return atomicfile.Write(path, m.Write)
 }
 
 // Load reads a weight file from path.

@@ -4,10 +4,12 @@ import (
 	"bytes"
 	"encoding/binary"
 	"math"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
 
+	"pdwave/internal/atomicfile"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
@@ -124,5 +126,37 @@ func TestWeightsRefuseForeignOptics(t *testing.T) {
 	other.Wavelength, other.PixelScale = 600.0001e-9, m.PixelScale*(1+1e-5)
 	if err := instrument.Compatible(m.Instrument(), metaInstrument(other)); err != nil {
 		t.Errorf("rounded optics refused: %v", err)
+	}
+}
+
+// TestSaveModeAndNoLeftovers checks a saved weight file is readable by
+// others (mode 0644 under the umask, internal/atomicfile.Mode) and that
+// saving leaves no temporary beside it. Planted: the former writer
+// (os.CreateTemp, no chmod) left 0600 files and failed.
+func TestSaveModeAndNoLeftovers(t *testing.T) {
+	scale := make([]float64, 21)
+	for i := range scale {
+		scale[i] = 1
+	}
+	m, err := New(DefaultArch(21), demoMeta(), scale, 5)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	path := filepath.Join(dir, "w.safetensors")
+	for range 2 { // a new file, then a replacement
+		if err := m.Save(path); err != nil {
+			t.Fatal(err)
+		}
+	}
+	st, err := os.Stat(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if st.Mode().Perm() != atomicfile.Mode() {
+		t.Errorf("mode %v, want %v", st.Mode().Perm(), atomicfile.Mode())
+	}
+	if ents, _ := os.ReadDir(dir); len(ents) != 1 {
+		t.Errorf("%d files in the folder, want the weights alone", len(ents))
 	}
 }
