@@ -12,8 +12,6 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
-	"pdwave/model/burst"
-	"pdwave/model/fits"
 	"pdwave/model/instrument"
 	"pdwave/model/site"
 	"pdwave/simulate"
@@ -169,80 +167,18 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	src := instrument.Sources{Flags: fl, Header: infer.HeaderInstrument(b.Optics), Site: st.Instrument()}
-	cfg, err := infer.ConfigFor(src, b.Frames)
-	if err != nil {
-		return fmt.Errorf("%s: %w", args[0], err)
-	}
-	n := cfg.Patch
-	if m := min(b.Nx, b.Ny); n > m {
-		n = m
-		src.Flags.Patch = instrument.Some(n) // the burst caps the patch
-		if cfg, err = infer.ConfigFor(src, b.Frames); err != nil {
-			return fmt.Errorf("%s: %w", args[0], err)
-		}
-	}
-	x0, y0 := (b.Nx-n)/2, (b.Ny-n)/2
 	stderr := cmd.ErrOrStderr()
-	if b.Nx > n || b.Ny > n {
-		fmt.Fprintf(stderr, "burst is %d×%d pixels: fitting its central %d×%d patch at (%d, %d); restore full fields with \"pdwave restore\"\n",
-			b.Nx, b.Ny, n, n, x0, y0)
+	job := infer.FitJob{
+		Burst: b, Name: args[0], SiteName: o.site,
+		Sources:    instrument.Sources{Flags: fl, Header: infer.HeaderInstrument(b.Optics), Site: st.Instrument()},
+		Iterations: o.iterations, Wall: o.wall, Prior: o.prior, Version: version, Out: o.out, Log: stderr,
 	}
-	cfg.Stop.Iterations = o.iterations
-	cfg.Stop.WallTime = o.wall
-	cfg.Prior = o.prior
-	fitter, err := infer.NewFitter(cfg)
-	if err != nil {
-		return fmt.Errorf("%s: %w", args[0], err)
-	}
-	res, err := fitter.Fit(b.Patch(x0, y0, n), nil)
-	if err != nil {
-		return fmt.Errorf("%s: %w", args[0], err)
-	}
-	fmt.Fprintf(stderr, "fitted %d frames × %d %s modes in %d iterations (%v): metric %.5g → %.5g (%s)\n",
-		b.Frames, cfg.Modes, cfg.Basis, res.Iterations, res.Elapsed.Round(time.Millisecond),
-		res.MetricStart, res.MetricEnd, res.Status)
-
-	settings := cfg.Settings()
-	settings["command"] = "fit"
-	settings["burst"] = filepath.Base(args[0])
-	settings["site"] = filepath.Base(o.site)
-	settings["patch"] = fmt.Sprintf("%d px at (%d, %d) of %d×%d", n, x0, y0, b.Nx, b.Ny)
-	cards := fits.Provenance(version, settings)
-	cards = append(cards,
-		fits.Card{Key: "FITBASIS", Value: string(cfg.Basis), Comment: "modal basis of the coefficients"},
-		fits.Card{Key: "FITMODES", Value: cfg.Modes, Comment: "modes per frame, piston excluded"},
-		fits.Card{Key: "FITITER", Value: res.Iterations, Comment: "L-BFGS iterations"},
-		fits.Card{Key: "FITSTAT", Value: fitStatus(res.Status), Comment: "why the optimiser stopped"},
-		fits.Card{Key: "FITFLAGS", Value: guardText(res.Flags), Comment: "guard: implausible, refitted, rejected or none"},
-		fits.Card{Key: "PRIORCHI", Value: res.Chi2, Comment: "mean coefficient^2 / Kolmogorov variance"},
-		fits.Card{Key: "METRIC0", Value: res.MetricStart, Comment: "objective before the fit (metric/power + prior)"},
-		fits.Card{Key: "METRIC1", Value: res.MetricEnd, Comment: "objective after the fit"},
-		fits.Card{Key: "DATAM0", Value: res.DataStart, Comment: "normalised metric L/P before the fit"},
-		fits.Card{Key: "DATAM1", Value: res.DataEnd, Comment: "normalised metric L/P after the fit"},
-		fits.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
-		fits.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"},
-	)
-	cards = append(cards, burst.CutoutCards(b.Cards, x0, y0)...)
-	img := &fits.Image{Dims: []int{n, n}, Data: res.Restored, Cards: cards}
-	table := &infer.CoefficientTable{
-		Basis: cfg.Basis, Native: res.Coeffs, Noll: res.Noll,
-		Title: "pdwave " + version + " fit", Settings: settings, Notes: res.Notes(),
-	}
-	csvPath, err := infer.WriteCoefficients(o.out, img, table)
+	csvPath, err := job.Run()
 	if err != nil {
 		return err
 	}
 	fmt.Fprintf(stderr, "wrote %s and %s\n", o.out, csvPath)
 	return nil
-}
-
-// fitStatus shortens the optimiser status to fit a FITS string card.
-func fitStatus(s string) string {
-	if len(s) > 60 {
-		return s[:60]
-	}
-	return s
 }
 
 func fitStudyRun(cmd *cobra.Command, args []string) error {
@@ -336,12 +272,4 @@ func fitStudyImages(dir string) func() (*simulate.ImageScene, error) {
 		}
 		return simulate.LoadSceneDir(d)
 	}
-}
-
-// guardText names the guard's flags for a header card ("none" for none).
-func guardText(f infer.FitFlags) string {
-	if f == 0 {
-		return "none"
-	}
-	return f.String()
 }

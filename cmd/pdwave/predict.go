@@ -5,14 +5,11 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
-	"time"
 
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
-	"pdwave/model/fits"
 	"pdwave/model/instrument"
-	"pdwave/model/modes"
 	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/weights"
@@ -96,51 +93,6 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		}
 		src.Site = st.Instrument()
 	}
-	if _, _, _, err := infer.ConfigWithWeights(src, b.Frames, m, false); err != nil {
-		return fmt.Errorf("predict: %s: %w; add the header keywords or give --site", args[0], err)
-	}
-	n := m.Meta.Patch
-	if b.Nx < n || b.Ny < n {
-		return fmt.Errorf("predict: %s is %d×%d px, smaller than the %d px patches the weights read", args[0], b.Nx, b.Ny, n)
-	}
-	x0, y0 := (b.Nx-n)/2, (b.Ny-n)/2
-	if b.Nx > n || b.Ny > n {
-		fmt.Fprintf(os.Stderr, "burst is %d×%d pixels: reading its central %d×%d patch at (%d, %d); restore full fields with \"pdwave restore\"\n",
-			b.Nx, b.Ny, n, n, x0, y0)
-	}
-	p := b.Patch(x0, y0, n)
-	est, err := net.NewEstimator(m)
-	if err != nil {
-		return err
-	}
-	start := time.Now()
-	native, noll, err := est.Burst([2][][]float64{p[0], p[1]})
-	if err != nil {
-		return fmt.Errorf("predict: %s: %w", args[0], err)
-	}
-	elapsed := time.Since(start)
-	settings := map[string]string{"verb": "predict", "burst": filepath.Base(args[0]), "weights": from,
-		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds()),
-		"patch": fmt.Sprintf("%d px at (%d, %d) of %d×%d", n, x0, y0, b.Nx, b.Ny)}
-	table := &infer.CoefficientTable{Basis: modes.Kind(m.Meta.Basis), Native: native, Noll: noll,
-		Title: "pdwave " + version + " predict", Settings: settings}
-	if strings.EqualFold(filepath.Ext(o.out), ".csv") {
-		if err := table.WriteCSV(o.out); err != nil {
-			return err
-		}
-	} else {
-		hdu := table.HDU()
-		hdu.Cards = append(hdu.Cards,
-			fits.Card{Key: "NMODES", Value: len(native[0]), Comment: "modes per frame, piston excluded"},
-			fits.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"},
-			fits.Card{Key: "PATCHX0", Value: x0, Comment: "first column of the patch in the burst (0-based)"},
-			fits.Card{Key: "PATCHY0", Value: y0, Comment: "first row of the patch in the burst (0-based)"})
-		primary := &fits.Image{Cards: fits.Provenance(version, settings)}
-		if _, err := infer.WriteProduct(o.out, []fits.HDU{primary, hdu}, table); err != nil {
-			return err
-		}
-	}
-	fmt.Fprintf(os.Stderr, "predicted %d frames × %d %s modes in %s (one burst, set-up included) with weights %s\n",
-		len(native), len(native[0]), m.Meta.Basis, elapsed.Round(time.Microsecond), from)
-	return nil
+	job := infer.PredictJob{Burst: b, Name: args[0], Sources: src, Model: m, From: from, Version: version, Out: o.out, Log: os.Stderr}
+	return job.Run()
 }
