@@ -222,10 +222,10 @@ const (
 	// by more than OrderTolerance (relative).
 	FlagOrder = "order"
 	// FlagRatio: metric(learned)/metric(fitted) exceeds RatioLimit.
-	FlagRatio = "ratio"
+	FlagRatio = "objective_ratio"
 	// FlagContrast: the learned restoration's contrast differs from the
 	// fitted one by more than ContrastLimit (relative).
-	FlagContrast = "contrast"
+	FlagContrast = "contrast_vs_fit"
 	// FlagTruth: the fit ends with a higher metric than the truth, so the
 	// optimiser stopped early or in a local minimum (simulations only).
 	FlagTruth = "truth"

@@ -162,7 +162,7 @@ func checkOutputs(t *testing.T, files map[string][]byte) {
 	}
 	for _, row := range rows {
 		m := int(num(t, row[col["mode"]])) - 1
-		pi := int(num(t, row[col["patch"]]))
+		pi := int(num(t, row[col["patch"]])) - 1 // 1-based in the CSV
 		for _, s := range rep.Summary.Series {
 			v := num(t, row[col[s]])
 			sum2[s][m] += v * v
@@ -212,7 +212,7 @@ func checkOutputs(t *testing.T, files map[string][]byte) {
 		var vals []float64
 		for i, row := range prows {
 			want := num(t, row[pcol["metric_"+m]]) / num(t, row[pcol["metric_"+Fitted]])
-			near(fmt.Sprintf("patches.csv ratio %s patch %d", m, i), num(t, row[pcol["ratio_"+m+"_"+Fitted]]), want)
+			near(fmt.Sprintf("patches.csv ratio %s patch %d", m, i), num(t, row[pcol["objective_ratio_"+m+"_"+Fitted]]), want)
 			near(fmt.Sprintf("report.json ratio %s patch %d", m, i), rep.Summary.Ratios[k][i].Value, want)
 			vals = append(vals, want)
 		}

@@ -248,7 +248,7 @@ func TestRunSimulatedBurst(t *testing.T) {
 		}
 	}
 	for _, row := range rows {
-		j, m := int(num(t, row[col["frame"]])), int(num(t, row[col["mode"]]))-1
+		j, m := int(num(t, row[col["frame"]]))-1, int(num(t, row[col["mode"]]))-1
 		if got := num(t, row[col[Truth]]); got != tr.Coeffs[j][m] {
 			t.Fatalf("coefficients.csv truth frame %d mode %d = %g, want %g", j, m+1, got, tr.Coeffs[j][m])
 		}

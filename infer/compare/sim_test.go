@@ -76,7 +76,7 @@ func TestRunSimulatePatch(t *testing.T) {
 		t.Fatal("coefficients.csv has no truth column")
 	}
 	for _, row := range rows {
-		j, m := int(num(t, row[col["frame"]])), int(num(t, row[col["mode"]]))-1
+		j, m := int(num(t, row[col["frame"]]))-1, int(num(t, row[col["mode"]]))-1
 		if got := num(t, row[col[Truth]]); got != tr.Coeffs[j][m] {
 			t.Fatalf("truth frame %d mode %d written as %g, want %g", j, m+1, got, tr.Coeffs[j][m])
 		}

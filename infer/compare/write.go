@@ -37,12 +37,16 @@ const (
 
 func ftoa(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
 
+// Index base of every table pdwave writes: patches, frames and modes are
+// numbered from 1 (as FITS numbers its axes); pixel origins x0, y0 are
+// 0-based offsets from the field's first pixel.
+
 // WriteCoefficientsCSV writes one row per patch, frame and mode: the
 // coefficient of every series (rad) and every difference of
 // r.Summary.Pairs. Call Summarise first.
 func WriteCoefficientsCSV(w io.Writer, r *Report) error {
 	cw := csv.NewWriter(w)
-	head := []string{"patch", "x", "y", "frame", "mode"}
+	head := []string{"patch", "x0", "y0", "frame", "mode"}
 	for _, s := range r.Summary.Series {
 		head = append(head, s)
 	}
@@ -66,7 +70,7 @@ func WriteCoefficientsCSV(w io.Writer, r *Report) error {
 		for f := 0; f < r.Frames; f++ {
 			for m := 0; m < r.Modes; m++ {
 				row = row[:0]
-				row = append(row, strconv.Itoa(p.Index), strconv.Itoa(p.X), strconv.Itoa(p.Y), strconv.Itoa(f), strconv.Itoa(m+1))
+				row = append(row, strconv.Itoa(p.Index+1), strconv.Itoa(p.X), strconv.Itoa(p.Y), strconv.Itoa(f+1), strconv.Itoa(m+1))
 				for _, e := range ser {
 					row = append(row, ftoa(e.Coeffs[f][m]))
 				}
@@ -89,12 +93,12 @@ func WriteCoefficientsCSV(w io.Writer, r *Report) error {
 // Call Summarise first.
 func WritePatchesCSV(w io.Writer, r *Report) error {
 	cw := csv.NewWriter(w)
-	head := []string{"patch", "x", "y", "raw_contrast"}
+	head := []string{"patch", "x0", "y0", "raw_contrast"}
 	for _, m := range r.Methods {
 		head = append(head, "metric_"+m, "contrast_"+m, "seconds_"+m, "total_seconds_"+m, "iterations_"+m)
 	}
 	for _, m := range r.Summary.RatioMethods {
-		head = append(head, "ratio_"+m+"_"+Fitted)
+		head = append(head, "objective_ratio_"+m+"_"+Fitted)
 	}
 	head = append(head, "flags")
 	if err := cw.Write(head); err != nil {
@@ -102,7 +106,7 @@ func WritePatchesCSV(w io.Writer, r *Report) error {
 	}
 	for i := range r.Patches {
 		p := &r.Patches[i]
-		row := []string{strconv.Itoa(p.Index), strconv.Itoa(p.X), strconv.Itoa(p.Y), ftoa(p.RawContrast)}
+		row := []string{strconv.Itoa(p.Index + 1), strconv.Itoa(p.X), strconv.Itoa(p.Y), ftoa(p.RawContrast)}
 		for _, e := range p.Estimates {
 			row = append(row, ftoa(e.Metric), ftoa(e.Contrast), ftoa(e.Seconds), ftoa(e.Total), strconv.Itoa(e.Iterations))
 		}

@@ -224,7 +224,7 @@ func restoreFmt(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 
 func (p *Product) writeCSV(w io.Writer) error {
 	cw := csv.NewWriter(w)
-	cw.Write([]string{"id", "x0", "y0", "wavefront_rms_rad", "metric", "metric_ratio", "coeff_rms_vs_prior", "contrast", "raw_contrast", "ringing", "flags", "error"})
+	cw.Write([]string{"patch", "x0", "y0", "wavefront_rms_rad", "metric", "metric_over_noise", "coeff_rms_vs_prior", "contrast", "raw_contrast", "ringing", "flags", "error"})
 	for _, r := range p.Patches {
 		rms := math.NaN()
 		if len(r.Coeffs) > 0 && p.Meta.Frames > 0 {
@@ -237,9 +237,9 @@ func (p *Product) writeCSV(w io.Writer) error {
 			// wavefront variance of a frame is Σ α² over its modes.
 			rms = math.Sqrt(s / float64(p.Meta.Frames))
 		}
-		cw.Write([]string{strconv.Itoa(r.ID), strconv.Itoa(r.X0), strconv.Itoa(r.Y0), restoreFmt(rms),
+		cw.Write([]string{strconv.Itoa(r.ID + 1), strconv.Itoa(r.X0), strconv.Itoa(r.Y0), restoreFmt(rms),
 			restoreFmt(r.Metric), restoreFmt(r.MetricRatio), restoreFmt(r.CoeffRMS), restoreFmt(r.Contrast),
-			restoreFmt(r.RawContrast), restoreFmt(r.Ringing), strconv.Itoa(r.Flags), r.Err})
+			restoreFmt(r.RawContrast), restoreFmt(r.Ringing), FlagNames(r.Flags), r.Err})
 	}
 	cw.Flush()
 	return cw.Error()

@@ -7,6 +7,7 @@ import (
 	"io"
 	"math"
 	"runtime"
+	"strings"
 	"time"
 )
 
@@ -55,6 +56,24 @@ const (
 	FlagContrast             // restored contrast below the raw contrast or above ContrastLimit times it
 	FlagRinging              // edge ringing above RingingLimit
 )
+
+// flagNames names each flag bit, in bit order, as every output writes it.
+var flagNames = []string{"failed", "metric_vs_field", "coeffs_vs_prior", "contrast_vs_raw", "ringing"}
+
+// FlagNames returns the names of the set bits of flags joined with ";"
+// (the compare report's separator), or "none".
+func FlagNames(flags int) string {
+	var out []string
+	for i, n := range flagNames {
+		if flags&(1<<i) != 0 {
+			out = append(out, n)
+		}
+	}
+	if len(out) == 0 {
+		return "none"
+	}
+	return strings.Join(out, ";")
+}
 
 // Thresholds of the quality flags (common practice for a first screening,
 // not calibrated values). The metric ratio is judged against the field's

@@ -94,7 +94,7 @@ func (j *Job) done(u unit, req string) bool {
 func (j *Job) writeSeries(units []unit) error {
 	return atomicfile.Write(filepath.Join(j.Out, SeriesFile), func(w io.Writer) error {
 		cw := csv.NewWriter(w)
-		cw.Write([]string{"burst", "product", "patches", "failed", "median_contrast", "median_raw_contrast", "median_metric_ratio", "estimator", "shift_x_px", "shift_y_px"})
+		cw.Write([]string{"burst", "product", "patches", "failed", "median_contrast", "median_raw_contrast", "median_metric_over_noise", "estimator", "shift_x_px", "shift_y_px"})
 		for _, u := range units {
 			s, err := readSummary(u.out)
 			if err != nil {
