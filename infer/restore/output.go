@@ -165,10 +165,12 @@ func (p *Product) table() *fits.Table {
 	ids, x0, y0, flags := make([]int64, n), make([]int64, n), make([]int64, n), make([]int64, n)
 	col := func() [][]float64 { return make([][]float64, n) }
 	metric, mratio, crms, con, rcon, ring := col(), col(), col(), col(), col(), col()
+	names := make([]string, n)
 	nc := p.Meta.Frames * p.Meta.Modes
 	coeffs, noll := col(), col()
 	for i, r := range p.Patches {
-		ids[i], x0[i], y0[i], flags[i] = int64(r.ID), int64(r.X0), int64(r.Y0), int64(r.Flags)
+		ids[i], x0[i], y0[i], flags[i] = int64(r.ID+1), int64(r.X0), int64(r.Y0), int64(r.Flags)
+		names[i] = FlagNames(r.Flags)
 		metric[i] = []float64{r.Metric}
 		mratio[i] = []float64{r.MetricRatio}
 		crms[i] = []float64{r.CoeffRMS}
@@ -179,7 +181,7 @@ func (p *Product) table() *fits.Table {
 		noll[i] = restoreFixed(r.Noll, nc)
 	}
 	cols := []fits.Column{
-		{Name: "ID", Int: ids},
+		{Name: "PATCH", Int: ids}, // numbered from 1
 		{Name: "X0", Unit: "pixel", Int: x0},
 		{Name: "Y0", Unit: "pixel", Int: y0},
 	}
@@ -190,12 +192,13 @@ func (p *Product) table() *fits.Table {
 	}
 	cols = append(cols,
 		fits.Column{Name: "METRIC", Float: metric},
-		fits.Column{Name: "MRATIO", Float: mratio},
+		fits.Column{Name: "MOVERNSE", Float: mratio}, // metric over its noise-only expectation
 		fits.Column{Name: "COEFRMS", Float: crms},
 		fits.Column{Name: "CONTRAST", Float: con},
 		fits.Column{Name: "RAWCONTR", Float: rcon},
 		fits.Column{Name: "RINGING", Float: ring},
 		fits.Column{Name: "FLAGS", Int: flags},
+		fits.Column{Name: "FLAGNAME", Text: names},
 	)
 	return &fits.Table{Name: "PATCHES", Columns: cols, Cards: []fits.Card{
 		{Key: "PDBASIS", Value: p.Meta.Basis, Comment: "basis of COEFFS (frame-major, frames x modes)"},
