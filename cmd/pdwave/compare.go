@@ -250,12 +250,11 @@ func (o compareFlags) learnedEstimator(model *net.Model, fitter *infer.Fitter, n
 }
 
 // config assembles the comparison settings: the fit, the flags, the
-// provenance (absolute burst path, command line) and the notes.
+// provenance (the burst path as given, command line) and the notes.
 func (o compareFlags) config(fc infer.Config, burstPath string, notes []string) compare.Config {
-	abs, _ := filepath.Abs(burstPath)
 	return compare.Config{
 		Fit: fc, Polish: o.polish, FromLearned: o.fromLearned, Overlap: o.overlap, Workers: o.workers,
-		ExamplePatch: -1, Version: version, Source: abs, Notes: notes,
+		ExamplePatch: -1, Version: version, Source: burstPath, Notes: notes,
 		Settings: []compare.Setting{{Key: "command", Value: "pdwave " + strings.Join(os.Args[1:], " ")}},
 	}
 }
