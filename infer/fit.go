@@ -163,8 +163,8 @@ func (g FitFlags) String() string {
 const refitPrior = 0.01
 
 // Fitter fits patches for one Config. It is safe for concurrent use: each
-// concurrent call takes its own pd.Solver from an internal pool (one
-// Solver per goroutine; a Solver owns its FFT plan and buffers).
+// concurrent call takes its own pd.Objective from an internal pool (one
+// Objective per goroutine; an Objective owns its FFT plan and buffers).
 type Fitter struct {
 	cfg    Config
 	pupil  *optics.Pupil
@@ -182,7 +182,7 @@ type Fitter struct {
 }
 
 type worker struct {
-	s      *pd.Solver
+	s      *pd.Objective
 	x      []float64 // optimiser variables (scaled coefficients)
 	alpha  []float64
 	grad   []float64
@@ -252,7 +252,7 @@ func (f *Fitter) get() *worker {
 		return w
 	}
 	f.mu.Unlock()
-	s := pd.NewSolver(f.pupil, f.basis, f.div, f.cfg.Frames, f.cfg.Metric)
+	s := pd.NewObjective(f.pupil, f.basis, f.div, f.cfg.Frames, f.cfg.Metric)
 	s.SetPrior(f.sigma2)
 	nt := s.NumParams()
 	win := f.cfg.Metric.Window
@@ -290,7 +290,7 @@ func (f *Fitter) Fit(data [][][]float64, start [][]float64) (*Result, error) {
 }
 
 // Restore returns the restored patch (N×N) for given coefficients without
-// fitting: the object estimate F̂ with the noise filter (pd.Solver.Restore).
+// fitting: the object estimate F̂ with the noise filter (pd.Objective.Restore).
 func (f *Fitter) Restore(data [][][]float64, coeffs [][]float64) ([]float64, error) {
 	w := f.get()
 	defer f.put(w)
@@ -595,7 +595,7 @@ type Patch struct {
 }
 
 // FitAll fits the patches in parallel with the given number of workers
-// (≤ 0: one per core), each owning one Solver. results[i] is nil where
+// (≤ 0: one per core), each owning one Objective. results[i] is nil where
 // errs[i] is not; the returned error joins all per-patch errors (nil if
 // all succeeded).
 func (f *Fitter) FitAll(patches []Patch, workers int) (results []*Result, err error) {

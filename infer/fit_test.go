@@ -185,7 +185,7 @@ func TestRegistrationRecoversTilt(t *testing.T) {
 }
 
 // TestFitAllMatchesFit: the worker pool gives the same result as one call
-// per patch (deterministic, one Solver per worker).
+// per patch (deterministic, one Objective per worker).
 func TestFitAllMatchesFit(t *testing.T) {
 	cfg := DefaultConfig()
 	cfg.Telescope = demoTelescope()

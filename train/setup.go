@@ -121,8 +121,8 @@ func newProblem(s Setup, priorWeight, gamma float64) (*problem, error) {
 }
 
 // newSolver returns a metric solver for one worker.
-func (p *problem) newSolver() *pd.Solver {
-	s := pd.NewSolver(p.pupil, p.basis, p.diversity, p.setup.Frames, p.settings)
+func (p *problem) newSolver() *pd.Objective {
+	s := pd.NewObjective(p.pupil, p.basis, p.diversity, p.setup.Frames, p.settings)
 	s.SetPrior(p.prior)
 	return s
 }

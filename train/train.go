@@ -82,7 +82,7 @@ func (c Config) LRAt(step int) float64 {
 
 // worker holds the per-goroutine state of a step.
 type worker struct {
-	solver *pd.Solver
+	solver *pd.Objective
 	feat   *net.Featurizer
 	pred   *net.Predictor
 	alpha  []float64

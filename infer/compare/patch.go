@@ -219,7 +219,7 @@ func (s *scorer) contrast(img []float64) float64 {
 // spectrum returns a new slice with the azimuthal average of the power
 // spectrum of img minus its least-squares plane, |FFT|²/(n² level²). The
 // plane goes because a restoration carries the scene's mean plane
-// un-apodised (pd.Solver.Restore with Detrend): its periodic continuation
+// un-apodised (pd.Objective.Restore with Detrend): its periodic continuation
 // is a sawtooth whose spectrum, falling only as 1/f², would fill the
 // frequencies beyond the noise filter's cut with power no method chose.
 func (s *scorer) spectrum(img []float64) []float64 {

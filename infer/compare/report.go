@@ -23,7 +23,7 @@
 //
 // Coefficients are in the native basis of the report (Report.Basis), radians,
 // frames × modes. The metric of every estimate is the objective the classical
-// fit minimises (model/pd Solver.ValueGrad: phase-diversity metric plus the
+// fit minimises (model/pd Objective.ValueGrad: phase-diversity metric plus the
 // turbulence prior), evaluated on the same patch data with the same settings,
 // so metric values of different methods are directly comparable.
 package compare

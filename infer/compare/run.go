@@ -97,7 +97,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 
 	// A constraint-only solver and the truth.
 	div := fitter.Diversity()
-	cons := pd.NewSolver(fitter.Pupil(), basis, div, fc.Frames, fitter.Config().Metric)
+	cons := pd.NewObjective(fitter.Pupil(), basis, div, fc.Frames, fitter.Config().Metric)
 	constrain := constrainer(cons, basis.Count)
 	truth, truthNote, methods := singlePatchTruth(r, b, cfg, basis, constrain, methods)
 	r.Methods = methods
@@ -204,7 +204,7 @@ func estimateMethods(r *Report, learned infer.Estimator, polisher *infer.Fitter)
 // constrainer returns a function that applies the metric's coefficient
 // constraint (the burst-mean tip/tilt removal of cons) to frames × m
 // coefficients; it returns new slices and leaves its argument alone.
-func constrainer(cons *pd.Solver, m int) func([][]float64) [][]float64 {
+func constrainer(cons *pd.Objective, m int) func([][]float64) [][]float64 {
 	return func(c [][]float64) [][]float64 {
 		flat := make([]float64, len(c)*m)
 		for j := range c {

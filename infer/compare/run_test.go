@@ -214,7 +214,7 @@ func TestRunSimulatedBurst(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	s := pd.NewSolver(fit.Pupil(), fit.Basis(), [][]float64{nil, nil}, cfg.Fit.Frames, fit.Config().Metric)
+	s := pd.NewObjective(fit.Pupil(), fit.Basis(), [][]float64{nil, nil}, cfg.Fit.Frames, fit.Config().Metric)
 	flat := make([]float64, 0, cfg.Fit.Frames*cfg.Fit.Modes)
 	for _, row := range truth {
 		flat = append(flat, row...)

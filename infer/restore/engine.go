@@ -84,7 +84,7 @@ func NewPhysics(cfg infer.Config, m Method) (*Physics, error) {
 // Basis returns the native basis of the coefficients.
 func (p *Physics) Basis() *modes.Basis { return p.full.Basis() }
 
-// NewEngine returns an Engine with its own pd.Solver (for the object
+// NewEngine returns an Engine with its own pd.Objective (for the object
 // estimate and the quality figures). It is a valid Options.NewEngine after
 // wrapping: func() (Engine, error) { return p.NewEngine() }.
 func (p *Physics) NewEngine() (Engine, error) {
@@ -92,7 +92,7 @@ func (p *Physics) NewEngine() (Engine, error) {
 	set := cfg.Metric
 	set.PriorWeight = cfg.Prior
 	set.Window = TileWindow
-	s := pd.NewSolver(p.full.Pupil(), p.full.Basis(), p.div, cfg.Frames, set)
+	s := pd.NewObjective(p.full.Pupil(), p.full.Basis(), p.div, cfg.Frames, set)
 	s.SetPrior(p.sigma2)
 	n := cfg.Frames * cfg.Modes
 	return &restorePhysicsEngine{p: p, s: s, alpha: make([]float64, n), obj: make([]float64, cfg.Patch*cfg.Patch)}, nil
@@ -100,7 +100,7 @@ func (p *Physics) NewEngine() (Engine, error) {
 
 type restorePhysicsEngine struct {
 	p     *Physics
-	s     *pd.Solver
+	s     *pd.Objective
 	alpha []float64
 	obj   []float64
 }

@@ -28,7 +28,7 @@ func TestDetrendRemovesPlanes(t *testing.T) {
 		}
 	}
 	eval := func(detrend bool, data [][][]float64) (float64, []float64, []float64) {
-		s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{Detrend: detrend, PriorWeight: 0.01, NoiseFilter: true})
+		s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{Detrend: detrend, PriorWeight: 0.01, NoiseFilter: true})
 		if err := s.SetData(data); err != nil {
 			t.Fatal(err)
 		}

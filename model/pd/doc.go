@@ -16,7 +16,7 @@
 // (the Gonsalves metric with the object eliminated, generalised to many
 // frames by Paxman et al. 1992 and Löfdahl & Scharmer 1994). M is the noise mask: frequencies inside the diffraction
 // cut-off where the data power clearly exceeds the noise floor measured
-// beyond the cut-off. The objective minimised by a Solver is
+// beyond the cut-off. The objective an Objective evaluates (and infer.Fitter minimises) is
 //
 //	E(α) = L(Pα)/P̄ + w · ½ Σ_jm (Pα)_jm² / σ_m²
 //

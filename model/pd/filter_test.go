@@ -158,7 +158,7 @@ func TestNoiseFilterKnownSpectrum(t *testing.T) {
 	injected := sigma * sigma * w2
 	truth := truePower(kb, n, win, injected)
 	for _, thr := range []float64{3, 8} {
-		s := NewSolver(kb.pupil, kb.basis, kb.div, frames, Settings{NoiseFilter: true, NoiseThreshold: thr, Gamma: 1e-3})
+		s := NewObjective(kb.pupil, kb.basis, kb.div, frames, Settings{NoiseFilter: true, NoiseThreshold: thr, Gamma: 1e-3})
 		if err := s.SetData(kb.data); err != nil {
 			t.Fatal(err)
 		}
@@ -208,7 +208,7 @@ func TestNoiseFilterKnownSpectrum(t *testing.T) {
 // checkRestoreBand checks that the restored object (true coefficients: zero)
 // has no power outside the mask, in particular where the true data power is
 // below low, and logs its azimuthal profile around the cut.
-func checkRestoreBand(t *testing.T, s *Solver, kept []bool, truth []float64, low float64) {
+func checkRestoreBand(t *testing.T, s *Objective, kept []bool, truth []float64, low float64) {
 	t.Helper()
 	n := s.n
 	rest := make([]float64, n*n)

@@ -107,7 +107,7 @@ func TestAgainstNumpy(t *testing.T) {
 					}
 				}
 			}
-			s := NewSolver(pr.pupil, pr.basis, pr.div, c.frames, c.set)
+			s := NewObjective(pr.pupil, pr.basis, pr.div, c.frames, c.set)
 			sigma2 := KolmogorovPrior(pr.basis, 4)
 			s.SetPrior(sigma2)
 			if err := s.SetData(pr.data); err != nil {
@@ -126,7 +126,7 @@ func TestAgainstNumpy(t *testing.T) {
 
 // numpyInput gathers the case for pdref.py from the solver's settings and
 // the problem (pupil, basis and diversity on the full grid, raw data).
-func numpyInput(s *Solver, pr *problem, alpha []float64) *numpyCase {
+func numpyInput(s *Objective, pr *problem, alpha []float64) *numpyCase {
 	set := s.Settings()
 	n, frames, nch, count := s.Size()
 	c := &numpyCase{
@@ -185,7 +185,7 @@ func maxRel(a, b []float64, off float64) float64 {
 	return e / m
 }
 
-func compareNumpy(t *testing.T, s *Solver, alpha []float64, want *numpyResult) {
+func compareNumpy(t *testing.T, s *Objective, alpha []float64, want *numpyResult) {
 	t.Helper()
 	const tol = 1e-10
 	grad := make([]float64, len(alpha))

@@ -65,7 +65,7 @@ func TiltToShift(n int, radius, z2, z3 float64) (dx, dy float64) {
 // stored in the parameter vector alpha (see NumParams). It panics without
 // Settings.FitChannelOffset, for k outside [1, channels), or on a wrong
 // length.
-func (s *Solver) ChannelOffset(alpha []float64, k int) (dx, dy float64) {
+func (s *Objective) ChannelOffset(alpha []float64, k int) (dx, dy float64) {
 	if s.nOff == 0 {
 		panic("pd: ChannelOffset without Settings.FitChannelOffset")
 	}

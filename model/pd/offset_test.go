@@ -125,14 +125,14 @@ func TestShiftToTilt(t *testing.T) {
 // 64 px, 3 frames, focused + 1 wave defocus, 10 Zernike modes) with
 // channel 1 shifted by (dx, dy) pixels in Fourier space, and returns it with
 // a solver that fits the channel offset.
-func offsetProblem(t *testing.T, dx, dy float64, seed uint64) (*problem, *Solver) {
+func offsetProblem(t *testing.T, dx, dy float64, seed uint64) (*problem, *Objective) {
 	t.Helper()
 	const n, frames, count = 64, 3, 10
 	pr := makeProblem(t, n, frames, []float64{0, 1}, modes.KindZernike, count, 0.2, true, seed)
 	for j := range pr.data[1] {
 		pr.data[1][j] = shiftImage(pr.data[1][j], n, dx, dy)
 	}
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{Gamma: 1e-10, Window: 1.0 / n, TiltConstrain: true, FitChannelOffset: true})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{Gamma: 1e-10, Window: 1.0 / n, TiltConstrain: true, FitChannelOffset: true})
 	if err := s.SetData(pr.data); err != nil {
 		t.Fatal(err)
 	}
@@ -141,7 +141,7 @@ func offsetProblem(t *testing.T, dx, dy float64, seed uint64) (*problem, *Solver
 
 // fitOffset minimises the objective with gonum's L-BFGS from zero
 // wavefronts and the given starting offset, and returns the fitted offset.
-func fitOffset(t *testing.T, s *Solver, start [2]float64) (dx, dy float64, e float64) {
+func fitOffset(t *testing.T, s *Objective, start [2]float64) (dx, dy float64, e float64) {
 	t.Helper()
 	x0 := make([]float64, s.NumParams())
 	x0[len(x0)-2], x0[len(x0)-1] = start[0], start[1]
@@ -189,7 +189,7 @@ func TestChannelOffsetRecovery(t *testing.T) {
 func TestOffsetLayout(t *testing.T) {
 	const n, frames, count = 32, 3, 10
 	pr := makeProblem(t, n, frames, []float64{0, 1, -0.5}, modes.KindKL, count, 0.3, false, 2)
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{TiltConstrain: true, FitChannelOffset: true})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{TiltConstrain: true, FitChannelOffset: true})
 	if got, want := s.NumParams(), frames*count+4; got != want {
 		t.Fatalf("NumParams = %d, want %d", got, want)
 	}
@@ -206,7 +206,7 @@ func TestOffsetLayout(t *testing.T) {
 	if dx, dy := s.ChannelOffset(a, 2); dx != 0.2 || dy != 0.1 {
 		t.Errorf("channel 2 offset after Constrain = (%g, %g), want (0.2, 0.1)", dx, dy)
 	}
-	if p := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{}); p.NumParams() != nt {
+	if p := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{}); p.NumParams() != nt {
 		t.Errorf("without offsets NumParams = %d, want %d", p.NumParams(), nt)
 	}
 	defer func() {
@@ -214,5 +214,5 @@ func TestOffsetLayout(t *testing.T) {
 			t.Error("FitChannelOffset with one channel did not panic")
 		}
 	}()
-	NewSolver(pr.pupil, pr.basis, pr.div[:1], frames, Settings{FitChannelOffset: true})
+	NewObjective(pr.pupil, pr.basis, pr.div[:1], frames, Settings{FitChannelOffset: true})
 }

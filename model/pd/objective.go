@@ -19,7 +19,7 @@ import (
 type Settings struct {
 	// PriorWeight is w in E = L/P̄ + w·½Σα²/σ², the weight of the
 	// turbulence prior against the metric normalised by the data power per
-	// image. 0 disables the prior. Negative values panic in NewSolver.
+	// image. 0 disables the prior. Negative values panic in NewObjective.
 	PriorWeight float64
 	// Gamma is the denominator regulariser relative to the zero-frequency
 	// value of Σ_jk|S_jk|² (= number of images): γ = Gamma·frames·channels.
@@ -49,7 +49,7 @@ type Settings struct {
 	// 1, 2, … (2·(channels−1) values; see NumParams). The shift enters the
 	// pupil of channel k as the phase ramp of ShiftPhase, so it moves that
 	// channel's model images by (δx, δy) pixels (+x = increasing column,
-	// +y = increasing row). There is no prior on the offsets. NewSolver
+	// +y = increasing row). There is no prior on the offsets. NewObjective
 	// panics if it is set with fewer than two channels.
 	FitChannelOffset bool
 	// Detrend subtracts from every image, before windowing, the plane
@@ -64,11 +64,11 @@ type Settings struct {
 	Detrend bool
 }
 
-// Solver evaluates the phase-diversity objective for one patch size, basis,
+// Objective evaluates the phase-diversity objective for one patch size, basis,
 // frame count and set of diversities. It owns its FFT plan and all buffers;
 // it is not safe for concurrent use (use one per goroutine). After SetData,
 // ValueGrad and Restore allocate nothing.
-type Solver struct {
+type Objective struct {
 	n, npix      int
 	frames, nch  int
 	nimg, count  int
@@ -118,13 +118,13 @@ type Solver struct {
 	offGrad      []float64 // ∂L/∂offset accumulator (scaled like qacc)
 }
 
-// NewSolver returns a solver for frames frames seen through len(diversity)
+// NewObjective returns a solver for frames frames seen through len(diversity)
 // channels. diversity[k] is the known phase (rad) of channel k on the N×N
 // pupil grid (nil = none). The basis must be drawn on the pupil's grid (same
 // N and Radius). Prior variances start at +Inf (no prior) until SetPrior.
 // It panics if the sizes disagree, frames < 1, there is no channel, or
 // s.PriorWeight < 0: these are programming errors, not user input.
-func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, frames int, s Settings) *Solver {
+func NewObjective(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, frames int, s Settings) *Objective {
 	n := pupil.N
 	if basis.N != n {
 		panic(fmt.Sprintf("pd: basis grid %d != pupil grid %d", basis.N, n))
@@ -137,7 +137,7 @@ func NewSolver(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64, f
 	}
 	s = withDefaults(s, len(diversity))
 	npix := n * n
-	sv := &Solver{
+	sv := &Objective{
 		n: n, npix: npix, frames: frames, nch: len(diversity),
 		nimg: frames * len(diversity), count: basis.Count,
 		plan: fft.NewPlan(n, n), set: s,
@@ -195,7 +195,7 @@ func withDefaults(s Settings, channels int) Settings {
 // initPupil gathers the transmitting pupil pixels, their amplitude, the
 // modes and the diversities there, and c = Σ A²/N². It panics on an empty
 // pupil or grids of the wrong size.
-func (s *Solver) initPupil(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64) {
+func (s *Objective) initPupil(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64) {
 	npix := s.npix
 	for _, i := range pupil.Index {
 		if pupil.Amp[i] > 0 {
@@ -236,7 +236,7 @@ func (s *Solver) initPupil(pupil *optics.Pupil, basis *modes.Basis, diversity []
 
 // allocBuffers allocates every work buffer, the mask buffers sized for the
 // largest possible mask (the cut-off disc).
-func (s *Solver) allocBuffers() {
+func (s *Objective) allocBuffers() {
 	n, npix, np := s.n, s.npix, len(s.pidx)
 	s.ap = make([]float64, s.frames*s.count)
 	s.scratchGrad = make([]float64, s.frames*s.count)
@@ -278,7 +278,7 @@ func (s *Solver) allocBuffers() {
 // initOffsets draws the shift ramps at the pupil pixels and sizes the
 // offset buffers. The ramp is taken about the pupil centre (N/2, N/2), the
 // same centre as optics.NewPupil, which makes it free of piston.
-func (s *Solver) initOffsets() {
+func (s *Objective) initOffsets() {
 	s.nOff = 2 * (s.nch - 1)
 	s.off = make([]float64, s.nOff)
 	s.offGrad = make([]float64, s.nOff)
@@ -297,7 +297,7 @@ func (s *Solver) initOffsets() {
 
 // freqRadius is the distance of frequency pixel (y, x) from zero frequency,
 // with wrap-around (index ≥ N/2 is negative).
-func (s *Solver) freqRadius(y, x int) float64 {
+func (s *Objective) freqRadius(y, x int) float64 {
 	n := s.n
 	fy, fx := y, x
 	if fy >= (n+1)/2 {
@@ -310,7 +310,7 @@ func (s *Solver) freqRadius(y, x int) float64 {
 }
 
 // Size returns the patch side, number of frames, channels and modes.
-func (s *Solver) Size() (n, frames, channels, modes int) {
+func (s *Objective) Size() (n, frames, channels, modes int) {
 	return s.n, s.frames, s.nch, s.count
 }
 
@@ -319,13 +319,13 @@ func (s *Solver) Size() (n, frames, channels, modes int) {
 // major, alpha[j*modes+m]), followed with Settings.FitChannelOffset by the
 // channel offsets (pixels): alpha[frames*modes + 2(k−1)] = δx and
 // alpha[frames*modes + 2(k−1) + 1] = δy of channel k = 1 … channels−1.
-func (s *Solver) NumParams() int { return s.frames*s.count + s.nOff }
+func (s *Objective) NumParams() int { return s.frames*s.count + s.nOff }
 
 // Settings returns the settings in use, defaults filled in.
-func (s *Solver) Settings() Settings { return s.set }
+func (s *Objective) Settings() Settings { return s.set }
 
 // SetPriorWeight changes the prior weight w (≥ 0; negative or NaN panics).
-func (s *Solver) SetPriorWeight(w float64) {
+func (s *Objective) SetPriorWeight(w float64) {
 	if w < 0 || math.IsNaN(w) {
 		panic(fmt.Sprintf("pd: negative prior weight %g", w))
 	}
@@ -335,7 +335,7 @@ func (s *Solver) SetPriorWeight(w float64) {
 // SetPrior sets the prior variance σ_m² (rad²) of each native mode; len must
 // be the basis size (panics otherwise). Entries that are +Inf, zero,
 // negative or NaN mean "no prior on this mode" (loose).
-func (s *Solver) SetPrior(sigma2 []float64) {
+func (s *Objective) SetPrior(sigma2 []float64) {
 	if len(sigma2) != s.count {
 		panic(fmt.Sprintf("pd: prior has %d modes, want %d", len(sigma2), s.count))
 	}
@@ -488,7 +488,7 @@ func tiltDirections(b *modes.Basis) [][]float64 {
 // are left alone): for each orthonormal tilt direction t,
 // α_j ← α_j − t·(1/J)Σ_j' t·α_j'. It does nothing if the solver was built
 // without TiltConstrain. It panics on a wrong length.
-func (s *Solver) Constrain(alpha []float64) {
+func (s *Objective) Constrain(alpha []float64) {
 	if len(alpha) != s.NumParams() {
 		panic(fmt.Sprintf("pd: alpha has length %d, want %d", len(alpha), s.NumParams()))
 	}
@@ -498,7 +498,7 @@ func (s *Solver) Constrain(alpha []float64) {
 	s.project(alpha[:s.frames*s.count])
 }
 
-func (s *Solver) project(a []float64) {
+func (s *Objective) project(a []float64) {
 	m := s.count
 	for _, t := range s.tilt {
 		var mean float64
@@ -532,7 +532,7 @@ var ErrNoSignal = errors.New("pd: no frequency above the noise floor")
 // Settings.NoiseFilter. It returns an error, leaving the solver without
 // data, if the sizes are wrong, a value is not finite, or the mask is
 // empty. It allocates nothing.
-func (s *Solver) SetData(data [][][]float64) error {
+func (s *Objective) SetData(data [][][]float64) error {
 	s.hasData = false
 	if err := s.checkData(data); err != nil {
 		return err
@@ -565,7 +565,7 @@ func (s *Solver) SetData(data [][][]float64) error {
 
 // checkData returns an error naming the first wrong size or non-finite
 // value of data.
-func (s *Solver) checkData(data [][][]float64) error {
+func (s *Objective) checkData(data [][][]float64) error {
 	if len(data) != s.nch {
 		return fmt.Errorf("pd: data has %d channels, want %d", len(data), s.nch)
 	}
@@ -589,7 +589,7 @@ func (s *Solver) checkData(data [][][]float64) error {
 
 // initPlane sets the pixel coordinates about the window's centroid and the
 // window's second moments, for the plane fits of Detrend.
-func (s *Solver) initPlane() {
+func (s *Objective) initPlane() {
 	n := s.n
 	var cx, cy float64
 	for p, w := range s.win {
@@ -613,7 +613,7 @@ func (s *Solver) initPlane() {
 // slopes (bx, by) of the window-weighted least-squares plane
 // m + bx·x + by·y (x, y about the window's centroid, so the mean is
 // orthogonal to the slopes); without Detrend the slopes are zero.
-func (s *Solver) trend(im []float64) (m, bx, by float64) {
+func (s *Objective) trend(im []float64) (m, bx, by float64) {
 	var sx, sy float64
 	for p, v := range im {
 		w := s.win[p]
@@ -638,7 +638,7 @@ func (s *Solver) trend(im []float64) (m, bx, by float64) {
 // Detrend, their plane) subtracted, in s.h (used here as scratch), their
 // summed power in s.pw, the mean level in s.level and the mean slopes in
 // s.slope.
-func (s *Solver) spectra(data [][][]float64) {
+func (s *Objective) spectra(data [][][]float64) {
 	clear(s.pw)
 	var level, sx, sy float64
 	for j := 0; j < s.frames; j++ {
@@ -665,7 +665,7 @@ func (s *Solver) spectra(data [][][]float64) {
 
 // measureNoise sets s.noise, the mean power per image beyond the cut-off
 // plus one frequency pixel.
-func (s *Solver) measureNoise() {
+func (s *Objective) measureNoise() {
 	n := s.n
 	var noise float64
 	nNoise := 0
@@ -686,7 +686,7 @@ func (s *Solver) measureNoise() {
 
 // smoothPower stores in s.pw2 the mean power per image, 3×3 smoothed with
 // wrap-around.
-func (s *Solver) smoothPower() {
+func (s *Objective) smoothPower() {
 	n := s.n
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
@@ -705,7 +705,7 @@ func (s *Solver) smoothPower() {
 // selectMask fills s.mask with the non-zero frequencies inside the cut-off
 // (above the noise threshold with NoiseFilter) and s.filt with the
 // restoration filter there.
-func (s *Solver) selectMask() {
+func (s *Objective) selectMask() {
 	n := s.n
 	s.mask = s.mask[:0]
 	s.filt = s.filt[:0]
@@ -737,22 +737,22 @@ func (s *Solver) selectMask() {
 
 // Noise returns the noise power per frequency of one windowed image
 // spectrum, as measured by the last SetData (0 if unmeasurable).
-func (s *Solver) Noise() float64 { return s.noise }
+func (s *Objective) Noise() float64 { return s.noise }
 
 // MaskSize returns the number of frequencies in the metric after SetData.
-func (s *Solver) MaskSize() int { return len(s.mask) }
+func (s *Objective) MaskSize() int { return len(s.mask) }
 
 // DataPower returns P̄, the masked data power per image that normalises L.
-func (s *Solver) DataPower() float64 { return s.norm }
+func (s *Objective) DataPower() float64 { return s.norm }
 
 // LastTerms returns the two parts of the last ValueGrad: the normalised
 // metric L/P̄ and the weighted prior term.
-func (s *Solver) LastTerms() (metric, prior float64) { return s.lastL, s.lastP }
+func (s *Objective) LastTerms() (metric, prior float64) { return s.lastL, s.lastP }
 
 // otfs computes the pupil fields, amplitude PSFs and the OTFs at the mask
 // for the projected coefficients s.ap (and offsets s.off), then the object
 // estimate F̂ and the denominators, and returns L (unnormalised).
-func (s *Solver) otfs() float64 {
+func (s *Objective) otfs() float64 {
 	for j := 0; j < s.frames; j++ {
 		s.framePhase(j)
 		for k := 0; k < s.nch; k++ {
@@ -764,7 +764,7 @@ func (s *Solver) otfs() float64 {
 }
 
 // framePhase stores in s.phi the wavefront of frame j at the pupil pixels.
-func (s *Solver) framePhase(j int) {
+func (s *Objective) framePhase(j int) {
 	m := s.count
 	a := s.ap[j*m : (j+1)*m]
 	phi := s.phi
@@ -783,7 +783,7 @@ func (s *Solver) framePhase(j int) {
 // pupilField fills the pupil field of image i (channel k) from s.phi, the
 // diversity and, for k ≥ 1 with offsets, the shift ramp, and transforms it
 // into the amplitude PSF s.h[i].
-func (s *Solver) pupilField(i, k int) {
+func (s *Objective) pupilField(i, k int) {
 	pf, dv, h, phi := s.pup[i], s.div[k], s.h[i], s.phi
 	clear(h)
 	if s.nOff > 0 && k > 0 {
@@ -808,7 +808,7 @@ func (s *Solver) pupilField(i, k int) {
 
 // maskedOTFs computes the OTFs at the mask, two images per FFT:
 // F{s_a + i s_b}, with exact Hermitian symmetry at the mask.
-func (s *Solver) maskedOTFs() {
+func (s *Objective) maskedOTFs() {
 	nm := len(s.mask)
 	ic := 1 / s.c
 	for a := 0; a < s.nimg; a += 2 {
@@ -845,7 +845,7 @@ func (s *Solver) maskedOTFs() {
 
 // estimate forms A = Σ D* S (stored conjugated in fhat), B = γ + Σ|S|²,
 // then F̂ = conj(A)/B in fhat, and returns L = Σ|D|² − Σ|A|²/B.
-func (s *Solver) estimate() float64 {
+func (s *Objective) estimate() float64 {
 	nm := len(s.mask)
 	fh := s.fhat[:nm]
 	bd := s.bden[:nm]
@@ -872,7 +872,7 @@ func (s *Solver) estimate() float64 {
 
 // load copies the parameters into s.ap (projected if TiltConstrain) and
 // s.off. It panics, naming the caller, on a wrong length.
-func (s *Solver) load(alpha []float64, who string) {
+func (s *Objective) load(alpha []float64, who string) {
 	if len(alpha) != s.NumParams() {
 		panic(fmt.Sprintf("pd: %s: alpha has length %d, want %d", who, len(alpha), s.NumParams()))
 	}
@@ -890,7 +890,7 @@ func (s *Solver) load(alpha []float64, who string) {
 // then the channel offsets in pixels with Settings.FitChannelOffset; grad
 // may not alias alpha. It panics if SetData has not succeeded or on wrong
 // lengths. It allocates nothing.
-func (s *Solver) ValueGrad(grad, alpha []float64) float64 {
+func (s *Objective) ValueGrad(grad, alpha []float64) float64 {
 	if !s.hasData {
 		panic("pd: ValueGrad before a successful SetData")
 	}
@@ -921,7 +921,7 @@ func (s *Solver) ValueGrad(grad, alpha []float64) float64 {
 
 // gradient stores ∂E/∂α in grad after otfs: the phase densities from
 // densities, projected on the modes and offset ramps, plus the prior.
-func (s *Solver) gradient(grad []float64) {
+func (s *Objective) gradient(grad []float64) {
 	s.densities()
 	m := s.count
 	w := s.set.PriorWeight
@@ -953,7 +953,7 @@ func (s *Solver) gradient(grad []float64) {
 // the phase of frame j at each pupil pixel, summed over channels, and in
 // s.offGrad the derivatives with respect to the channel offsets:
 // ∂L/∂φ = −4/(c·N²)·Im[P·W*] with W = F{Re(F{G})·h}, G = −M F̂ R*.
-func (s *Solver) densities() {
+func (s *Objective) densities() {
 	nm := len(s.mask)
 	for j := range s.qacc {
 		clear(s.qacc[j])
@@ -990,7 +990,7 @@ func (s *Solver) densities() {
 // imageDensity adds image i's phase density to its frame's accumulator,
 // taking Re (or Im, if useImag) of s.work as g; for channels k ≥ 1 with
 // offsets it also adds the density's projection on the shift ramps.
-func (s *Solver) imageDensity(i int, scale float64, useImag bool) {
+func (s *Objective) imageDensity(i int, scale float64, useImag bool) {
 	h := s.h[i]
 	if useImag {
 		for x, z := range h {
@@ -1037,7 +1037,7 @@ func (s *Solver) imageDensity(i int, scale float64, useImag bool) {
 // the edges; with channel offsets it lies on channel 0's pixel grid. It
 // panics if SetData has not succeeded or on wrong lengths; allocates
 // nothing.
-func (s *Solver) Restore(dst, alpha []float64) {
+func (s *Objective) Restore(dst, alpha []float64) {
 	if !s.hasData {
 		panic("pd: Restore before a successful SetData")
 	}

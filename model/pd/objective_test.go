@@ -154,7 +154,7 @@ func TestGradientFiniteDifference(t *testing.T) {
 		t.Run(c.name, func(t *testing.T) {
 			const n, count = 32, 10
 			pr := makeProblem(t, n, c.frames, c.pv, c.kind, count, 0.4, false, 7)
-			s := NewSolver(pr.pupil, pr.basis, pr.div, c.frames, c.set)
+			s := NewObjective(pr.pupil, pr.basis, pr.div, c.frames, c.set)
 			s.SetPrior(KolmogorovPrior(pr.basis, 3))
 			// add noise so the mask is not trivial
 			rng := rand.New(rand.NewPCG(3, 3))
@@ -224,7 +224,7 @@ func TestMetricZeroAtTruth(t *testing.T) {
 	pr := makeProblem(t, n, frames, []float64{0, 1}, modes.KindZernike, count, 0.3, true, 11)
 	// A one-pixel taper: the images of the compact object stay in the flat
 	// part of the window except for faint PSF wings.
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{Gamma: 1e-12, Window: 1.0 / n})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{Gamma: 1e-12, Window: 1.0 / n})
 	if err := s.SetData(pr.data); err != nil {
 		t.Fatal(err)
 	}
@@ -262,7 +262,7 @@ func TestCommonTiltInvisible(t *testing.T) {
 		}
 	}
 	for _, set := range []Settings{{}, {PriorWeight: 0.1, TiltConstrain: true}} {
-		s := NewSolver(pr.pupil, pr.basis, pr.div, frames, set)
+		s := NewObjective(pr.pupil, pr.basis, pr.div, frames, set)
 		s.SetPrior(KolmogorovPrior(pr.basis, 5))
 		if err := s.SetData(pr.data); err != nil {
 			t.Fatal(err)
@@ -273,7 +273,7 @@ func TestCommonTiltInvisible(t *testing.T) {
 		}
 	}
 	// Without the constraint, a tilt in one frame only does change E.
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{})
 	if err := s.SetData(pr.data); err != nil {
 		t.Fatal(err)
 	}
@@ -291,7 +291,7 @@ func TestCommonTiltInvisible(t *testing.T) {
 func TestConstrainZeroMeanTilt(t *testing.T) {
 	const n, frames, count = 32, 5, 12
 	pr := makeProblem(t, n, frames, []float64{0, 1}, modes.KindKL, count, 0.4, false, 9)
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{TiltConstrain: true})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{TiltConstrain: true})
 	a := append([]float64(nil), pr.truth...)
 	for i := range a {
 		a[i] += 0.3
@@ -329,7 +329,7 @@ func TestConstrainZeroMeanTilt(t *testing.T) {
 func TestRestoreCompactObject(t *testing.T) {
 	const n, frames, count = 64, 3, 10
 	pr := makeProblem(t, n, frames, []float64{0, 1}, modes.KindZernike, count, 0.3, true, 13)
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{Gamma: 1e-12})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{Gamma: 1e-12})
 	if err := s.SetData(pr.data); err != nil {
 		t.Fatal(err)
 	}
@@ -362,10 +362,10 @@ func TestRestoreCompactObject(t *testing.T) {
 	}
 }
 
-func benchSolver(tb testing.TB) (*Solver, []float64, []float64) { return benchSolverWith(tb, false) }
+func benchSolver(tb testing.TB) (*Objective, []float64, []float64) { return benchSolverWith(tb, false) }
 
 // benchSolverWith is benchSolver, with channel-offset parameters if offset.
-func benchSolverWith(tb testing.TB, offset bool) (*Solver, []float64, []float64) {
+func benchSolverWith(tb testing.TB, offset bool) (*Objective, []float64, []float64) {
 	const n, frames, count = 64, 16, 36
 	tel := optics.Telescope{Diameter: 0.5, Obscuration: 0.15, FocalRatio: 40, Wavelength: 600e-9,
 		PixelScale: 0.120 / 206264.806}
@@ -379,7 +379,7 @@ func benchSolverWith(tb testing.TB, offset bool) (*Solver, []float64, []float64)
 	}
 	div := [][]float64{nil, make([]float64, n*n)}
 	pup.Defocus(div[1], 1)
-	s := NewSolver(pup, b, div, frames, Settings{PriorWeight: 0.1, NoiseFilter: true, TiltConstrain: true, FitChannelOffset: offset})
+	s := NewObjective(pup, b, div, frames, Settings{PriorWeight: 0.1, NoiseFilter: true, TiltConstrain: true, FitChannelOffset: offset})
 	s.SetPrior(KolmogorovPrior(b, 5))
 	rng := rand.New(rand.NewPCG(1, 2))
 	data := make([][][]float64, 2)
@@ -464,7 +464,7 @@ func TestNoiseEstimate(t *testing.T) {
 			noise[k][j] = im
 		}
 	}
-	s := NewSolver(pr.pupil, pr.basis, pr.div, frames, Settings{NoiseFilter: true})
+	s := NewObjective(pr.pupil, pr.basis, pr.div, frames, Settings{NoiseFilter: true})
 	err := s.SetData(noise)
 	var w2 float64
 	for _, v := range Window(n, 0.125) {
