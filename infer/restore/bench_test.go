@@ -58,7 +58,7 @@ func benchField(b *testing.B, n, frames int) *Field {
 // benchPhysics is the demo configuration (36 KL modes, D/r0 = 5) with a
 // learned start from a network of the shipped architecture (untrained
 // weights: the cost of a forward pass does not depend on their values).
-func benchPhysics(b *testing.B, frames, polish int, fit bool) *Physics {
+func benchPhysics(b *testing.B, frames, polish int, fit bool) *FieldSetup {
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = demoTelescope()
 	cfg.Frames = frames
@@ -77,13 +77,13 @@ func benchPhysics(b *testing.B, frames, polish int, fit bool) *Physics {
 		if err != nil {
 			b.Fatal(err)
 		}
-		l, err := NewLearned(model, cfg)
+		l, err := NewNetwork(model, cfg)
 		if err != nil {
 			b.Fatal(err)
 		}
 		m = Method{Start: l, Polish: polish, Name: "learned"}
 	}
-	p, err := NewPhysics(cfg, m)
+	p, err := NewFieldSetup(cfg, m)
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -8,18 +8,18 @@ import (
 	"pdwave/model/net"
 )
 
-// Learned is an infer.Estimator backed by a trained network (model/net):
+// Network is an infer.Estimator backed by a trained network (model/net):
 // an infer.NetEstimator whose weights were checked against the optics and
 // sizes of a fit configuration. It is safe for concurrent use.
-type Learned struct {
+type Network struct {
 	*infer.NetEstimator
 }
 
-// NewLearned wraps model m for patches of the fit configuration cfg. It
+// NewNetwork wraps model m for patches of the fit configuration cfg. It
 // errors if the weights were made for other optics, another basis, mode
 // count or patch size (instrument.Compatible); the estimator's basis (the one
 // the coefficients refer to) is built for cfg.
-func NewLearned(m *net.Model, cfg infer.Config) (*Learned, error) {
+func NewNetwork(m *net.Model, cfg infer.Config) (*Network, error) {
 	if err := instrument.Compatible(m.Meta.Instrument(), cfg.Instrument); err != nil {
 		return nil, fmt.Errorf("restore: weights do not fit the data: %w", err)
 	}
@@ -34,5 +34,5 @@ func NewLearned(m *net.Model, cfg infer.Config) (*Learned, error) {
 	if err != nil {
 		return nil, fmt.Errorf("restore: %w", err)
 	}
-	return &Learned{est}, nil
+	return &Network{est}, nil
 }

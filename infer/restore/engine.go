@@ -23,10 +23,10 @@ type Method struct {
 	Name string
 }
 
-// Physics is the per-field setup shared by the engines of all workers: the
+// FieldSetup is the per-field setup shared by the engines of all workers: the
 // classical fit configuration (telescope, patch, frames, basis, prior,
 // metric settings, stopping rule of the full fit) and the wavefront method.
-type Physics struct {
+type FieldSetup struct {
 	Config infer.Config // the full fit's configuration
 	Method Method       // learned start and polish, or the full fit
 
@@ -48,11 +48,11 @@ type Physics struct {
 // 1.07).
 const TileWindow = 0.125
 
-// NewPhysics checks the configuration and prepares the fitters. It errors if
+// NewFieldSetup checks the configuration and prepares the fitters. It errors if
 // the fit configuration is invalid or the start estimator's basis differs
 // from the configured one.
-func NewPhysics(cfg infer.Config, m Method) (*Physics, error) {
-	p := &Physics{Config: cfg, Method: m}
+func NewFieldSetup(cfg infer.Config, m Method) (*FieldSetup, error) {
+	p := &FieldSetup{Config: cfg, Method: m}
 	var err error
 	p.full, err = infer.NewFitter(cfg)
 	if err != nil {
@@ -82,12 +82,12 @@ func NewPhysics(cfg infer.Config, m Method) (*Physics, error) {
 }
 
 // Basis returns the native basis of the coefficients.
-func (p *Physics) Basis() *modes.Basis { return p.full.Basis() }
+func (p *FieldSetup) Basis() *modes.Basis { return p.full.Basis() }
 
 // NewEngine returns an Engine with its own pd.Objective (for the object
 // estimate and the quality figures). It is a valid Options.NewEngine after
 // wrapping: func() (Engine, error) { return p.NewEngine() }.
-func (p *Physics) NewEngine() (Engine, error) {
+func (p *FieldSetup) NewEngine() (Engine, error) {
 	cfg := p.Config
 	set := cfg.Metric
 	set.PriorWeight = cfg.Prior
@@ -99,7 +99,7 @@ func (p *Physics) NewEngine() (Engine, error) {
 }
 
 type restorePhysicsEngine struct {
-	p     *Physics
+	p     *FieldSetup
 	s     *pd.Objective
 	alpha []float64
 	obj   []float64
@@ -196,7 +196,7 @@ const restoreMinWindow = 0.5
 // there the tile fades linearly in w from the quotient at w = restoreMinWindow
 // to the burst-mean focused image at w = 0. Those pixels lie in the blend
 // margin of inner patch edges (weight 0) and matter only at the field edge.
-func (p *Physics) unapodise(dst, obj []float64, data [][][]float64) {
+func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
 	n := p.Config.Patch
 	var level float64
 	nimg := 0

@@ -322,7 +322,7 @@ func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error
 		}
 		return cfg, Method{Name: "fit"}, nil
 	}
-	l, err := NewLearned(j.Model, cfg)
+	l, err := NewNetwork(j.Model, cfg)
 	if err != nil {
 		return cfg, Method{}, err
 	}
@@ -394,7 +394,7 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	if j.Log != nil {
 		j.logOffset(off)
 	}
-	phys, err := NewPhysics(cfg, method)
+	phys, err := NewFieldSetup(cfg, method)
 	if err != nil {
 		return err
 	}

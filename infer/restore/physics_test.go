@@ -73,7 +73,7 @@ func makeScene(t testing.TB, nx, frames int, dOverR0, sx, sy float64, seed uint6
 // testPhysics is the classical configuration used by the physics tests:
 // the infer defaults for the demo telescope with fewer frames and modes to
 // stay fast.
-func testPhysics(t testing.TB, frames int, m Method) *Physics {
+func testPhysics(t testing.TB, frames int, m Method) *FieldSetup {
 	t.Helper()
 	cfg := infer.DefaultConfig()
 	cfg.Telescope = demoTelescope()
@@ -81,7 +81,7 @@ func testPhysics(t testing.TB, frames int, m Method) *Physics {
 	cfg.Modes = 21
 	cfg.Basis = modes.KindKL
 	cfg.Stop = infer.Stop{Iterations: 60, RelChange: 1e-5}
-	p, err := NewPhysics(cfg, m)
+	p, err := NewFieldSetup(cfg, m)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -371,11 +371,11 @@ func TestLearnedAndPolish(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		l, err := NewLearned(model, cfg)
+		l, err := NewNetwork(model, cfg)
 		if err != nil {
 			t.Fatal(err)
 		}
-		phys, err := NewPhysics(cfg, Method{Start: l, Polish: polish, Name: "learned"})
+		phys, err := NewFieldSetup(cfg, Method{Start: l, Polish: polish, Name: "learned"})
 		if err != nil {
 			t.Fatal(err)
 		}
