@@ -84,13 +84,11 @@ func (j Job) Run() (Validation, error) {
 	}
 	// A run folder that exists is locked before anything is read from it;
 	// a new one when it is made (makeOut).
-	var lock *outpath.Lock
-	defer func() { lock.Release() }()
-	if st, err := os.Stat(j.Out); err == nil && st.IsDir() {
-		if lock, err = j.lock(); err != nil {
-			return Validation{}, err
-		}
+	lock, err := j.lockExisting()
+	if err != nil {
+		return Validation{}, err
 	}
+	defer func() { lock.Release() }()
 	st, setup, simCfg, init, err := j.problem()
 	if err != nil {
 		return Validation{}, err
@@ -115,19 +113,12 @@ func (j Job) Run() (Validation, error) {
 	if err != nil {
 		return Validation{}, err
 	}
-	var t *Trainer
 	opts := RunOptions{Out: j.Out, Progress: j.Progress, MaxWall: j.MaxWall, Stop: j.Stop}
-	if res != nil {
-		t = res.Trainer
-		t.src = src
-		opts.History, opts.Vals, opts.Seconds = res.History, res.Vals, res.Seconds
-		if err := j.continueTo(t); err != nil {
-			return Validation{}, err
-		}
-	} else {
-		if t, err = j.newTrainer(setup, init, src); err != nil {
-			return Validation{}, err
-		}
+	t, err := j.trainer(res, &opts, setup, init, src)
+	if err != nil {
+		return Validation{}, err
+	}
+	if res == nil {
 		defer t.Close()
 	}
 	m := t.Model()
@@ -143,6 +134,40 @@ func (j Job) Run() (Validation, error) {
 		return Validation{}, err
 	}
 	return t.Run(opts)
+}
+
+// trainer returns the resumed run's trainer on the source src, with the
+// record carried into opts and the step target of continueTo, or without
+// res a fresh trainer (newTrainer).
+func (j Job) trainer(res *Resumed, opts *RunOptions, setup Setup, init *net.Model, src Source) (*Trainer, error) {
+	if res == nil {
+		return j.newTrainer(setup, init, src)
+	}
+	t := res.Trainer
+	if err := j.sameArch(t.Model().Arch); err != nil {
+		return nil, err
+	}
+	t.src = src
+	opts.History, opts.Vals, opts.Seconds = res.History, res.Vals, res.Seconds
+	return t, j.continueTo(t)
+}
+
+// sameArch checks the architecture flags given with Resume (Conv, Hidden,
+// Head; unset ones are not checked) against the checkpoint's network a.
+func (j Job) sameArch(a net.Arch) error {
+	diff := func(flag string, want, have any) error {
+		return fmt.Errorf("train: --%s %v differs from the checkpoint's network in %s (%v); resume without it or train into a new folder", flag, want, j.Out, have)
+	}
+	if j.Conv != nil && fmt.Sprint(j.Conv) != fmt.Sprint(a.Conv) {
+		return diff("conv", j.Conv, a.Conv)
+	}
+	if j.Hidden != 0 && j.Hidden != a.Hidden {
+		return diff("hidden", j.Hidden, a.Hidden)
+	}
+	if j.Head != 0 && j.Head != a.Head {
+		return diff("head", j.Head, a.Head)
+	}
+	return nil
 }
 
 // continueTo sets the resumed trainer t to run to j.Steps, if given, and
@@ -170,6 +195,15 @@ func (j Job) continueTo(t *Trainer) error {
 // LockFile is the lock file inside a run folder that keeps a second run off
 // it (internal/outpath.Acquire).
 const LockFile = "train.lock"
+
+// lockExisting takes the run folder's lock if the folder exists (nil, nil
+// otherwise).
+func (j Job) lockExisting() (*outpath.Lock, error) {
+	if st, err := os.Stat(j.Out); err != nil || !st.IsDir() {
+		return nil, nil
+	}
+	return j.lock()
+}
 
 // lock takes the run folder's lock, reporting a takeover on Progress.
 func (j Job) lock() (*outpath.Lock, error) {

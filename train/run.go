@@ -104,23 +104,36 @@ func (t *Trainer) Run(o RunOptions) (Validation, error) {
 				return last, err
 			}
 		}
-		stop := o.MaxWall > 0 && time.Since(start) >= o.MaxWall
-		asked := o.stopped()
-		if t.step%o.CheckpointEvery == 0 || t.Done() || stop || asked {
-			if err := t.SaveCheckpoint(o.Out, hist, vals, elapsed()); err != nil {
-				return last, err
-			}
-		}
-		if asked && !t.Done() {
-			return last, &Interrupted{Step: t.step, Steps: t.cfg.Steps, Out: o.Out}
+		stop, err := t.checkpoint(o, time.Since(start), hist, vals, elapsed())
+		if err != nil {
+			return last, err
 		}
 		if stop {
-			o.printf("stopping at step %d after %s of wall time (checkpoint saved; resume to continue)\n", t.step, o.MaxWall)
 			break
 		}
 	}
 	t.recordSettings(last, elapsed())
 	return last, t.writeOutputs(o.Out, hist, vals)
+}
+
+// checkpoint saves a checkpoint when one is due, the run is done, the wall
+// time ran is past MaxWall (stop true) or Stop was closed (an *Interrupted
+// error).
+func (t *Trainer) checkpoint(o RunOptions, ran time.Duration, hist []StepStats, vals []Validation, seconds float64) (stop bool, err error) {
+	stop = o.MaxWall > 0 && ran >= o.MaxWall
+	asked := o.stopped()
+	if t.step%o.CheckpointEvery == 0 || t.Done() || stop || asked {
+		if err := t.SaveCheckpoint(o.Out, hist, vals, seconds); err != nil {
+			return false, err
+		}
+	}
+	if asked && !t.Done() {
+		return false, &Interrupted{Step: t.step, Steps: t.cfg.Steps, Out: o.Out}
+	}
+	if stop {
+		o.printf("stopping at step %d after %s of wall time (checkpoint saved; resume to continue)\n", t.step, o.MaxWall)
+	}
+	return stop, nil
 }
 
 // stopped reports whether Stop has been closed.

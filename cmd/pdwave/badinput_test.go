@@ -319,8 +319,6 @@ func TestBadInput(t *testing.T) {
 		{"train zero steps", []string{"train", "--site", demoSite, "--out", "OUT/w", "--steps", "0"}, "--steps 0"},
 		{"train negative wall", []string{"train", "--site", demoSite, "--out", "OUT/w", "--max-wall", "-5m"}, "max-wall"},
 		{"train too many workers", []string{"train", "--site", demoSite, "--out", "OUT/w", "--workers", "100000"}, "--workers 100000"},
-		{"train resume and init", []string{"train", "--site", demoSite, "--out", "OUT/w", "--resume", "--init", p("w/start.safetensors")}, "contradict"},
-		{"train resume and architecture", []string{"train", "--site", demoSite, "--out", "OUT/w", "--resume", "--hidden", "32"}, "contradict"},
 		{"train init and architecture", []string{"train", "--site", demoSite, "--out", "OUT/w", "--init", p("w/start.safetensors"), "--conv", "8,8,8"}, "contradict"},
 		{"train resume without checkpoint", []string{"train", "--site", demoSite, "--out", "OUT/w", "--resume", "--validation", "-1"}, "checkpoint"},
 		{"fit negative wall", []string{"fit", p("good.fits"), "--site", demoSite, "--out", "OUT/f.fits", "--wall", "-1s"}, "wall"},

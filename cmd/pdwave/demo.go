@@ -60,7 +60,8 @@ func init() {
 	root.AddCommand(demoCmd)
 }
 
-func demoRun(cmd *cobra.Command, _ []string) error {
+// demoCheck refuses bad flags and an output folder pdwave may not replace.
+func demoCheck() error {
 	o := demoFlags
 	if o.out == "" {
 		return fmt.Errorf("demo: --out must not be empty")
@@ -74,7 +75,12 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 	if _, err := os.Stat(o.site); err != nil {
 		return fmt.Errorf("demo: site file: %w (run from the repository root, or give --site)", err)
 	}
-	if err := checkReplaceDir("demo", o.out, o.site); err != nil {
+	return checkReplaceDir("demo", o.out, o.site)
+}
+
+func demoRun(cmd *cobra.Command, _ []string) error {
+	o := demoFlags
+	if err := demoCheck(); err != nil {
 		return err
 	}
 	self, err := os.Executable()
@@ -122,6 +128,18 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 		}
 		fmt.Fprintf(log, "demo step %d/%d: done in %.1f s\n", i+1, len(steps), time.Since(t0).Seconds())
 	}
+	if err := demoInstall(tmp, out); err != nil {
+		return err
+	}
+	done = true
+	fmt.Fprintf(log, "demo: finished in %.1f s; open %s\n", time.Since(start).Seconds(),
+		filepath.Join(out, "report", "index.html"))
+	return nil
+}
+
+// demoInstall lists the assembled folder tmp in its manifest and puts it in
+// place of out, which must still be replaceable (written by pdwave alone).
+func demoInstall(tmp, out string) error {
 	if err := outpath.WriteManifest(tmp); err != nil {
 		return fmt.Errorf("demo: %w", err)
 	}
@@ -138,9 +156,6 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 	if err := os.Rename(tmp, out); err != nil {
 		return fmt.Errorf("demo: %w", err)
 	}
-	done = true
-	fmt.Fprintf(log, "demo: finished in %.1f s; open %s\n", time.Since(start).Seconds(),
-		filepath.Join(out, "report", "index.html"))
 	return nil
 }
 

@@ -119,7 +119,9 @@ func init() {
 	root.AddCommand(restoreCmd)
 }
 
-func restoreRun(cmd *cobra.Command, args []string) error {
+// restoreCheckFlags refuses missing, negative, out-of-bounds and
+// contradictory flags of "pdwave restore".
+func restoreCheckFlags(args []string) error {
 	o := restoreFlags
 	if len(args) == 0 {
 		return fmt.Errorf("restore: no burst files given")
@@ -136,7 +138,64 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	if err := exclusive("restore", fmt.Sprintf("--polish %d", o.polish), o.polish > 0, "--fit", o.fit); err != nil {
 		return err
 	}
-	if err := exclusive("restore", "--offset", o.offset != "", "--no-align", o.noAlign); err != nil {
+	return exclusive("restore", "--offset", o.offset != "", "--no-align", o.noAlign)
+}
+
+// restoreShard sets the job's shard from --shard ("i/n" or "array"), and
+// notes a job-array task that was not asked to shard.
+func restoreShard(job *restore.Job, flag string) error {
+	if flag != "" {
+		sh, err := restore.ParseShardFlag(flag, os.Getenv)
+		if err != nil {
+			return err
+		}
+		job.Shard = sh
+		if flag == restore.ShardArray {
+			fmt.Fprintf(os.Stderr, "restore: shard %v from the job array\n", sh)
+		}
+	} else if os.Getenv("SLURM_ARRAY_TASK_ID") != "" {
+		fmt.Fprintln(os.Stderr, "restore: this is a job-array task but --shard is not given: restoring every patch (--shard array shares them out)")
+	}
+	return nil
+}
+
+// restoreModel loads the site file and the weights (--weights, else the
+// built-in ones if they fit; none with --fit) into the job.
+func restoreModel(job *restore.Job) error {
+	o := restoreFlags
+	if o.site != "" {
+		s, err := site.Load(o.site)
+		if err != nil {
+			return err
+		}
+		job.Site = s
+	}
+	if o.fit {
+		return nil
+	}
+	switch {
+	case o.weights != "":
+		m, err := net.Load(o.weights)
+		if err != nil {
+			return err
+		}
+		job.Model, job.ModelFrom = m, o.weights
+	default:
+		m, err := weights.Default()
+		if err != nil {
+			fmt.Fprintf(os.Stderr, "restore: built-in weights not used: %v\n", err)
+		}
+		job.Model, job.ModelFrom, job.ModelOptional = m, "built-in ("+weights.DefaultName+")", true
+	}
+	if job.Model == nil {
+		fmt.Fprintln(os.Stderr, "restore: no network weights; using the classical fit in every patch")
+	}
+	return nil
+}
+
+func restoreRun(cmd *cobra.Command, args []string) error {
+	o := restoreFlags
+	if err := restoreCheckFlags(args); err != nil {
 		return err
 	}
 	fl, err := flagInstrument(cmd.Flags())
@@ -165,46 +224,14 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		}
 		job.Offset = &off
 	}
-	if o.shard != "" {
-		sh, err := restore.ParseShardFlag(o.shard, os.Getenv)
-		if err != nil {
-			return err
-		}
-		job.Shard = sh
-		if o.shard == restore.ShardArray {
-			fmt.Fprintf(os.Stderr, "restore: shard %v from the job array\n", sh)
-		}
-	} else if os.Getenv("SLURM_ARRAY_TASK_ID") != "" {
-		fmt.Fprintln(os.Stderr, "restore: this is a job-array task but --shard is not given: restoring every patch (--shard array shares them out)")
+	if err := restoreShard(job, o.shard); err != nil {
+		return err
 	}
 	if err := job.Check(); err != nil {
 		return err
 	}
-	if o.site != "" {
-		s, err := site.Load(o.site)
-		if err != nil {
-			return err
-		}
-		job.Site = s
-	}
-	if !o.fit {
-		switch {
-		case o.weights != "":
-			m, err := net.Load(o.weights)
-			if err != nil {
-				return err
-			}
-			job.Model, job.ModelFrom = m, o.weights
-		default:
-			m, err := weights.Default()
-			if err != nil {
-				fmt.Fprintf(os.Stderr, "restore: built-in weights not used: %v\n", err)
-			}
-			job.Model, job.ModelFrom, job.ModelOptional = m, "built-in ("+weights.DefaultName+")", true
-		}
-		if job.Model == nil {
-			fmt.Fprintln(os.Stderr, "restore: no network weights; using the classical fit in every patch")
-		}
+	if err := restoreModel(job); err != nil {
+		return err
 	}
 	ctx, intr, stop := catchInterrupts(os.Stderr, "restore")
 	defer stop()

@@ -318,4 +318,8 @@ func TestTrainResumeSteps(t *testing.T) {
 	if code == 0 || !strings.Contains(stderr, "already at step 5") {
 		t.Errorf("resume to a step already passed: exit %d\n%s", code, stderr)
 	}
+	code, _, stderr = runCLI(t, repo, append(resume, "--steps", "6", "--hidden", "16")...)
+	if code == 0 || !strings.Contains(stderr, "--hidden 16 differs from the checkpoint's network") {
+		t.Errorf("resume with another architecture: exit %d\n%s", code, stderr)
+	}
 }

@@ -144,10 +144,11 @@ func trainRun(cmd *cobra.Command, args []string) error {
 }
 
 // trainFlagsCheck refuses, before any work, a step count below 1, a
-// negative wall-time limit, a worker count out of bounds and contradictory
-// flags (--init or an architecture with --resume, an architecture with
-// --init). With --resume and no --steps, o.Steps becomes 0: the
-// checkpoint's plan.
+// negative wall-time limit, a worker count out of bounds and an
+// architecture with --init (the starting weights fix it). With --resume
+// (whose printed command repeats the run's flags) --init is ignored and an
+// architecture must match the checkpoint's (train.Job checks it); without
+// --steps, o.Steps becomes 0: the checkpoint's plan.
 func trainFlagsCheck(cmd *cobra.Command, o *train.Job) error {
 	if o.Steps < 1 {
 		return fmt.Errorf("train: --steps %d: want at least 1", o.Steps)
@@ -159,13 +160,7 @@ func trainFlagsCheck(cmd *cobra.Command, o *train.Job) error {
 		return err
 	}
 	arch := cmd.Flags().Changed("conv") || cmd.Flags().Changed("hidden") || cmd.Flags().Changed("head")
-	if err := exclusive("train", "--resume", o.Resume, "--init", o.Init != ""); err != nil {
-		return err
-	}
-	if err := exclusive("train", "--resume", o.Resume, "--conv/--hidden/--head (the checkpoint's network is continued)", arch); err != nil {
-		return err
-	}
-	if err := exclusive("train", "--init", o.Init != "", "--conv/--hidden/--head (the starting weights fix the network)", arch); err != nil {
+	if err := exclusive("train", "--init", o.Init != "", "--conv/--hidden/--head (the starting weights fix the network)", arch && !o.Resume); err != nil {
 		return err
 	}
 	if o.Resume && !cmd.Flags().Changed("steps") {
