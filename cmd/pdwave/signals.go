@@ -118,7 +118,8 @@ func resumeCommand(args []string) string {
 }
 
 // fixedByCheckpoint are the flags a resumed run takes from its checkpoint
-// (the network and its starting weights), which --resume refuses.
+// (the network and its starting weights); the printed command leaves them
+// out (the resumed run takes them from the checkpoint).
 var fixedByCheckpoint = map[string]bool{"--init": true, "--conv": true, "--hidden": true, "--head": true}
 
 // shellQuote returns s as one word of a POSIX shell command (single quotes
