@@ -47,14 +47,24 @@ func signalled(t *testing.T, dir string, delay time.Duration, sig syscall.Signal
 	c := exec.Command(self, args...)
 	c.Dir = dir
 	c.Env = append(os.Environ(), cliEnv+"=1")
+	return runSignalled(t, c, delay, sig)
+}
+
+// runSignalled starts c, sends it sig after delay (none if delay is 0),
+// waits and returns its exit code (-1 if a signal ended it) and standard
+// error.
+func runSignalled(t *testing.T, c *exec.Cmd, delay time.Duration, sig syscall.Signal) (int, string) {
+	t.Helper()
 	var stderr lockedBuffer
 	c.Stderr = &stderr
 	if err := c.Start(); err != nil {
 		t.Fatal(err)
 	}
-	timer := time.AfterFunc(delay, func() { c.Process.Signal(sig) })
-	defer timer.Stop()
-	err = c.Wait()
+	if delay > 0 {
+		timer := time.AfterFunc(delay, func() { c.Process.Signal(sig) })
+		defer timer.Stop()
+	}
+	err := c.Wait()
 	if ee, ok := err.(*exec.ExitError); ok {
 		return ee.ExitCode(), stderr.String()
 	}

@@ -23,23 +23,7 @@ func script(t *testing.T, repo, name string, env []string, delay time.Duration, 
 	c := exec.Command("bash", append([]string{filepath.Join(repo, "testdata", "slurm", name)}, args...)...)
 	c.Dir = repo
 	c.Env = append(append(os.Environ(), cliEnv+"=1", "PDWAVE="+self, "SLURM_CPUS_PER_TASK=1"), env...)
-	var stderr lockedBuffer
-	c.Stderr = &stderr
-	if err := c.Start(); err != nil {
-		t.Fatal(err)
-	}
-	if delay > 0 {
-		timer := time.AfterFunc(delay, func() { c.Process.Signal(sig) }) // bash execs pdwave: the signal reaches it
-		defer timer.Stop()
-	}
-	err = c.Wait()
-	if ee, ok := err.(*exec.ExitError); ok {
-		return ee.ExitCode(), stderr.String()
-	}
-	if err != nil {
-		t.Fatal(err)
-	}
-	return 0, stderr.String()
+	return runSignalled(t, c, delay, sig) // bash execs pdwave: the signal reaches it
 }
 
 // TestSlurmScripts runs the documented batch scripts of testdata/slurm as

@@ -131,20 +131,17 @@ func restoreOpenPart(path string) (*restorePartReader, error) {
 }
 
 // withFITS checks the HDU sizes of the FITS file path against its length
-// (checkFITSSizes), decodes its first n HDUs (all if n ≤ 0) with fitsio
+// (fits.Open, the project's bounded scanner), decodes its first n HDUs (all if n ≤ 0) with fitsio
 // and calls fn; a panic of the decoder on malformed data is an error.
 func withFITS(path string, n int, fn func([]fitsio.HDU) error) (err error) {
+	if _, err := fits.Open(path, fits.Limits{}); err != nil {
+		return err
+	}
 	f, err := os.Open(path)
 	if err != nil {
 		return err
 	}
 	defer f.Close()
-	if err := checkFITSSizes(f); err != nil {
-		return err
-	}
-	if _, err := f.Seek(0, io.SeekStart); err != nil {
-		return err
-	}
 	defer func() {
 		if p := recover(); p != nil {
 			err = fmt.Errorf("malformed FITS: %v", p)

@@ -71,16 +71,26 @@ func (p *Plan) Input(paths ...string) *Plan {
 	return p
 }
 
-// File adds an output file: it must not be an input, not be a folder, a
-// device or anything but a regular file if it exists, and not be another
-// output of the plan.
-func (p *Plan) File(path string) *Plan {
+// output resolves an output path; ok is false when there is nothing to
+// check (an empty path, or the plan has already failed, now included).
+func (p *Plan) output(path string) (e entry, ok bool) {
 	if path == "" || p.err != nil {
-		return p
+		return e, false
 	}
 	e, err := resolve(path)
 	if err != nil {
 		p.err = fmt.Errorf("%s: %w", p.cmd, err)
+		return e, false
+	}
+	return e, true
+}
+
+// File adds an output file: it must not be an input, not be a folder, a
+// device or anything but a regular file if it exists, and not be another
+// output of the plan.
+func (p *Plan) File(path string) *Plan {
+	e, ok := p.output(path)
+	if !ok {
 		return p
 	}
 	if e.info != nil && !e.info.Mode().IsRegular() {
@@ -94,12 +104,8 @@ func (p *Plan) File(path string) *Plan {
 // Dir adds an output folder: it must not be an input, not be anything but
 // a folder if it exists, hold no input, and not be another output.
 func (p *Plan) Dir(path string) *Plan {
-	if path == "" || p.err != nil {
-		return p
-	}
-	e, err := resolve(path)
-	if err != nil {
-		p.err = fmt.Errorf("%s: %w", p.cmd, err)
+	e, ok := p.output(path)
+	if !ok {
 		return p
 	}
 	if e.info != nil && !e.info.IsDir() {
