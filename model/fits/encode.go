@@ -288,8 +288,8 @@ func formatString(prefix, s, comment string) ([]string, error) {
 
 // dataUnit is an encoded HDU: header bytes and a writer of its data.
 type dataUnit struct {
-	hdr  []byte
-	size int // data bytes before padding
+	h    *header // without DATASUM and CHECKSUM (checksumHeader adds them)
+	size int     // data bytes before padding
 	put  func(w *bufio.Writer) error
 }
 
@@ -350,7 +350,7 @@ func encodeImage(img *Image, primary, extend bool) (dataUnit, error) {
 		return dataUnit{}, fmt.Errorf("image %q: %w", img.Name, err)
 	}
 	data := img.Data
-	return dataUnit{hdr: h.bytes(), size: 4 * n, put: func(w *bufio.Writer) error {
+	return dataUnit{h: h, size: 4 * n, put: func(w *bufio.Writer) error {
 		var b [4]byte
 		for _, v := range data {
 			binary.BigEndian.PutUint32(b[:], math.Float32bits(float32(v)))
@@ -377,11 +377,11 @@ func encodeTable(t *Table) (dataUnit, error) {
 	if err != nil {
 		return dataUnit{}, err
 	}
-	hdr, err := tableHeader(t, forms, rows, rowBytes)
+	h, err := tableHeader(t, forms, rows, rowBytes)
 	if err != nil {
 		return dataUnit{}, err
 	}
-	return dataUnit{hdr: hdr, size: rows * rowBytes, put: tableRows(t.Columns, widths, rows)}, nil
+	return dataUnit{h: h, size: rows * rowBytes, put: tableRows(t.Columns, widths, rows)}, nil
 }
 
 // tableLayout checks the columns of t and returns each column's TFORM and
@@ -456,7 +456,7 @@ func columnForm(table string, c Column) (form string, width, rows int, err error
 // tableHeader returns the header of the binary table t: the structural
 // keywords for rows rows of rowBytes bytes, TTYPEn/TFORMn/TUNITn per column
 // (forms from tableLayout), EXTNAME, then t.Cards.
-func tableHeader(t *Table, forms []string, rows, rowBytes int) ([]byte, error) {
+func tableHeader(t *Table, forms []string, rows, rowBytes int) (*header, error) {
 	h := newHeader()
 	if err := h.add(Card{Key: "XTENSION", Value: "BINTABLE", Comment: "binary table extension"}); err != nil {
 		return nil, err
@@ -486,7 +486,7 @@ func tableHeader(t *Table, forms []string, rows, rowBytes int) ([]byte, error) {
 	if err := h.addUser(t.Cards); err != nil {
 		return nil, fmt.Errorf("table %q: %w", t.Name, err)
 	}
-	return h.bytes(), nil
+	return h, nil
 }
 
 // tableRows returns the writer of the table data: rows rows of the columns
@@ -520,16 +520,24 @@ func tableRows(cols []Column, widths []int, rows int) func(w *bufio.Writer) erro
 }
 
 // writeUnits writes the units to path atomically (atomicfile.Write): path
-// is either the old file or the complete new one.
+// is either the old file or the complete new one. Every header gets
+// DATASUM and CHECKSUM (checksumHeader).
 func writeUnits(path string, units []dataUnit) error {
+	hdrs := make([][]byte, len(units))
+	for i, u := range units {
+		var err error
+		if hdrs[i], err = checksumHeader(u); err != nil {
+			return err
+		}
+	}
 	return atomicfile.Write(path, func(iw io.Writer) error {
 		w, ok := iw.(*bufio.Writer) // atomicfile passes a buffered writer
 		if !ok {
 			w = bufio.NewWriter(iw)
 		}
 		zeros := make([]byte, blockSize)
-		for _, u := range units {
-			if _, err := w.Write(u.hdr); err != nil {
+		for i, u := range units {
+			if _, err := w.Write(hdrs[i]); err != nil {
 				return err
 			}
 			if err := u.put(w); err != nil {
