@@ -187,8 +187,9 @@ func (p *Product) table() *fits.Table {
 	}
 	if nc > 0 {
 		cols = append(cols,
-			fits.Column{Name: "COEFFS", Unit: "rad", Float: coeffs},
-			fits.Column{Name: "NOLL", Unit: "rad", Float: noll})
+			// frame-major cells: TDIM (modes, frames), astropy shape (patches, frames, modes)
+			fits.Column{Name: "COEFFS", Unit: "rad", Float: coeffs, Dims: []int{p.Meta.Modes, p.Meta.Frames}},
+			fits.Column{Name: "NOLL", Unit: "rad", Float: noll, Dims: []int{p.Meta.Modes, p.Meta.Frames}})
 	}
 	cols = append(cols,
 		fits.Column{Name: "METRIC", Float: metric},

@@ -36,8 +36,14 @@ func newHeader() *header { return &header{index: map[string]int{}} }
 
 // add appends one card. A later card with the same (non-commentary) keyword
 // replaces the earlier one in place.
+// Every text of a card, value and comment, is made ASCII here (ASCII),
+// the one place the writer does so.
 func (h *header) add(c Card) error {
 	key := strings.TrimRight(c.Key, " ")
+	c.Comment = ASCII(c.Comment)
+	if s, ok := c.Value.(string); ok {
+		c.Value = ASCII(s)
+	}
 	if isCommentary(key) {
 		text := c.Comment
 		if text == "" {
@@ -45,7 +51,6 @@ func (h *header) add(c Card) error {
 				text = s
 			}
 		}
-		text = ASCII(text)
 		for {
 			n := min(len(text), 72)
 			h.lines = append(h.lines, pad80(fmt.Sprintf("%-8s%s", key, text[:n])))
@@ -120,44 +125,6 @@ func pad80(s string) string {
 	return s + strings.Repeat(" ", cardSize-len(s))
 }
 
-// asciiFor spells common non-ASCII characters of pdwave's own text in
-// ASCII (common practice).
-var asciiFor = map[rune]string{
-	'×': "x", '·': "*", '−': "-", '–': "-", '—': "-", '²': "2", '³': "3",
-	'°': "deg", 'µ': "u", 'μ': "u", 'Å': "A", 'å': "a", 'é': "e", 'è': "e",
-	'ö': "o", 'ü': "u", 'ä': "a", 'λ': "lambda", '≤': "<=", '≥': ">=",
-	'‘': "'", '’': "'", '“': "\"", '”': "\"", '…': "...",
-}
-
-// ASCII returns s with only the characters FITS headers allow (printable
-// ASCII 32–126, FITS Standard 4.0 §4.1.2.3): common non-ASCII characters
-// are spelled in ASCII ('×' as "x", '−' as "-", 'µ' as "u", 'Å' as "A", ...),
-// any other character, and control characters, become '?'.
-func ASCII(s string) string {
-	ok := true
-	for i := 0; i < len(s); i++ {
-		if s[i] < 32 || s[i] > 126 {
-			ok = false
-			break
-		}
-	}
-	if ok {
-		return s
-	}
-	var b strings.Builder
-	for _, r := range s {
-		switch {
-		case r >= 32 && r <= 126:
-			b.WriteRune(r)
-		case asciiFor[r] != "":
-			b.WriteString(asciiFor[r])
-		default:
-			b.WriteByte('?')
-		}
-	}
-	return b.String()
-}
-
 // formatCard renders a value card in the fixed format of FITS Standard 4.0
 // §4.2 (logical, integer and real values right-justified to column 30,
 // strings starting in column 11). Strings longer than one card use the
@@ -224,7 +191,7 @@ func formatReal(v float64) (string, error) {
 
 func withComment(line, comment string) string {
 	if comment != "" {
-		c := " / " + ASCII(comment)
+		c := " / " + comment
 		if room := cardSize - len(line); room > 3 {
 			if len(c) > room {
 				c = c[:room]
@@ -237,11 +204,11 @@ func withComment(line, comment string) string {
 
 func quote(s string) string { return strings.ReplaceAll(s, "'", "''") }
 
-// formatString renders a string value (made ASCII with ASCII); values longer than 68 characters
-// (after doubling quotes) are split over CONTINUE cards, each piece but
-// the last ending in '&' (FITS Standard 4.0 §4.2.1.2).
+// formatString renders a string value (printable ASCII: header.add made
+// it so); values longer than 68 characters (after doubling quotes) are
+// split over CONTINUE cards, each piece but the last ending in '&' (FITS
+// Standard 4.0 §4.2.1.2).
 func formatString(prefix, s, comment string) ([]string, error) {
-	s = ASCII(s)
 	q := quote(s)
 	if len(q) <= 68 {
 		v := "'" + q + "'"
@@ -425,8 +392,22 @@ func columnForm(table string, c Column) (form string, width, rows int, err error
 		if rep < 1 && rows > 0 {
 			return "", 0, 0, fmt.Errorf("table %q column %q: empty rows", table, c.Name)
 		}
+		if rows == 0 && len(c.Dims) > 0 && len(c.Dims) <= 999 {
+			rep = 1 // an empty table keeps its cell shape
+			for _, d := range c.Dims {
+				if d >= 1 && rep <= math.MaxInt32/d {
+					rep *= d
+				}
+			}
+		}
 		rep = max(rep, 1)
 		form, width = strconv.Itoa(rep)+"D", 8*rep
+		if err := checkDims(c.Dims, rep); err != nil {
+			return "", 0, 0, fmt.Errorf("table %q column %q: %w", table, c.Name, err)
+		}
+	}
+	if c.Dims != nil && c.Float == nil {
+		return "", 0, 0, fmt.Errorf("table %q column %q: Dims on a column that is not Float", table, c.Name)
 	}
 	if c.Int != nil {
 		set++
@@ -451,6 +432,37 @@ func columnForm(table string, c Column) (form string, width, rows int, err error
 		return "", 0, 0, fmt.Errorf("table %q column %q: exactly one of Float, Int, Text must be set", table, c.Name)
 	}
 	return form, width, rows, nil
+}
+
+// checkDims checks that dims (nil for none) is a shape of positive axes
+// holding rep values.
+func checkDims(dims []int, rep int) error {
+	if dims == nil {
+		return nil
+	}
+	if len(dims) == 0 || len(dims) > 999 {
+		return fmt.Errorf("cell shape %v: 1 to 999 axes", dims)
+	}
+	n := 1
+	for _, d := range dims {
+		if d < 1 || n > rep/d {
+			return fmt.Errorf("cell shape %v does not hold the %d values of a cell", dims, rep)
+		}
+		n *= d
+	}
+	if n != rep {
+		return fmt.Errorf("cell shape %v holds %d values, a cell has %d", dims, n, rep)
+	}
+	return nil
+}
+
+// tdim is the TDIMn value of a cell shape: "(d1,d2,...)" (§7.3.2).
+func tdim(dims []int) string {
+	s := make([]string, len(dims))
+	for i, d := range dims {
+		s[i] = strconv.Itoa(d)
+	}
+	return "(" + strings.Join(s, ",") + ")"
 }
 
 // tableHeader returns the header of the binary table t: the structural
@@ -478,6 +490,9 @@ func tableHeader(t *Table, forms []string, rows, rowBytes int) (*header, error) 
 			if err := h.add(Card{Key: "TUNIT" + n, Value: c.Unit}); err != nil {
 				return nil, fmt.Errorf("table %q: %w", t.Name, err)
 			}
+		}
+		if c.Dims != nil {
+			must(h.add(Card{Key: "TDIM" + n, Value: tdim(c.Dims), Comment: "cell shape, fastest axis first"}))
 		}
 	}
 	if err := h.add(Card{Key: "EXTNAME", Value: t.Name, Comment: "extension name"}); err != nil {

@@ -34,11 +34,19 @@ type Table struct {
 // Float holds rows × repeat values (every row the same length, written as
 // TFORM "rD"), Int one 64-bit integer per row ("1K"), Text one printable
 // ASCII string per row ("wA", w the longest string, blank padded).
+//
+// Dims, for a Float column only, gives the shape of each cell, the
+// fastest-varying axis first, written as TDIMn = '(d1,d2,...)' (FITS
+// Standard 4.0 §7.3.2): a frame-major frames × modes cell is
+// Dims{modes, frames}, which astropy reads as an array of shape
+// (rows, frames, modes). Its product must equal the cell length; nil
+// writes no TDIMn.
 type Column struct {
 	Name, Unit string
 	Float      [][]float64
 	Int        []int64
 	Text       []string
+	Dims       []int
 }
 
 func (*Image) isHDU() {}
@@ -99,10 +107,10 @@ func writeFile(path string, hdus []HDU) error {
 // PDWVERS = version, DATE = the current UTC time (FITS Standard 4.0
 // §4.4.2.1 format 'YYYY-MM-DDThh:mm:ss'), and one HISTORY card per setting,
 // "pdwave: key = value", in key order (long values wrap over further
-// HISTORY cards). Text is made ASCII with ASCII.
+// HISTORY cards). WriteFile makes the text ASCII (ASCII).
 func Provenance(version string, settings map[string]string) []Card {
 	cards := []Card{
-		{Key: "PDWVERS", Value: ASCII(version), Comment: "pdwave version that wrote this file"},
+		{Key: "PDWVERS", Value: version, Comment: "pdwave version that wrote this file"},
 		{Key: "DATE", Value: time.Now().UTC().Format("2006-01-02T15:04:05"), Comment: "file creation date (UTC)"},
 	}
 	keys := make([]string, 0, len(settings))
