@@ -3,6 +3,7 @@ package infer
 import (
 	"fmt"
 	"io"
+	"maps"
 	"path/filepath"
 	"strings"
 	"time"
@@ -64,8 +65,9 @@ type FitJob struct {
 	Wall       time.Duration      // wall time per fit; 0 = none
 	Prior      float64            // prior weight
 	Version    string
-	Out        string    // the FITS product; the CSV goes beside it
-	Log        io.Writer // progress lines; nil = silent
+	Out        string            // the FITS product; the CSV goes beside it
+	Log        io.Writer         // progress lines; nil = silent
+	Provenance map[string]string // recorded with the settings (command line, input hashes)
 }
 
 // Run resolves the configuration (the patch capped at the burst's side),
@@ -99,6 +101,7 @@ func (j FitJob) Run() (string, error) {
 	settings := cfg.Settings()
 	settings["command"], settings["burst"], settings["site"] = "fit", filepath.Base(j.Name), filepath.Base(j.SiteName)
 	settings["patch"] = c.Describe(b)
+	maps.Copy(settings, j.Provenance)
 	cards := append(fits.Provenance(j.Version, settings), fitCards(cfg, res)...)
 	cards = append(append(cards, c.Cards()...), burst.CutoutCards(b.Cards, c.X0, c.Y0)...)
 	img := &fits.Image{Dims: []int{c.N, c.N}, Data: res.Restored, Cards: cards}
@@ -150,6 +153,8 @@ type PredictJob struct {
 	Version string
 	Out     string
 	Log     io.Writer
+	// Provenance is recorded with the settings (command line, input hashes).
+	Provenance map[string]string
 }
 
 // Run checks the weights against the data (ConfigWithWeights), predicts the
@@ -179,6 +184,7 @@ func (j PredictJob) Run() error {
 	elapsed := time.Since(start)
 	settings := map[string]string{"verb": "predict", "burst": filepath.Base(j.Name), "weights": j.From,
 		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds()), "patch": c.Describe(b)}
+	maps.Copy(settings, j.Provenance)
 	table := &CoefficientTable{Basis: modes.Kind(m.Meta.Basis), Native: native, Noll: noll,
 		Title: "pdwave " + j.Version + " predict", Settings: settings}
 	if err := j.write(table, c, len(native[0]), settings); err != nil {
@@ -200,7 +206,8 @@ func (j PredictJob) write(table *CoefficientTable, c Central, nmodes int, settin
 	hdu.Cards = append(append(hdu.Cards,
 		fits.Card{Key: "NMODES", Value: nmodes, Comment: "modes per frame, piston excluded"},
 		fits.Card{Key: "ESTIMATR", Value: "network", Comment: "learned estimate (no fit)"}), c.Cards()...)
-	primary := &fits.Image{Cards: fits.Provenance(j.Version, settings)}
+	// The burst's cards, as fit carries them for its patch, then provenance.
+	primary := &fits.Image{Cards: append(burst.CutoutCards(j.Burst.Cards, c.X0, c.Y0), fits.Provenance(j.Version, settings)...)}
 	_, err := WriteProduct(j.Out, []fits.HDU{primary, hdu}, table)
 	return err
 }

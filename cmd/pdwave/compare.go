@@ -3,14 +3,15 @@ package main
 import (
 	"errors"
 	"fmt"
-	"os"
+	"maps"
 	"path/filepath"
-	"strings"
+	"slices"
 
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
 	"pdwave/infer/compare"
+	"pdwave/internal/provenance"
 	"pdwave/model/burst"
 	"pdwave/model/instrument"
 	"pdwave/model/net"
@@ -121,6 +122,9 @@ func compareRun(cmd *cobra.Command, args []string) error {
 		return err
 	}
 	cfg := o.config(fc, args[0], notes)
+	if err := o.provenance(&cfg, args[0], model, learned != nil); err != nil {
+		return err
+	}
 	if learned != nil {
 		cfg.Settings = append(cfg.Settings, compare.Setting{Key: "weights", Value: weightsFrom + compareWeightsMeta(model)})
 	}
@@ -255,8 +259,27 @@ func (o compareFlags) config(fc infer.Config, burstPath string, notes []string) 
 	return compare.Config{
 		Fit: fc, Polish: o.polish, FromLearned: o.fromLearned, Overlap: o.overlap, Workers: o.workers,
 		ExamplePatch: -1, Version: version, Source: burstPath, Notes: notes,
-		Settings: []compare.Setting{{Key: "command", Value: "pdwave " + strings.Join(os.Args[1:], " ")}},
 	}
+}
+
+// provenance adds the run's command line and the SHA-256 of the burst,
+// site and weights files (runProvenance; the built-in weights' when they
+// are used) to the settings, in key order.
+func (o compareFlags) provenance(cfg *compare.Config, burstRef string, m *net.Model, learned bool) error {
+	in := append(burstInputs(burstRef), provenance.Input{Role: "site", Path: o.site})
+	if learned {
+		in = append(in, provenance.Input{Role: "weights", Path: o.weights})
+	} else {
+		m = nil
+	}
+	prov, err := runProvenance(m, in...)
+	if err != nil {
+		return err
+	}
+	for _, k := range slices.Sorted(maps.Keys(prov)) {
+		cfg.Settings = append(cfg.Settings, compare.Setting{Key: k, Value: prov[k]})
+	}
+	return nil
 }
 
 // compareWeightsMeta describes what the weights were made for.

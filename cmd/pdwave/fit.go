@@ -12,6 +12,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
+	"pdwave/internal/provenance"
 	"pdwave/model/instrument"
 	"pdwave/model/site"
 	"pdwave/simulate"
@@ -167,8 +168,12 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
+	prov, err := runProvenance(nil, append(burstInputs(args[0]), provenance.Input{Role: "site", Path: o.site})...)
+	if err != nil {
+		return err
+	}
 	stderr := cmd.ErrOrStderr()
-	job := infer.FitJob{
+	job := infer.FitJob{Provenance: prov,
 		Burst: b, Name: args[0], SiteName: o.site,
 		Sources:    instrument.Sources{Flags: fl, Header: infer.HeaderInstrument(b.Optics), Site: st.Instrument()},
 		Iterations: o.iterations, Wall: o.wall, Prior: o.prior, Version: version, Out: o.out, Log: stderr,

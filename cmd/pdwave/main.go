@@ -11,6 +11,10 @@ import (
 	"strings"
 
 	"github.com/spf13/cobra"
+
+	"pdwave/internal/provenance"
+	"pdwave/model/burst"
+	"pdwave/model/net"
 )
 
 // version is the program version recorded in every output file. It can be
@@ -43,4 +47,32 @@ func main() {
 		}
 		os.Exit(code)
 	}
+}
+
+// runProvenance returns what every output of this run records: the
+// command line and the SHA-256 of the input files (provenance.Settings of
+// os.Args and inputs), with "sha256 weights" of the weights m serialises
+// to when m is non-nil and no weights file is among the inputs (the
+// built-in weights).
+func runProvenance(m *net.Model, inputs ...provenance.Input) (map[string]string, error) {
+	s, err := provenance.Settings(os.Args, inputs...)
+	if err != nil {
+		return nil, err
+	}
+	if _, ok := s["sha256 weights"]; !ok && m != nil {
+		if s["sha256 weights"], err = provenance.Hash(m.Write); err != nil {
+			return nil, fmt.Errorf("weights: %w", err)
+		}
+	}
+	return s, nil
+}
+
+// burstInputs returns the files of the burst reference ref
+// (burst.SplitRef) as inputs of role "burst".
+func burstInputs(ref string) []provenance.Input {
+	var in []provenance.Input
+	for _, f := range burst.SplitRef(ref) {
+		in = append(in, provenance.Input{Role: "burst", Path: f})
+	}
+	return in
 }

@@ -9,6 +9,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"pdwave/infer"
+	"pdwave/internal/provenance"
 	"pdwave/model/instrument"
 	"pdwave/model/net"
 	"pdwave/model/site"
@@ -93,6 +94,11 @@ func predictRun(cmd *cobra.Command, args []string) error {
 		}
 		src.Site = st.Instrument()
 	}
-	job := infer.PredictJob{Burst: b, Name: args[0], Sources: src, Model: m, From: from, Version: version, Out: o.out, Log: os.Stderr}
+	prov, err := runProvenance(m, append(burstInputs(args[0]),
+		provenance.Input{Role: "weights", Path: o.weights}, provenance.Input{Role: "site", Path: o.site})...)
+	if err != nil {
+		return err
+	}
+	job := infer.PredictJob{Provenance: prov, Burst: b, Name: args[0], Sources: src, Model: m, From: from, Version: version, Out: o.out, Log: os.Stderr}
 	return job.Run()
 }

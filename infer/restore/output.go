@@ -89,7 +89,7 @@ func (p *Product) Write(out, version string) error {
 	for _, c := range m.Cards {
 		// The burst's description of its 4-D axes does not apply to the
 		// restored image.
-		if v, ok := c.Value.(string); ok && c.Key == "COMMENT" && strings.HasPrefix(v, "Axes:") {
+		if c.Key == "COMMENT" && strings.HasPrefix(c.Comment, "Axes:") { // commentary text is in Comment
 			continue
 		}
 		cards = append(cards, c)

@@ -74,6 +74,7 @@ package burst
 import (
 	"fmt"
 	"math"
+	"strings"
 
 	"pdwave/model/fits"
 	"pdwave/model/instrument"
@@ -247,8 +248,9 @@ func (b *Burst) Patch(x0, y0, n int) [][][]float64 {
 // frames whose first column is x0 and first row y0 (0-based): the reference
 // pixels CRPIX1 and CRPIX2 are moved by the offset (a non-numeric one is
 // dropped), and the keywords of the third and fourth axes (CRPIX3/4,
-// CTYPE3/4, CDELT3/4, CRVAL3/4, CUNIT3/4, NAXIS3/4) are dropped. cards is
-// not modified.
+// CTYPE3/4, CDELT3/4, CRVAL3/4, CUNIT3/4, NAXIS3/4) are dropped, and so is
+// the burst's COMMENT "Axes: ..." describing its 4-D axes. cards is not
+// modified.
 func CutoutCards(cards []fits.Card, x0, y0 int) []fits.Card {
 	out := make([]fits.Card, 0, len(cards))
 	for _, c := range cards {
@@ -266,6 +268,10 @@ func CutoutCards(cards []fits.Card, x0, y0 int) []fits.Card {
 			c.Value = v
 		case "CRPIX3", "CRPIX4", "CTYPE3", "CTYPE4", "CDELT3", "CDELT4", "CRVAL3", "CRVAL4", "CUNIT3", "CUNIT4", "NAXIS3", "NAXIS4":
 			continue // the product is 2-D
+		case "COMMENT":
+			if strings.HasPrefix(c.Comment, "Axes:") {
+				continue // the burst's description of its 4-D axes
+			}
 		}
 		out = append(out, c)
 	}
