@@ -39,13 +39,6 @@ type Calibrator interface {
 // is left as it is (the count is then len(im)). It panics if len(im) ≠
 // nx·ny.
 func FillUndefined(im []float64, nx, ny int) int {
-	n, _ := fillUndefined(im, nx, ny)
-	return n
-}
-
-// fillUndefined is FillUndefined, also returning the index of the first
-// undefined pixel (−1 for none).
-func fillUndefined(im []float64, nx, ny int) (n, first int) {
 	if len(im) != nx*ny {
 		panic(fmt.Sprintf("burst.FillUndefined: %d pixels for %d×%d", len(im), nx, ny))
 	}
@@ -55,10 +48,7 @@ func fillUndefined(im []float64, nx, ny int) (n, first int) {
 			todo = append(todo, i)
 		}
 	}
-	n, first = len(todo), -1
-	if n > 0 {
-		first = todo[0]
-	}
+	n := len(todo)
 	type fill struct {
 		i int
 		v float64
@@ -95,7 +85,7 @@ func fillUndefined(im []float64, nx, ny int) (n, first int) {
 		}
 		todo = rest
 	}
-	return n, first
+	return n
 }
 
 func undefined(v float64) bool { return math.IsNaN(v) || math.IsInf(v, 0) }
@@ -124,10 +114,22 @@ func (b *Burst) calibrateAndFill(cal Calibrator) error {
 	limit := int(MaxBadFraction * float64(b.Nx*b.Ny))
 	for c := range b.Data {
 		for f, im := range b.Data[c] {
-			k, i := fillUndefined(im, b.Nx, b.Ny)
+			// Count first: filling a frame that is mostly undefined would
+			// take a pass per pixel of its largest hole.
+			k, i := 0, -1
+			for j, v := range im {
+				if undefined(v) {
+					if k++; i < 0 {
+						i = j
+					}
+				}
+			}
 			if k > limit {
 				return fmt.Errorf("%s frame %d: %d of the %d×%d pixels (%.1f %%) are undefined (NaN, Inf, BLANK) or marked bad, the first at (x=%d, y=%d); at most %g %% are filled",
 					channelName(c), f+1, k, b.Nx, b.Ny, 100*float64(k)/float64(b.Nx*b.Ny), i%b.Nx+1, i/b.Nx+1, 100*MaxBadFraction)
+			}
+			if k > 0 {
+				FillUndefined(im, b.Nx, b.Ny)
 			}
 			b.Masked[c] += k
 		}
