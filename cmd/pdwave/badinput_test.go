@@ -146,6 +146,7 @@ func TestBadInput(t *testing.T) {
 	good := noise(n*n*frames*2, 1)
 	writeFITS(t, p("good.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
 	writeFITS(t, p("small.fits"), []int{32, 32, frames, 2}, good[:32*32*frames*2], demoOptics, 0)
+	writeFITS(t, p("small-rect.fits"), []int{64, 48, frames, 2}, good[:64*48*frames*2], demoOptics, 0)
 	fewFrames := t.TempDir() // a folder of one 4-frame burst, for training that needs 16
 	writeFITS(t, filepath.Join(fewFrames, "four.fits"), []int{n, n, frames, 2}, good, demoOptics, 0)
 	writeFITS(t, p("truncated.fits"), []int{n, n, frames, 2}, good, demoOptics, 2880+1000)
@@ -157,12 +158,25 @@ func TestBadInput(t *testing.T) {
 	writeFITS(t, p("naxis4-3.fits"), []int{n, n, 2, 3}, good[:n*n*6], demoOptics, 0)
 	writeFITS(t, p("zero-frames.fits"), []int{n, n, 0, 2}, nil, demoOptics, 0)
 	writeFITS(t, p("one-channel.fits"), []int{n, n, frames, 1}, good[:n*n*frames], demoOptics, 0)
+	// Undefined pixels are filled up to 5 % of a frame (burst.MaxBadFraction,
+	// 204 of 64×64): 300 are refused.
 	nan := append([]float32(nil), good...)
-	nan[n*n*frames+17] = float32(math.NaN())
-	writeFITS(t, p("nan.fits"), []int{n, n, frames, 2}, nan, demoOptics, 0)
 	inf := append([]float32(nil), good...)
-	inf[5] = float32(math.Inf(1))
+	for i := 0; i < 300; i++ {
+		nan[n*n*frames+17+i] = float32(math.NaN())
+		inf[5+i] = float32(math.Inf(1))
+	}
+	writeFITS(t, p("nan.fits"), []int{n, n, frames, 2}, nan, demoOptics, 0)
 	writeFITS(t, p("inf.fits"), []int{n, n, frames, 2}, inf, demoOptics, 0)
+	// Calibration frames: a dark of the right size, one of another size,
+	// a bad-pixel map marking 10 % of the pixels.
+	writeFITS(t, p("dark.fits"), []int{n, n}, good[:n*n], nil, 0)
+	writeFITS(t, p("dark-small.fits"), []int{n / 2, n / 2}, good[:n*n/4], nil, 0)
+	badMap := make([]float32, n*n)
+	for i := 0; i < len(badMap); i += 10 {
+		badMap[i] = 1
+	}
+	writeFITS(t, p("bad-map.fits"), []int{n, n}, badMap, nil, 0)
 	writeFITS(t, p("no-optics.fits"), []int{n, n, frames, 2}, good, nil, 0)
 	writeFITS(t, p("focused.fits"), []int{n, n, frames}, good[:n*n*frames], demoOptics, 0)
 	writeFITS(t, p("defocused-small.fits"), []int{n / 2, n / 2, frames}, good[:n*n*frames/4], demoOptics, 0)
@@ -189,6 +203,10 @@ func TestBadInput(t *testing.T) {
 		"negative-d.yaml":     strings.Replace(string(site), "diameter_m: 0.50", "diameter_m: -0.50", 1),
 		"undersampled.yaml":   strings.Replace(string(site), "pixel_scale_arcsec: 0.120", "pixel_scale_arcsec: 0.300", 1),
 		"negative-patch.yaml": strings.Replace(string(site), "patch: 64", "patch: -64", 1),
+		"rotate-45.yaml":      string(site) + "\ngeometry: {defocused: {rotate_deg: 45}}\n",
+		"magnify.yaml":        string(site) + "\ngeometry: {defocused: {magnification: 1.5}}\n",
+		"geometry-typo.yaml":  string(site) + "\ngeometry: {defocused: {flip: true}}\n",
+		"turn-one.yaml":       string(site) + "\ngeometry: {defocused: {rotate_deg: 90}}\n",
 	}
 	for name, text := range sites {
 		if text == string(site) {
@@ -239,8 +257,12 @@ func TestBadInput(t *testing.T) {
 		{"fit naxis4 not 2", []string{"fit", p("naxis4-3.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "naxis4"},
 		{"fit zero frames", []string{"fit", p("zero-frames.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "frame"},
 		{"fit one channel", []string{"fit", p("one-channel.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "channel"},
-		{"fit NaN pixel", []string{"fit", p("nan.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "nan"},
-		{"fit Inf pixel", []string{"fit", p("inf.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "inf"},
+		{"fit too many NaN pixels", []string{"fit", p("nan.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "300 of the 64×64 pixels (7.3 %) are undefined"},
+		{"fit too many Inf pixels", []string{"fit", p("inf.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "channel 1 (focused) frame 1: 300 of the 64×64"},
+		{"fit geometry not a quarter turn", []string{"fit", p("good.fits"), "--site", p("rotate-45.yaml"), "--out", "OUT/f.fits"}, "geometry.defocused.rotate_deg: must be a multiple of 90"},
+		{"fit geometry magnification", []string{"fit", p("good.fits"), "--site", p("magnify.yaml"), "--out", "OUT/f.fits"}, "geometry.defocused.magnification"},
+		{"predict geometry typo", []string{"predict", p("good.fits"), "--site", p("geometry-typo.yaml"), "--out", "OUT/p.fits"}, "field flip not found"},
+		{"predict one channel turned on a non-square burst", []string{"predict", p("small-rect.fits"), "--site", p("turn-one.yaml"), "--out", "OUT/p.fits"}, "after orientation"},
 		{"fit malformed yaml", []string{"fit", p("good.fits"), "--site", p("malformed.yaml"), "--out", "OUT/f.fits"}, "yaml"},
 		{"fit missing burst", []string{"fit", p("missing.fits"), "--site", demoSite, "--out", "OUT/f.fits"}, "missing.fits"},
 		{"fit no args", []string{"fit", "--site", demoSite, "--out", "OUT/f.fits"}, ""},
@@ -255,7 +277,12 @@ func TestBadInput(t *testing.T) {
 		{"predict truncated", []string{"predict", p("truncated.fits"), "--out", "OUT/p.fits"}, "truncated.fits"},
 		// restore
 		{"restore truncated", []string{"restore", p("truncated.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "truncated.fits"},
-		{"restore NaN", []string{"restore", p("nan.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "nan"},
+		{"restore too many NaN pixels", []string{"restore", p("nan.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "are undefined (nan, inf, blank) or marked bad"},
+		{"restore geometry not a quarter turn", []string{"restore", p("good.fits"), "--site", p("rotate-45.yaml"), "--out", "OUT/r.fits"}, "rotate_deg"},
+		{"restore camera-2 dark of another size", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("dark.fits") + "," + p("dark-small.fits"), "--out", "OUT/r.fits"}, "camera 2's calibration frames (" + p("dark-small.fits") + ") are 32×32"},
+		{"restore dark and flat of one camera differ in size", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("dark.fits"), "--flat", p("dark-small.fits"), "--out", "OUT/r.fits"}, "is 32×32 but its other calibration frames 64×64"},
+		{"restore three darks", []string{"restore", p("good.fits"), "--site", demoSite, "--dark", p("dark.fits") + "," + p("dark.fits") + "," + p("dark.fits"), "--out", "OUT/r.fits"}, "--dark takes one file"},
+		{"restore too many bad pixels in the map", []string{"restore", p("good.fits"), "--site", demoSite, "--bad", p("bad-map.fits"), "--out", "OUT/r.fits"}, "camera 1: 410 of its 64×64 pixels (10.0 %) are bad"},
 		{"restore mismatched pair", []string{"restore", "--pairs", p("focused.fits"), p("defocused-small.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "32×32"},
 		{"restore odd pair count", []string{"restore", "--pairs", p("focused.fits"), "--site", demoSite, "--out", "OUT/r.fits"}, "pair"},
 		{"restore bad shard", []string{"restore", p("good.fits"), "--site", demoSite, "--shard", "3/2", "--out", "OUT/r.fits"}, "shard"},

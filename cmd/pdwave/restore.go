@@ -17,10 +17,11 @@ import (
 
 // restoreFlags holds the flags of "pdwave restore".
 var restoreFlags struct {
-	out, site, weights, dark, flat, shard string
-	offset                                string
-	patch, overlap, polish, workers       int
-	fit, resume, pairs, noAlign, quiet    bool
+	out, site, weights, shard          string
+	offset                             string
+	dark, flat, bad                    []string
+	patch, overlap, polish, workers    int
+	fit, resume, pairs, noAlign, quiet bool
 }
 
 var restoreCmd = &cobra.Command{
@@ -29,8 +30,12 @@ var restoreCmd = &cobra.Command{
 	Long: `restore turns phase-diversity bursts of a whole field into sharp images.
 
 Each burst (a 4-D FITS cube; with --pairs, a focused and a defocused 3-D file
-after each other) is calibrated ((frame − dark)/flat, the flat normalised to
-mean 1), the defocused channel is co-registered to the focused one (the
+after each other) is calibrated as it is read, each camera with its own
+frames ((frame − dark)/flat, the flat normalised to mean 1; --dark, --flat,
+--bad take one file for both cameras or two, camera 1's first; bad pixels,
+given or found as hot in the dark and dead in the flat, and undefined pixels
+are filled from their good neighbours and counted), turned into one
+orientation by the site file's camera geometry, the defocused channel is co-registered to the focused one (the
 sub-pixel offset, measured by cross-correlating the burst means or given with
 --offset, is reported and removed), and the field is cut into
 overlapping patches (--patch, --overlap; defaults from the site file and
@@ -105,8 +110,9 @@ func init() {
 	f.IntVar(&o.overlap, "overlap", -1, "overlap of neighbouring patches, pixels (default: patch/4)")
 	f.IntVar(&o.polish, "polish", 0, "classical optimiser iterations after the learned estimate")
 	f.BoolVar(&o.fit, "fit", false, "full classical fit in every patch instead of the learned estimate")
-	f.StringVar(&o.dark, "dark", "", "dark frame (FITS, 2-D or a stack to average)")
-	f.StringVar(&o.flat, "flat", "", "flat field (FITS, dark-corrected; normalised to mean 1)")
+	f.StringSliceVar(&o.dark, "dark", nil, "dark frame (FITS, 2-D or a stack to average): one for both cameras, or two (camera 1,camera 2)")
+	f.StringSliceVar(&o.flat, "flat", nil, "flat field (FITS, dark-corrected; normalised to mean 1): one for both cameras, or two")
+	f.StringSliceVar(&o.bad, "bad", nil, "bad-pixel map (FITS, nonzero = bad): one for both cameras, or two; \"none\": do not look for hot and dead pixels in the dark and flat (default: look)")
 	f.StringVar(&o.shard, "shard", "", "restore only share i of n of the patches (i/n, 0-based; or \"array\": from SLURM_ARRAY_TASK_ID and _COUNT or _MIN/_MAX) into the part file FILE.part-i-of-n.fits")
 	f.BoolVar(&o.resume, "resume", false, "continue an interrupted run from its journal (FILE.journal)")
 	f.IntVar(&o.workers, "workers", 0, "worker goroutines (default: all cores)")
@@ -139,6 +145,39 @@ func restoreCheckFlags(args []string) error {
 		return err
 	}
 	return exclusive("restore", "--offset", o.offset != "", "--no-align", o.noAlign)
+}
+
+// restoreCalib returns the calibration files of --dark, --flat and --bad:
+// one file serves both cameras, two are camera 1's and camera 2's; --bad
+// none turns off the search for hot and dead pixels.
+func restoreCalib() (restore.CalibFiles, error) {
+	o := restoreFlags
+	var f restore.CalibFiles
+	for _, fl := range []struct {
+		name  string
+		files []string
+		dst   *[2]string
+	}{{"--dark", o.dark, &f.Dark}, {"--flat", o.flat, &f.Flat}, {"--bad", o.bad, &f.Bad}} {
+		if fl.name == "--bad" && len(fl.files) == 1 && fl.files[0] == "none" {
+			f.NoFind = true
+			continue
+		}
+		switch len(fl.files) {
+		case 0:
+		case 1:
+			*fl.dst = [2]string{fl.files[0], fl.files[0]}
+		case 2:
+			*fl.dst = [2]string{fl.files[0], fl.files[1]}
+		default:
+			return f, fmt.Errorf("restore: %s takes one file (both cameras) or two (camera 1,camera 2), got %d", fl.name, len(fl.files))
+		}
+		for _, p := range fl.dst {
+			if p == "" && len(fl.files) > 0 {
+				return f, fmt.Errorf("restore: %s: an empty file name", fl.name)
+			}
+		}
+	}
+	return f, nil
 }
 
 // restoreShard sets the job's shard from --shard ("i/n" or "array"), and
@@ -202,9 +241,13 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return fmt.Errorf("restore: %w", err)
 	}
+	calib, err := restoreCalib()
+	if err != nil {
+		return err
+	}
 	job := &restore.Job{
 		Inputs: args, Pairs: o.pairs, Reading: burstOptions(), Out: o.out, Flags: fl, Overlap: o.overlap,
-		Polish: o.polish, Fit: o.fit, Dark: o.dark, Flat: o.flat, NoAlign: o.noAlign,
+		Polish: o.polish, Fit: o.fit, Calib: calib, NoAlign: o.noAlign,
 		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
 		Command:  "pdwave " + strings.Join(os.Args[1:], " "),
 		SiteFile: o.site, WeightsFile: o.weights,

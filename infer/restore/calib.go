@@ -7,6 +7,7 @@ import (
 	"os"
 
 	"github.com/astrogo/fitsio"
+	"gonum.org/v1/gonum/floats"
 
 	"pdwave/model/fits"
 )
@@ -121,15 +122,18 @@ func ReadFrame(path string) (data []float64, nx, ny int, err error) {
 	if err != nil {
 		return nil, 0, 0, fmt.Errorf("reading %s: %w", path, err)
 	}
+	if len(raw) < nx*ny*nz {
+		return nil, 0, 0, fmt.Errorf("reading %s: %d pixels for axes %v", path, len(raw), axes)
+	}
 	data = make([]float64, nx*ny)
 	for z := 0; z < nz; z++ {
-		for i := range data {
-			v := raw[z*nx*ny+i]
+		plane := raw[z*nx*ny : (z+1)*nx*ny]
+		for i, v := range plane {
 			if math.IsNaN(v) || math.IsInf(v, 0) {
-				return nil, 0, 0, fmt.Errorf("reading %s: non-finite pixel %d", path, i)
+				return nil, 0, 0, fmt.Errorf("reading %s: non-finite pixel (x=%d, y=%d) in frame %d", path, i%nx+1, i/nx+1, z+1)
 			}
-			data[i] += v / float64(nz)
 		}
+		floats.AddScaled(data, 1/float64(nz), plane) // the stack's mean
 	}
 	return data, nx, ny, nil
 }

@@ -47,8 +47,6 @@ type Job struct {
 	Overlap  int       // < 0 = patch/4
 	Polish   int       // classical iterations after the learned estimate
 	Fit      bool      // full classical fit instead of the learned estimate
-	Dark     string    // dark frame FITS; "" = none
-	Flat     string    // flat frame FITS; "" = none
 	NoAlign  bool      // measure but do not remove the channel offset
 	Offset   *Offset   // known channel offset (pixels) instead of measuring; nil = measure
 	Shard    Shard     // share of the patches to restore; zero = all
@@ -63,6 +61,10 @@ type Job struct {
 	Command       string    // command line for the provenance cards
 	SiteFile      string    // the site file Site was read from, if any (checked as an input)
 	WeightsFile   string    // the weight file Model was read from, if any (checked as an input)
+
+	// Calib names each camera's dark, flat and bad-pixel map (applied as
+	// the bursts are read, before the camera geometry); zero = none.
+	Calib CalibFiles
 
 	hashes      map[string]string // content hashes of the files read, by path
 	weightsHash string            // content hash of Model, once computed
@@ -146,7 +148,7 @@ func JournalPath(out string) string { return out + ".journal" }
 // regular files (or folders where folders go), hold inputs, or clash
 // (see internal/outpath).
 func (j *Job) checkPaths(units []unit) error {
-	p := outpath.New("restore").Input(j.Inputs...).Input(j.Dark, j.Flat, j.SiteFile, j.WeightsFile)
+	p := outpath.New("restore").Input(j.Inputs...).Input(j.Calib.Paths()...).Input(j.SiteFile, j.WeightsFile)
 	if len(units) > 1 {
 		p.Dir(j.Out)
 		if !j.Shard.Partial() {
@@ -208,7 +210,13 @@ func (j *Job) Run(ctx context.Context) error {
 			return fmt.Errorf("restore: creating %s: %w", j.Out, err)
 		}
 	}
-	var cal *Calibration
+	cal, err := LoadCalibrations(j.Calib)
+	if err != nil {
+		return err
+	}
+	if cal != nil && j.Log != nil {
+		fmt.Fprintf(j.Log, "restore: bad pixels %s\n", cal.BadSetting())
+	}
 	series := len(units) > 1 && !j.Shard.Partial()
 	for _, u := range units {
 		for _, a := range u.again {
@@ -220,7 +228,7 @@ func (j *Job) Run(ctx context.Context) error {
 		}
 		if (series || j.Resume) && !j.Shard.Partial() && j.done(u, req) {
 			j.logf("restore: %s: already restored from the same inputs and settings; skipped\n", u.out)
-		} else if err := j.unit(ctx, u, &cal, req); err != nil {
+		} else if err := j.unit(ctx, u, cal, req); err != nil {
 			return err
 		}
 		if series {
@@ -235,9 +243,9 @@ func (j *Job) Run(ctx context.Context) error {
 	return nil
 }
 
-// unit restores one burst: it takes the output's lock, reads the burst,
-// makes the calibration on first use (*cal) and restores it.
-func (j *Job) unit(ctx context.Context, u unit, cal **Calibration, req string) error {
+// unit restores one burst: it takes the output's lock, reads the burst
+// (calibrated by cal, nil = none, as it is read) and restores it.
+func (j *Job) unit(ctx context.Context, u unit, cal *Calibrations, req string) error {
 	l, err := j.lock(u.out)
 	if err != nil {
 		return err
@@ -245,55 +253,23 @@ func (j *Job) unit(ctx context.Context, u unit, cal **Calibration, req string) e
 	defer l.Release()
 	var b *burst.Burst
 	inputs := []string{u.a}
+	opt := j.Reading
+	if cal != nil {
+		opt.Calibrate = cal
+	}
 	if u.b != "" {
-		b, err = burst.ReadPairWith(u.a, u.b, j.Reading)
+		b, err = burst.ReadPairWith(u.a, u.b, opt)
 		inputs = append(inputs, u.b)
 	} else {
-		b, err = burst.ReadRef(u.a, j.Reading)
+		b, err = burst.ReadRef(u.a, opt)
 	}
 	if err != nil {
 		return err
 	}
-	if *cal == nil {
-		if *cal, err = j.calibration(b.Nx, b.Ny); err != nil {
-			return err
-		}
-	}
-	if err := j.one(ctx, b, *cal, inputs, u.out, req); err != nil {
+	if err := j.one(ctx, b, cal, inputs, u.out, req); err != nil {
 		return fmt.Errorf("restoring %s: %w", u.name, err)
 	}
 	return nil
-}
-
-func (j *Job) calibration(nx, ny int) (*Calibration, error) {
-	var dark, flat []float64
-	for _, c := range []struct {
-		path string
-		dst  *[]float64
-	}{{j.Dark, &dark}, {j.Flat, &flat}} {
-		if c.path == "" {
-			continue
-		}
-		d, fx, fy, err := ReadFrame(c.path)
-		if err != nil {
-			return nil, err
-		}
-		if fx != nx || fy != ny {
-			return nil, fmt.Errorf("restore: %s is %d×%d, the bursts are %d×%d", c.path, fx, fy, nx, ny)
-		}
-		*c.dst = d
-	}
-	if dark == nil && flat == nil {
-		return nil, nil
-	}
-	cal, err := NewCalibration(nx, ny, dark, flat)
-	if err != nil {
-		return nil, err
-	}
-	if cal.Bad > 0 && j.Log != nil {
-		fmt.Fprintf(j.Log, "restore: %d flat-field pixels at or below 1 %% of the mean given gain 1\n", cal.Bad)
-	}
-	return cal, nil
 }
 
 // Configure returns the fit configuration and wavefront method for a burst
@@ -374,7 +350,7 @@ func (j *Job) lock(out string) (*outpath.Lock, error) {
 }
 
 // one restores one burst into out.
-func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs []string, out, req string) error {
+func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibrations, inputs []string, out, req string) error {
 	t0 := time.Now()
 	cfg, method, err := j.Configure(b.Optics, b.Frames)
 	if err != nil {
@@ -387,7 +363,7 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 	if _, err := NewGrid(b.Nx, b.Ny, cfg.Patch, overlap); err != nil {
 		return err
 	}
-	field, off, err := Prepare(b, cal, &Coreg{Fixed: j.Offset, Fit: &cfg}, !j.NoAlign, j.Workers)
+	field, off, err := Prepare(b, nil, &Coreg{Fixed: j.Offset, Fit: &cfg}, !j.NoAlign, j.Workers)
 	if err != nil {
 		return err
 	}
@@ -431,7 +407,7 @@ func (j *Job) one(ctx context.Context, b *burst.Burst, cal *Calibration, inputs 
 // (command, estimator, sizes, prior, offset and how it was found,
 // calibration, inputs), the header cards of the optics used and the mean
 // image.
-func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Method, overlap int, off Coregistration, field *Field, inputs []string) *Meta {
+func (j *Job) meta(b *burst.Burst, cal *Calibrations, cfg infer.Config, method Method, overlap int, off Coregistration, field *Field, inputs []string) *Meta {
 	settings := map[string]string{
 		"command":   j.Command,
 		"estimator": method.Name,
@@ -448,26 +424,26 @@ func (j *Job) meta(b *burst.Burst, cal *Calibration, cfg infer.Config, method Me
 		"align":     strconv.FormatBool(!j.NoAlign),
 		"offset":    fmt.Sprintf("%.4f,%.4f", off.DX, off.DY),
 		"offset_by": off.Method,
-		"dark":      j.Dark,
-		"flat":      j.Flat,
 		"inputs":    strings.Join(inputs, ","),
 	}
 	if j.ModelFrom != "" && method.Start != nil {
 		settings["weights"] = j.ModelFrom
 	}
+	for k, v := range j.Calib.Settings() {
+		settings[k] = v
+	}
+	if b.Geometry != "" {
+		settings["geometry"] = b.Geometry
+	}
+	settings["masked"] = fmt.Sprintf("%d px in channel 1, %d px in channel 2 (all frames)", b.Masked[0], b.Masked[1])
 	calNote := ""
+	var calCards []fits.Card
 	if cal != nil {
-		var parts []string
-		if cal.Dark != nil {
-			parts = append(parts, "dark "+filepath.Base(j.Dark))
-		}
-		if cal.Gain != nil {
-			parts = append(parts, "flat "+filepath.Base(j.Flat))
-		}
-		calNote = strings.Join(parts, ", ")
+		calNote, calCards = cal.Note(), cal.Cards()
+		settings["bad_pixels"] = cal.BadSetting()
 	}
 	tel := cfg.Telescope
-	cards := append(append([]fits.Card{}, b.Cards...),
+	cards := append(append(append([]fits.Card{}, b.Cards...), calCards...),
 		fits.Card{Key: "WAVELNTH", Value: tel.Wavelength * 1e9, Comment: "wavelength used, nm"},
 		fits.Card{Key: "WAVEUNIT", Value: -9, Comment: "WAVELNTH in units of 10^-9 m"},
 		fits.Card{Key: "TELDIAM", Value: tel.Diameter, Comment: "aperture diameter used, m"},
@@ -537,7 +513,10 @@ func (j *Job) identity(inputs []string, method Method, settings map[string]strin
 	if len(inputs) > 1 {
 		files = append(files, struct{ role, path string }{"defocused", inputs[1]})
 	}
-	files = append(files, []struct{ role, path string }{{"dark", j.Dark}, {"flat", j.Flat}, {"site", j.SiteFile}}...)
+	files = append(files, []struct{ role, path string }{{"site", j.SiteFile}}...)
+	for _, r := range j.Calib.Roles() {
+		files = append(files, struct{ role, path string }{r.Role, r.Path})
+	}
 	for _, f := range files {
 		if f.path == "" {
 			continue
@@ -562,7 +541,7 @@ func (j *Job) identity(inputs []string, method Method, settings map[string]strin
 	id.Settings = map[string]string{}
 	for k, v := range settings {
 		switch k {
-		case "command", "inputs", "dark", "flat", "weights":
+		case "command", "inputs", "dark", "flat", "bad_map", "weights":
 		default:
 			id.Settings[k] = v
 		}

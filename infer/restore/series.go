@@ -29,7 +29,7 @@ const SeriesFile = "series.csv"
 // A product whose summary records the same digest need not be made again.
 func (j *Job) request(u unit) (string, error) {
 	h := sha256.New()
-	for _, p := range []string{u.a, u.b, j.Dark, j.Flat, j.SiteFile} {
+	for _, p := range append(append([]string{u.a, u.b}, j.Calib.Paths()...), j.SiteFile) {
 		s := ""
 		if p != "" {
 			var err error

@@ -23,8 +23,21 @@
 // tile-compression convention are handled by package fits, as are pixels of
 // BITPIX −32, −64, 8, 16, 32 and 64 with BZERO/BSCALE (FITS Standard 4.0
 // §5.3, eq. 3; cameras write unsigned 16-bit data as BITPIX 16 with BZERO
-// = 32768). Undefined pixels (NaN, Inf, BLANK, ZBLANK) are rejected with
-// channel, frame and position. The header of an image in an extension is
+// = 32768). Undefined pixels (NaN, Inf, BLANK, ZBLANK) are filled with the
+// median of their good neighbours and counted (FillUndefined,
+// Burst.Masked, cards PDMASK1/PDMASK2); a frame with more than
+// MaxBadFraction of them is refused with channel and frame.
+//
+// # Camera geometry
+//
+// Options.Geometry (from the site file's geometry section) turns each
+// camera's stored image into one common orientation (Orientation:
+// transpose, quarter turns, flips) and registers channel 2 to channel 1 by
+// a known offset and magnification (resampled: Fourier shift, or Keys
+// cubic convolution with a magnification; see Geometry). It is applied
+// after calibration (Options.Calibrate) and filling, and recorded in the
+// card PDGEOM, a HISTORY line and Burst.Geometry; a header already
+// holding PDGEOM is not turned again. The header of an image in an extension is
 // its own, completed by the primary header's cards for keywords it lacks.
 // Write always writes a 4-D BITPIX −32 primary image.
 //
@@ -136,6 +149,13 @@ type Burst struct {
 	// dropped because they would make an output invalid. Callers show
 	// them as warnings; Write ignores them.
 	Notes []string
+	// Masked counts, per channel over all frames, the pixels the reader
+	// filled: undefined pixels of the file (NaN, Inf, BLANK) and pixels a
+	// Calibrator marked bad (see FillUndefined).
+	Masked [2]int
+	// Geometry is the camera geometry the reader applied
+	// (Geometry.String), "" for none.
+	Geometry string
 }
 
 // New returns a burst with zeroed Data of the given size. It panics if a

@@ -146,15 +146,11 @@ func (p *part) readPixels(units []*fits.Unit) error {
 		p.nx, p.ny, p.axes = ax[0], ax[1], ax
 		n := p.nx * p.ny
 		for c := 0; c < nch; c++ {
-			ch := len(p.data)
 			planes := make([][]float64, frames)
 			for f := range planes {
 				// NAXIS3 (frame) varies faster than NAXIS4 (channel).
 				k := c*frames + f
 				planes[f] = pix[k*n : (k+1)*n : (k+1)*n]
-				if err := checkFinite(planes[f], p.nx); err != nil {
-					return fmt.Errorf("%s frame %d: %w", channelName(ch), f+1, err)
-				}
 			}
 			p.data = append(p.data, planes)
 		}

@@ -25,13 +25,39 @@ type Options struct {
 	HDUs []string
 	// Limits bound the memory one file may take (fits.Limits).
 	Limits fits.Limits
+	// Calibrate, if not nil, calibrates each channel's frames as stored,
+	// before undefined pixels are filled and the geometry applied.
+	Calibrate Calibrator
+	// Geometry turns the channels into one orientation and registers
+	// channel 2 to channel 1 (see Geometry); the zero Geometry changes
+	// nothing. It is applied after calibration and filling, once: a
+	// header holding PDGEOM is already oriented.
+	Geometry Geometry
+}
+
+// finish completes a burst just assembled from its files: calibration
+// (opt.Calibrate), filling of undefined and bad pixels (at most
+// MaxBadFraction of a frame) and the camera geometry (opt.Geometry), in
+// this order.
+// name is the burst's file or files, for errors.
+func (b *Burst) finish(name string, opt Options) (*Burst, error) {
+	if err := b.calibrateAndFill(opt.Calibrate); err != nil {
+		return nil, fmt.Errorf("reading burst %s: %w", name, err)
+	}
+	if err := b.applyGeometry(opt.Geometry); err != nil {
+		return nil, fmt.Errorf("reading burst %s: %w", name, err)
+	}
+	return b, nil
 }
 
 // Read reads the burst in the file at path with the default Options (see
 // the package documentation for the layouts). Errors name the file and the
 // problem: not FITS, truncated, wrong NAXIS, one channel only, zero frames,
 // NaN/Inf or BLANK pixels (with channel and frame), malformed TRUTH/OBJECT
-// extensions. Read never panics on bad input.
+// extensions. Undefined pixels (NaN, Inf, BLANK) are filled
+// (FillUndefined) and counted in Burst.Masked; a frame with more than
+// MaxBadFraction of them is an error naming channel and frame. Read never
+// panics on bad input.
 func Read(path string) (*Burst, error) { return ReadFiles([]string{path}, Options{}) }
 
 // ReadPair reads a burst stored as two one-channel files (NAXIS1 = nx,
@@ -56,7 +82,11 @@ func ReadPairWith(focused, defocused string, opt Options) (*Burst, error) {
 			return nil, fmt.Errorf("reading burst %s %s: this is a two-channel burst (NAXIS4 = 2); read it with Read, not ReadPair", channelName(i), p.path)
 		}
 	}
-	return assemble(parts)
+	b, err := assemble(parts)
+	if err != nil {
+		return nil, err
+	}
+	return b.finish(focused+" + "+defocused, opt)
 }
 
 // ReadFiles reads one burst from one or more files, each read with opt
@@ -74,13 +104,19 @@ func ReadPairWith(focused, defocused string, opt Options) (*Burst, error) {
 // channels the same number of frames; optics keywords given in several
 // files must agree (to 1e-9 relative). The optics are those of the first
 // file filled from the others; Cards and OBJECT come from the first file,
-// TRUTH only from a single file. Errors name the file.
+// TRUTH only from a single file. Errors name the file. The burst is then
+// calibrated, its undefined pixels filled and its geometry applied as opt
+// says (Options.Calibrate, Options.Geometry).
 func ReadFiles(paths []string, opt Options) (*Burst, error) {
 	parts, err := readParts(paths, opt, false)
 	if err != nil {
 		return nil, err
 	}
-	return assemble(parts)
+	b, err := assemble(parts)
+	if err != nil {
+		return nil, err
+	}
+	return b.finish(strings.Join(paths, RefSep), opt)
 }
 
 // part is what one file contributes to a burst.

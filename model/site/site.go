@@ -2,7 +2,7 @@
 // telescope, its seeing, its camera and the working sizes (README "Site
 // file").
 //
-// The file has four sections; units are in the names and every field is
+// The file has four sections and an optional fifth (geometry); units are in the names and every field is
 // documented on the struct below. Unknown fields are errors (a typo must
 // not silently fall back to a default). Missing optional fields take the
 // defaults stated on each field. Example (testdata/demo-site.yaml):
@@ -23,6 +23,9 @@
 //	    - {height_m: 0, weight: 1, wind_m_s: 5, wind_dir_deg: 30}
 //	camera: {frame_interval_s: 0.005, photons_per_pixel: 10000, read_noise_e: 5, bit_depth: 16}
 //	sizes: {patch: 64, frames: 16, modes: 36, basis: kl}
+//	geometry:                    # optional: how each camera stores its image
+//	  focused: {}                # channel 1 as stored: the reference
+//	  defocused: {flip_x: true, rotate_deg: 90, offset_x_px: 0.4, offset_y_px: -1.2, magnification: 1.002}
 package site
 
 import (
@@ -49,6 +52,50 @@ type Site struct {
 	Seeing Seeing        `yaml:"seeing"`    // r0 distribution, outer scale, layers
 	Camera Camera        `yaml:"camera"`    // frame rate, photons, noise
 	Sizes  Sizes         `yaml:"sizes"`     // patch, frames, modes, basis
+	// Geometry is how the cameras store their images; optional (absent:
+	// both channels as stored, registered).
+	Geometry GeometrySpec `yaml:"geometry"`
+}
+
+// GeometrySpec is the "geometry" section: for each camera, the steps that
+// turn its stored image into the common orientation (applied in the order
+// transpose, rotate_deg, flip_x, flip_y, as the image appears with pixel
+// (1, 1) at the bottom left); for the defocused camera also the known
+// registration to the focused one, after its orientation. It is applied
+// when a burst is read (burst.Geometry).
+type GeometrySpec struct {
+	// Focused is channel 1's camera. Default: as stored.
+	Focused CameraOrientation `yaml:"focused"`
+	// Defocused is channel 2's camera. Default: as stored, registered.
+	Defocused DefocusedCamera `yaml:"defocused"`
+}
+
+// CameraOrientation turns one camera's image (see GeometrySpec).
+type CameraOrientation struct {
+	// Transpose exchanges x and y. Default false.
+	Transpose bool `yaml:"transpose"`
+	// RotateDeg turns the image counter-clockwise, degrees: a multiple of
+	// 90 (negative turns clockwise). Default 0.
+	RotateDeg float64 `yaml:"rotate_deg"`
+	// FlipX mirrors the image left–right. Default false.
+	FlipX bool `yaml:"flip_x"`
+	// FlipY mirrors the image top–bottom. Default false.
+	FlipY bool `yaml:"flip_y"`
+}
+
+// DefocusedCamera is the defocused camera: its orientation and its
+// registration to the focused camera after orientation (a scene point at
+// p in channel 1 lies at c + magnification·(p − c) + offset in channel 2,
+// c the frame centre).
+type DefocusedCamera struct {
+	CameraOrientation `yaml:",inline"`
+	// OffsetXPx, OffsetYPx are the displacement of channel 2's image,
+	// pixels, finite, within ±256. Default 0.
+	OffsetXPx float64 `yaml:"offset_x_px"`
+	OffsetYPx float64 `yaml:"offset_y_px"`
+	// Magnification is channel 2's image scale relative to channel 1's,
+	// 0.9 to 1.1. Default 1.
+	Magnification *float64 `yaml:"magnification"`
 }
 
 // TelescopeSpec is the "telescope" section.
@@ -254,6 +301,9 @@ func (s *Site) Validate() error {
 	if err := s.Sizes.validate(); err != nil {
 		return err
 	}
+	if err := s.Geometry.validate(); err != nil {
+		return err
+	}
 	tel := s.Telescope()
 	if err := tel.Validate(); err != nil {
 		return err
@@ -427,6 +477,48 @@ func (z *Sizes) validate() error {
 	}
 	z.Basis = k
 	return nil
+}
+
+// validate checks the geometry: rotations finite multiples of 90°
+// (within ±3600°), offsets finite within ±burst.MaxGeomOffset px, a
+// magnification in [burst.MinMagnification, burst.MaxMagnification].
+func (g *GeometrySpec) validate() error {
+	for _, c := range []struct {
+		name string
+		o    CameraOrientation
+	}{{"geometry.focused", g.Focused}, {"geometry.defocused", g.Defocused.CameraOrientation}} {
+		if r := c.o.RotateDeg; !finite(r) || math.Abs(r) > 3600 || math.Mod(r, 90) != 0 {
+			return fmt.Errorf("%s.rotate_deg: must be a multiple of 90 (counter-clockwise, degrees), got %g", c.name, r)
+		}
+	}
+	for _, c := range []struct {
+		name string
+		v    float64
+	}{{"offset_x_px", g.Defocused.OffsetXPx}, {"offset_y_px", g.Defocused.OffsetYPx}} {
+		if !finite(c.v) || math.Abs(c.v) > burst.MaxGeomOffset {
+			return fmt.Errorf("geometry.defocused.%s: must be a finite number of pixels within ±%g, got %g", c.name, burst.MaxGeomOffset, c.v)
+		}
+	}
+	if m := g.Defocused.Magnification; m != nil && !(*m >= burst.MinMagnification && *m <= burst.MaxMagnification) {
+		return fmt.Errorf("geometry.defocused.magnification: must be %g to %g (channel 2's image scale relative to channel 1's), got %g", burst.MinMagnification, burst.MaxMagnification, *m)
+	}
+	return nil
+}
+
+// CameraGeometry returns the geometry section as the burst reader applies
+// it (burst.Options.Geometry); the zero Geometry when the section is
+// absent.
+func (s *Site) CameraGeometry() burst.Geometry {
+	o := func(c CameraOrientation) burst.Orientation {
+		return burst.Orientation{Transpose: c.Transpose, RotateDeg: int(c.RotateDeg), FlipX: c.FlipX, FlipY: c.FlipY}
+	}
+	d := s.Geometry.Defocused
+	g := burst.Geometry{Channel: [2]burst.Orientation{o(s.Geometry.Focused), o(d.CameraOrientation)},
+		OffsetX: d.OffsetXPx, OffsetY: d.OffsetYPx}
+	if d.Magnification != nil {
+		g.Magnification = *d.Magnification
+	}
+	return g
 }
 
 // arcsec is one arcsecond in radians.

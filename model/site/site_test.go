@@ -226,6 +226,14 @@ func TestBadYAML(t *testing.T) {
 		{"two documents", string(demo) + "\n---\nsizes: {}\n", "more than one"},
 		{"not a map", "- 1\n- 2\n", "cannot unmarshal"},
 		{"tabs", "telescope:\n\tdiameter_m: 1\n", "yaml"},
+		{"geometry 45°", string(demo) + "\ngeometry: {defocused: {rotate_deg: 45}}\n", "geometry.defocused.rotate_deg: must be a multiple of 90"},
+		{"geometry focused rotation", string(demo) + "\ngeometry: {focused: {rotate_deg: 90.5}}\n", "geometry.focused.rotate_deg"},
+		{"geometry NaN offset", string(demo) + "\ngeometry: {defocused: {offset_x_px: .nan}}\n", "geometry.defocused.offset_x_px"},
+		{"geometry huge offset", string(demo) + "\ngeometry: {defocused: {offset_y_px: 1000}}\n", "geometry.defocused.offset_y_px"},
+		{"geometry magnification", string(demo) + "\ngeometry: {defocused: {magnification: 1.5}}\n", "geometry.defocused.magnification: must be 0.9 to 1.1"},
+		{"geometry magnification 0", string(demo) + "\ngeometry: {defocused: {magnification: 0}}\n", "geometry.defocused.magnification"},
+		{"geometry offset for focused", string(demo) + "\ngeometry: {focused: {offset_x_px: 1}}\n", "field offset_x_px not found"},
+		{"geometry typo", string(demo) + "\ngeometry: {defocused: {flipx: true}}\n", "field flipx not found"},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -237,6 +245,33 @@ func TestBadYAML(t *testing.T) {
 				t.Errorf("error %q does not mention %q", err, tc.want)
 			}
 		})
+	}
+}
+
+// TestGeometry: the geometry section becomes the reader's burst.Geometry;
+// absent, it is the identity.
+func TestGeometry(t *testing.T) {
+	demo, err := os.ReadFile(demoPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s, err := Parse(demo)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !s.CameraGeometry().Identity() {
+		t.Errorf("no geometry section: %v", s.CameraGeometry())
+	}
+	s, err = Parse(append(demo, "\ngeometry:\n  focused: {flip_y: true}\n  defocused: {transpose: true, rotate_deg: -90, flip_x: true, offset_x_px: 0.4, offset_y_px: -1.25, magnification: 1.002}\n"...))
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := s.CameraGeometry()
+	if err := g.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	if got, want := g.String(), "1:FY 2:T,R270,FX dx=0.4 dy=-1.25 m=1.002"; got != want {
+		t.Errorf("geometry %s, want %s", got, want)
 	}
 }
 
