@@ -13,6 +13,14 @@
 //	L(α) = Σ_u M(u) [ Σ_jk |D_jk|² − |Σ_jk D_jk* S_jk|² / (γ + Σ_jk |S_jk|²) ]
 //	F̂    = Σ_jk D_jk S_jk* / (γ + Σ_jk |S_jk|²)
 //
+// With Settings.HighPass, d_jk in the metric L is the image minus its
+// normalised Gaussian blur (1 − G is shift invariant, so the high-passed
+// images are images of the high-passed object and the model holds for
+// them), while F̂ for Restore is formed from the unfiltered images: the
+// high-pass removes the scene's large-scale structure, whose leakage
+// through the window (w·(o⊗s) ≠ (w·o)⊗s at the taper) is otherwise the
+// largest model error on smooth or strongly structured scenes.
+//
 // (the Gonsalves metric with the object eliminated, generalised to many
 // frames by Paxman et al. 1992 and Löfdahl & Scharmer 1994). M is the noise mask: frequencies inside the diffraction
 // cut-off where the data power clearly exceeds the noise floor measured

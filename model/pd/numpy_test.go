@@ -24,6 +24,7 @@ type numpyCase struct {
 	NoiseFilter    bool          `json:"noise_filter"`
 	NoiseThreshold float64       `json:"noise_threshold"`
 	Window         float64       `json:"window"`
+	HighPass       float64       `json:"high_pass"`
 	PriorWeight    float64       `json:"prior_weight"`
 	InvVar         []float64     `json:"inv_var"`
 	TiltConstrain  bool          `json:"tilt_constrain"`
@@ -95,6 +96,10 @@ func TestAgainstNumpy(t *testing.T) {
 		{"zernike-25-3ch-filter", 25, 3, modes.KindZernike, 6, []float64{0, 1, -0.6},
 			Settings{Gamma: 1e-3, NoiseFilter: true, NoiseThreshold: 2, FitChannelOffset: true}},
 		{"kl-24-plain", 24, 2, modes.KindKL, 8, []float64{0, 0.8}, Settings{}},
+		{"kl-24-highpass", 24, 3, modes.KindKL, 8, []float64{0, 1},
+			Settings{Gamma: 1e-3, PriorWeight: 0.02, NoiseFilter: true, TiltConstrain: true, Window: 0.25, HighPass: 1.0 / 16}},
+		{"zernike-25-highpass-wide", 25, 2, modes.KindZernike, 6, []float64{0, 1},
+			Settings{Gamma: 1e-3, HighPass: 0.2, FitChannelOffset: true}},
 	}
 	for ci, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -132,7 +137,7 @@ func numpyInput(s *Objective, pr *problem, alpha []float64) *numpyCase {
 	c := &numpyCase{
 		N: n, Frames: frames, Channels: nch, Modes: count, Radius: pr.pupil.Radius,
 		Gamma: set.Gamma, NoiseFilter: set.NoiseFilter, NoiseThreshold: set.NoiseThreshold,
-		Window: set.Window, PriorWeight: set.PriorWeight, InvVar: s.invVar,
+		Window: set.Window, HighPass: set.HighPass, PriorWeight: set.PriorWeight, InvVar: s.invVar,
 		TiltConstrain: set.TiltConstrain, TiltDirs: tiltDirections(pr.basis),
 		FitOffset: set.FitChannelOffset, PupilAmp: pr.pupil.Amp, ModesGrid: pr.basis.Modes,
 		Data: pr.data, Alpha: alpha,

@@ -62,6 +62,19 @@ type Settings struct {
 	// image motion), so removing it costs the metric little. Restore adds
 	// the mean plane back.
 	Detrend bool
+	// HighPass, when > 0, is the standard deviation, as a fraction of the
+	// patch side, of a Gaussian blur subtracted from every image before
+	// the trend and the window, for the metric only (the object estimate
+	// of Restore uses the unfiltered images). The filter is shift
+	// invariant, so the high-passed images are images of the high-passed
+	// object and the model is unchanged; what it removes is the scene's
+	// large-scale structure, whose leakage through the window (the
+	// product w·(o⊗s) is not (w·o)⊗s near the taper) dominates the model
+	// error on smooth or strongly structured scenes. Those frequencies
+	// (below about 1/(2π·HighPass) cycles per patch side) carry little
+	// phase information. 0 disables it; negative values panic in
+	// NewObjective.
+	HighPass float64
 }
 
 // Objective evaluates the phase-diversity objective for one patch size, basis,
@@ -89,7 +102,10 @@ type Objective struct {
 	hasData      bool
 	mask         []int          // frequency indices in the metric
 	filt         []float64      // restoration filter at mask
-	dm           [][]complex128 // [nimg][len(mask)] data spectra at mask
+	dm           [][]complex128 // [nimg][len(mask)] data spectra at mask (high-passed with Settings.HighPass)
+	hp           *highPass      // nil without Settings.HighPass
+	hf           [][]complex128 // [nimg][N²] high-passed spectra (HighPass only)
+	dmRaw        [][]complex128 // [nimg][len(mask)] unfiltered data spectra at mask (HighPass only), for Restore
 	dpow         float64        // Σ_u M Σ_jk |D|²
 	norm         float64        // dpow / nimg
 	level        float64        // mean data level, added back by Restore
@@ -173,6 +189,9 @@ func NewObjective(pupil *optics.Pupil, basis *modes.Basis, diversity [][]float64
 func withDefaults(s Settings, channels int) Settings {
 	if s.PriorWeight < 0 || math.IsNaN(s.PriorWeight) {
 		panic(fmt.Sprintf("pd: negative prior weight %g", s.PriorWeight))
+	}
+	if s.HighPass < 0 || math.IsNaN(s.HighPass) || math.IsInf(s.HighPass, 0) {
+		panic(fmt.Sprintf("pd: high-pass width %g is not a fraction ≥ 0", s.HighPass))
 	}
 	if s.FitChannelOffset && channels < 2 {
 		panic("pd: FitChannelOffset needs at least two channels")
@@ -273,6 +292,15 @@ func (s *Objective) allocBuffers() {
 	}
 	s.fhat = make([]complex128, maxMask)
 	s.bden = make([]float64, maxMask)
+	if s.set.HighPass > 0 {
+		s.hp = newHighPass(n, s.set.HighPass*float64(n))
+		s.hf = make([][]complex128, s.nimg)
+		s.dmRaw = make([][]complex128, s.nimg)
+		for i := range s.hf {
+			s.hf[i] = make([]complex128, npix)
+			s.dmRaw[i] = make([]complex128, 0, maxMask)
+		}
+	}
 }
 
 // initOffsets draws the shift ramps at the pupil pixels and sizes the
@@ -546,12 +574,15 @@ func (s *Objective) SetData(data [][][]float64) error {
 	}
 	s.dpow = 0
 	for i := range s.dm {
-		spec := s.h[i]
-		s.dm[i] = s.dm[i][:len(s.mask)]
-		for q, u := range s.mask {
-			// Exact Hermitian symmetry at the mask.
-			z := 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
-			s.dm[i][q] = z
+		if s.hp == nil {
+			s.dm[i] = s.atMask(s.dm[i], s.h[i])
+			continue
+		}
+		s.dm[i] = s.atMask(s.dm[i], s.hf[i])
+		s.dmRaw[i] = s.atMask(s.dmRaw[i], s.h[i])
+	}
+	for _, d := range s.dm {
+		for _, z := range d {
 			s.dpow += real(z)*real(z) + imag(z)*imag(z)
 		}
 	}
@@ -561,6 +592,16 @@ func (s *Objective) SetData(data [][][]float64) error {
 	s.norm = s.dpow / float64(s.nimg)
 	s.hasData = true
 	return nil
+}
+
+// atMask returns dst[:0] filled with spec at the mask, made exactly
+// Hermitian.
+func (s *Objective) atMask(dst, spec []complex128) []complex128 {
+	dst = dst[:len(s.mask)]
+	for q, u := range s.mask {
+		dst[q] = 0.5 * (spec[u] + cmplx.Conj(spec[s.neg[u]]))
+	}
+	return dst
 }
 
 // checkData returns an error naming the first wrong size or non-finite
@@ -637,7 +678,8 @@ func (s *Objective) trend(im []float64) (m, bx, by float64) {
 // spectra stores the spectra of the windowed images, their mean (or, with
 // Detrend, their plane) subtracted, in s.h (used here as scratch), their
 // summed power in s.pw, the mean level in s.level and the mean slopes in
-// s.slope.
+// s.slope; with HighPass, the spectra of the high-passed images, treated
+// alike, in s.hf.
 func (s *Objective) spectra(data [][][]float64) {
 	clear(s.pw)
 	var level, sx, sy float64
@@ -649,18 +691,28 @@ func (s *Objective) spectra(data [][][]float64) {
 			sx += bx
 			sy += by
 			buf := s.h[j*s.nch+k]
-			for p, v := range im {
-				buf[p] = complex(s.win[p]*(v-m-bx*s.wx[p]-by*s.wy[p]), 0)
-			}
-			s.plan.Forward(buf, buf)
+			s.windowed(buf, im, m, bx, by)
 			for u, z := range buf {
 				s.pw[u] += real(z)*real(z) + imag(z)*imag(z)
+			}
+			if s.hp != nil {
+				f := s.hp.apply(im)
+				m, bx, by := s.trend(f)
+				s.windowed(s.hf[j*s.nch+k], f, m, bx, by)
 			}
 		}
 	}
 	inv := 1 / float64(s.nimg)
 	s.level = level * inv
 	s.slope = [2]float64{sx * inv, sy * inv}
+}
+
+// windowed stores in dst the spectrum of w·(im − m − bx·x − by·y).
+func (s *Objective) windowed(dst []complex128, im []float64, m, bx, by float64) {
+	for p, v := range im {
+		dst[p] = complex(s.win[p]*(v-m-bx*s.wx[p]-by*s.wy[p]), 0)
+	}
+	s.plan.Forward(dst, dst)
 }
 
 // measureNoise sets s.noise, the mean power per image beyond the cut-off
@@ -846,6 +898,13 @@ func (s *Objective) maskedOTFs() {
 // estimate forms A = Σ D* S (stored conjugated in fhat), B = γ + Σ|S|²,
 // then F̂ = conj(A)/B in fhat, and returns L = Σ|D|² − Σ|A|²/B.
 func (s *Objective) estimate() float64 {
+	return s.estimateFrom(s.dm)
+}
+
+// estimateFrom sets s.fhat and s.bden from the data spectra dm (at the
+// mask) and the current OTFs, and returns Σ_u M Σ|D|² minus the explained
+// power (meaningful for dm = s.dm only).
+func (s *Objective) estimateFrom(dm [][]complex128) float64 {
 	nm := len(s.mask)
 	fh := s.fhat[:nm]
 	bd := s.bden[:nm]
@@ -854,7 +913,7 @@ func (s *Objective) estimate() float64 {
 		bd[q] = s.gamma
 	}
 	for i := 0; i < s.nimg; i++ {
-		d, sm := s.dm[i], s.sm[i][:nm]
+		d, sm := dm[i], s.sm[i][:nm]
 		for q := range fh {
 			z := sm[q]
 			fh[q] += d[q] * cmplx.Conj(z) // Σ D S* = conj(A)
@@ -1046,6 +1105,9 @@ func (s *Objective) Restore(dst, alpha []float64) {
 	}
 	s.load(alpha, "Restore")
 	s.otfs()
+	if s.hp != nil {
+		s.estimateFrom(s.dmRaw)
+	}
 	clear(s.work)
 	for q, u := range s.mask {
 		s.work[u] = s.fhat[q] * complex(s.filt[q], 0)

@@ -39,6 +39,16 @@ def window(n, frac):
     return np.outer(w1, w1)
 
 
+def blur_matrix(n, sigma):
+    """Row-normalised truncated Gaussian (3 sigma, at most n-1 px): B @ d @ B.T
+    is the normalised convolution of d within the patch."""
+    r = min(int(np.ceil(3 * sigma)), n - 1)
+    i = np.arange(n)
+    d = i[:, None] - i[None, :]
+    k = np.where(np.abs(d) <= r, np.exp(-0.5 * d * d / sigma**2), 0.0)
+    return k / k.sum(axis=1, keepdims=True)
+
+
 def signed(n):
     """Signed DFT frequencies, index >= (n+1)//2 negative."""
     k = np.arange(n)
@@ -73,6 +83,9 @@ class Case:
         data = np.array(c["data"], float).reshape(self.nch, self.frames, n, n)
         win = window(n, c["window"])
         spec = np.empty((self.nimg, n, n), complex)
+        hps = c.get("high_pass", 0.0)
+        hspec = np.empty((self.nimg, n, n), complex)
+        bm = blur_matrix(n, hps * n) if hps > 0 else None
         levels = []
         for j in range(self.frames):
             for k in range(self.nch):
@@ -80,6 +93,10 @@ class Case:
                 m = (win * d).sum() / win.sum()
                 levels.append(m)
                 spec[j * self.nch + k] = np.fft.fft2(win * (d - m))
+                if bm is not None:
+                    f = d - bm @ d @ bm.T
+                    mf = (win * f).sum() / win.sum()
+                    hspec[j * self.nch + k] = np.fft.fft2(win * (f - mf))
         self.level = float(np.mean(levels))
         pw = (np.abs(spec) ** 2).sum(axis=0)
         fy, fx = np.meshgrid(signed(n), signed(n), indexing="ij")
@@ -103,7 +120,10 @@ class Case:
             filt = np.ones((n, n))
         self.mask = np.flatnonzero(keep.ravel())
         self.filt = filt.ravel()[self.mask]
-        self.dm = spec.reshape(self.nimg, -1)[:, self.mask]
+        # The metric sees the high-passed spectra, the object estimate of
+        # the restoration the raw ones.
+        self.draw = spec.reshape(self.nimg, -1)[:, self.mask]
+        self.dm = self.draw if bm is None else hspec.reshape(self.nimg, -1)[:, self.mask]
         self.dpow = float((np.abs(self.dm) ** 2).sum())
         self.pbar = self.dpow / self.nimg
 
@@ -168,7 +188,7 @@ class Case:
                 goff[2 * (k - 1) + 1] += (gphi * self.ry).sum()
         gA += self.w * ap.reshape(self.frames, self.count) * self.inv_var
         grad = np.concatenate([self.project(gA.ravel()), goff])
-        F = (self.dm * np.conj(Sm)).sum(axis=0) / B
+        F = (self.draw * np.conj(Sm)).sum(axis=0) / B
         full = np.zeros(n * n, complex)
         full[self.mask] = F * self.filt
         rest = np.real(np.fft.ifft2(full.reshape(n, n))).ravel() + self.level
