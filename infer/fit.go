@@ -59,7 +59,7 @@ type Config struct {
 	// normalised by the data power (pd.Settings.PriorWeight); 0 = none.
 	Prior float64
 	// Metric holds the remaining metric settings; its PriorWeight is
-	// replaced by Prior.
+	// replaced by Prior and its HighPassSeeing by DOverR0.
 	Metric pd.Settings
 	Stop   Stop // when the optimiser stops
 	// RegisterTilt starts fits from zero with the tip/tilt of each frame
@@ -79,7 +79,8 @@ type Config struct {
 // DefaultConfig returns the fit's defaults: 64 px patches, 16 frames, 36
 // KL modes, D/r0 = 5, prior weight 0.001, window taper 0.25 with the plane
 // removed (pd.Settings.Detrend), the metric on images high-passed with a
-// Gaussian of 1/16 of the patch side (pd.Settings.HighPass), noise
+// Gaussian of 1/16 of the patch side, at least 0.4·λ/r0 for the
+// configured D/r0 (pd.Settings.HighPass, HighPassSeeing), noise
 // filter, tilt constraint, 1 wave of defocus in channel 1, 200 iterations
 // or 1e-6 relative change, and the guard at PriorChi2 1.8. The telescope
 // must still be filled in.
@@ -104,7 +105,12 @@ type Config struct {
 // (brick 0.126, camera 0.067, granulation 0.035), and an empirical-Bayes
 // prior weight re-estimated from the metric's excess over its noise-only
 // expectation (three times that weight: brick 0.136, others within
-// 0.005, at twice the cost). The guard: fitted PriorChi2 was 0.2–0.95 on
+// 0.005, at twice the cost). The seeing floor of the width, from
+// 8 bursts per scene at D/r0 = 7 / 10 (median Noll 2–10, granulation and
+// the five real scenes pooled): no high-pass 0.096, 0.19 / 0.31, 0.43;
+// σ = 4 px 0.15, 0.18 / 0.40, 0.51; with the floor (σ = 5.8 / 8.2 px)
+// 0.13, 0.15 / 0.34, 0.38. At D/r0 = 2 σ = 1.6 or 4 px were alike
+// (granulation 0.019, real 0.025 / 0.024; none: 0.029, 0.083). The guard: fitted PriorChi2 was 0.2–0.95 on
 // 35 of 36 bursts (previous defaults) and 2.1 on the one whose error
 // exceeded the wavefront (4.7).
 func DefaultConfig() Config {
@@ -228,6 +234,7 @@ func NewFitter(cfg Config) (*Fitter, error) {
 	f := &Fitter{cfg: cfg, pupil: bt.Pupil, basis: bt.Basis, div: bt.Diversity,
 		chiVar: bt.Variance, scale: bt.Scale}
 	f.cfg.Metric.PriorWeight = cfg.Prior
+	f.cfg.Metric.HighPassSeeing = cfg.DOverR0
 	f.tiltX, f.tiltY = tiltPerPixel(bt.Basis)
 	for k, pv := range cfg.Diversity {
 		if math.Abs(pv) < math.Abs(cfg.Diversity[f.refCh]) {

@@ -110,6 +110,7 @@ func newProblem(s Setup, priorWeight, gamma float64) (*problem, error) {
 		settings: pd.DefaultSettings(),
 	}
 	p.settings.PriorWeight, p.settings.Gamma = priorWeight, gamma // the fit's objective, with the run's weights
+	p.settings.HighPassSeeing = s.DOverR0
 	if bt.Basis.ToNoll != nil {
 		var inv mat.Dense
 		if err := inv.Inverse(bt.Basis.ToNoll); err != nil {

@@ -59,7 +59,7 @@ func TestSlurmScripts(t *testing.T) {
 	for task := 0; task < 2; task++ {
 		env := []string{"SLURM_ARRAY_TASK_ID=" + string(rune('0'+task)), "SLURM_ARRAY_TASK_COUNT=2"}
 		for k := 0; k < 6; k++ {
-			sig, delay := syscall.SIGKILL, time.Duration(float64(clean)*(0.05+0.5*rng.Float64()))
+			sig, delay := syscall.SIGKILL, time.Duration(float64(clean)*(0.03+0.35*rng.Float64()))
 			if k == 5 {
 				sig = syscall.SIGTERM
 			}

@@ -91,6 +91,7 @@ func (p *FieldSetup) NewEngine() (Engine, error) {
 	cfg := p.Config
 	set := cfg.Metric
 	set.PriorWeight = cfg.Prior
+	set.HighPassSeeing = cfg.DOverR0
 	set.Window = TileWindow
 	s := pd.NewObjective(p.full.Pupil(), p.full.Basis(), p.div, cfg.Frames, set)
 	s.SetPrior(p.sigma2)

@@ -75,6 +75,15 @@ type Settings struct {
 	// phase information. 0 disables it; negative values panic in
 	// NewObjective.
 	HighPass float64
+	// HighPassSeeing is the D/r0 the fit expects; with HighPass > 0 it
+	// sets a floor on the Gaussian's width: σ ≥ 0.4·λ/r0 =
+	// 0.4·(D/r0)·N/(2R) pixels (R the pupil radius in pixels on the N
+	// grid, so N/(2R) is λ/D in pixels). In poorer seeing the phase
+	// information moves to lower frequencies (the seeing-limited transfer
+	// reaches about r0/λ), and the filter's cut-off, about 1/(2πσ),
+	// follows it down to 0.4 of that frequency. 0 sets no floor;
+	// negative values panic in NewObjective.
+	HighPassSeeing float64
 }
 
 // Objective evaluates the phase-diversity objective for one patch size, basis,
@@ -193,6 +202,9 @@ func withDefaults(s Settings, channels int) Settings {
 	if s.HighPass < 0 || math.IsNaN(s.HighPass) || math.IsInf(s.HighPass, 0) {
 		panic(fmt.Sprintf("pd: high-pass width %g is not a fraction ≥ 0", s.HighPass))
 	}
+	if s.HighPassSeeing < 0 || math.IsNaN(s.HighPassSeeing) || math.IsInf(s.HighPassSeeing, 0) {
+		panic(fmt.Sprintf("pd: high-pass seeing D/r0 %g is not ≥ 0", s.HighPassSeeing))
+	}
 	if s.FitChannelOffset && channels < 2 {
 		panic("pd: FitChannelOffset needs at least two channels")
 	}
@@ -293,7 +305,7 @@ func (s *Objective) allocBuffers() {
 	s.fhat = make([]complex128, maxMask)
 	s.bden = make([]float64, maxMask)
 	if s.set.HighPass > 0 {
-		s.hp = newHighPass(n, s.set.HighPass*float64(n))
+		s.hp = newHighPass(n, s.HighPassWidth())
 		s.hf = make([][]complex128, s.nimg)
 		s.dmRaw = make([][]complex128, s.nimg)
 		for i := range s.hf {
@@ -335,6 +347,17 @@ func (s *Objective) freqRadius(y, x int) float64 {
 		fx -= n
 	}
 	return math.Hypot(float64(fy), float64(fx))
+}
+
+// HighPassWidth returns the standard deviation in pixels of the Gaussian
+// whose blur the metric's images lose (Settings.HighPass with the seeing
+// floor of Settings.HighPassSeeing), 0 without the high-pass.
+func (s *Objective) HighPassWidth() float64 {
+	if s.set.HighPass <= 0 {
+		return 0
+	}
+	floor := 0.4 * s.set.HighPassSeeing * float64(s.n) / s.cutoff // cutoff = 2R
+	return math.Max(s.set.HighPass*float64(s.n), floor)
 }
 
 // Size returns the patch side, number of frames, channels and modes.
