@@ -254,6 +254,7 @@ func (j *Job) unit(ctx context.Context, u unit, cal *Calibrations, req string) e
 	var b *burst.Burst
 	inputs := []string{u.a}
 	opt := j.Reading
+	opt.Float32 = true // the field held once, as float32 (Field.Data)
 	if cal != nil {
 		opt.Calibrate = cal
 	}
