@@ -10,6 +10,7 @@ import (
 
 	"pdwave/internal/atomicfile"
 	"pdwave/internal/outpath"
+	"pdwave/model/burst"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/net"
@@ -458,7 +459,7 @@ func (j *Job) source(sim *simulate.Simulator, st *site.Site, setup Setup) (Sourc
 		return nil, err
 	}
 	if j.Data != "" {
-		return NewFolderSource(j.Data, setup.Patch, setup.Frames, j.Seed)
+		return NewFolderSourceWith(j.Data, setup.Patch, setup.Frames, j.Seed, burst.Options{Geometry: st.CameraGeometry()})
 	}
 	raw, err := NewSimSource(sim, setup, j.Seed, j.data.r0Draw(st))
 	if err != nil {

@@ -58,15 +58,24 @@ type FolderSource struct {
 	Files         []string
 	Patch, Frames int
 	Seed          uint64
+	// Reading says how the bursts are read (image HDUs, the site's
+	// camera geometry, as every command reading bursts applies it).
+	Reading burst.Options
 
 	mu    sync.Mutex
 	cache map[string]*burst.Burst
 }
 
 // NewFolderSource lists the FITS files of dir (burst.IsFITSName: plain,
-// tile- or gzip-compressed). It returns an
-// error if there is none.
+// tile- or gzip-compressed), read with the default burst.Options. It
+// returns an error if there is none.
 func NewFolderSource(dir string, patch, frames int, seed uint64) (*FolderSource, error) {
+	return NewFolderSourceWith(dir, patch, frames, seed, burst.Options{})
+}
+
+// NewFolderSourceWith is NewFolderSource reading the bursts with opt (the
+// site's camera geometry: site.Site.CameraGeometry).
+func NewFolderSourceWith(dir string, patch, frames int, seed uint64, opt burst.Options) (*FolderSource, error) {
 	ents, err := os.ReadDir(dir)
 	if err != nil {
 		return nil, fmt.Errorf("reading burst folder: %w", err)
@@ -81,7 +90,7 @@ func NewFolderSource(dir string, patch, frames int, seed uint64) (*FolderSource,
 		return nil, fmt.Errorf("burst folder %s holds no FITS files (%s)", dir, strings.Join(burst.FileExts, ", "))
 	}
 	sort.Strings(files)
-	s := &FolderSource{Files: files, Patch: patch, Frames: frames, Seed: seed, cache: map[string]*burst.Burst{}}
+	s := &FolderSource{Files: files, Patch: patch, Frames: frames, Seed: seed, Reading: opt, cache: map[string]*burst.Burst{}}
 	// The first file is read now, so that a folder of the wrong kind of
 	// bursts is reported before any output is written.
 	if _, err := s.read(files[0]); err != nil {
@@ -96,7 +105,7 @@ func (s *FolderSource) read(path string) (*burst.Burst, error) {
 	if b, ok := s.cache[path]; ok {
 		return b, nil
 	}
-	b, err := burst.Read(path)
+	b, err := burst.ReadFiles([]string{path}, s.Reading)
 	if err != nil {
 		return nil, err
 	}

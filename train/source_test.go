@@ -147,6 +147,47 @@ func TestFolderSource(t *testing.T) {
 	}
 }
 
+// TestFolderSourceGeometry: a folder's bursts are read with the site's
+// camera geometry (here both cameras stored transposed), as the other
+// commands read them. Planted: the folder read with burst.Read (no
+// options) fails.
+func TestFolderSourceGeometry(t *testing.T) {
+	dir := t.TempDir()
+	const nx, ny = 20, 18
+	b := burst.New(nx, ny, 3)
+	for c := 0; c < 2; c++ {
+		for f := 0; f < 3; f++ {
+			for k := range b.Data[c][f] {
+				b.Data[c][f][k] = float64(c*100000 + f*1000 + k)
+			}
+		}
+	}
+	if err := burst.Write(filepath.Join(dir, "a.fits"), b, nil); err != nil {
+		t.Fatal(err)
+	}
+	g := burst.Geometry{Channel: [2]burst.Orientation{{Transpose: true}, {Transpose: true}}}
+	src, err := NewFolderSourceWith(dir, 16, 3, 1, burst.Options{Geometry: g})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := src.read(src.Files[0])
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Nx != ny || got.Ny != nx || got.Geometry == "" {
+		t.Fatalf("read as %d×%d with geometry %q, want %d×%d transposed", got.Nx, got.Ny, got.Geometry, ny, nx)
+	}
+	for c := 0; c < 2; c++ {
+		for y := 0; y < got.Ny; y++ {
+			for x := 0; x < got.Nx; x++ {
+				if v, w := got.Data[c][2][y*got.Nx+x], b.Data[c][2][x*nx+y]; v != w {
+					t.Fatalf("channel %d pixel (%d, %d) = %v, stored (%d, %d) = %v", c, x, y, v, y, x, w)
+				}
+			}
+		}
+	}
+}
+
 // TestFromSite checks the setup and simulator configuration of the demo
 // site: one instrument in both (the --modes override included), and the
 // median D/r0 that of the site's r0 at 600 nm, r0 = 0.08 m·(600/500)^(6/5)

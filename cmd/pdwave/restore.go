@@ -252,6 +252,9 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 		Command:  "pdwave " + strings.Join(os.Args[1:], " "),
 		SiteFile: o.site, WeightsFile: o.weights,
 	}
+	if os.Getenv("GOGC") == "" {
+		job.GCHeadroom = restoreGCHeadroom
+	}
 	if !o.quiet {
 		w, terminal := progress.Stderr()
 		job.Progress = w
@@ -284,6 +287,14 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	}
 	return err
 }
+
+// restoreGCHeadroom is the garbage restore lets the collector keep
+// (restore.Job.GCHeadroom): the field is held once, and the default
+// collector would let garbage grow to its size again. Measured on a
+// simulated 1024² × 16 × 2 burst: the wall time is unchanged within the
+// machine's noise (the field's float32 frames hold no pointers, so a
+// collection does not scan them).
+const restoreGCHeadroom = 64 << 20
 
 // restoreLogEvery is how often restore logs a progress line when standard
 // error is not a terminal.

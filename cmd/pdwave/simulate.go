@@ -155,7 +155,7 @@ func simulateRun(cmd *cobra.Command, _ []string) error {
 	for i := 1; i <= o.bursts; i++ {
 		rng := rand.New(rand.NewPCG(o.seed, uint64(i)))
 		opts.R0 = st.DrawR0(rng)
-		msg, err := o.burst(sim, notes, i, rng, opts)
+		msg, err := o.burst(sim, notes, i, rng, opts, st.CameraGeometry())
 		if err != nil {
 			return err
 		}
@@ -229,8 +229,11 @@ func (o simulateFlags) options() (simulate.Options, error) {
 }
 
 // burst simulates burst i from rng with opts, writes it (and with
-// --screens its screens) and returns the line to print.
-func (o simulateFlags) burst(sim *simulate.Simulator, notes instrument.Notes, i int, rng *rand.Rand, opts simulate.Options) (string, error) {
+// --screens its screens) and returns the line to print. The simulated
+// channels are in the common orientation of the site's camera geometry
+// geom: a geometry that is not the identity is recorded as the card PDGEOM,
+// so a reader given the same site does not turn them again.
+func (o simulateFlags) burst(sim *simulate.Simulator, notes instrument.Notes, i int, rng *rand.Rand, opts simulate.Options, geom burst.Geometry) (string, error) {
 	kind := "patch"
 	var res *simulate.Result
 	var err error
@@ -245,6 +248,9 @@ func (o simulateFlags) burst(sim *simulate.Simulator, notes instrument.Notes, i 
 	}
 	b, cfg := res.Burst, sim.Config()
 	prov := simulateHeader(o, cfg, notes, kind, i, res)
+	if !geom.Identity() {
+		b.Cards = append(b.Cards, fits.Card{Key: burst.GeometryKey, Value: geom.String(), Comment: "simulated in the common orientation"})
+	}
 	name := filepath.Join(o.out, fmt.Sprintf("burst-%04d.fits", i))
 	if err := burst.Write(name, b, prov); err != nil {
 		return "", err

@@ -138,14 +138,8 @@ func BenchmarkPrepare(b *testing.B) {
 	f := benchField(b, 1024, 16)
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
-		bu := &burstLike{nx: 1024, ny: 1024, data: f.Data}
-		if _, _, err := prepareData(bu.nx, bu.ny, bu.data, nil, nil, true, 0); err != nil {
+		if _, _, err := prepareField(f, nil, true, 0); err != nil {
 			b.Fatal(err)
 		}
 	}
-}
-
-type burstLike struct {
-	nx, ny int
-	data   [2][][]float64
 }

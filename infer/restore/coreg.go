@@ -299,7 +299,13 @@ func restoreRamp(r []complex128, d float64) {
 
 // Shift sets dst(x, y) = src(x−dx, y−dy) (dx, dy in pixels). dst and src have
 // length nx·ny and may alias. It panics on wrong lengths.
-func (s *Shifter) Shift(dst, src []float64, dx, dy float64) {
+func (s *Shifter) Shift(dst, src []float64, dx, dy float64) { shift(s, dst, src, dx, dy) }
+
+// Shift32 is Shift for float32 images (computed in float64, a row or
+// column at a time).
+func (s *Shifter) Shift32(dst, src []float32, dx, dy float64) { shift(s, dst, src, dx, dy) }
+
+func shift[T float32 | float64](s *Shifter, dst, src []T, dx, dy float64) {
 	nx, ny := s.nx, s.ny
 	if len(dst) != nx*ny || len(src) != nx*ny {
 		panic("restore: Shifter.Shift: wrong image length")
@@ -316,8 +322,8 @@ func (s *Shifter) Shift(dst, src []float64, dx, dy float64) {
 	for y := 0; y < ny; y++ {
 		row := src[y*nx : (y+1)*nx]
 		for x, v := range row {
-			s.bx[x] = complex(v, 0)
-			s.bx[2*nx-1-x] = complex(v, 0)
+			s.bx[x] = complex(float64(v), 0)
+			s.bx[2*nx-1-x] = complex(float64(v), 0)
 		}
 		s.px.Forward(s.bx, s.bx)
 		for k := range s.bx {
@@ -340,7 +346,7 @@ func (s *Shifter) Shift(dst, src []float64, dx, dy float64) {
 		}
 		s.py.Inverse(s.by, s.by)
 		for y := 0; y < ny; y++ {
-			dst[y*nx+x] = real(s.by[y])
+			dst[y*nx+x] = T(real(s.by[y]))
 		}
 	}
 }

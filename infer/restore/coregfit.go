@@ -169,13 +169,7 @@ func coregFitPatch(fit *infer.Fitter, f *Field, buf [][][]float64, side, x0, y0 
 			err = fmt.Errorf("patch at (%d, %d): panic: %v", x0, y0, p)
 		}
 	}()
-	for c := range buf {
-		for j, fr := range f.Data[c] {
-			for y := 0; y < side; y++ {
-				copy(buf[c][j][y*side:(y+1)*side], fr[(y0+y)*f.Nx+x0:])
-			}
-		}
-	}
+	f.cut(buf, x0, y0, side)
 	res, err := fit.Fit(buf, nil)
 	if err != nil {
 		return Offset{}, fmt.Errorf("patch at (%d, %d): %w", x0, y0, err)

@@ -7,6 +7,7 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"strconv"
 	"strings"
 	"time"
@@ -65,6 +66,14 @@ type Job struct {
 	// Calib names each camera's dark, flat and bad-pixel map (applied as
 	// the bursts are read, before the camera geometry); zero = none.
 	Calib CalibFiles
+	// GCHeadroom > 0 bounds the garbage the Go collector lets accumulate
+	// while a burst is restored to about this many bytes instead of the
+	// default 100 % of the live heap (which would double the memory the
+	// field takes): the collector's percentage is set from the burst's
+	// file sizes (see gcPercent) for each burst and restored afterwards.
+	// It changes the whole process's collector (runtime/debug); the
+	// command sets it unless GOGC is given. 0 leaves the collector alone.
+	GCHeadroom int64
 
 	hashes      map[string]string // content hashes of the files read, by path
 	weightsHash string            // content hash of Model, once computed
@@ -251,9 +260,13 @@ func (j *Job) unit(ctx context.Context, u unit, cal *Calibrations, req string) e
 		return err
 	}
 	defer l.Release()
+	if j.GCHeadroom > 0 {
+		defer debug.SetGCPercent(debug.SetGCPercent(gcPercent(j.GCHeadroom, u)))
+	}
 	var b *burst.Burst
 	inputs := []string{u.a}
 	opt := j.Reading
+	opt.Float32 = true // the field held once, as float32 (Field.Data)
 	if cal != nil {
 		opt.Calibrate = cal
 	}
@@ -270,6 +283,25 @@ func (j *Job) unit(ctx context.Context, u unit, cal *Calibrations, req string) e
 		return fmt.Errorf("restoring %s: %w", u.name, err)
 	}
 	return nil
+}
+
+// gcPercent returns the collector percentage that keeps the garbage of
+// restoring u near headroom bytes: the field is held as float32, at most
+// twice the bytes of 16-bit files (more for compressed files, where the
+// estimate is low and the collector runs less often than intended), so
+// the live heap is taken as twice the input files' size. It lies in
+// 10..100.
+func gcPercent(headroom int64, u unit) int {
+	var size int64
+	for _, p := range append(burst.SplitRef(u.a), u.b) {
+		if st, err := os.Stat(p); err == nil && p != "" {
+			size += st.Size()
+		}
+	}
+	if size <= 0 {
+		return 100
+	}
+	return int(min(100, max(10, 100*headroom/(2*size))))
 }
 
 // Configure returns the fit configuration and wavefront method for a burst

@@ -6,8 +6,6 @@ import (
 	"math/rand/v2"
 	"testing"
 
-	"gonum.org/v1/gonum/floats"
-
 	"pdwave/infer"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
@@ -234,12 +232,14 @@ func checkCoreg(t *testing.T, off0, off, s Offset) {
 
 // meanShift returns the shift of the burst mean of frames b relative to
 // that of a (nx×nx), by the plain cross-correlation.
-func meanShift(t *testing.T, a, b [][]float64, nx int) Offset {
+func meanShift[A, B float32 | float64](t *testing.T, a [][]A, b [][]B, nx int) Offset {
 	t.Helper()
 	ma, mb := make([]float64, nx*nx), make([]float64, nx*nx)
 	for j := range a {
-		floats.Add(ma, a[j])
-		floats.Add(mb, b[j])
+		for i := range ma {
+			ma[i] += float64(a[j][i])
+			mb[i] += float64(b[j][i])
+		}
 	}
 	dx, dy, err := restoreMeasure([][]float64{ma}, [][]float64{mb}, nx, nx, 0)
 	if err != nil {

@@ -6,8 +6,6 @@ import (
 	"sync"
 	"time"
 
-	"gonum.org/v1/gonum/floats"
-
 	"pdwave/model/burst"
 )
 
@@ -23,7 +21,9 @@ type Offset struct{ DX, DY float64 } // pixels along x and y
 // the burst-mean images, MeasureShift), and, if apply is true, moves every
 // defocused frame back by it with a Shifter (band-limited interpolation,
 // mirror-extended edges). It uses up to workers goroutines (0 = all cores).
-// The frames of b become the field's frames (no copy).
+// The frames of a burst read as float32 (burst.Options.Float32, which
+// restore's Job uses) become the field's frames (no copy); float64 frames
+// are calibrated in place and copied to float32.
 //
 // Accuracy, measured on ten simulated anisoplanatic 192 px bursts of the
 // demo site (16 frames, D/r0 = 2.5–4.7, channels registered): the
@@ -32,6 +32,19 @@ type Offset struct{ DX, DY float64 } // pixels along x and y
 // which models that blur, by 0.01–0.17 px (rms 0.10 px; see FitOffset).
 // Give a calibrated offset (co.Fixed) where one is known.
 func Prepare(b *burst.Burst, cal *Calibration, co *Coreg, apply bool, workers int) (*Field, Coregistration, error) {
+	if b.Data32[0] != nil {
+		if b.Frames < 1 || len(b.Data32[0]) != b.Frames || len(b.Data32[1]) != b.Frames {
+			return nil, Coregistration{}, fmt.Errorf("restore: burst has %d/%d frames per channel", len(b.Data32[0]), len(b.Data32[1]))
+		}
+		if cal != nil {
+			return nil, Coregistration{}, fmt.Errorf("restore: a Calibration for a burst read as float32; calibrate it as it is read (burst.Options.Calibrate)")
+		}
+		f, err := NewField32(b.Nx, b.Ny, b.Data32)
+		if err != nil {
+			return nil, Coregistration{}, err
+		}
+		return prepareField(f, co, apply, workers)
+	}
 	if b.Frames < 1 || len(b.Data[0]) != b.Frames || len(b.Data[1]) != b.Frames {
 		return nil, Coregistration{}, fmt.Errorf("restore: burst has %d/%d frames per channel", len(b.Data[0]), len(b.Data[1]))
 	}
@@ -39,9 +52,6 @@ func Prepare(b *burst.Burst, cal *Calibration, co *Coreg, apply bool, workers in
 }
 
 func prepareData(nx, ny int, data [2][][]float64, cal *Calibration, co *Coreg, apply bool, workers int) (*Field, Coregistration, error) {
-	if workers <= 0 {
-		workers = runtime.NumCPU()
-	}
 	if cal != nil {
 		for c := range data {
 			for _, fr := range data[c] {
@@ -56,11 +66,20 @@ func prepareData(nx, ny int, data [2][][]float64, cal *Calibration, co *Coreg, a
 	if err != nil {
 		return nil, Coregistration{}, err
 	}
+	return prepareField(f, co, apply, workers)
+}
+
+// prepareField finds the offset of f's defocused channel and, if apply,
+// moves its frames back by it (see Prepare).
+func prepareField(f *Field, co *Coreg, apply bool, workers int) (*Field, Coregistration, error) {
+	if workers <= 0 {
+		workers = runtime.NumCPU()
+	}
 	off, err := prepareOffset(f, co, workers)
 	if err != nil {
 		return nil, Coregistration{}, fmt.Errorf("co-registering the channels: %w", err)
 	}
-	prepareShift(data[1], nx, ny, off.Offset, apply, workers)
+	prepareShift(f.Data[1], f.Nx, f.Ny, off.Offset, apply, workers)
 	return f, off, nil
 }
 
@@ -76,7 +95,9 @@ func prepareOffset(f *Field, co *Coreg, workers int) (Coregistration, error) {
 	t0 := time.Now()
 	defMean := make([]float64, f.Nx*f.Ny)
 	for _, fr := range f.Data[1] {
-		floats.Add(defMean, fr)
+		for i, v := range fr {
+			defMean[i] += float64(v)
+		}
 	}
 	dx, dy, err := MeasureShift(f.Mean, defMean, f.Nx, f.Ny)
 	if err != nil {
@@ -87,20 +108,20 @@ func prepareOffset(f *Field, co *Coreg, workers int) (Coregistration, error) {
 
 // prepareShift moves every frame of def (nx×ny) by −off with up to workers
 // Shifters, if apply is true and off is not zero.
-func prepareShift(def [][]float64, nx, ny int, off Offset, apply bool, workers int) {
+func prepareShift(def [][]float32, nx, ny int, off Offset, apply bool, workers int) {
 	dx, dy := off.DX, off.DY
 	if !apply || (dx == 0 && dy == 0) {
 		return
 	}
 	var wg sync.WaitGroup
-	frames := make(chan []float64)
+	frames := make(chan []float32)
 	for w := 0; w < min(workers, len(def)); w++ {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
 			s := NewShifter(nx, ny)
 			for fr := range frames {
-				s.Shift(fr, fr, -dx, -dy)
+				s.Shift32(fr, fr, -dx, -dy)
 			}
 		}()
 	}

@@ -15,17 +15,37 @@ import (
 type Field struct {
 	Nx, Ny, Frames int // field size, pixels, and frames per channel
 	// Data[channel][frame] is an Nx·Ny row-major image; channel 0 focused,
-	// channel 1 defocused. Run only reads it.
-	Data [2][][]float64
+	// channel 1 defocused. Frames are stored as float32 (half the memory
+	// of float64; a camera's 16-bit counts and their calibration lose
+	// nothing that matters at float32's 24-bit precision); patches are cut
+	// from them into float64 buffers. Run only reads it.
+	Data [2][][]float32
 	// Mean is the burst-mean focused image (Nx·Ny): the "raw" reference for
 	// previews, quality figures and the fallback of failed patches.
 	Mean []float64
 }
 
-// NewField wraps calibrated frames data[channel][frame] (each nx·ny) and
-// computes the burst-mean focused image. Errors if the frame counts of the
-// channels differ, there are no frames or a frame has the wrong length.
+// NewField wraps calibrated frames data[channel][frame] (each nx·ny),
+// converted to float32 (see Field.Data), and computes the burst-mean
+// focused image. Errors if the frame counts of the channels differ, there
+// are no frames or a frame has the wrong length.
 func NewField(nx, ny int, data [2][][]float64) (*Field, error) {
+	var d [2][][]float32
+	for c := range data {
+		d[c] = make([][]float32, len(data[c]))
+		for j, fr := range data[c] {
+			d[c][j] = make([]float32, len(fr))
+			for i, v := range fr {
+				d[c][j][i] = float32(v)
+			}
+		}
+	}
+	return NewField32(nx, ny, d)
+}
+
+// NewField32 is NewField for frames held as float32, which the Field
+// keeps (no copy).
+func NewField32(nx, ny int, data [2][][]float32) (*Field, error) {
 	if len(data[0]) == 0 || len(data[0]) != len(data[1]) {
 		return nil, fmt.Errorf("restore: need the same positive number of focused and defocused frames (have %d and %d)", len(data[0]), len(data[1]))
 	}
@@ -39,13 +59,30 @@ func NewField(nx, ny int, data [2][][]float64) (*Field, error) {
 	f := &Field{Nx: nx, Ny: ny, Frames: len(data[0]), Data: data, Mean: make([]float64, nx*ny)}
 	for _, fr := range data[0] {
 		for i, v := range fr {
-			f.Mean[i] += v
+			f.Mean[i] += float64(v)
 		}
 	}
 	for i := range f.Mean {
 		f.Mean[i] /= float64(f.Frames)
 	}
 	return f, nil
+}
+
+// cut copies the n×n cut-out at (x0, y0) of every frame of f into buf
+// ([channel][frame], each n×n float64).
+func (f *Field) cut(buf [][][]float64, x0, y0, n int) {
+	for c := 0; c < 2; c++ {
+		for j, fr := range f.Data[c] {
+			dst := buf[c][j]
+			for y := 0; y < n; y++ {
+				row := fr[(y0+y)*f.Nx+x0 : (y0+y)*f.Nx+x0+n]
+				d := dst[y*n : (y+1)*n]
+				for i, v := range row {
+					d[i] = float64(v)
+				}
+			}
+		}
+	}
 }
 
 // Quality flag bits of PatchResult.Flags.
@@ -216,14 +253,7 @@ func restoreNewPatchBuffers(frames, n int) [][][]float64 {
 func restorePatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, buf [][][]float64, raw []float64) *PatchResult {
 	n := g.Patch
 	x0, y0 := g.Origin(id)
-	for c := 0; c < 2; c++ {
-		for j, fr := range f.Data[c] {
-			dst := buf[c][j]
-			for y := 0; y < n; y++ {
-				copy(dst[y*n:(y+1)*n], fr[(y0+y)*f.Nx+x0:(y0+y)*f.Nx+x0+n])
-			}
-		}
-	}
+	f.cut(buf, x0, y0, n)
 	for y := 0; y < n; y++ {
 		copy(raw[y*n:(y+1)*n], f.Mean[(y0+y)*f.Nx+x0:(y0+y)*f.Nx+x0+n])
 	}

@@ -156,6 +156,18 @@ type Burst struct {
 	// Geometry is the camera geometry the reader applied
 	// (Geometry.String), "" for none.
 	Geometry string
+	// Data32 holds the frames instead of Data when the burst was read
+	// with Options.Float32 (Data32[channel][frame], each Nx·Ny); nil
+	// otherwise. Validate, Patch and Write use Data only.
+	Data32 [2][][]float32
+
+	src [2][]plane // the frames in their files while reading
+}
+
+// plane is frame k of a burst's image in a file.
+type plane struct {
+	u *fits.Unit
+	k int
 }
 
 // New returns a burst with zeroed Data of the given size. It panics if a

@@ -62,6 +62,9 @@ func FuzzRead(f *testing.F) {
 		}
 		b, err := assemble([]*part{p})
 		if err == nil {
+			b, err = b.finish("fuzz.fits", []*part{p}, Options{Limits: lim})
+		}
+		if err == nil {
 			if err := b.Validate(); err != nil {
 				t.Errorf("decoded burst fails Validate: %v", err)
 			}

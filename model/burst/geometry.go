@@ -135,25 +135,15 @@ func g6(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 // the common orientation: the reader does not apply a geometry again.
 const GeometryKey = "PDGEOM"
 
-// applyGeometry turns both channels of b (and the OBJECT image, with
-// channel 1's orientation) into the common orientation and resamples
-// channel 2 by its offset and magnification (see resample), records the
-// geometry in b.Geometry, b.Cards (PDGEOM and a HISTORY line) and b.Notes.
-// A header holding PDGEOM already is left alone, with a note. When channel
-// 1 is reoriented, the WCS cards of axes 1 and 2 (which describe the
-// stored image) are dropped with a note.
+// applyGeometry turns both channels of the burst b held in memory (and
+// the OBJECT image, with channel 1's orientation) into the common
+// orientation and resamples channel 2 by its offset and magnification (see
+// resample), recording it as geometryApplied does. The reader does the
+// same a frame at a time (Burst.load).
 func (b *Burst) applyGeometry(g Geometry) error {
-	if g.Identity() {
-		return nil
-	}
-	if err := g.Validate(); err != nil {
-		return fmt.Errorf("camera geometry: %w", err)
-	}
-	for _, c := range b.Cards {
-		if c.Key == GeometryKey {
-			b.Notes = append(b.Notes, fmt.Sprintf("the header holds %s = '%v': the channels are already oriented; the site's geometry (%s) is not applied again", GeometryKey, c.Value, g))
-			return nil
-		}
+	turn, err := b.geometryToApply(g)
+	if err != nil || !turn {
+		return err
 	}
 	var dims [2][2]int
 	for c, o := range g.Channel {
@@ -167,16 +157,46 @@ func (b *Burst) applyGeometry(g Geometry) error {
 		return fmt.Errorf("camera geometry %s: the channels are %d×%d px as stored, and %d×%d and %d×%d after orientation; one channel's geometry must turn a non-square frame the same way as the other's",
 			g, b.Nx, b.Ny, dims[0][0], dims[0][1], dims[1][0], dims[1][1])
 	}
-	if b.Object != nil {
-		b.Object, _, _ = orient(b.Object, b.Nx, b.Ny, g.Channel[0])
-	}
-	b.Nx, b.Ny = dims[0][0], dims[0][1]
 	if g.resamples() {
-		r := newResampler(b.Nx, b.Ny, g)
+		r := newResampler(dims[0][0], dims[0][1], g)
 		for _, im := range b.Data[1] {
 			r.apply(im)
 		}
 	}
+	b.geometryApplied(g, dims[0])
+	return nil
+}
+
+// geometryToApply reports whether g is to be applied to b: not the
+// identity, and b's header holds no PDGEOM (then a note says it is not
+// applied again). It errors if g is invalid.
+func (b *Burst) geometryToApply(g Geometry) (bool, error) {
+	if g.Identity() {
+		return false, nil
+	}
+	if err := g.Validate(); err != nil {
+		return false, fmt.Errorf("camera geometry: %w", err)
+	}
+	for _, c := range b.Cards {
+		if c.Key == GeometryKey {
+			b.Notes = append(b.Notes, fmt.Sprintf("the header holds %s = '%v': the channels are already oriented; the site's geometry (%s) is not applied again", GeometryKey, c.Value, g))
+			return false, nil
+		}
+	}
+	return true, nil
+}
+
+// geometryApplied completes b after its frames were turned by g into
+// frames of size dims: the OBJECT image is turned with channel 1's
+// orientation, b.Nx and b.Ny set, the geometry recorded in b.Geometry,
+// b.Cards (PDGEOM and a HISTORY line) and b.Notes. When channel 1 is
+// reoriented, the WCS cards of axes 1 and 2 (which describe the stored
+// image) are dropped with a note.
+func (b *Burst) geometryApplied(g Geometry, dims [2]int) {
+	if b.Object != nil {
+		b.Object, _, _ = orient(b.Object, b.Nx, b.Ny, g.Channel[0])
+	}
+	b.Nx, b.Ny = dims[0], dims[1]
 	if !g.Channel[0].Identity() {
 		b.dropPlaneWCS()
 	}
@@ -185,7 +205,6 @@ func (b *Burst) applyGeometry(g Geometry) error {
 		fits.Card{Key: GeometryKey, Value: b.Geometry, Comment: "camera geometry applied on reading"},
 		fits.Card{Key: "HISTORY", Comment: "pdwave: geometry = " + b.Geometry})
 	b.Notes = append(b.Notes, "camera geometry applied: "+b.Geometry)
-	return nil
 }
 
 // dropPlaneWCS drops the WCS cards of axes 1 and 2 with a note.

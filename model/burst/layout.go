@@ -122,8 +122,9 @@ func compressionKey(k string) bool {
 	return false
 }
 
-// readPixels decodes the channels of the chosen image HDUs into p.
-func (p *part) readPixels(units []*fits.Unit) error {
+// readPixels records the planes of the chosen image HDUs in p (read
+// later, a frame at a time, by Burst.load).
+func (p *part) readPixels(units []*fits.Unit, lim fits.Limits) error {
 	for i, u := range units {
 		ax, err := u.ImageAxes()
 		if err != nil {
@@ -136,23 +137,27 @@ func (p *part) readPixels(units []*fits.Unit) error {
 			}
 			return err
 		}
-		if i > 0 && (ax[0] != p.nx || ax[1] != p.ny || frames != len(p.data[0])) {
-			return fmt.Errorf("%s is %v but %s is %v", units[0], []int{p.nx, p.ny, len(p.data[0])}, u, ax)
+		if i > 0 && (ax[0] != p.nx || ax[1] != p.ny || frames != len(p.planes[0])) {
+			return fmt.Errorf("%s is %v but %s is %v", units[0], []int{p.nx, p.ny, len(p.planes[0])}, u, ax)
 		}
-		pix, err := u.Image()
-		if err != nil {
+		if _, err := u.Planes(); err != nil {
 			return err
 		}
+		max := lim.MaxBytes
+		if max <= 0 {
+			max = fits.DefaultMaxBytes
+		}
+		if int64(ax[0])*int64(ax[1]) > max/8/int64(nch*frames) {
+			return fmt.Errorf("%s: image %v is more than the limit of %d bytes as float64", u, ax, max)
+		}
 		p.nx, p.ny, p.axes = ax[0], ax[1], ax
-		n := p.nx * p.ny
 		for c := 0; c < nch; c++ {
-			planes := make([][]float64, frames)
+			planes := make([]plane, frames)
 			for f := range planes {
 				// NAXIS3 (frame) varies faster than NAXIS4 (channel).
-				k := c*frames + f
-				planes[f] = pix[k*n : (k+1)*n : (k+1)*n]
+				planes[f] = plane{u, c*frames + f}
 			}
-			p.data = append(p.data, planes)
+			p.planes = append(p.planes, planes)
 		}
 	}
 	return nil
@@ -194,7 +199,7 @@ func checkVersion(h *fits.Header) error {
 
 // extensions reads the TRUTH and OBJECT extensions, if present, into p.
 func (p *part) extensions(f *fits.File) error {
-	frames := len(p.data[0])
+	frames := len(p.planes[0])
 	for _, u := range f.HDUs[1:] {
 		switch strings.TrimSpace(u.Name) {
 		case "TRUTH":

@@ -4,8 +4,6 @@ import (
 	"fmt"
 	"math"
 	"slices"
-
-	"pdwave/model/fits"
 )
 
 // MaxBadFraction is the largest fraction of one frame's pixels the reader
@@ -96,52 +94,4 @@ func median(v []float64) float64 {
 	slices.Sort(v)
 	n := len(v)
 	return (v[(n-1)/2] + v[n/2]) / 2
-}
-
-// calibrateAndFill runs cal (if any) over both channels, then fills the
-// undefined pixels of every frame (FillUndefined), counting them in
-// b.Masked, and refuses a frame with more than MaxBadFraction of them.
-// The counts go into b.Cards (PDMASK1, PDMASK2 and a HISTORY line) and
-// b.Notes when any pixel was filled.
-func (b *Burst) calibrateAndFill(cal Calibrator) error {
-	if cal != nil {
-		for c := range b.Data {
-			if err := cal.Calibrate(c, b.Nx, b.Ny, b.Data[c]); err != nil {
-				return err
-			}
-		}
-	}
-	limit := int(MaxBadFraction * float64(b.Nx*b.Ny))
-	for c := range b.Data {
-		for f, im := range b.Data[c] {
-			// Count first: filling a frame that is mostly undefined would
-			// take a pass per pixel of its largest hole.
-			k, i := 0, -1
-			for j, v := range im {
-				if undefined(v) {
-					if k++; i < 0 {
-						i = j
-					}
-				}
-			}
-			if k > limit {
-				return fmt.Errorf("%s frame %d: %d of the %d×%d pixels (%.1f %%) are undefined (NaN, Inf, BLANK) or marked bad, the first at (x=%d, y=%d); at most %g %% are filled",
-					channelName(c), f+1, k, b.Nx, b.Ny, 100*float64(k)/float64(b.Nx*b.Ny), i%b.Nx+1, i/b.Nx+1, 100*MaxBadFraction)
-			}
-			if k > 0 {
-				FillUndefined(im, b.Nx, b.Ny)
-			}
-			b.Masked[c] += k
-		}
-	}
-	if b.Masked == [2]int{} {
-		return nil
-	}
-	text := fmt.Sprintf("masked = %d px in channel 1, %d px in channel 2 (over %d frames), filled with the median of good neighbours", b.Masked[0], b.Masked[1], b.Frames)
-	b.Cards = append(b.Cards,
-		fits.Card{Key: "PDMASK1", Value: b.Masked[0], Comment: "bad/undefined pixels filled, channel 1, all frames"},
-		fits.Card{Key: "PDMASK2", Value: b.Masked[1], Comment: "bad/undefined pixels filled, channel 2, all frames"},
-		fits.Card{Key: "HISTORY", Comment: "pdwave: " + text})
-	b.Notes = append(b.Notes, text)
-	return nil
 }

@@ -3,7 +3,6 @@ package burst
 import (
 	"errors"
 	"fmt"
-	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -33,21 +32,36 @@ type Options struct {
 	// nothing. It is applied after calibration and filling, once: a
 	// header holding PDGEOM is already oriented.
 	Geometry Geometry
+	// Float32, if true, stores the frames as float32 in Burst.Data32 and
+	// leaves Burst.Data nil: half the memory of float64, for readers of
+	// large fields (restore). Every step before (calibration, filling,
+	// geometry) is done in float64, a frame at a time.
+	Float32 bool
 }
 
-// finish completes a burst just assembled from its files: calibration
-// (opt.Calibrate), filling of undefined and bad pixels (at most
-// MaxBadFraction of a frame) and the camera geometry (opt.Geometry), in
-// this order.
-// name is the burst's file or files, for errors.
-func (b *Burst) finish(name string, opt Options) (*Burst, error) {
-	if err := b.calibrateAndFill(opt.Calibrate); err != nil {
+// finish completes a burst just assembled from its files: the frames are
+// read from the files a frame at a time (only one frame of the file is in
+// memory at once besides the burst's own storage), calibrated
+// (opt.Calibrate), their undefined and bad pixels filled (at most
+// MaxBadFraction of a frame) and the camera geometry applied
+// (opt.Geometry), in this order. It closes the files of parts. name is the
+// burst's file or files, for errors.
+func (b *Burst) finish(name string, parts []*part, opt Options) (*Burst, error) {
+	defer closeParts(parts)
+	if err := b.load(opt); err != nil {
 		return nil, fmt.Errorf("reading burst %s: %w", name, err)
 	}
-	if err := b.applyGeometry(opt.Geometry); err != nil {
-		return nil, fmt.Errorf("reading burst %s: %w", name, err)
-	}
+	b.src = [2][]plane{}
 	return b, nil
+}
+
+// closeParts closes the files the parts were read from.
+func closeParts(parts []*part) {
+	for _, p := range parts {
+		if p != nil && p.file != nil {
+			p.file.Close()
+		}
+	}
 }
 
 // Read reads the burst in the file at path with the default Options (see
@@ -78,15 +92,17 @@ func ReadPairWith(focused, defocused string, opt Options) (*Burst, error) {
 		return nil, err
 	}
 	for i, p := range parts {
-		if len(p.data) != 1 {
+		if len(p.planes) != 1 {
+			closeParts(parts)
 			return nil, fmt.Errorf("reading burst %s %s: this is a two-channel burst (NAXIS4 = 2); read it with Read, not ReadPair", channelName(i), p.path)
 		}
 	}
 	b, err := assemble(parts)
 	if err != nil {
+		closeParts(parts)
 		return nil, err
 	}
-	return b.finish(focused+" + "+defocused, opt)
+	return b.finish(focused+" + "+defocused, parts, opt)
 }
 
 // ReadFiles reads one burst from one or more files, each read with opt
@@ -114,17 +130,19 @@ func ReadFiles(paths []string, opt Options) (*Burst, error) {
 	}
 	b, err := assemble(parts)
 	if err != nil {
+		closeParts(parts)
 		return nil, err
 	}
-	return b.finish(strings.Join(paths, RefSep), opt)
+	return b.finish(strings.Join(paths, RefSep), parts, opt)
 }
 
 // part is what one file contributes to a burst.
 type part struct {
 	path   string
 	nx, ny int
-	axes   []int         // of the first image HDU
-	data   [][][]float64 // [channel in this file][frame] pixels; 1 or 2 channels
+	axes   []int      // of the first image HDU
+	planes [][]plane  // [channel in this file][frame]; 1 or 2 channels
+	file   *fits.File // open until the frames are read
 	optics Optics
 	cards  []fits.Card
 	notes  []string
@@ -141,6 +159,7 @@ func readParts(paths []string, opt Options, pair bool) ([]*part, error) {
 	for i, p := range paths {
 		pt, err := readPart(p, opt)
 		if err != nil {
+			closeParts(parts)
 			if pair {
 				return nil, fmt.Errorf("reading burst %s %s: %w", channelName(i), p, err)
 			}
@@ -154,19 +173,19 @@ func readParts(paths []string, opt Options, pair bool) ([]*part, error) {
 // assemble joins the parts into one burst (see ReadFiles).
 func assemble(parts []*part) (*Burst, error) {
 	var chans [2][]*part
-	switch two := len(parts[0].data) == 2; {
+	switch two := len(parts[0].planes) == 2; {
 	case len(parts) == 1 && !two:
 		p := parts[0]
 		return nil, fmt.Errorf("reading burst %s: the image has one channel only (NAXIS = %d, axes %v); %s", p.path, len(p.axes), p.axes, oneChannelMsg)
 	case two:
 		for _, p := range parts {
-			if len(p.data) != 2 {
+			if len(p.planes) != 2 {
 				return nil, fmt.Errorf("reading burst: %s holds both channels but %s one only; give files of one kind", parts[0].path, p.path)
 			}
 		}
 	default:
 		for _, p := range parts {
-			if len(p.data) != 1 {
+			if len(p.planes) != 1 {
 				return nil, fmt.Errorf("reading burst: %s holds one channel but %s both; give files of one kind", parts[0].path, p.path)
 			}
 		}
@@ -181,8 +200,8 @@ func assemble(parts []*part) (*Burst, error) {
 	b := &Burst{Nx: parts[0].nx, Ny: parts[0].ny}
 	for _, p := range parts {
 		if chans[0] == nil {
-			b.Data[0] = append(b.Data[0], p.data[0]...)
-			b.Data[1] = append(b.Data[1], p.data[1]...)
+			b.src[0] = append(b.src[0], p.planes[0]...)
+			b.src[1] = append(b.src[1], p.planes[1]...)
 		}
 		for _, n := range p.notes {
 			b.Notes = append(b.Notes, filepath.Base(p.path)+": "+n)
@@ -190,10 +209,10 @@ func assemble(parts []*part) (*Burst, error) {
 	}
 	for c := range chans {
 		for _, p := range chans[c] {
-			b.Data[c] = append(b.Data[c], p.data[0]...)
+			b.src[c] = append(b.src[c], p.planes[0]...)
 		}
 	}
-	b.Frames = len(b.Data[0])
+	b.Frames = len(b.src[0])
 	var err error
 	if b.Optics, err = agreeOptics(parts); err != nil {
 		return nil, err
@@ -213,9 +232,9 @@ func checkShapes(parts []*part, chans [2][]*part) error {
 	p0 := parts[0]
 	if len(parts) == 2 && chans[0] != nil {
 		p1 := parts[1]
-		if p0.nx != p1.nx || p0.ny != p1.ny || len(p0.data[0]) != len(p1.data[0]) {
+		if p0.nx != p1.nx || p0.ny != p1.ny || len(p0.planes[0]) != len(p1.planes[0]) {
 			return fmt.Errorf("reading burst pair: %s is %d×%d with %d frames but %s is %d×%d with %d frames",
-				p0.path, p0.nx, p0.ny, len(p0.data[0]), p1.path, p1.nx, p1.ny, len(p1.data[0]))
+				p0.path, p0.nx, p0.ny, len(p0.planes[0]), p1.path, p1.nx, p1.ny, len(p1.planes[0]))
 		}
 		return nil
 	}
@@ -228,7 +247,7 @@ func checkShapes(parts []*part, chans [2][]*part) error {
 		var n [2]int
 		for c := range chans {
 			for _, p := range chans[c] {
-				n[c] += len(p.data[0])
+				n[c] += len(p.planes[0])
 			}
 		}
 		if n[0] != n[1] {
@@ -277,13 +296,20 @@ func agreeOptics(parts []*part) (Optics, error) {
 	return o, nil
 }
 
-// readPart reads one file.
+// readPart opens one file and reads its headers and extensions; the
+// frames stay in the file (part.planes) until the burst is loaded.
 func readPart(path string, opt Options) (*part, error) {
-	data, err := readBytes(path, opt.Limits)
+	f, err := fits.OpenFile(path, opt.Limits)
 	if err != nil {
 		return nil, err
 	}
-	return decodePart(path, data, opt)
+	p, err := decodeFile(path, f, opt)
+	if err != nil {
+		f.Close()
+		return nil, err
+	}
+	p.file = f
+	return p, nil
 }
 
 // decodePart decodes the bytes of the file path.
@@ -292,6 +318,11 @@ func decodePart(path string, data []byte, opt Options) (*part, error) {
 	if err != nil {
 		return nil, err
 	}
+	return decodeFile(path, f, opt)
+}
+
+// decodeFile reads the part the FITS file f at path holds.
+func decodeFile(path string, f *fits.File, opt Options) (*part, error) {
 	units, err := chooseImages(f, opt.HDUs)
 	if err != nil {
 		return nil, err
@@ -304,7 +335,7 @@ func decodePart(path string, data []byte, opt Options) (*part, error) {
 			return nil, err
 		}
 	}
-	if err := p.readPixels(units); err != nil {
+	if err := p.readPixels(units, opt.Limits); err != nil {
 		return nil, err
 	}
 	var opts []Optics
@@ -327,32 +358,6 @@ func decodePart(path string, data []byte, opt Options) (*part, error) {
 		return nil, err
 	}
 	return p, nil
-}
-
-// readBytes reads the file at path after checking its size against the
-// limit.
-func readBytes(path string, lim fits.Limits) ([]byte, error) {
-	fh, err := os.Open(path)
-	if err != nil {
-		return nil, err
-	}
-	defer fh.Close()
-	st, err := fh.Stat()
-	if err != nil {
-		return nil, err
-	}
-	max := lim.MaxBytes
-	if max <= 0 {
-		max = fits.DefaultMaxBytes
-	}
-	if st.Size() > max {
-		return nil, fmt.Errorf("%d bytes, more than the limit of %d", st.Size(), max)
-	}
-	data := make([]byte, st.Size())
-	if _, err := io.ReadFull(fh, data); err != nil {
-		return nil, err
-	}
-	return data, nil
 }
 
 // RefSep joins the files of one burst in a burst reference (see SplitRef).

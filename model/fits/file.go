@@ -40,11 +40,24 @@ func (l Limits) maxHDUs() int {
 	return l.MaxHDUs
 }
 
-// File is a FITS file read into memory.
+// File is a FITS file read into memory (Open, Decode) or opened for
+// reading as needed (OpenFile).
 type File struct {
 	HDUs []*Unit
 	// Gzip is true when the file was gzip-compressed as a whole.
-	Gzip bool
+	Gzip  bool
+	close func() error
+}
+
+// Close closes the file of OpenFile; it does nothing for a File in
+// memory. The File's data cannot be decoded after Close.
+func (f *File) Close() error {
+	if f.close == nil {
+		return nil
+	}
+	c := f.close
+	f.close = nil
+	return c()
 }
 
 // Unit is one header-data unit (HDU) of a read File. Its data stay in the file's
@@ -57,9 +70,26 @@ type Unit struct {
 	Bitpix   int     // BITPIX
 	Axes     []int   // NAXISn, NAXIS1 first
 
-	data   []byte // the data unit, heap included, without padding
+	data   []byte  // the data unit, heap included, without padding; nil for a file read lazily (OpenFile)
+	src    *source // the file's bytes
+	off    int     // first byte of the data unit in src
+	size   int     // bytes of the data unit
+	buf    []byte  // ReadPlane's buffer
 	pcount int
 	lim    Limits
+}
+
+// bytes returns the data unit: the bytes in memory, or read from the file
+// of OpenFile (a new slice each call).
+func (h *Unit) bytes() ([]byte, error) {
+	if h.data != nil || h.src == nil {
+		return h.data, nil
+	}
+	b, err := h.src.read(h.off, h.size)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", h.what(), err)
+	}
+	return b, nil
 }
 
 // what names the HDU in messages: "primary HDU" or "HDU n (TYPE 'NAME')"
@@ -125,7 +155,7 @@ func Decode(data []byte, lim Limits) (*File, error) {
 		}
 		gz = true
 	}
-	hdus, err := scanHDUs(data, lim)
+	hdus, err := scanHDUs(&source{mem: data, size: len(data)}, lim)
 	if err != nil {
 		return nil, err
 	}

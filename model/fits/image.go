@@ -77,8 +77,12 @@ func (h *Unit) Image() ([]float64, error) {
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", h.what(), err)
 	}
+	raw, err := h.bytes()
+	if err != nil {
+		return nil, err
+	}
 	out := make([]float64, n)
-	if err := decodeBig(out, h.data, h.Bitpix, sc); err != nil {
+	if err := decodeBig(out, raw, h.Bitpix, sc); err != nil {
 		return nil, fmt.Errorf("%s: %w", h.what(), err)
 	}
 	return out, nil
@@ -180,4 +184,72 @@ func (sc scaling) apply(v int64) float64 {
 		return math.NaN()
 	}
 	return sc.zero + sc.scale*float64(v)
+}
+
+// Planes returns the number of 2-D planes (NAXIS1 × NAXIS2 images) of the
+// image h holds: the product of its axes beyond the second (1 for a 2-D
+// image, 0 for an empty one). It errors as ImageAxes does.
+func (h *Unit) Planes() (int, error) {
+	ax, err := h.ImageAxes()
+	if err != nil {
+		return 0, err
+	}
+	if len(ax) < 2 {
+		return 0, fmt.Errorf("%s: a %d-D image has no planes", h.what(), len(ax))
+	}
+	n, err := h.pixelCount(ax[2:])
+	if err != nil {
+		return 0, fmt.Errorf("%s: %w", h.what(), err)
+	}
+	if len(ax) == 2 && ax[0] > 0 && ax[1] > 0 {
+		n = 1
+	}
+	return n, nil
+}
+
+// ReadPlane decodes plane k (0-based, the axes beyond the second counted
+// with NAXIS3 fastest) of the image h holds into dst, which must hold
+// NAXIS1·NAXIS2 values, with the conversions of Image. Only that plane is
+// read from the file (for a tile-compressed image, the tiles overlapping
+// it). It errors on a plane outside the image or a dst of another length.
+// ReadPlane keeps a buffer of one plane's bytes in h between calls and is
+// not safe for concurrent use.
+func (h *Unit) ReadPlane(k int, dst []float64) error {
+	np, err := h.Planes()
+	if err != nil {
+		return err
+	}
+	ax, _ := h.ImageAxes()
+	if k < 0 || k >= np {
+		return fmt.Errorf("%s: plane %d outside the %d planes of the image", h.what(), k, np)
+	}
+	if len(dst) != ax[0]*ax[1] {
+		return fmt.Errorf("%s: %d values for a %d×%d plane", h.what(), len(dst), ax[0], ax[1])
+	}
+	if h.Compressed() {
+		return h.decompressPlane(k, dst)
+	}
+	sc, err := readScaling(h.Header, h.Bitpix, "BZERO", "BSCALE", "BLANK")
+	if err != nil {
+		return fmt.Errorf("%s: %w", h.what(), err)
+	}
+	w := h.Bitpix / 8
+	if w < 0 {
+		w = -w
+	}
+	n := len(dst) * w
+	if k*n+n > h.size {
+		return fmt.Errorf("%s: image data has %d bytes, plane %d needs %d", h.what(), h.size, k+1, k*n+n)
+	}
+	h.buf, err = h.src.readInto(h.buf, h.off+k*n, n)
+	if err != nil {
+		return fmt.Errorf("%s: %w", h.what(), err)
+	}
+	if err := decodeBig(dst, h.buf, h.Bitpix, sc); err != nil {
+		return fmt.Errorf("%s: %w", h.what(), err)
+	}
+	if h.src.mem != nil {
+		h.buf = nil // a slice of the file, not a buffer to keep
+	}
+	return nil
 }

@@ -21,24 +21,38 @@ var mandatoryRE = regexp.MustCompile(`^(SIMPLE|XTENSION|BITPIX|NAXIS[0-9]*|PCOUN
 // Trailing bytes that do not start an extension are ignored (§3.5 allows
 // special records after the last HDU). The last data unit may lack its
 // block padding.
-func scanHDUs(data []byte, lim Limits) ([]*Unit, error) {
-	if len(data) == 0 {
+func scanHDUs(src *source, lim Limits) ([]*Unit, error) {
+	if src.size == 0 {
 		return nil, fmt.Errorf("empty file: %w", ErrNotFITS)
 	}
-	if len(data) < cardSize || string(data[:9]) != "SIMPLE  =" {
+	if src.size < cardSize {
+		return nil, ErrNotFITS
+	}
+	if b, err := src.read(0, 9); err != nil {
+		return nil, err
+	} else if string(b) != "SIMPLE  =" {
 		return nil, ErrNotFITS
 	}
 	var hdus []*Unit
 	pos := 0
-	for pos < len(data) {
+	for pos < src.size {
 		idx := len(hdus)
-		if idx > 0 && (len(data)-pos < cardSize || string(data[pos:pos+9]) != "XTENSION=") {
-			break // special records or padding after the last HDU
+		if idx > 0 {
+			if src.size-pos < cardSize {
+				break // padding after the last HDU
+			}
+			b, err := src.read(pos, 9)
+			if err != nil {
+				return nil, err
+			}
+			if string(b) != "XTENSION=" {
+				break // special records or padding after the last HDU
+			}
 		}
 		if idx >= lim.maxHDUs() {
 			return nil, fmt.Errorf("more than %d HDUs", lim.maxHDUs())
 		}
-		h, end, err := scanOne(data, pos, idx, lim)
+		h, end, err := scanOne(src, pos, idx, lim)
 		if err != nil {
 			return nil, err
 		}
@@ -50,18 +64,18 @@ func scanHDUs(data []byte, lim Limits) ([]*Unit, error) {
 
 // scanOne reads the header starting at pos and sizes its data unit; it
 // returns the HDU and the position after its padded data unit.
-func scanOne(data []byte, pos, idx int, lim Limits) (*Unit, int, error) {
+func scanOne(src *source, pos, idx int, lim Limits) (*Unit, int, error) {
 	h := &Unit{Index: idx, lim: lim}
 	what := h.what()
-	p, err := findEnd(data, pos, what)
+	hdr, err := readHeader(src, pos, what)
 	if err != nil {
 		return nil, 0, err
 	}
-	hdrEnd := pos + roundBlock(p-pos)
-	if hdrEnd > len(data) {
+	hdrEnd := pos + roundBlock(len(hdr))
+	if hdrEnd > src.size {
 		return nil, 0, fmt.Errorf("truncated file: the header of the %s is cut inside its last 2880-byte block", what)
 	}
-	h.Header = ParseHeader(data[pos:p])
+	h.Header = ParseHeader(hdr)
 	if err := checkMandatoryOnce(h.Header, what); err != nil {
 		return nil, 0, err
 	}
@@ -72,24 +86,45 @@ func scanOne(data []byte, pos, idx int, lim Limits) (*Unit, int, error) {
 	if err != nil {
 		return nil, 0, err
 	}
-	size, err := dataSize(len(data), hdrEnd, h.Axes, h.Bitpix, pcount, gcount, h.what())
+	size, err := dataSize(src.size, hdrEnd, h.Axes, h.Bitpix, pcount, gcount, h.what())
 	if err != nil {
 		return nil, 0, err
 	}
-	h.data = data[hdrEnd : hdrEnd+size : hdrEnd+size]
+	h.src, h.off, h.size = src, hdrEnd, size
+	if src.mem != nil {
+		h.data = src.mem[hdrEnd : hdrEnd+size : hdrEnd+size]
+	}
 	h.pcount = pcount
 	return h, hdrEnd + roundBlock(size), nil
 }
 
-// findEnd returns the position just after the END card of the header
-// starting at pos.
-func findEnd(data []byte, pos int, what string) (int, error) {
-	for p := pos; ; p += cardSize {
-		if p+cardSize > len(data) {
-			return 0, fmt.Errorf("truncated file: the header of the %s has no END card", what)
+// readHeader returns the header starting at pos up to and including its
+// END card, read a 2880-byte block at a time.
+func readHeader(src *source, pos int, what string) ([]byte, error) {
+	var hdr []byte
+	for blk := pos; ; blk += blockSize {
+		n := min(blockSize, src.size-blk)
+		n -= n % cardSize
+		if n <= 0 {
+			return nil, fmt.Errorf("truncated file: the header of the %s has no END card", what)
 		}
-		if string(data[p:p+8]) == "END     " {
-			return p + cardSize, nil
+		b, err := src.read(blk, n)
+		if err != nil {
+			return nil, err
+		}
+		for p := 0; p < n; p += cardSize {
+			if string(b[p:p+8]) == "END     " {
+				if src.mem != nil {
+					return src.mem[pos : blk+p+cardSize], nil
+				}
+				return append(hdr, b[:p+cardSize]...), nil
+			}
+		}
+		if src.mem == nil {
+			hdr = append(hdr, b...)
+		}
+		if n < blockSize {
+			return nil, fmt.Errorf("truncated file: the header of the %s has no END card", what)
 		}
 	}
 }

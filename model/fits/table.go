@@ -26,8 +26,12 @@ type table struct {
 	rows       int
 	cols       []column
 	fixed      []byte // rows × rowBytes
-	heap       []byte // from THEAP to the end of the data unit
+	heap       []byte // from THEAP to the end of the data unit; nil when read as needed
 	heapOffset int    // THEAP
+	heapLen    int    // bytes of the heap
+	src        *source
+	heapAt     int // first byte of the heap in src
+	buf        []byte
 }
 
 // typeWidth is the byte width of one element of each TFORM type code
@@ -108,10 +112,12 @@ func (h *Unit) table() (*table, error) {
 		return nil, fmt.Errorf("%s: the columns fill %d bytes of a row, NAXIS1 = %d", t.what, off, t.rowBytes)
 	}
 	fixed := t.rowBytes * t.rows // no overflow: the scan bounded NAXIS1·NAXIS2 by the file
-	if fixed > len(h.data) {
-		return nil, fmt.Errorf("%s: %d rows of %d bytes but a data unit of %d bytes (GCOUNT = 0?)", t.what, t.rows, t.rowBytes, len(h.data))
+	if fixed > h.size {
+		return nil, fmt.Errorf("%s: %d rows of %d bytes but a data unit of %d bytes (GCOUNT = 0?)", t.what, t.rows, t.rowBytes, h.size)
 	}
-	t.fixed = h.data[:fixed]
+	if t.fixed, err = h.src.read(h.off, fixed); err != nil {
+		return nil, fmt.Errorf("%s: %w", t.what, err)
+	}
 	theap, ok, err := h.Header.Int("THEAP")
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", t.what, err)
@@ -119,10 +125,13 @@ func (h *Unit) table() (*table, error) {
 	if !ok {
 		theap = fixed
 	}
-	if theap < fixed || theap > len(h.data) {
-		return nil, fmt.Errorf("%s: THEAP = %d outside the data unit (table %d bytes, data %d bytes)", t.what, theap, fixed, len(h.data))
+	if theap < fixed || theap > h.size {
+		return nil, fmt.Errorf("%s: THEAP = %d outside the data unit (table %d bytes, data %d bytes)", t.what, theap, fixed, h.size)
 	}
-	t.heap, t.heapOffset = h.data[theap:], theap
+	t.heapOffset, t.heapLen, t.src, t.heapAt = theap, h.size-theap, h.src, h.off+theap
+	if h.data != nil {
+		t.heap = h.data[theap:]
+	}
 	return t, nil
 }
 
@@ -158,10 +167,19 @@ func (t *table) array(r, ci int) ([]byte, int, error) {
 		n, off = int64(binary.BigEndian.Uint64(b)), int64(binary.BigEndian.Uint64(b[8:]))
 	}
 	w := int64(typeWidth[c.elem])
-	if n < 0 || off < 0 || off > int64(len(t.heap)) || n > (int64(len(t.heap))-off)/w {
-		return nil, 0, fmt.Errorf("%s row %d column %s: array of %d elements at heap offset %d lies outside the %d-byte heap", t.what, r+1, c.name, n, off, len(t.heap))
+	if n < 0 || off < 0 || off > int64(t.heapLen) || n > (int64(t.heapLen)-off)/w {
+		return nil, 0, fmt.Errorf("%s row %d column %s: array of %d elements at heap offset %d lies outside the %d-byte heap", t.what, r+1, c.name, n, off, t.heapLen)
 	}
-	return t.heap[off : off+n*w], int(n), nil
+	if t.heap != nil {
+		return t.heap[off : off+n*w], int(n), nil
+	}
+	// Read as needed, into a buffer reused by the next call.
+	b, err := t.src.readInto(t.buf, t.heapAt+int(off), int(n*w))
+	if err != nil {
+		return nil, 0, fmt.Errorf("%s row %d column %s: %w", t.what, r+1, c.name, err)
+	}
+	t.buf = b
+	return b, int(n), nil
 }
 
 // scalar returns the first element of column ci in row r as float64 (types

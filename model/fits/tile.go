@@ -219,8 +219,8 @@ func (h *Unit) decompress() ([]float64, error) {
 	if w < 0 {
 		w = -w
 	}
-	if int64(n)*int64(w) > maxRatio*int64(len(h.data))+blockSize {
-		return nil, fmt.Errorf("%s: a %v image of %d-byte pixels in a %d-byte data unit is beyond any compression ratio", h.what(), z.axes, w, len(h.data))
+	if int64(n)*int64(w) > maxRatio*int64(h.size)+blockSize {
+		return nil, fmt.Errorf("%s: a %v image of %d-byte pixels in a %d-byte data unit is beyond any compression ratio", h.what(), z.axes, w, h.size)
 	}
 	out := make([]float64, n)
 	for k := 0; k < z.t.rows; k++ {
@@ -229,6 +229,71 @@ func (h *Unit) decompress() ([]float64, error) {
 		}
 	}
 	return out, nil
+}
+
+// decompressPlane decodes plane k (see ReadPlane) of the tile-compressed
+// image h into dst, decoding only the tiles that overlap the plane (a tile
+// spanning several planes is decoded again for each).
+func (h *Unit) decompressPlane(k int, dst []float64) error {
+	z, err := h.zimage()
+	if err != nil {
+		return err
+	}
+	w := z.bitpix / 8
+	if w < 0 {
+		w = -w
+	}
+	if int64(len(dst))*int64(w) > maxRatio*int64(h.size)+blockSize {
+		return fmt.Errorf("%s: a %v image of %d-byte pixels in a %d-byte data unit is beyond any compression ratio", h.what(), z.axes, w, h.size)
+	}
+	// The plane's coordinates along the axes beyond the second, and the
+	// tile index of the plane's first tile.
+	nt := make([]int, len(z.axes))
+	for i, n := range z.axes {
+		nt[i] = (n + z.tile[i] - 1) / z.tile[i]
+	}
+	coord := make([]int, len(z.axes))
+	base, stride, rest := 0, nt[0]*nt[1], k
+	for i := 2; i < len(z.axes); i++ {
+		coord[i] = rest % z.axes[i]
+		rest /= z.axes[i]
+		base += coord[i] / z.tile[i] * stride
+		stride *= nt[i]
+	}
+	for t1 := 0; t1 < nt[1]; t1++ {
+		for t0 := 0; t0 < nt[0]; t0++ {
+			tk := base + t0 + nt[0]*t1
+			if err := z.decodeTilePlane(tk, coord, dst); err != nil {
+				return fmt.Errorf("%s: tile %d (%s): %w", h.what(), tk+1, z.cmp, err)
+			}
+		}
+	}
+	return nil
+}
+
+// decodeTilePlane decodes tile k and copies its pixels in the plane of
+// coordinates coord (axes beyond the second) into dst, that plane.
+func (z *zimage) decodeTilePlane(k int, coord []int, dst []float64) error {
+	first, size := z.tileBox(k)
+	np := 1
+	for _, s := range size {
+		np *= s
+	}
+	vals, err := z.tileValues(k, np)
+	if err != nil {
+		return err
+	}
+	// Offset of the plane inside the tile, first axis fastest.
+	off, stride := 0, size[0]*size[1]
+	for i := 2; i < len(size); i++ {
+		off += (coord[i] - first[i]) * stride
+		stride *= size[i]
+	}
+	nx := z.axes[0]
+	for y := 0; y < size[1]; y++ {
+		copy(dst[(first[1]+y)*nx+first[0]:(first[1]+y)*nx+first[0]+size[0]], vals[off+y*size[0]:off+(y+1)*size[0]])
+	}
+	return nil
 }
 
 // tileBox returns the first pixel and extent of tile k (0-based, first
