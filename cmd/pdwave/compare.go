@@ -15,7 +15,6 @@ import (
 	"pdwave/model/burst"
 	"pdwave/model/instrument"
 	"pdwave/model/net"
-	"pdwave/model/optics"
 	"pdwave/model/site"
 	"pdwave/weights"
 )
@@ -98,7 +97,7 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	st, src, err := o.sources(cmd, b)
+	src, err := o.sources(cmd, b)
 	if err != nil {
 		return err
 	}
@@ -106,22 +105,12 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	fc, model, notes, err := compareConfig(src, b.Frames, model, o.weights == "")
-	if err != nil {
-		return fmt.Errorf("compare: %w", err)
-	}
-	if notes, err = o.finishFit(&fc, st, b, notes); err != nil {
-		return err
-	}
-	fitter, err := infer.NewFitter(fc)
-	if err != nil {
-		return fmt.Errorf("compare: %w", err)
-	}
-	learned, notes, err := o.learnedEstimator(model, fitter, notes)
+	setup, err := compare.Resolve(src, b, compare.Weights{Model: model, Name: o.weights, Builtin: o.weights == ""}, o.iterations, o.prior)
 	if err != nil {
 		return err
 	}
-	cfg := o.config(fc, args[0], notes)
+	fc, model, learned := setup.Fit, setup.Model, setup.Learned
+	cfg := o.config(fc, args[0], setup.Notes)
 	if err := o.provenance(&cfg, args[0], model, learned != nil); err != nil {
 		return err
 	}
@@ -171,22 +160,22 @@ func (o compareFlags) check() error {
 	return nil
 }
 
-// sources loads the --site file (nil without one) and collects what the
-// flags, the burst header and the site say about the instrument.
-func (o compareFlags) sources(cmd *cobra.Command, b *burst.Burst) (*site.Site, instrument.Sources, error) {
+// sources collects what the flags, the burst header and the --site file
+// (if any) say about the instrument.
+func (o compareFlags) sources(cmd *cobra.Command, b *burst.Burst) (instrument.Sources, error) {
 	src := instrument.Sources{Header: infer.HeaderInstrument(b.Optics)}
 	var err error
 	if src.Flags, err = flagInstrument(cmd.Flags()); err != nil {
-		return nil, src, fmt.Errorf("compare: %w", err)
+		return src, fmt.Errorf("compare: %w", err)
 	}
-	var st *site.Site
 	if o.site != "" {
-		if st, err = site.Load(o.site); err != nil {
-			return nil, src, fmt.Errorf("compare: %s: %w", o.site, err)
+		st, err := site.Load(o.site)
+		if err != nil {
+			return src, fmt.Errorf("compare: %s: %w", o.site, err)
 		}
 		src.Site = st.Instrument()
 	}
-	return st, src, nil
+	return src, nil
 }
 
 // loadWeights returns the network to compare and where it came from: the
@@ -199,58 +188,6 @@ func (o compareFlags) loadWeights() (*net.Model, string, error) {
 	}
 	m, err := net.Load(o.weights)
 	return m, o.weights, err
-}
-
-// compareConfig resolves the fit configuration with the weights
-// (infer.ConfigWithWeights): built-in weights that do not fit are dropped
-// with a note (model returned nil), weights given with --weights must fit.
-func compareConfig(src instrument.Sources, frames int, model *net.Model, builtin bool) (infer.Config, *net.Model, []string, error) {
-	cfg, used, note, err := infer.ConfigWithWeights(src, frames, model, builtin)
-	if err != nil {
-		return cfg, nil, nil, err
-	}
-	if !used {
-		return cfg, nil, []string{"Built-in weights not used: " + note}, nil
-	}
-	return cfg, model, nil, nil
-}
-
-// finishFit sets the fit's iteration budget and prior weight from the
-// flags (notes the assumed D/r0 when no seeing is known) and checks that
-// the field holds one patch and the patch samples the pupil.
-func (o compareFlags) finishFit(fc *infer.Config, st *site.Site, b *burst.Burst, notes []string) ([]string, error) {
-	fc.Stop.Iterations = o.iterations
-	if fc.Notes["d_over_r0"] == instrument.FromDefault {
-		notes = append(notes, fmt.Sprintf("No site seeing given: the prior assumes D/r0 = %g.", fc.DOverR0))
-	}
-	if !(o.prior >= 0) {
-		return notes, fmt.Errorf("compare: --prior must be ≥ 0, got %g", o.prior)
-	}
-	fc.Prior = o.prior
-	if b.Nx < fc.Patch || b.Ny < fc.Patch {
-		return notes, fmt.Errorf("compare: the %d×%d field is smaller than one %d px patch (set --patch)", b.Nx, b.Ny, fc.Patch)
-	}
-	if _, err := optics.NewPupil(fc.Telescope, fc.Patch); err != nil {
-		return notes, fmt.Errorf("compare: %w", err)
-	}
-	return notes, nil
-}
-
-// learnedEstimator wraps the network (if any) as an estimator in the
-// fit's basis. A network that does not fit is an error when it was asked
-// for with --weights and a note otherwise (the built-in weights).
-func (o compareFlags) learnedEstimator(model *net.Model, fitter *infer.Fitter, notes []string) (infer.Estimator, []string, error) {
-	if model == nil {
-		return nil, notes, nil
-	}
-	est, err := compare.NewNetEstimator(model, fitter.Basis())
-	if err != nil {
-		if o.weights != "" {
-			return nil, notes, fmt.Errorf("compare: %s: %w", o.weights, err)
-		}
-		return nil, append(notes, "Built-in weights not used: "+err.Error()), nil
-	}
-	return est, notes, nil
 }
 
 // config assembles the comparison settings: the fit, the flags, the

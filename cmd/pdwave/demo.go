@@ -2,18 +2,12 @@ package main
 
 import (
 	"fmt"
-	"io"
 	"os"
-	"os/exec"
 	"path/filepath"
-	"strconv"
-	"strings"
-	"time"
 
 	"github.com/spf13/cobra"
 
-	"pdwave/internal/atomicfile"
-	"pdwave/internal/outpath"
+	"pdwave/infer"
 )
 
 // demoFlags holds the flags of "pdwave demo".
@@ -78,6 +72,7 @@ func demoCheck() error {
 	return checkReplaceDir("demo", o.out, o.site)
 }
 
+// demoRun turns the flags into an infer.DemoJob and runs it.
 func demoRun(cmd *cobra.Command, _ []string) error {
 	o := demoFlags
 	if err := demoCheck(); err != nil {
@@ -87,89 +82,7 @@ func demoRun(cmd *cobra.Command, _ []string) error {
 	if err != nil {
 		return fmt.Errorf("demo: locating the pdwave executable: %w", err)
 	}
-	out := filepath.Clean(o.out)
-	parent := filepath.Dir(out)
-	if err := os.MkdirAll(parent, 0o755); err != nil {
-		return fmt.Errorf("demo: %w", err)
-	}
-	tmp, err := os.MkdirTemp(parent, "."+filepath.Base(out)+".tmp-")
-	if err != nil {
-		return fmt.Errorf("demo: %w", err)
-	}
-	done := false
-	defer func() {
-		if !done {
-			os.RemoveAll(tmp)
-		}
-	}()
-
-	// The steps run inside the folder being assembled, with paths relative
-	// to it, so that what they print holds for the final folder too.
-	site, err := filepath.Abs(o.site)
-	if err != nil {
-		return fmt.Errorf("demo: %w", err)
-	}
-	burstFile := filepath.Join("burst", "burst-0001.fits")
-	steps := [][]string{
-		{"simulate", "--site", site, "--out", "burst", "--field", strconv.Itoa(o.field),
-			"--frames", strconv.Itoa(o.frames), "--seed", strconv.FormatUint(o.seed, 10)},
-		{"restore", burstFile, "--site", site, "--out", "restored.fits",
-			"--polish", strconv.Itoa(o.polish), "--quiet"},
-		{"compare", burstFile, "--site", site, "--out", "report",
-			"--polish", strconv.Itoa(o.polish)},
-	}
-	log := cmd.ErrOrStderr()
-	start := time.Now()
-	for i, args := range steps {
-		fmt.Fprintf(log, "demo step %d/%d (in %s): pdwave %s\n", i+1, len(steps), out, strings.Join(args, " "))
-		t0 := time.Now()
-		if err := demoExec(self, tmp, args, log); err != nil {
-			return fmt.Errorf("demo step %d (pdwave %s): %w", i+1, args[0], err)
-		}
-		fmt.Fprintf(log, "demo step %d/%d: done in %.1f s\n", i+1, len(steps), time.Since(t0).Seconds())
-	}
-	if err := demoInstall(tmp, out); err != nil {
-		return err
-	}
-	done = true
-	fmt.Fprintf(log, "demo: finished in %.1f s; open %s\n", time.Since(start).Seconds(),
-		filepath.Join(out, "report", "index.html"))
-	return nil
-}
-
-// demoInstall lists the assembled folder tmp in its manifest and puts it in
-// place of out, which must still be replaceable (written by pdwave alone).
-func demoInstall(tmp, out string) error {
-	if err := outpath.WriteManifest(tmp); err != nil {
-		return fmt.Errorf("demo: %w", err)
-	}
-	if err := os.Chmod(tmp, atomicfile.DirMode()); err != nil {
-		return fmt.Errorf("demo: %w", err)
-	}
-	// Checked again: something may have been put there since the start.
-	if err := outpath.Replaceable("demo", out); err != nil {
-		return err
-	}
-	if err := os.RemoveAll(out); err != nil {
-		return fmt.Errorf("demo: replacing %s: %w", out, err)
-	}
-	if err := os.Rename(tmp, out); err != nil {
-		return fmt.Errorf("demo: %w", err)
-	}
-	return nil
-}
-
-// demoExec runs one pdwave step as a child process in dir, passing its
-// output through, and reports its last error line if it fails.
-func demoExec(self, dir string, args []string, log io.Writer) error {
-	c := exec.Command(self, args...)
-	c.Dir = dir
-	c.Stdout = log
-	var errBuf strings.Builder
-	c.Stderr = io.MultiWriter(log, &errBuf)
-	if err := c.Run(); err != nil {
-		lines := strings.Split(strings.TrimSpace(errBuf.String()), "\n")
-		return fmt.Errorf("%v: %s", err, lines[len(lines)-1])
-	}
-	return nil
+	job := infer.DemoJob{Exe: self, Site: o.site, Out: o.out, Field: o.field, Frames: o.frames,
+		Seed: o.seed, Polish: o.polish, Log: cmd.ErrOrStderr()}
+	return job.Run()
 }

@@ -3,9 +3,6 @@ package main
 import (
 	"fmt"
 	"math"
-	"os"
-	"path/filepath"
-	"runtime"
 	"strings"
 	"time"
 
@@ -186,6 +183,8 @@ func fitRun(cmd *cobra.Command, args []string) error {
 	return nil
 }
 
+// fitStudyRun checks the flags, loads the site and runs an
+// infer.StudyJob.
 func fitStudyRun(cmd *cobra.Command, args []string) error {
 	o := fitStudyOpts
 	if o.bursts < 1 {
@@ -205,47 +204,10 @@ func fitStudyRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	simCfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		return err
-	}
-	scenes, err := infer.SimulatedStudyScenes(simCfg, o.scenes, fitStudyImages(o.sceneDir))
-	if err != nil {
-		return fmt.Errorf("--scenes %q: %w", o.scenes, err)
-	}
-	if err := os.MkdirAll(o.out, 0o755); err != nil {
-		return fmt.Errorf("creating %s: %w", o.out, err)
-	}
-	// The study sets patch, frames, diversity and D/r0 per case.
-	cfg, err := infer.ConfigFor(instrument.Sources{Site: st.Instrument()}, 0)
-	if err != nil {
-		return err
-	}
-	workers := o.workers
-	if workers <= 0 {
-		workers = runtime.GOMAXPROCS(0)
-	}
-	stderr := cmd.ErrOrStderr()
-	fmt.Fprintf(stderr, "%d settings × %d scenes × %d bursts = %d fits on %d workers\n",
-		len(cases), len(scenes), o.bursts, len(cases)*len(scenes)*o.bursts, workers)
-	start := time.Now()
-	rows, err := infer.StudyScenes(cfg, cases, o.bursts, scenes, o.seed, workers, func(r infer.StudyRow) {
-		fmt.Fprintf(stderr, "D/r0 %4.1f  %3d px  %2d frames  %.1f waves  %-12s error %.3f (2–10), %.3f (2–21), %.2f s per fit\n",
-			r.DOverR0, r.Patch, r.Frames, r.DiversityPV, r.Scene, r.Err10, r.Err21, r.Seconds)
-	})
-	if err != nil {
-		return err
-	}
-	path := filepath.Join(o.out, "fit-study.csv")
-	if err := infer.WriteStudyFile(path, rows); err != nil {
-		return err
-	}
-	fmt.Fprintf(stderr, "\nerror = fraction of the true wavefront variance left (1 = no correction); >1 = share of bursts above 1\n")
-	if err := infer.WriteStudySummary(stderr, rows); err != nil {
-		return err
-	}
-	fmt.Fprintf(stderr, "wrote %s (%v)\n", path, time.Since(start).Round(time.Second))
-	return nil
+	job := infer.StudyJob{Site: st, Cases: cases, Bursts: o.bursts, Scenes: o.scenes, SceneDir: o.sceneDir,
+		Seed: o.seed, Workers: o.workers, Out: o.out, Log: cmd.ErrOrStderr()}
+	_, err = job.Run()
+	return err
 }
 
 // fitStudyCases returns the settings of the study for --cases and
@@ -262,19 +224,4 @@ func fitStudyCases(cases string, quick, given bool) ([]infer.StudyCase, error) {
 		return nil, fmt.Errorf("--cases %q: %w", cases, err)
 	}
 	return c, nil
-}
-
-// fitStudyImages returns the loader of the real scenes: the FITS files of
-// dir, else of simulate.FindSceneDir.
-func fitStudyImages(dir string) func() (*simulate.ImageScene, error) {
-	return func() (*simulate.ImageScene, error) {
-		d := dir
-		if d == "" {
-			var err error
-			if d, err = simulate.FindSceneDir(); err != nil {
-				return nil, fmt.Errorf("%w (or give --scene-dir, or use --scenes granulation)", err)
-			}
-		}
-		return simulate.LoadSceneDir(d)
-	}
 }

@@ -39,98 +39,154 @@ func NewGraph(m *Model, bursts, frames int) (*Graph, error) {
 	if bursts < 1 || frames < 1 {
 		return nil, fmt.Errorf("net: graph for %d bursts of %d frames", bursts, frames)
 	}
-	a := m.Arch
-	r := bursts * frames
 	gr := &Graph{Bursts: bursts, Frames: frames, m: m, g: G.NewGraph()}
-	g := gr.g
+	gr.addWeights()
+	gr.addInputs()
+	y, err := gr.forward()
+	if err != nil {
+		return nil, err
+	}
+	gr.y = y
+	if err := gr.addOuterGradient(); err != nil {
+		return nil, err
+	}
+	gr.vm = G.NewTapeMachine(gr.g, G.BindDualValues(gr.w...))
 	for _, p := range m.Params {
+		gr.grads = append(gr.grads, make([]float64, len(p.Data)))
+	}
+	return gr, nil
+}
+
+// addWeights adds a node per tensor of Model.Params, in their order, each
+// sharing its backing array with the Model's tensor.
+func (gr *Graph) addWeights() {
+	for _, p := range gr.m.Params {
 		t := tensor.New(tensor.WithShape(p.Shape...), tensor.WithBacking(p.Data))
-		n := G.NewTensor(g, tensor.Float64, len(p.Shape), G.WithShape(p.Shape...), G.WithName(p.Name), G.WithValue(t))
-		if len(p.Shape) == 2 {
-			n = G.NewMatrix(g, tensor.Float64, G.WithShape(p.Shape...), G.WithName(p.Name), G.WithValue(t))
-		} else if len(p.Shape) == 1 {
-			n = G.NewVector(g, tensor.Float64, G.WithShape(p.Shape...), G.WithName(p.Name), G.WithValue(t))
+		opts := []G.NodeConsOpt{G.WithShape(p.Shape...), G.WithName(p.Name), G.WithValue(t)}
+		var n *G.Node
+		switch len(p.Shape) {
+		case 1:
+			n = G.NewVector(gr.g, tensor.Float64, opts...)
+		case 2:
+			n = G.NewMatrix(gr.g, tensor.Float64, opts...)
+		default:
+			n = G.NewTensor(gr.g, tensor.Float64, len(p.Shape), opts...)
 		}
 		gr.w = append(gr.w, n)
 	}
-	gr.xT = tensor.New(tensor.WithShape(r, a.Channels, a.Size, a.Size), tensor.Of(tensor.Float64))
-	gr.x = G.NewTensor(g, tensor.Float64, 4, G.WithShape(r, a.Channels, a.Size, a.Size), G.WithName("x"), G.WithValue(gr.xT))
-	gr.ginT = tensor.New(tensor.WithShape(r, a.Modes), tensor.Of(tensor.Float64))
-	gr.gin = G.NewMatrix(g, tensor.Float64, G.WithShape(r, a.Modes), G.WithName("gin"), G.WithValue(gr.ginT))
+}
 
-	wrap := func(err error, what string) error { return fmt.Errorf("net: building %s: %w", what, err) }
-	h := gr.x
-	var err error
-	for l := range a.Conv {
-		if h, err = G.Conv2d(h, gr.w[2*l], tensor.Shape{3, 3}, []int{1, 1}, []int{2, 2}, []int{1, 1}); err != nil {
-			return nil, wrap(err, "convolution")
-		}
-		if h, err = G.BroadcastAdd(h, gr.w[2*l+1], nil, []byte{0, 2, 3}); err != nil {
-			return nil, wrap(err, "convolution bias")
-		}
-		if h, err = G.Rectify(h); err != nil {
-			return nil, wrap(err, "ReLU")
-		}
+// addInputs adds the feature input x (rows × Channels × Size × Size) and the
+// outer gradient gin (rows × Modes), with the tensors Backward copies into.
+func (gr *Graph) addInputs() {
+	a := gr.m.Arch
+	r := gr.Bursts * gr.Frames
+	gr.xT = tensor.New(tensor.WithShape(r, a.Channels, a.Size, a.Size), tensor.Of(tensor.Float64))
+	gr.x = G.NewTensor(gr.g, tensor.Float64, 4, G.WithShape(r, a.Channels, a.Size, a.Size), G.WithName("x"), G.WithValue(gr.xT))
+	gr.ginT = tensor.New(tensor.WithShape(r, a.Modes), tensor.Of(tensor.Float64))
+	gr.gin = G.NewMatrix(gr.g, tensor.Float64, G.WithShape(r, a.Modes), G.WithName("gin"), G.WithValue(gr.ginT))
+}
+
+// graphErr is the error of a gorgonia call building part what of the graph.
+func graphErr(err error, what string) error { return fmt.Errorf("net: building %s: %w", what, err) }
+
+// forward adds the network from x to the raw outputs y (rows × Modes), the
+// same layers as Predictor.Raw: the stride-2 convolutions with ReLU, the
+// per-frame encoder, the burst mean concatenated to each frame's features,
+// the head and the linear output.
+func (gr *Graph) forward() (*G.Node, error) {
+	a := gr.m.Arch
+	h, err := gr.convolutions(gr.x)
+	if err != nil {
+		return nil, err
 	}
 	nl := len(a.Conv)
-	if h, err = G.Reshape(h, tensor.Shape{r, a.flat()}); err != nil {
-		return nil, wrap(err, "flatten")
+	if h, err = G.Reshape(h, tensor.Shape{gr.Bursts * gr.Frames, a.flat()}); err != nil {
+		return nil, graphErr(err, "flatten")
 	}
-	fc := func(x *G.Node, l int, relu bool) (*G.Node, error) {
-		y, err := G.Mul(x, gr.w[l])
-		if err != nil {
-			return nil, err
-		}
-		if y, err = G.BroadcastAdd(y, gr.w[l+1], nil, []byte{0}); err != nil {
-			return nil, err
-		}
-		if relu {
-			return G.Rectify(y)
-		}
-		return y, nil
+	if h, err = gr.dense(h, 2*nl, true); err != nil {
+		return nil, graphErr(err, "encoder")
 	}
-	if h, err = fc(h, 2*nl, true); err != nil {
-		return nil, wrap(err, "encoder")
+	mean, err := G.Mul(gr.burstMean(), h)
+	if err != nil {
+		return nil, graphErr(err, "burst summary")
 	}
-	// Burst mean as a product with a constant block-averaging matrix.
+	if h, err = G.Concat(1, h, mean); err != nil {
+		return nil, graphErr(err, "concatenation")
+	}
+	if h, err = gr.dense(h, 2*nl+2, true); err != nil {
+		return nil, graphErr(err, "head")
+	}
+	y, err := gr.dense(h, 2*nl+4, false)
+	if err != nil {
+		return nil, graphErr(err, "output")
+	}
+	return y, nil
+}
+
+// convolutions adds the 3×3 stride-2 convolutions (padding 1), each with its
+// bias and a ReLU; weights and bias of layer l are w[2l] and w[2l+1].
+func (gr *Graph) convolutions(h *G.Node) (*G.Node, error) {
+	var err error
+	for l := range gr.m.Arch.Conv {
+		if h, err = G.Conv2d(h, gr.w[2*l], tensor.Shape{3, 3}, []int{1, 1}, []int{2, 2}, []int{1, 1}); err != nil {
+			return nil, graphErr(err, "convolution")
+		}
+		if h, err = G.BroadcastAdd(h, gr.w[2*l+1], nil, []byte{0, 2, 3}); err != nil {
+			return nil, graphErr(err, "convolution bias")
+		}
+		if h, err = G.Rectify(h); err != nil {
+			return nil, graphErr(err, "ReLU")
+		}
+	}
+	return h, nil
+}
+
+// dense adds the fully connected layer x·w[l] + w[l+1], with a ReLU if relu.
+func (gr *Graph) dense(x *G.Node, l int, relu bool) (*G.Node, error) {
+	y, err := G.Mul(x, gr.w[l])
+	if err != nil {
+		return nil, err
+	}
+	if y, err = G.BroadcastAdd(y, gr.w[l+1], nil, []byte{0}); err != nil {
+		return nil, err
+	}
+	if relu {
+		return G.Rectify(y)
+	}
+	return y, nil
+}
+
+// burstMean is the constant rows × rows block-averaging matrix: its product
+// with per-frame features gives every row its burst's mean.
+func (gr *Graph) burstMean() *G.Node {
+	r, frames := gr.Bursts*gr.Frames, gr.Frames
 	avg := make([]float64, r*r)
-	for b := 0; b < bursts; b++ {
+	for b := 0; b < gr.Bursts; b++ {
 		for i := 0; i < frames; i++ {
 			for j := 0; j < frames; j++ {
 				avg[(b*frames+i)*r+b*frames+j] = 1 / float64(frames)
 			}
 		}
 	}
-	avgN := G.NewConstant(tensor.New(tensor.WithShape(r, r), tensor.WithBacking(avg)), G.WithName("burstmean"))
-	mean, err := G.Mul(avgN, h)
-	if err != nil {
-		return nil, wrap(err, "burst summary")
-	}
-	if h, err = G.Concat(1, h, mean); err != nil {
-		return nil, wrap(err, "concatenation")
-	}
-	if h, err = fc(h, 2*nl+2, true); err != nil {
-		return nil, wrap(err, "head")
-	}
-	if gr.y, err = fc(h, 2*nl+4, false); err != nil {
-		return nil, wrap(err, "output")
-	}
+	return G.NewConstant(tensor.New(tensor.WithShape(r, r), tensor.WithBacking(avg)), G.WithName("burstmean"))
+}
+
+// addOuterGradient adds the scalar c = Σ y·gin and its gradient with
+// respect to every weight node.
+func (gr *Graph) addOuterGradient() error {
 	prod, err := G.HadamardProd(gr.y, gr.gin)
 	if err != nil {
-		return nil, wrap(err, "outer gradient")
+		return graphErr(err, "outer gradient")
 	}
 	cost, err := G.Sum(prod)
 	if err != nil {
-		return nil, wrap(err, "outer gradient sum")
+		return graphErr(err, "outer gradient sum")
 	}
 	if _, err = G.Grad(cost, gr.w...); err != nil {
-		return nil, wrap(err, "gradient")
+		return graphErr(err, "gradient")
 	}
-	gr.vm = G.NewTapeMachine(g, G.BindDualValues(gr.w...))
-	for _, p := range m.Params {
-		gr.grads = append(gr.grads, make([]float64, len(p.Data)))
-	}
-	return gr, nil
+	return nil
 }
 
 // InputLen is the length of x in Backward: Bursts·Frames·Channels·Size².
