@@ -274,12 +274,7 @@ func (h *Unit) decompressPlane(k int, dst []float64) error {
 // decodeTilePlane decodes tile k and copies its pixels in the plane of
 // coordinates coord (axes beyond the second) into dst, that plane.
 func (z *zimage) decodeTilePlane(k int, coord []int, dst []float64) error {
-	first, size := z.tileBox(k)
-	np := 1
-	for _, s := range size {
-		np *= s
-	}
-	vals, err := z.tileValues(k, np)
+	first, size, vals, err := z.tilePixels(k)
 	if err != nil {
 		return err
 	}
@@ -294,6 +289,23 @@ func (z *zimage) decodeTilePlane(k int, coord []int, dst []float64) error {
 		copy(dst[(first[1]+y)*nx+first[0]:(first[1]+y)*nx+first[0]+size[0]], vals[off+y*size[0]:off+(y+1)*size[0]])
 	}
 	return nil
+}
+
+// tilePixels returns the box of tile k (tileBox) and its decoded values,
+// first axis fastest.
+func (z *zimage) tilePixels(k int) (first, size []int, vals []float64, err error) {
+	first, size = z.tileBox(k)
+	vals, err = z.tileValues(k, boxPixels(size))
+	return first, size, vals, err
+}
+
+// boxPixels returns the number of pixels of a box of the given extents.
+func boxPixels(size []int) int {
+	np := 1
+	for _, s := range size {
+		np *= s
+	}
+	return np
 }
 
 // tileBox returns the first pixel and extent of tile k (0-based, first
@@ -311,15 +323,11 @@ func (z *zimage) tileBox(k int) (first, size []int) {
 
 // decodeTile decodes tile k into out, the whole image.
 func (z *zimage) decodeTile(k int, out []float64) error {
-	first, size := z.tileBox(k)
-	np := 1
-	for _, s := range size {
-		np *= s
-	}
-	vals, err := z.tileValues(k, np)
+	first, size, vals, err := z.tilePixels(k)
 	if err != nil {
 		return err
 	}
+	np := min(len(vals), boxPixels(size))
 	// Scatter: tile pixel p at offset idx in the image, first axis fastest.
 	pos := make([]int, len(size))
 	for p := 0; p < np; p++ {
