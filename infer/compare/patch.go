@@ -2,12 +2,14 @@ package compare
 
 import (
 	"fmt"
+	"math"
 	"sync"
 	"time"
 
 	"gonum.org/v1/gonum/stat"
 
 	"pdwave/infer"
+	"pdwave/infer/restore"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
 )
@@ -34,6 +36,10 @@ type patchWork struct {
 	// (infer.DiffractionLimited; refNx columns), nil when unknown.
 	ref   []float64
 	refNx int
+	// suspect is restore's setup for the learned estimate without polish,
+	// whose engine gives the figure of infer.LearnedSuspect; nil without a
+	// learned estimator.
+	suspect *restore.FieldSetup
 }
 
 // imageError scores a restored patch at (x, y) against the reference
@@ -66,9 +72,20 @@ func (w *patchWork) runAll(b *burst.Burst, jobs []patchJob, truths [][][]float64
 		go func() {
 			defer wg.Done()
 			plan := fft.NewPlan(n, n)
+			var eng restore.Engine
+			var eerr error
+			if w.suspect != nil {
+				eng, eerr = w.suspect.NewEngine()
+			}
 			for jb := range ch {
 				data := b.Patch(jb.x, jb.y, n)
 				outs[jb.idx] = w.run(data, jb, truths[jb.idx], plan)
+				if outs[jb.idx].err == nil && eerr != nil {
+					outs[jb.idx].err = eerr
+				}
+				if outs[jb.idx].err == nil && eng != nil {
+					outs[jb.idx].patch.LearnedOverNoise = learnedOverNoise(eng, data, n)
+				}
 			}
 		}()
 	}
@@ -78,6 +95,19 @@ func (w *patchWork) runAll(b *burst.Burst, jobs []patchJob, truths [][][]float64
 	close(ch)
 	wg.Wait()
 	return outs
+}
+
+// learnedOverNoise returns restore's metric over its noise-only
+// expectation at the learned estimate (the figure of infer.LearnedSuspect),
+// computed by restore's own engine; nil when the engine fails or the
+// figure is unknown.
+func learnedOverNoise(eng restore.Engine, data [][][]float64, n int) *float64 {
+	pr := &restore.PatchResult{Tile: make([]float64, n*n), Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN()}
+	if err := eng.Restore(pr, data); err != nil || math.IsNaN(pr.MetricRatio) || math.IsInf(pr.MetricRatio, 0) {
+		return nil
+	}
+	v := pr.MetricRatio
+	return &v
 }
 
 // run computes every estimate of one patch and scores each method: the

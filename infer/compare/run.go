@@ -12,6 +12,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"pdwave/infer"
+	"pdwave/infer/restore"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
 	"pdwave/model/modes"
@@ -113,6 +114,11 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	}
 	w := &patchWork{learned: learned, polisher: polisher, fitter: fitter, fromZero: !cfg.FromLearned,
 		methods: methods, constrain: constrain, win: pd.Window(n, fc.Metric.Window)}
+	if learned != nil {
+		if w.suspect, err = restore.NewFieldSetup(fc, restore.Method{Start: learned, Name: Learned}); err != nil {
+			return nil, fmt.Errorf("compare: %w", err)
+		}
+	}
 	if b.Object != nil {
 		if w.ref, err = infer.DiffractionLimited(b.Object, b.Nx, b.Ny, fc.Telescope); err != nil {
 			return nil, fmt.Errorf("compare: %w", err)

@@ -6,6 +6,7 @@ import (
 	"strings"
 	"testing"
 
+	"pdwave/infer"
 	"pdwave/model/burst"
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
@@ -124,5 +125,47 @@ func TestRunSimulateField(t *testing.T) {
 	t.Logf("image error: %v", ie)
 	if len(ie) != 3 || !(ie[Truth] < 0.8*ie["raw"]) || !(ie[Fitted] < ie["raw"]) {
 		t.Errorf("image errors %v: want raw, fitted and truth, the restorations below the raw average", ie)
+	}
+}
+
+// TestLearnedSuspectFlag runs the comparison on one simulated patch twice:
+// with a learned estimate equal to the truth the learned_suspect flag must
+// stay off, with the truth plus errors three times the prior spread it
+// must fire, on that single patch (no field to compare with). Planted and
+// seen to fail: the comparison flipped in infer.LearnedSuspect (both runs
+// fail), and the flag left out of flags() (the bad run fails).
+func TestLearnedSuspectFlag(t *testing.T) {
+	cfg := testConfig(32, 6, 10)
+	cfg.Polish = 0
+	cfg.Fit.Stop.Iterations = 20
+	sim, err := simulate.New(simConfig(cfg))
+	if err != nil {
+		t.Fatal(err)
+	}
+	res, err := sim.Patch(rand.New(rand.NewPCG(21, 1)), simulate.Options{Workers: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		rel  float64
+		want bool
+	}{{0, false}, {3, true}} {
+		est := newTruthEstimator(t, cfg, res.Burst.Truth.Coeffs, c.rel, 22)
+		r, err := Run(res.Burst, cfg, est)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p := r.Patches[0]
+		if p.LearnedOverNoise == nil {
+			t.Fatalf("error %g× prior: no metric over noise for the learned estimate", c.rel)
+		}
+		got := false
+		for _, f := range p.Flags {
+			got = got || f == FlagLearnedSuspect
+		}
+		t.Logf("error %g× prior: metric over noise %.3g, flags %v", c.rel, *p.LearnedOverNoise, p.Flags)
+		if got != c.want {
+			t.Errorf("error %g× prior: learned_suspect %v, want %v (metric over noise %.3g, limit %g)", c.rel, got, c.want, *p.LearnedOverNoise, infer.LearnedSuspectLimit)
+		}
 	}
 }

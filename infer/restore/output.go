@@ -207,7 +207,7 @@ func (p *Product) table() *fits.Table {
 		{Key: "PDFRAMES", Value: p.Meta.Frames, Comment: "frames"},
 		{Key: "COMMENT", Value: "NOLL: Noll-equivalent Zernike coefficients j=2..modes+1 per frame"},
 		{Key: "COMMENT", Value: "COEFFS, NOLL: frames x modes per row, frame-major (mode index fastest)"},
-		{Key: "COMMENT", Value: "FLAGS bits: 1 failed, 2 metric, 4 coefficients, 8 contrast, 16 ringing"},
+		{Key: "COMMENT", Value: "FLAGS bits: 1 failed, 2 metric, 4 coefficients, 8 contrast, 16 ringing, 32 learned_suspect"},
 	}}
 }
 
@@ -269,7 +269,7 @@ func (p *Product) Summary() Summary {
 	s := Summary{Nx: m.Nx, Ny: m.Ny, Frames: m.Frames, Patch: m.Patch, Overlap: m.Overlap, Patches: len(p.Patches),
 		Basis: m.Basis, Estimator: m.Estimator, Modes: m.Modes, ShiftX: m.ShiftX, ShiftY: m.ShiftY,
 		Inputs: m.Inputs, Settings: m.Settings, Flagged: map[string]int{}}
-	names := []string{"failed", "metric", "coefficients", "contrast", "ringing"}
+	names := []string{"failed", "metric", "coefficients", "contrast", "ringing", "learned_suspect"}
 	var con, raw, mr, cr, ri []float64
 	for _, r := range p.Patches {
 		for b, n := range names {

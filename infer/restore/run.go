@@ -9,6 +9,8 @@ import (
 	"runtime"
 	"strings"
 	"time"
+
+	"pdwave/infer"
 )
 
 // Field is a calibrated, co-registered burst over the whole field of view.
@@ -92,10 +94,11 @@ const (
 	FlagCoeffs               // coefficient rms above CoeffRMSLimit times the prior rms
 	FlagContrast             // restored contrast below the raw contrast or above ContrastLimit times it
 	FlagRinging              // edge ringing above RingingLimit
+	FlagLearned              // metric over noise above infer.LearnedSuspectLimit: the learned wavefront is likely much worse than a fit's (calibrated for the learned estimate without polish)
 )
 
 // flagNames names each flag bit, in bit order, as every output writes it.
-var flagNames = []string{"failed", "metric_vs_field", "coeffs_vs_prior", "contrast_vs_raw", "ringing"}
+var flagNames = []string{"failed", "metric_vs_field", "coeffs_vs_prior", "contrast_vs_raw", "ringing", infer.FlagLearnedSuspect}
 
 // FlagNames returns the names of the set bits of flags joined with ";"
 // (the compare report's separator), or "none".
@@ -307,6 +310,9 @@ func restoreQuality(r *PatchResult, raw []float64, g *Grid) {
 	}
 	if r.Ringing > RingingLimit {
 		r.Flags |= FlagRinging
+	}
+	if r.Flags&FlagFailed == 0 && infer.LearnedSuspect(r.MetricRatio) {
+		r.Flags |= FlagLearned
 	}
 }
 
