@@ -164,6 +164,9 @@ func (e *restorePhysicsEngine) Restore(r *PatchResult, data [][][]float64) error
 	if nu, pbar := e.s.Noise(), e.s.DataPower(); nu > 0 && pbar > 0 {
 		r.MetricRatio = metric / ((k - 1) * float64(e.s.MaskSize()) * nu / pbar)
 	}
+	if p.Method.Start != nil && p.polish == nil && infer.LearnedSuspect(r.MetricRatio) {
+		r.Flags |= FlagLearned
+	}
 	var s2 float64
 	var cnt int
 	for i, a := range e.alpha {

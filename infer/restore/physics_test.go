@@ -400,4 +400,16 @@ func TestLearnedAndPolish(t *testing.T) {
 			t.Errorf("patch %d: polish did not lower the metric (%.4g → %.4g)", bare[i].ID, bare[i].Metric, polished[i].Metric)
 		}
 	}
+	// learned_suspect is calibrated for the unpolished learned estimate
+	// only: set where that estimate's metric over noise exceeds the limit,
+	// never on polished patches.
+	for i := range bare {
+		want := infer.LearnedSuspect(bare[i].MetricRatio)
+		if got := bare[i].Flags&FlagLearned != 0; got != want {
+			t.Errorf("patch %d (learned, metric over noise %.3g): learned_suspect %v, want %v", bare[i].ID, bare[i].MetricRatio, got, want)
+		}
+		if polished[i].Flags&FlagLearned != 0 {
+			t.Errorf("patch %d: learned_suspect set on a polished patch", polished[i].ID)
+		}
+	}
 }

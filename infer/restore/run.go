@@ -94,7 +94,7 @@ const (
 	FlagCoeffs               // coefficient rms above CoeffRMSLimit times the prior rms
 	FlagContrast             // restored contrast below the raw contrast or above ContrastLimit times it
 	FlagRinging              // edge ringing above RingingLimit
-	FlagLearned              // metric over noise above infer.LearnedSuspectLimit: the learned wavefront is likely much worse than a fit's (calibrated for the learned estimate without polish)
+	FlagLearned              // metric over noise above infer.LearnedSuspectLimit: the learned wavefront is likely much worse than a fit's (set by the engine for the learned estimate without polish only, the case it is calibrated for)
 )
 
 // flagNames names each flag bit, in bit order, as every output writes it.
@@ -311,8 +311,8 @@ func restoreQuality(r *PatchResult, raw []float64, g *Grid) {
 	if r.Ringing > RingingLimit {
 		r.Flags |= FlagRinging
 	}
-	if r.Flags&FlagFailed == 0 && infer.LearnedSuspect(r.MetricRatio) {
-		r.Flags |= FlagLearned
+	if r.Flags&FlagFailed != 0 {
+		r.Flags &^= FlagLearned
 	}
 }
 
