@@ -284,16 +284,20 @@ func restoreRinging(t []float64, n, band int) float64 {
 }
 
 // Mosaic accumulates blended tiles into a field. Add the tiles in a fixed
-// order (Run's sinks see increasing ids) for bit-identical results.
+// order (Run's sinks see increasing ids) for bit-identical results. The
+// sum of the weights is not stored (it would take another 8 bytes per
+// output pixel): Image sums them again over the patches added, in the
+// order they were added, so the result is the same to the bit.
 type Mosaic struct {
-	Grid        *Grid     // patch layout and blending weights
-	Sum, Weight []float64 // Nx·Ny accumulators
-	w           []float64
+	Grid *Grid     // patch layout and blending weights
+	Sum  []float64 // Nx·Ny accumulator of the weighted tiles
+	ids  []int     // the patches added, in order
+	w    []float64
 }
 
 // NewMosaic returns an empty mosaic over g.
 func NewMosaic(g *Grid) *Mosaic {
-	return &Mosaic{Grid: g, Sum: make([]float64, g.Nx*g.Ny), Weight: make([]float64, g.Nx*g.Ny), w: make([]float64, g.Patch*g.Patch)}
+	return &Mosaic{Grid: g, Sum: make([]float64, g.Nx*g.Ny), w: make([]float64, g.Patch*g.Patch)}
 }
 
 // Add blends tile (Patch²) of patch id into the mosaic with the weight of
@@ -309,22 +313,35 @@ func (m *Mosaic) Add(id int, tile []float64) {
 	for y := 0; y < n; y++ {
 		o := (y0+y)*g.Nx + x0
 		for x := 0; x < n; x++ {
-			w := m.w[y*n+x]
-			m.Sum[o+x] += w * tile[y*n+x]
-			m.Weight[o+x] += w
+			m.Sum[o+x] += m.w[y*n+x] * tile[y*n+x]
 		}
 	}
+	m.ids = append(m.ids, id)
 }
 
-// Image writes the blended field Sum/Weight into dst (Nx·Ny) and returns it
-// (allocating when dst is nil). Pixels no tile reached are NaN.
+// Image writes the blended field Sum/(sum of the weights) into dst (Nx·Ny)
+// and returns it (allocating when dst is nil). Pixels no tile reached are
+// NaN. dst must not be Sum.
 func (m *Mosaic) Image(dst []float64) []float64 {
 	if dst == nil {
 		dst = make([]float64, len(m.Sum))
 	}
+	g := m.Grid
+	n := g.Patch
+	clear(dst) // the sum of the weights first
+	for _, id := range m.ids {
+		g.Weight(m.w, id)
+		x0, y0 := g.Origin(id)
+		for y := 0; y < n; y++ {
+			o := (y0+y)*g.Nx + x0
+			for x, w := range m.w[y*n : (y+1)*n] {
+				dst[o+x] += w
+			}
+		}
+	}
 	for i, s := range m.Sum {
-		if m.Weight[i] > 0 {
-			dst[i] = s / m.Weight[i]
+		if dst[i] > 0 {
+			dst[i] = s / dst[i]
 		} else {
 			dst[i] = math.NaN()
 		}
