@@ -17,8 +17,8 @@ import (
 
 // restoreRSSConstant is the constant of restore's memory bound: the peak
 // resident memory of a run beyond twice the burst file's size. Measured
-// on the 1024² × 16 × 2 16-bit burst of the test (67.1 MB): 206–210 MB,
-// 72–76 MB beyond 2 × the file: about 70 MB of program, weights and plans;
+// on the 1024² × 16 × 2 16-bit burst of the test (67.1 MB): 199–212 MB,
+// 65–78 MB beyond 2 × the file: about 70 MB of program, weights and plans;
 // the field, held as 16-bit integers, is 1 × the file, and the
 // output-sized arrays (mean, mosaic sum and weight, the product as
 // written: about 48 bytes per pixel) fit in the second 64 bytes per pixel
