@@ -20,8 +20,8 @@ import (
 // on the 1024² × 16 × 2 16-bit burst of the test (67.1 MB): 199–212 MB,
 // 65–78 MB beyond 2 × the file: about 70 MB of program, weights and plans;
 // the field, held as 16-bit integers, is 1 × the file, and the
-// output-sized arrays (mean, mosaic sum and weight, the product as
-// written: about 48 bytes per pixel) fit in the second 64 bytes per pixel
+// output-sized arrays (mean, mosaic sum, the product as
+// written: about 40 bytes per pixel) fit in the second 64 bytes per pixel
 // of 16 frames × 2 channels. With the field stored as float32 it peaked at
 // 306 MB.
 const restoreRSSConstant = 100 << 20
