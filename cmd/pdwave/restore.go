@@ -292,7 +292,7 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 // (restore.Job.GCHeadroom): the field is held once, and the default
 // collector would let garbage grow to its size again. Measured on a
 // simulated 1024² × 16 × 2 burst: the wall time is unchanged within the
-// machine's noise (the field's float32 frames hold no pointers, so a
+// machine's noise (the field's 16-bit frames hold no pointers, so a
 // collection does not scan them).
 const restoreGCHeadroom = 64 << 20
 

@@ -81,7 +81,7 @@ func TestPrepareCoreg(t *testing.T) {
 	if c.Offset != fixed || c.Method != "given" {
 		t.Errorf("given offset came back as %+v", c)
 	}
-	got := meanShift(t, [][]float64{before}, f.Data[1][:1], nx)
+	got := meanShift(t, [][]float64{before}, fieldFrames(f.Data[1][:1]), nx)
 	t.Logf("given offset (%.2f, %.2f): defocused frame moved by (%.3f, %.3f)", fixed.DX, fixed.DY, got.DX, got.DY)
 	// 0.02 px as in TestRestoreField.
 	if math.Abs(got.DX+fixed.DX) > 0.02 || math.Abs(got.DY+fixed.DY) > 0.02 {

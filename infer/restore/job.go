@@ -266,7 +266,7 @@ func (j *Job) unit(ctx context.Context, u unit, cal *Calibrations, req string) e
 	var b *burst.Burst
 	inputs := []string{u.a}
 	opt := j.Reading
-	opt.Float32 = true // the field held once, as float32 (Field.Data)
+	opt.Quantise16 = true // the field held once, as 16-bit scaled integers (Field.Data)
 	if cal != nil {
 		opt.Calibrate = cal
 	}
@@ -286,11 +286,11 @@ func (j *Job) unit(ctx context.Context, u unit, cal *Calibrations, req string) e
 }
 
 // gcPercent returns the collector percentage that keeps the garbage of
-// restoring u near headroom bytes: the field is held as float32, at most
-// twice the bytes of 16-bit files (more for compressed files, where the
-// estimate is low and the collector runs less often than intended), so
-// the live heap is taken as twice the input files' size. It lies in
-// 10..100.
+// restoring u near headroom bytes: the field is held as 16-bit scaled
+// integers (the bytes of 16-bit files, half those of float32 ones; more
+// for compressed files, where the estimate is low and the collector runs
+// less often than intended) beside output-sized arrays, so the live heap
+// is taken as twice the input files' size. It lies in 10..100.
 func gcPercent(headroom int64, u unit) int {
 	var size int64
 	for _, p := range append(burst.SplitRef(u.a), u.b) {

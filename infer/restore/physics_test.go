@@ -142,7 +142,7 @@ func TestRestoreField(t *testing.T) {
 	// where the simulated one was, up to the offset error s − off. Both
 	// burst means are blurred alike, so the plain correlation (no
 	// low-pass) measures their shift without bias.
-	got, want := meanShift(t, base.burst.Data[1], f.Data[1], nx), Offset{sx - off.DX, sy - off.DY}
+	got, want := meanShift(t, base.burst.Data[1], fieldFrames(f.Data[1]), nx), Offset{sx - off.DX, sy - off.DY}
 	t.Logf("defocused channel after Prepare moved by (%.3f, %.3f) from the simulated one, want (%.3f, %.3f)", got.DX, got.DY, want.DX, want.DY)
 	// 0.02 px: the band-limited interpolation and the edge taper (common
 	// practice tolerance for sub-pixel registration).

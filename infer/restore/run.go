@@ -13,80 +13,6 @@ import (
 	"pdwave/infer"
 )
 
-// Field is a calibrated, co-registered burst over the whole field of view.
-type Field struct {
-	Nx, Ny, Frames int // field size, pixels, and frames per channel
-	// Data[channel][frame] is an Nx·Ny row-major image; channel 0 focused,
-	// channel 1 defocused. Frames are stored as float32 (half the memory
-	// of float64; a camera's 16-bit counts and their calibration lose
-	// nothing that matters at float32's 24-bit precision); patches are cut
-	// from them into float64 buffers. Run only reads it.
-	Data [2][][]float32
-	// Mean is the burst-mean focused image (Nx·Ny): the "raw" reference for
-	// previews, quality figures and the fallback of failed patches.
-	Mean []float64
-}
-
-// NewField wraps calibrated frames data[channel][frame] (each nx·ny),
-// converted to float32 (see Field.Data), and computes the burst-mean
-// focused image. Errors if the frame counts of the channels differ, there
-// are no frames or a frame has the wrong length.
-func NewField(nx, ny int, data [2][][]float64) (*Field, error) {
-	var d [2][][]float32
-	for c := range data {
-		d[c] = make([][]float32, len(data[c]))
-		for j, fr := range data[c] {
-			d[c][j] = make([]float32, len(fr))
-			for i, v := range fr {
-				d[c][j][i] = float32(v)
-			}
-		}
-	}
-	return NewField32(nx, ny, d)
-}
-
-// NewField32 is NewField for frames held as float32, which the Field
-// keeps (no copy).
-func NewField32(nx, ny int, data [2][][]float32) (*Field, error) {
-	if len(data[0]) == 0 || len(data[0]) != len(data[1]) {
-		return nil, fmt.Errorf("restore: need the same positive number of focused and defocused frames (have %d and %d)", len(data[0]), len(data[1]))
-	}
-	for c := range data {
-		for j, fr := range data[c] {
-			if len(fr) != nx*ny {
-				return nil, fmt.Errorf("restore: channel %d frame %d has %d pixels, want %d×%d", c, j, len(fr), nx, ny)
-			}
-		}
-	}
-	f := &Field{Nx: nx, Ny: ny, Frames: len(data[0]), Data: data, Mean: make([]float64, nx*ny)}
-	for _, fr := range data[0] {
-		for i, v := range fr {
-			f.Mean[i] += float64(v)
-		}
-	}
-	for i := range f.Mean {
-		f.Mean[i] /= float64(f.Frames)
-	}
-	return f, nil
-}
-
-// cut copies the n×n cut-out at (x0, y0) of every frame of f into buf
-// ([channel][frame], each n×n float64).
-func (f *Field) cut(buf [][][]float64, x0, y0, n int) {
-	for c := 0; c < 2; c++ {
-		for j, fr := range f.Data[c] {
-			dst := buf[c][j]
-			for y := 0; y < n; y++ {
-				row := fr[(y0+y)*f.Nx+x0 : (y0+y)*f.Nx+x0+n]
-				d := dst[y*n : (y+1)*n]
-				for i, v := range row {
-					d[i] = float64(v)
-				}
-			}
-		}
-	}
-}
-
 // Quality flag bits of PatchResult.Flags.
 const (
 	FlagFailed   = 1 << iota // the estimator or deconvolution failed; the tile is the raw burst mean
@@ -364,16 +290,20 @@ func restoreRinging(t []float64, n, band int) float64 {
 }
 
 // Mosaic accumulates blended tiles into a field. Add the tiles in a fixed
-// order (Run's sinks see increasing ids) for bit-identical results.
+// order (Run's sinks see increasing ids) for bit-identical results. The
+// sum of the weights is not stored (it would take another 8 bytes per
+// output pixel): Image sums them again over the patches added, in the
+// order they were added, so the result is the same to the bit.
 type Mosaic struct {
-	Grid        *Grid     // patch layout and blending weights
-	Sum, Weight []float64 // Nx·Ny accumulators
-	w           []float64
+	Grid *Grid     // patch layout and blending weights
+	Sum  []float64 // Nx·Ny accumulator of the weighted tiles
+	ids  []int     // the patches added, in order
+	w    []float64
 }
 
 // NewMosaic returns an empty mosaic over g.
 func NewMosaic(g *Grid) *Mosaic {
-	return &Mosaic{Grid: g, Sum: make([]float64, g.Nx*g.Ny), Weight: make([]float64, g.Nx*g.Ny), w: make([]float64, g.Patch*g.Patch)}
+	return &Mosaic{Grid: g, Sum: make([]float64, g.Nx*g.Ny), w: make([]float64, g.Patch*g.Patch)}
 }
 
 // Add blends tile (Patch²) of patch id into the mosaic with the weight of
@@ -389,22 +319,35 @@ func (m *Mosaic) Add(id int, tile []float64) {
 	for y := 0; y < n; y++ {
 		o := (y0+y)*g.Nx + x0
 		for x := 0; x < n; x++ {
-			w := m.w[y*n+x]
-			m.Sum[o+x] += w * tile[y*n+x]
-			m.Weight[o+x] += w
+			m.Sum[o+x] += m.w[y*n+x] * tile[y*n+x]
 		}
 	}
+	m.ids = append(m.ids, id)
 }
 
-// Image writes the blended field Sum/Weight into dst (Nx·Ny) and returns it
-// (allocating when dst is nil). Pixels no tile reached are NaN.
+// Image writes the blended field Sum/(sum of the weights) into dst (Nx·Ny)
+// and returns it (allocating when dst is nil). Pixels no tile reached are
+// NaN. dst must not be Sum.
 func (m *Mosaic) Image(dst []float64) []float64 {
 	if dst == nil {
 		dst = make([]float64, len(m.Sum))
 	}
+	g := m.Grid
+	n := g.Patch
+	clear(dst) // the sum of the weights first
+	for _, id := range m.ids {
+		g.Weight(m.w, id)
+		x0, y0 := g.Origin(id)
+		for y := 0; y < n; y++ {
+			o := (y0+y)*g.Nx + x0
+			for x, w := range m.w[y*n : (y+1)*n] {
+				dst[o+x] += w
+			}
+		}
+	}
 	for i, s := range m.Sum {
-		if m.Weight[i] > 0 {
-			dst[i] = s / m.Weight[i]
+		if dst[i] > 0 {
+			dst[i] = s / dst[i]
 		} else {
 			dst[i] = math.NaN()
 		}

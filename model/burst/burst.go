@@ -156,10 +156,10 @@ type Burst struct {
 	// Geometry is the camera geometry the reader applied
 	// (Geometry.String), "" for none.
 	Geometry string
-	// Data32 holds the frames instead of Data when the burst was read
-	// with Options.Float32 (Data32[channel][frame], each Nx·Ny); nil
+	// Data16 holds the frames instead of Data when the burst was read
+	// with Options.Quantise16 (Data16[channel][frame], each Nx·Ny); nil
 	// otherwise. Validate, Patch and Write use Data only.
-	Data32 [2][][]float32
+	Data16 [2][]Frame16
 
 	src [2][]plane // the frames in their files while reading
 }

@@ -7,7 +7,7 @@ import (
 )
 
 // load reads the frames of b.src a frame at a time into b.Data (or
-// b.Data32 with opt.Float32): each frame is read as float64, calibrated
+// b.Data16 with opt.Quantise16): each frame is read as float64, calibrated
 // (opt.Calibrate), its undefined pixels filled (refused beyond
 // MaxBadFraction) and turned and resampled by opt.Geometry, then stored.
 // The counts of filled pixels and the geometry are recorded in b.Cards and
@@ -35,8 +35,8 @@ func (b *Burst) load(opt Options) error {
 		rs = newResampler(dims[0][0], dims[0][1], g)
 	}
 	for c := range b.src {
-		if opt.Float32 {
-			b.Data32[c] = make([][]float32, len(b.src[c]))
+		if opt.Quantise16 {
+			b.Data16[c] = make([]Frame16, len(b.src[c]))
 		} else {
 			b.Data[c] = make([][]float64, len(b.src[c]))
 		}
@@ -64,7 +64,7 @@ func (b *Burst) load(opt Options) error {
 					rs.apply(im)
 				}
 			}
-			b.store(c, f, im, opt.Float32)
+			b.store(c, f, im, opt.Quantise16)
 		}
 	}
 	b.noteMasked()
@@ -74,14 +74,10 @@ func (b *Burst) load(opt Options) error {
 	return nil
 }
 
-// store keeps frame f of channel c, copied from im.
-func (b *Burst) store(c, f int, im []float64, f32 bool) {
-	if f32 {
-		d := make([]float32, len(im))
-		for i, v := range im {
-			d[i] = float32(v)
-		}
-		b.Data32[c][f] = d
+// store keeps frame f of channel c, copied from im (quantised if q16).
+func (b *Burst) store(c, f int, im []float64, q16 bool) {
+	if q16 {
+		b.Data16[c][f].Quantise(im)
 		return
 	}
 	b.Data[c][f] = append([]float64(nil), im...)

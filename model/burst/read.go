@@ -32,11 +32,13 @@ type Options struct {
 	// nothing. It is applied after calibration and filling, once: a
 	// header holding PDGEOM is already oriented.
 	Geometry Geometry
-	// Float32, if true, stores the frames as float32 in Burst.Data32 and
-	// leaves Burst.Data nil: half the memory of float64, for readers of
+	// Quantise16, if true, stores each frame as 16-bit scaled integers
+	// (Frame16) in Burst.Data16 and leaves Burst.Data nil: a quarter of
+	// the memory of float64, as much as a 16-bit file, for readers of
 	// large fields (restore). Every step before (calibration, filling,
-	// geometry) is done in float64, a frame at a time.
-	Float32 bool
+	// geometry) is done in float64, a frame at a time; see Frame16 for the
+	// precision.
+	Quantise16 bool
 }
 
 // finish completes a burst just assembled from its files: the frames are
