@@ -23,8 +23,10 @@ import (
 // output-sized arrays (mean, mosaic sum, the product as
 // written: about 40 bytes per pixel) fit in the second 64 bytes per pixel
 // of 16 frames × 2 channels. With the field stored as float32 it peaked at
-// 306 MB.
-const restoreRSSConstant = 100 << 20
+// 306 MB. The constant allowed is 120 MiB: 45 MB of margin over the
+// largest measured (the collector varies by about ±15 MB), while the
+// float32 field (306 MB against a bound of about 260 MB) still fails.
+const restoreRSSConstant = 120 << 20
 
 // TestRestoreMemory restores a simulated 1024² × 16 frames × 2 channels
 // burst, rewritten as unsigned 16-bit integers as cameras write them
