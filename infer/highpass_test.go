@@ -22,22 +22,7 @@ func TestHighPassSmoothScene(t *testing.T) {
 	if testing.Short() {
 		t.Skip("twelve full fits")
 	}
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	scenes, err := SimulatedStudyScenes(scfg, "camera", shippedImages)
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg, err := ConfigFor(instrument.Sources{Site: st.Instrument()}, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, scenes, cfg := demoStudySetup(t, "camera", 0, nil)
 	var med [2]float64
 	for i, hp := range []float64{cfg.Metric.HighPass, 0} {
 		c := cfg
@@ -55,4 +40,32 @@ func TestHighPassSmoothScene(t *testing.T) {
 	if med[0] > 0.5*med[1] {
 		t.Errorf("the high-pass leaves %.3f against %.3f without, want at most half", med[0], med[1])
 	}
+}
+
+// demoStudySetup returns, for the demo site, the simulator's configuration
+// (after adjust, if not nil), the study scenes of selection (real images
+// from testdata/scenes) and the fit configuration for frames frames (0 =
+// the study sets them).
+func demoStudySetup(t *testing.T, selection string, frames int, adjust func(*simulate.Config)) (simulate.Config, []StudyScene, Config) {
+	t.Helper()
+	st, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if adjust != nil {
+		adjust(&scfg)
+	}
+	scenes, err := SimulatedStudyScenes(scfg, selection, shippedImages)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg, err := ConfigFor(instrument.Sources{Site: st.Instrument()}, frames)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return scfg, scenes, cfg
 }

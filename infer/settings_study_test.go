@@ -7,8 +7,6 @@ import (
 	"strconv"
 	"testing"
 
-	"pdwave/model/instrument"
-	"pdwave/model/site"
 	"pdwave/simulate"
 )
 
@@ -35,28 +33,14 @@ func TestSettingsStudy(t *testing.T) {
 	if os.Getenv("PDWAVE_SETTINGS_STUDY") == "" {
 		t.Skip("set PDWAVE_SETTINGS_STUDY=1 to run the settings study")
 	}
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg.Oversample = int(envF("OVERSAMPLE", 0))
-	scfg.Camera.Photons = envF("PHOT", scfg.Camera.Photons)
 	sel := os.Getenv("SCENES")
 	if sel == "" {
 		sel = "granulation,real"
 	}
-	scenes, err := SimulatedStudyScenes(scfg, sel, shippedImages)
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg, err := ConfigFor(instrument.Sources{Site: st.Instrument()}, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, scenes, cfg := demoStudySetup(t, sel, 0, func(c *simulate.Config) {
+		c.Oversample = int(envF("OVERSAMPLE", 0))
+		c.Camera.Photons = envF("PHOT", c.Camera.Photons)
+	})
 	cfg.Prior = envF("PRIOR", cfg.Prior)
 	cfg.Metric.PriorWeight = cfg.Prior
 	cfg.Metric.Window = envF("WINDOW", cfg.Metric.Window)
@@ -99,22 +83,7 @@ func TestFromTruthStudy(t *testing.T) {
 	if sel == "" {
 		t.Skip("set PDWAVE_TRUTH_STUDY=SCENE to run the from-truth study")
 	}
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	scenes, err := SimulatedStudyScenes(scfg, sel, shippedImages)
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg, err := ConfigFor(instrument.Sources{Site: st.Instrument()}, 16)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, scenes, cfg := demoStudySetup(t, sel, 16, nil)
 	f, err := NewFitter(cfg)
 	if err != nil {
 		t.Fatal(err)
@@ -157,22 +126,7 @@ func TestFreshHighPassStudy(t *testing.T) {
 	if os.Getenv("PDWAVE_FRESH_STUDY") == "" {
 		t.Skip("set PDWAVE_FRESH_STUDY=1 to run the fresh-burst high-pass study")
 	}
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	scenes, err := SimulatedStudyScenes(scfg, "mix,granulation", shippedImages)
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg, err := ConfigFor(instrument.Sources{Site: st.Instrument()}, 16)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, scenes, cfg := demoStudySetup(t, "mix,granulation", 16, nil)
 	n := int(envF("BURSTS", 30))
 	for _, hp := range []float64{0, 1.0 / 16} {
 		c := cfg
