@@ -24,6 +24,14 @@ var _ Estimator = (*Fitter)(nil)
 
 // demoSource is the simulator on the demo site file.
 func demoSource(tb testing.TB) BurstSource {
+	_, cfg := demoSite(tb)
+	return SimulatedSource(cfg)
+}
+
+// demoSite loads testdata/demo-site.yaml and the simulator's configuration
+// for it.
+func demoSite(tb testing.TB) (*site.Site, simulate.Config) {
+	tb.Helper()
 	st, err := site.Load("../testdata/demo-site.yaml")
 	if err != nil {
 		tb.Fatal(err)
@@ -32,7 +40,7 @@ func demoSource(tb testing.TB) BurstSource {
 	if err != nil {
 		tb.Fatal(err)
 	}
-	return SimulatedSource(cfg)
+	return st, cfg
 }
 
 // BenchmarkFit: full fit from zero of one demo burst (64 px, 16 frames ×

@@ -4,7 +4,6 @@ import (
 	"testing"
 
 	"pdwave/model/instrument"
-	"pdwave/model/site"
 	"pdwave/simulate"
 )
 
@@ -48,14 +47,7 @@ func TestHighPassSmoothScene(t *testing.T) {
 // the study sets them).
 func demoStudySetup(t *testing.T, selection string, frames int, adjust func(*simulate.Config)) (simulate.Config, []StudyScene, Config) {
 	t.Helper()
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
+	st, scfg := demoSite(t)
 	if adjust != nil {
 		adjust(&scfg)
 	}
