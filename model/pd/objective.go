@@ -6,6 +6,7 @@ import (
 	"math"
 	"math/cmplx"
 
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 
 	"pdwave/model/fft"
@@ -95,13 +96,15 @@ type Objective struct {
 	frames, nch  int
 	nimg, count  int
 	plan         *fft.Plan
-	pidx         []int       // pupil pixel indices (Amp > 0)
-	amp          []float64   // amplitude at pidx
-	modes        [][]float64 // [count][npup] mode values at pidx
-	div          [][]float64 // [nch][npup] diversity at pidx
-	c            float64     // Σ|h|² = Σ A² / N² (Parseval)
-	neg          []int       // index of −u
-	cutoff       float64     // diffraction cut-off radius, frequency pixels
+	pidx         []int          // pupil pixel indices (Amp > 0)
+	amp          []float64      // amplitude at pidx
+	modes        [][]float64    // [count][npup] mode values at pidx
+	div          [][]float64    // [nch][npup] diversity at pidx
+	adiv         [][]complex128 // [nch][npup] A·exp(iθ_k) at pidx
+	eph          []complex128   // exp(iφ) of the current frame at pidx
+	c            float64        // Σ|h|² = Σ A² / N² (Parseval)
+	neg          []int          // index of −u
+	cutoff       float64        // diffraction cut-off radius, frequency pixels
 	set          Settings
 	gamma        float64
 	invVar       []float64 // 1/σ_m² (0 = loose)
@@ -263,6 +266,14 @@ func (s *Objective) initPupil(pupil *optics.Pupil, basis *modes.Basis, diversity
 			s.div[k][p] = d[i]
 		}
 	}
+	s.adiv = make([][]complex128, s.nch)
+	for k := range s.adiv {
+		s.adiv[k] = make([]complex128, np)
+		for p, t := range s.div[k] {
+			sn, cs := math.Sincos(t)
+			s.adiv[k][p] = complex(s.amp[p]*cs, s.amp[p]*sn)
+		}
+	}
 }
 
 // allocBuffers allocates every work buffer, the mask buffers sized for the
@@ -272,6 +283,7 @@ func (s *Objective) allocBuffers() {
 	s.ap = make([]float64, s.frames*s.count)
 	s.scratchGrad = make([]float64, s.frames*s.count)
 	s.phi = make([]float64, np)
+	s.eph = make([]complex128, np)
 	s.pup = make([][]complex128, s.nimg)
 	s.h = make([][]complex128, s.nimg)
 	s.dm = make([][]complex128, s.nimg)
@@ -838,7 +850,8 @@ func (s *Objective) otfs() float64 {
 	return s.estimate()
 }
 
-// framePhase stores in s.phi the wavefront of frame j at the pupil pixels.
+// framePhase stores in s.phi the wavefront of frame j at the pupil pixels
+// and in s.eph its exp(iφ).
 func (s *Objective) framePhase(j int) {
 	m := s.count
 	a := s.ap[j*m : (j+1)*m]
@@ -848,10 +861,11 @@ func (s *Objective) framePhase(j int) {
 		if c == 0 {
 			continue
 		}
-		md := s.modes[k]
-		for p := range phi {
-			phi[p] += c * md[p]
-		}
+		floats.AddScaled(phi, c, s.modes[k])
+	}
+	for p, v := range phi {
+		sn, cs := math.Sincos(v)
+		s.eph[p] = complex(cs, sn)
 	}
 }
 
@@ -871,9 +885,11 @@ func (s *Objective) pupilField(i, k int) {
 			h[s.pidx[p]] = z
 		}
 	} else {
-		for p := range phi {
-			sn, cs := math.Sincos(phi[p] + dv[p])
-			z := complex(s.amp[p]*cs, s.amp[p]*sn)
+		// A·exp(i(φ+θ)) = exp(iφ)·A·exp(iθ): one Sincos per pupil pixel
+		// and frame (framePhase), shared by the channels.
+		ad := s.adiv[k]
+		for p, e := range s.eph {
+			z := e * ad[p]
 			pf[p] = z
 			h[s.pidx[p]] = z
 		}
@@ -1011,12 +1027,7 @@ func (s *Objective) gradient(grad []float64) {
 		q := s.qacc[j]
 		g := grad[j*m : (j+1)*m]
 		for k := 0; k < m; k++ {
-			md := s.modes[k]
-			var t float64
-			for p, v := range q {
-				t += v * md[p]
-			}
-			g[k] = t
+			g[k] = floats.Dot(q, s.modes[k])
 		}
 		if w > 0 {
 			a := s.ap[j*m : (j+1)*m]
