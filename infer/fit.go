@@ -4,7 +4,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"runtime"
 	"strings"
 	"sync"
 	"time"
@@ -619,34 +618,15 @@ type Patch struct {
 // errs[i] is not; the returned error joins all per-patch errors (nil if
 // all succeeded).
 func (f *Fitter) FitAll(patches []Patch, workers int) (results []*Result, err error) {
-	if workers <= 0 {
-		workers = runtime.GOMAXPROCS(0)
-	}
-	if workers > len(patches) {
-		workers = len(patches)
-	}
 	results = make([]*Result, len(patches))
 	errs := make([]error, len(patches))
-	jobs := make(chan int)
-	var wg sync.WaitGroup
-	for range workers {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for i := range jobs {
-				r, e := f.Fit(patches[i].Data, patches[i].Start)
-				if e != nil {
-					errs[i] = fmt.Errorf("patch %d: %w", i, e)
-					continue
-				}
-				results[i] = r
-			}
-		}()
-	}
-	for i := range patches {
-		jobs <- i
-	}
-	close(jobs)
-	wg.Wait()
+	ForEach(len(patches), workers, func() struct{} { return struct{}{} }, func(_ struct{}, i int) {
+		r, e := f.Fit(patches[i].Data, patches[i].Start)
+		if e != nil {
+			errs[i] = fmt.Errorf("patch %d: %w", i, e)
+			return
+		}
+		results[i] = r
+	})
 	return results, errors.Join(errs...)
 }

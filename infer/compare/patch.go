@@ -3,7 +3,6 @@ package compare
 import (
 	"fmt"
 	"math"
-	"sync"
 	"time"
 
 	"gonum.org/v1/gonum/stat"
@@ -65,36 +64,36 @@ func (w *patchWork) imageError(img []float64, x, y, n int) *float64 {
 func (w *patchWork) runAll(b *burst.Burst, jobs []patchJob, truths [][][]float64, workers int) []patchOut {
 	n := w.fitter.Config().Patch
 	outs := make([]patchOut, len(jobs))
-	ch := make(chan patchJob)
-	var wg sync.WaitGroup
-	for range min(workers, len(jobs)) {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			plan := fft.NewPlan(n, n)
-			var eng restore.Engine
-			var eerr error
-			if w.suspect != nil {
-				eng, eerr = w.suspect.NewEngine()
-			}
-			for jb := range ch {
-				data := b.Patch(jb.x, jb.y, n)
-				outs[jb.idx] = w.run(data, jb, truths[jb.idx], plan)
-				if outs[jb.idx].err == nil && eerr != nil {
-					outs[jb.idx].err = eerr
-				}
-				if outs[jb.idx].err == nil && eng != nil {
-					outs[jb.idx].patch.LearnedOverNoise = learnedOverNoise(eng, data, n)
-				}
-			}
-		}()
-	}
-	for _, jb := range jobs {
-		ch <- jb
-	}
-	close(ch)
-	wg.Wait()
+	infer.ForEach(len(jobs), workers, func() *patchWorker { return w.newWorker(n) }, func(pw *patchWorker, i int) {
+		jb := jobs[i]
+		data := b.Patch(jb.x, jb.y, n)
+		out := w.run(data, jb, truths[jb.idx], pw.plan)
+		if out.err == nil && pw.engErr != nil {
+			out.err = pw.engErr
+		}
+		if out.err == nil && pw.eng != nil {
+			out.patch.LearnedOverNoise = learnedOverNoise(pw.eng, data, n)
+		}
+		outs[jb.idx] = out
+	})
 	return outs
+}
+
+// patchWorker is one goroutine's state in runAll: its FFT plan and, with a
+// learned estimator, restore's engine for the learned-suspect figure.
+type patchWorker struct {
+	plan   *fft.Plan
+	eng    restore.Engine
+	engErr error
+}
+
+// newWorker returns a worker's state for n×n patches.
+func (w *patchWork) newWorker(n int) *patchWorker {
+	pw := &patchWorker{plan: fft.NewPlan(n, n)}
+	if w.suspect != nil {
+		pw.eng, pw.engErr = w.suspect.NewEngine()
+	}
+	return pw
 }
 
 // learnedOverNoise returns restore's metric over its noise-only

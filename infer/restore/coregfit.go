@@ -6,7 +6,6 @@ import (
 	"math"
 	"runtime"
 	"sort"
-	"sync"
 	"time"
 
 	"pdwave/infer"
@@ -140,23 +139,10 @@ func FitOffset(f *Field, cfg infer.Config, patch, iterations, workers int) (Core
 	n := len(xs) * len(ys)
 	offs := make([]Offset, n)
 	errs := make([]error, n)
-	jobs := make(chan int)
-	var wg sync.WaitGroup
-	for w := 0; w < min(workers, n); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			buf := restoreNewPatchBuffers(f.Frames, cfg.Patch)
-			for i := range jobs {
-				offs[i], errs[i] = coregFitPatch(fit, f, buf, cfg.Patch, xs[i%len(xs)], ys[i/len(xs)])
-			}
-		}()
-	}
-	for i := 0; i < n; i++ {
-		jobs <- i
-	}
-	close(jobs)
-	wg.Wait()
+	infer.ForEach(n, workers, func() [][][]float64 { return restoreNewPatchBuffers(f.Frames, cfg.Patch) },
+		func(buf [][][]float64, i int) {
+			offs[i], errs[i] = coregFitPatch(fit, f, buf, cfg.Patch, xs[i%len(xs)], ys[i/len(xs)])
+		})
 	return coregSummarise(offs, errs, time.Since(t0))
 }
 
