@@ -6,6 +6,7 @@ import (
 	"image"
 	"image/color"
 	"math"
+	"slices"
 	"sort"
 
 	"gonum.org/v1/plot"
@@ -113,6 +114,9 @@ func Figures(r *Report) ([]Figure, error) {
 		{FigRatioMap, "Metric ratio learned / fitted over the field",
 			"Each cell is one patch placed at its position in the field; the colour is the learned metric divided by the fitted metric (1 means the network is as good as the fit).",
 			ratioFigure, r.has(Learned) && r.has(Fitted) && len(r.Patches) > 1},
+		{FigFlagMap, "Quality flags over the field",
+			"Each cell is one patch placed at its position in the field; the colour is the number of quality flags raised on it (0: none; the flags by name are in the patch table and patches.csv).",
+			flagFigure, len(r.Patches) > 1},
 		{FigRestored, "Restored images of one patch",
 			"The patch of the wavefront figure: the frame-averaged focused data (raw), each method's restoration and, for simulations, the true object seen by the perfect telescope, all on one grey scale (data units, colour bar below). The restorations are apodised towards the patch edges as the fit's data are.",
 			restoredFigure, r.Example != nil && len(r.Example.Images) > 0},
@@ -577,9 +581,42 @@ func ratioFigure(r *Report) ([]byte, error) {
 	cm := moreland.Kindlmann()
 	cm.SetMin(lo)
 	cm.SetMax(hi)
+	name := r.Summary.RatioMethods[k] + " / " + Fitted
+	return fieldMapFigure(r, "Metric ratio "+name+" per patch", "metric ratio "+name, xs, ys, vals, mask, cm)
+}
+
+// flagFigure maps the number of quality flags raised on each patch over
+// the field (0 = none).
+func flagFigure(r *Report) ([]byte, error) {
+	var xs, ys []int
+	for _, p := range r.Patches {
+		xs, ys = append(xs, p.X), append(ys, p.Y)
+	}
+	xs, ys = uniqInts(xs), uniqInts(ys)
+	nx, ny := len(xs), len(ys)
+	vals := make([]float64, nx*ny)
+	mask := make([]float64, nx*ny)
+	most := 1.0
+	for _, p := range r.Patches {
+		ix, iy := sort.SearchInts(xs, p.X), sort.SearchInts(ys, p.Y)
+		vals[iy*nx+ix] = float64(len(p.Flags))
+		mask[iy*nx+ix] = 1
+		most = math.Max(most, float64(len(p.Flags)))
+	}
+	cm := moreland.BlackBody()
+	cm.SetMin(0)
+	cm.SetMax(most)
+	return fieldMapFigure(r, "Quality flags per patch", "number of flags raised", xs, ys, vals, mask, cm)
+}
+
+// fieldMapFigure draws one value per patch (vals on the grid xs × ys of
+// patch origins, mask 1 where a patch exists) at the patches' positions in
+// the field, with a colour bar below.
+func fieldMapFigure(r *Report, title, barLabel string, xs, ys []int, vals, mask []float64, cm palette.ColorMap) ([]byte, error) {
+	nx, ny := len(xs), len(ys)
 	img := mapImage(vals, ny, nx, 0, 0, ny, nx, mask, cm)
 	p := plot.New()
-	p.Title.Text = fmt.Sprintf("Metric ratio %s / %s per patch", r.Summary.RatioMethods[k], Fitted)
+	p.Title.Text = title
 	p.X.Label.Text = "x (pixels)"
 	p.Y.Label.Text = "y (pixels)"
 	ps := float64(r.PatchSize)
@@ -591,7 +628,7 @@ func ratioFigure(r *Report) ([]byte, error) {
 	x0, x1 := float64(xs[0]), float64(xs[nx-1])+ps
 	y0, y1 := float64(ys[0]), float64(ys[ny-1])+ps
 	p.Add(plotter.NewImage(img, x0, y0, x1, y1))
-	bar := colorBar(cm, "metric ratio "+r.Summary.RatioMethods[k]+" / "+Fitted)
+	bar := colorBar(cm, barLabel)
 	w, h := 6*vg.Inch, 6*vg.Inch
 	cv := vgimg.New(w, h)
 	dc := draw.New(cv)
@@ -604,6 +641,13 @@ func ratioFigure(r *Report) ([]byte, error) {
 		return nil, err
 	}
 	return buf.Bytes(), nil
+}
+
+// uniqInts returns the distinct values of v in increasing order.
+func uniqInts(v []int) []int {
+	out := append([]int(nil), v...)
+	sort.Ints(out)
+	return slices.Compact(out)
 }
 
 func uniq(rs []Ratio, key func(Ratio) int) []int {

@@ -258,7 +258,7 @@ func TestFiguresArePNG(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	want := []string{FigCoeffs, FigScatter, FigRMSDiff, FigWavefront, FigSpectra, FigRatioMap}
+	want := []string{FigCoeffs, FigScatter, FigRMSDiff, FigWavefront, FigSpectra, FigRatioMap, FigFlagMap}
 	if len(figs) != len(want) {
 		t.Fatalf("%d figures, want %d", len(figs), len(want))
 	}

@@ -259,6 +259,9 @@ func TestRunSimulatedBurst(t *testing.T) {
 	if _, ok := files[FigRatioMap]; ok {
 		t.Error("a one-patch report draws a ratio map")
 	}
+	if _, ok := files[FigFlagMap]; ok {
+		t.Error("a one-patch report draws a flag map")
+	}
 }
 
 // TestRunFieldWithoutLearned checks a 2×2-patch field with no learned

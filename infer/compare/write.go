@@ -31,6 +31,7 @@ const (
 	FigWavefront     = "wavefront_psf.png"
 	FigSpectra       = "spectra.png"
 	FigRatioMap      = "ratio_map.png"
+	FigFlagMap       = "flag_map.png"
 	figureWidthInch  = 7
 	figureHeightInch = 4.5
 )
