@@ -32,8 +32,9 @@ func TestMain(m *testing.M) {
 	os.Exit(m.Run())
 }
 
-// runCLI runs pdwave with args in dir and returns its exit code and output.
-func runCLI(t *testing.T, dir string, args ...string) (code int, stdout, stderr string) {
+// cliCommand returns the command that runs this test binary as pdwave
+// with args in dir (TestMain turns it into the command line).
+func cliCommand(t *testing.T, dir string, args ...string) *exec.Cmd {
 	t.Helper()
 	self, err := os.Executable()
 	if err != nil {
@@ -42,9 +43,16 @@ func runCLI(t *testing.T, dir string, args ...string) (code int, stdout, stderr 
 	c := exec.Command(self, args...)
 	c.Dir = dir
 	c.Env = append(os.Environ(), cliEnv+"=1")
+	return c
+}
+
+// runCLI runs pdwave with args in dir and returns its exit code and output.
+func runCLI(t *testing.T, dir string, args ...string) (code int, stdout, stderr string) {
+	t.Helper()
+	c := cliCommand(t, dir, args...)
 	var o, e bytes.Buffer
 	c.Stdout, c.Stderr = &o, &e
-	err = c.Run()
+	err := c.Run()
 	if err != nil {
 		if ee, ok := err.(*exec.ExitError); ok {
 			return ee.ExitCode(), o.String(), e.String()

@@ -7,7 +7,6 @@ import (
 	"io"
 	"math"
 	"os"
-	"os/exec"
 	"path/filepath"
 	"strconv"
 	"strings"
@@ -153,13 +152,7 @@ func pad2880(b []byte, pad byte) []byte {
 // returns its peak resident memory in bytes.
 func childRSS(t *testing.T, dir string, args ...string) int64 {
 	t.Helper()
-	self, err := os.Executable()
-	if err != nil {
-		t.Fatal(err)
-	}
-	c := exec.Command(self, args...)
-	c.Dir = dir
-	c.Env = append(os.Environ(), cliEnv+"=1")
+	c := cliCommand(t, dir, args...)
 	if out, err := c.CombinedOutput(); err != nil {
 		t.Fatalf("pdwave %v: %v\n%s", args, err, out)
 	}

@@ -40,14 +40,7 @@ func (l *lockedBuffer) String() string {
 // returns its exit code and standard error.
 func signalled(t *testing.T, dir string, delay time.Duration, sig syscall.Signal, args ...string) (int, string) {
 	t.Helper()
-	self, err := os.Executable()
-	if err != nil {
-		t.Fatal(err)
-	}
-	c := exec.Command(self, args...)
-	c.Dir = dir
-	c.Env = append(os.Environ(), cliEnv+"=1")
-	return runSignalled(t, c, delay, sig)
+	return runSignalled(t, cliCommand(t, dir, args...), delay, sig)
 }
 
 // runSignalled starts c, sends it sig after delay (none if delay is 0),
