@@ -48,6 +48,10 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 	if err != nil {
 		return nil, err
 	}
+	div, err := s.diversity(o)
+	if err != nil {
+		return nil, err
+	}
 	g := s.newFieldGeom(nx, ny, S)
 	dur := float64(frames-1) * s.cfg.FrameInterval
 	// Node angles span the canvas: (mx + 2S) pixels at most.
@@ -72,6 +76,7 @@ func (s *Simulator) Field(rng *rand.Rand, nx, ny int, o Options) (*Result, error
 	for i := range ws {
 		ws[i] = &fieldWorker{former: s.newFormer(g.f), piece: make([]float64, g.f*g.f),
 			spec: make([]complex128, g.f*g.f), phase: make([]float64, g.p*g.p)}
+		ws[i].div = div
 	}
 	parallel(frames, len(ws), func(wi, fr int) {
 		t := float64(fr) * s.cfg.FrameInterval

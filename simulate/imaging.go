@@ -35,6 +35,7 @@ type former struct {
 	im    *optics.Imager
 	plan  *fft.Plan
 	phase []float64 // p*p scratch
+	div   [2][]float64 // diversity phase of each channel (Simulator.fdiv, or with a channel offset)
 	psf   [2][]float64
 	buf   []complex128 // m*m
 	sinc  []float64    // pixel MTF along one axis at the m canvas frequencies; nil for q = 1
@@ -47,6 +48,7 @@ func (s *Simulator) newFormer(m int) *former {
 		im:    optics.NewImager(s.fpupil),
 		plan:  fft.NewPlan(m, m),
 		phase: make([]float64, p*p),
+		div:   s.fdiv,
 		psf:   [2][]float64{make([]float64, p*p), make([]float64, p*p)},
 		buf:   make([]complex128, m*m),
 	}
@@ -76,7 +78,7 @@ func pixelMTF(m int) []float64 {
 // the imaging pupil grid). It allocates nothing.
 func (f *former) psfs(s *Simulator, phase []float64) {
 	for c := 0; c < 2; c++ {
-		div := s.fdiv[c]
+		div := f.div[c]
 		for _, i := range s.fpupil.Index {
 			f.phase[i] = phase[i] + div[i]
 		}

@@ -15,6 +15,7 @@ import (
 	"pdwave/model/instrument"
 	"pdwave/model/modes"
 	"pdwave/model/optics"
+	"pdwave/model/pd"
 )
 
 // Config is everything physical a Simulator needs, in SI units.
@@ -111,6 +112,35 @@ type Options struct {
 	KeepPhases     bool              // Patch: return each frame's wavefront in Result.Phases
 	NodeSpacing    int               // Field: spacing of the PSF grid, px; 0 = Patch/2
 	Workers        int               // goroutines; 0 = GOMAXPROCS
+	// ChannelOffset moves the second (defocused) channel's image by
+	// (dx, dy) camera pixels (+x towards increasing column, +y towards
+	// increasing row), as a misregistered camera does: a tilt added to
+	// that channel's pupil phase on the imaging grid (pd.ShiftPhase), so
+	// the scene outside the patch enters and nothing is resampled. At most
+	// MaxChannelOffset in each axis.
+	ChannelOffset [2]float64
+}
+
+// MaxChannelOffset is the largest |Options.ChannelOffset| per axis, px.
+const MaxChannelOffset = 4
+
+// diversity returns the per-channel diversity phases on the imaging grid
+// for o: s.fdiv itself without a channel offset, else a copy of channel 2's
+// with the tilt of pd.ShiftPhase added. It returns an error for an offset
+// that is not finite or exceeds MaxChannelOffset.
+func (s *Simulator) diversity(o Options) ([2][]float64, error) {
+	dx, dy := o.ChannelOffset[0], o.ChannelOffset[1]
+	if !(math.Abs(dx) <= MaxChannelOffset && math.Abs(dy) <= MaxChannelOffset) {
+		return s.fdiv, fmt.Errorf("simulate: channel offset (%g, %g) px, want each within ±%d", dx, dy, MaxChannelOffset)
+	}
+	if dx == 0 && dy == 0 {
+		return s.fdiv, nil
+	}
+	p := s.fpupil.N
+	tilt := make([]float64, p*p)
+	pd.ShiftPhase(tilt, p, dx, dy)
+	floats.Add(tilt, s.fdiv[1])
+	return [2][]float64{s.fdiv[0], tilt}, nil
 }
 
 // Result is one simulated burst with what produced it. For Field bursts,
@@ -472,6 +502,10 @@ func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
+	div, err := s.diversity(o)
+	if err != nil {
+		return nil, err
+	}
 	m := canvasSide(n+p, s.q)
 	c0 := (m - n) / 2
 	obj, scene, err := s.object(rng, o, m, m)
@@ -483,6 +517,7 @@ func (s *Simulator) Patch(rng *rand.Rand, o Options) (*Result, error) {
 	formers := make([]*patchWorker, min(workers, frames))
 	for i := range formers {
 		formers[i] = s.newPatchWorker(m)
+		formers[i].div = div
 	}
 	if o.Object == nil {
 		target := o.Scene.withDefaults().Contrast
