@@ -34,7 +34,7 @@ type former struct {
 	p, m  int
 	im    *optics.Imager
 	plan  *fft.Plan
-	phase []float64 // p*p scratch
+	phase []float64    // p*p scratch
 	div   [2][]float64 // diversity phase of each channel (Simulator.fdiv, or with a channel offset)
 	psf   [2][]float64
 	buf   []complex128 // m*m
