@@ -4,103 +4,77 @@ import (
 	"math"
 	"math/rand/v2"
 	"sort"
-
-	"gonum.org/v1/gonum/stat"
 	"testing"
 
-	"pdwave/model/fft"
-	"pdwave/model/instrument"
-	"pdwave/model/site"
+	"gonum.org/v1/gonum/stat"
+
 	"pdwave/simulate"
 )
 
-// shiftImage returns the n×n image im moved by (sx, sy) pixels (+x towards
-// increasing column) by the Fourier shift theorem: g(x) = f(x − s) has
-// G(u) = F(u)·exp(−2πi u·s/n) for the unnormalised forward DFT.
-func shiftImage(im []float64, n int, sx, sy float64) []float64 {
-	return fourierShift(fft.NewPlan(n, n), im, n, n, sx, sy)
-}
-
-// offsetBurst simulates a 96 px field burst on the demo site (8 frames,
-// D/r0 = 4), moves channel 2 by (sx, sy) px and cuts the central 64 px, so
-// the shift brings in real scene from outside the patch, as a
-// misregistered camera does.
-func offsetBurst(t *testing.T, seed uint64, sx, sy float64) [][][]float64 {
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg.Frames = 8
-	cfg.Turbulence.R0 = cfg.Telescope.Diameter / 4
-	sim, err := simulate.New(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	const big, n = 96, 64
-	r, err := sim.Field(rand.New(rand.NewPCG(seed, 9)), big, big, simulate.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	data := [][][]float64{make([][]float64, cfg.Frames), make([][]float64, cfg.Frames)}
-	for c := 0; c < 2; c++ {
-		for j := 0; j < cfg.Frames; j++ {
-			im := r.Burst.Data[c][j]
-			if c == 1 {
-				im = shiftImage(im, big, sx, sy)
-			}
-			cut := make([]float64, n*n)
-			o := (big - n) / 2
-			for y := 0; y < n; y++ {
-				copy(cut[y*n:(y+1)*n], im[(y+o)*big+o:])
-			}
-			data[c][j] = cut
-		}
-	}
-	return data
-}
-
 // TestFitChannelOffset: the fixed misregistration of the second camera,
-// fitted as a differential tip/tilt common to all frames, is recovered for
-// no offset and for a known (0.7, −0.4) px offset: the median over four
-// bursts within 0.25 px. The accuracy issue asks for 0.05 px; measured on
-// these 8-frame, 21-mode bursts the single-burst error is 0.1–0.3 px,
-// because the objective itself prefers the wrong offset (1.4 % lower than
-// at the true one on one burst): model error (wavefront beyond the modes,
-// light from outside the patch) moves it. A flipped sign gives 1.6 px.
-// The offset is measured with the narrower 0.125 taper and the mean
-// removed: with the fit's defaults (taper 0.25, plane removed) the same
-// bursts gave 0.29 px, with 0.125 0.13 px (realistic simulator); the
-// default high-pass (Settings.HighPass 1/16) moves these to 0.35 and
-// 0.24–0.26 px, so it is off here too.
+// fitted as a differential tip/tilt common to all frames
+// (Metric.FitChannelOffset, the fit's defaults otherwise), is recovered
+// for no offset and for a known (0.7, −0.4) px offset made by the
+// simulator as a real camera makes it (simulate.Options.ChannelOffset: a
+// tilt on the imaging pupil, scene from outside the patch entering; 2×
+// pupil sampling and 2N PSF support, beyond the fit's model). Six demo
+// bursts (16 frames, 36 modes, D/r0 = 5, 10⁴ photons) over the scene mix
+// (granulation and the shipped real images); the per-axis median must lie
+// within 0.15 px of the truth.
+//
+// Measured (TestOffsetStudy, 8 bursts, seeds 1–3): single bursts miss by
+// 0.13–0.34 px rms, the median of 8 by 0.05–0.13 px; here the medians miss
+// by 0.06 px and 0.09 px. The accuracy issue asks for 0.05 px; what limits
+// it is the fitted wavefront, not the offset search: cross-correlating the
+// two channels' separately restored objects, given the fitted wavefronts,
+// reproduces each burst's error (rms 0.13 px against 0.13 px). The error
+// does not shrink without turbulence or noise (0.10 px at D/r0 = 0.05 and
+// 10⁸ photons; 0.03–0.09 px for compact objects clear of the window's
+// edges), nor with 66 modes, 400 iterations or 128 px patches: it is the
+// model error of the apodised Fourier metric (w·(o⊗s) ≠ (w·o)⊗s over the
+// taper, larger for the wider defocused PSF), and the high-pass halves it
+// (0.22 px rms without). The camera's offset is a constant of the
+// instrument: measure it over many patches and bursts. Planted: the x tilt
+// sign flipped in the fit's ramp (pd) → error 1.4 px, fails; the
+// simulated offset dropped → 0.8 px.
 func TestFitChannelOffset(t *testing.T) {
-	cfg := DefaultConfig()
-	cfg.Telescope = demoTelescope()
-	cfg.Frames, cfg.Modes, cfg.DOverR0 = 8, 21, 4
+	_, scfg := demoSite(t)
+	scfg.Turbulence.R0 = scfg.Telescope.Diameter / 5
+	sim, err := simulate.New(scfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	images, err := shippedImages()
+	if err != nil {
+		t.Fatal(err)
+	}
+	mix := simulate.SceneMix(simulate.GranulationParams{}, images)
+	_, _, cfg := demoStudySetup(t, "granulation", scfg.Frames, nil)
+	cfg.DOverR0 = 5
 	cfg.Metric.FitChannelOffset = true
-	cfg.Metric.Window, cfg.Metric.Detrend, cfg.Metric.HighPass = 0.125, false, 0
 	f, err := NewFitter(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
-	for _, c := range []struct{ sx, sy float64 }{{0, 0}, {0.7, -0.4}} {
+	for _, off := range [][2]float64{{0, 0}, {0.7, -0.4}} {
 		var ox, oy []float64
-		for seed := uint64(1); seed <= 4; seed++ {
-			r, err := f.Fit(offsetBurst(t, seed, c.sx, c.sy), nil)
+		for i := uint64(0); i < 6; i++ {
+			r, err := sim.Patch(rand.New(rand.NewPCG(1, i)), simulate.Options{Source: mix, ChannelOffset: off})
 			if err != nil {
 				t.Fatal(err)
 			}
-			ox = append(ox, r.ChannelOffset[0])
-			oy = append(oy, r.ChannelOffset[1])
+			res, err := f.Fit([][][]float64{r.Burst.Data[0], r.Burst.Data[1]}, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			ox = append(ox, res.ChannelOffset[0])
+			oy = append(oy, res.ChannelOffset[1])
 		}
 		mx, my := medianOf(ox), medianOf(oy)
-		e := math.Hypot(mx-c.sx, my-c.sy)
-		t.Logf("true offset (%.2f, %.2f) px: fitted x %.3f, y %.3f; median (%.3f, %.3f), error %.3f px", c.sx, c.sy, ox, oy, mx, my, e)
-		if e > 0.25 {
-			t.Errorf("true offset (%.2f, %.2f) px: median fitted (%.3f, %.3f), error %.3f px > 0.25", c.sx, c.sy, mx, my, e)
+		e := math.Hypot(mx-off[0], my-off[1])
+		t.Logf("true offset (%.2f, %.2f) px: fitted x %.3f, y %.3f; median (%.3f, %.3f), error %.3f px", off[0], off[1], ox, oy, mx, my, e)
+		if e > 0.15 {
+			t.Errorf("true offset (%.2f, %.2f) px: median fitted (%.3f, %.3f), error %.3f px > 0.15", off[0], off[1], mx, my, e)
 		}
 	}
 }
