@@ -10,6 +10,7 @@ import (
 	"strings"
 	"sync"
 
+	"pdwave/infer"
 	"pdwave/model/burst"
 )
 
@@ -140,7 +141,7 @@ func (s *FolderSource) Get(i uint64) (*Sample, error) {
 			im := make([]float64, n*n)
 			for y := 0; y < n; y++ {
 				for x := 0; x < n; x++ {
-					sy, sx := dihedral(tr, y, x, n)
+					sy, sx := infer.TurnPixel(tr, y, x, n)
 					im[y*n+x] = src[(y0+sy)*b.Nx+x0+sx]
 				}
 			}
@@ -148,25 +149,6 @@ func (s *FolderSource) Get(i uint64) (*Sample, error) {
 		}
 	}
 	return out, nil
-}
-
-// dihedral maps output pixel (y, x) of an n×n square to its source pixel
-// under transform t ∈ [0, 8): identity, three rotations, and the four
-// reflections.
-func dihedral(t, y, x, n int) (int, int) {
-	if t >= 4 {
-		x = n - 1 - x
-		t -= 4
-	}
-	switch t {
-	case 1:
-		return x, n - 1 - y
-	case 2:
-		return n - 1 - y, n - 1 - x
-	case 3:
-		return n - 1 - x, y
-	}
-	return y, x
 }
 
 // FuncSource adapts a function to a Source.
@@ -262,7 +244,7 @@ func transformSquare(im []float64, t int) []float64 {
 	out := make([]float64, len(im))
 	for y := 0; y < n; y++ {
 		for x := 0; x < n; x++ {
-			sy, sx := dihedral(t, y, x, n)
+			sy, sx := infer.TurnPixel(t, y, x, n)
 			out[y*n+x] = im[sy*n+sx]
 		}
 	}

@@ -8,6 +8,7 @@ import (
 	"sync/atomic"
 	"testing"
 
+	"pdwave/infer"
 	"pdwave/model/burst"
 	"pdwave/model/site"
 )
@@ -20,7 +21,7 @@ func TestDihedralIsPermutation(t *testing.T) {
 		seen := map[[2]int]bool{}
 		for y := 0; y < n; y++ {
 			for x := 0; x < n; x++ {
-				sy, sx := dihedral(tr, y, x, n)
+				sy, sx := infer.TurnPixel(tr, y, x, n)
 				if sy < 0 || sy >= n || sx < 0 || sx >= n || seen[[2]int{sy, sx}] {
 					t.Fatalf("transform %d maps (%d,%d) to (%d,%d): not a permutation", tr, y, x, sy, sx)
 				}

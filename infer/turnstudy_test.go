@@ -1,0 +1,146 @@
+package infer
+
+import (
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"strconv"
+	"testing"
+
+	"pdwave/model/instrument"
+	"pdwave/model/net"
+	"pdwave/model/site"
+	"pdwave/simulate"
+	"pdwave/weights"
+)
+
+// TestTurnStudy, run only with PDWAVE_TURN_STUDY=N: N bursts per scene set
+// (mix, granulation) of the demo site, D/r0 in [3, 7], scored for the
+// learned estimate of the burst as recorded, the mean of the learned
+// estimates of its eight turns (turned back), and the fit; with the spread
+// of the eight turned-back estimates (prior-whitened mean square about
+// their mean). One CSV line per burst.
+func TestTurnStudy(t *testing.T) {
+	n, _ := strconv.Atoi(os.Getenv("PDWAVE_TURN_STUDY"))
+	if n <= 0 {
+		t.Skip("set PDWAVE_TURN_STUDY=N")
+	}
+	st, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	model, err := weights.Default()
+	if w := os.Getenv("WEIGHTS"); w != "" {
+		model, err = net.Load(w)
+	}
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg, _, _, err := ConfigWithWeights(instrument.Sources{Site: st.Instrument()}, 16, model, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	full, err := NewFitter(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	est, err := NewNetEstimator(model, full.Basis())
+	if err != nil {
+		t.Fatal(err)
+	}
+	tb, err := NewTurnBack(full.Basis())
+	if err != nil {
+		t.Fatal(err)
+	}
+	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	scenes, err := SimulatedStudyScenes(scfg, "mix,granulation", shippedImages)
+	if err != nil {
+		t.Fatal(err)
+	}
+	seed, _ := strconv.ParseUint(os.Getenv("SEED"), 10, 64)
+	fmt.Println("TURN scene,dr0,err_learned,err_turned4,err_turned8,err_fit,spread,obj_learned,obj_turned8,obj_fit")
+	for si, sc := range scenes {
+		for b := 0; b < n; b++ {
+			rng := rand.New(rand.NewPCG(2000+seed, uint64(si)<<20|uint64(b)))
+			c := StudyCase{DOverR0: 3 + 4*rng.Float64(), Patch: 64, Frames: 16, DiversityPV: 1}
+			data, truth, err := sc.Source(c, rng)
+			if err != nil {
+				t.Fatal(err)
+			}
+			line, err := turnStudyBurst(data, truth, est, tb, full)
+			if err != nil {
+				t.Fatal(err)
+			}
+			fmt.Printf("TURN %s,%.3f,%s\n", sc.Name, c.DOverR0, line)
+		}
+	}
+}
+
+func turnStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, tb *TurnBack, full *Fitter) (string, error) {
+	b := full.Basis()
+	frames, m, n := len(data[0]), b.Count, b.N
+	var each [Turns][][]float64
+	turned := [][][]float64{make([][]float64, frames), make([][]float64, frames)}
+	for tr := 0; tr < Turns; tr++ {
+		for c := range turned {
+			for j := range turned[c] {
+				turned[c][j] = make([]float64, n*n)
+				TurnImage(turned[c][j], data[c][j], n, tr)
+			}
+		}
+		cl, err := est.Estimate(turned)
+		if err != nil {
+			return "", err
+		}
+		each[tr] = make([][]float64, frames)
+		for j := range cl {
+			each[tr][j] = make([]float64, m)
+			tb.Back(each[tr][j], cl[j], tr)
+		}
+	}
+	mean := func(k int) [][]float64 {
+		out := make([][]float64, frames)
+		for j := range out {
+			out[j] = make([]float64, m)
+			for tr := 0; tr < k; tr++ {
+				for i := range out[j] {
+					out[j][i] += each[tr][j][i] / float64(k)
+				}
+			}
+		}
+		return out
+	}
+	m4, m8 := mean(4), mean(8)
+	var spread float64
+	for tr := 0; tr < Turns; tr++ {
+		for j := range m8 {
+			for i := range m8[j] {
+				d := each[tr][j][i] - m8[j][i]
+				spread += d * d / full.PriorVariance()[i]
+			}
+		}
+	}
+	spread /= float64(Turns * frames * m)
+	r, err := full.Fit(data, nil)
+	if err != nil {
+		return "", err
+	}
+	score := func(c [][]float64) float64 {
+		nl := make([][]float64, frames)
+		for j := range c {
+			nl[j] = make([]float64, m)
+			b.NollEquivalent(nl[j], c[j])
+		}
+		e, _ := ResidualFraction(nl, truth, 21)
+		return e
+	}
+	eo := func(c [][]float64) float64 {
+		e, _, _ := full.Objective(data, c)
+		return e
+	}
+	return fmt.Sprintf("%.4f,%.4f,%.4f,%.4f,%.4g,%.5g,%.5g,%.5g", score(each[0]), score(m4), score(m8), score(r.Coeffs), spread,
+		eo(each[0]), eo(m8), r.MetricEnd), nil
+}
