@@ -48,6 +48,16 @@ func TestTurnStudy(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	for _, k := range []int{10, 20} {
+		pc := cfg
+		pc.Stop = Stop{Iterations: k}
+		pc.Chi2Limit = 0
+		f, err := NewFitter(pc)
+		if err != nil {
+			t.Fatal(err)
+		}
+		turnPolish = append(turnPolish, f)
+	}
 	tb, err := NewTurnBack(full.Basis())
 	if err != nil {
 		t.Fatal(err)
@@ -61,7 +71,7 @@ func TestTurnStudy(t *testing.T) {
 		t.Fatal(err)
 	}
 	seed, _ := strconv.ParseUint(os.Getenv("SEED"), 10, 64)
-	fmt.Println("TURN scene,dr0,err_learned,err_turned4,err_turned8,err_fit,spread,obj_learned,obj_turned8,obj_fit")
+	fmt.Println("TURN scene,dr0,err_learned,err_turned4,err_turned8,err_fit,spread,obj_learned,obj_turned8,obj_fit,p10_learned,p10_turned8,p20_learned,p20_turned8")
 	for si, sc := range scenes {
 		for b := 0; b < n; b++ {
 			rng := rand.New(rand.NewPCG(2000+seed, uint64(si)<<20|uint64(b)))
@@ -78,6 +88,9 @@ func TestTurnStudy(t *testing.T) {
 		}
 	}
 }
+
+// turnPolish are the 10- and 20-step polishers of TestTurnStudy.
+var turnPolish []*Fitter
 
 func turnStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, tb *TurnBack, full *Fitter) (string, error) {
 	b := full.Basis()
@@ -141,6 +154,17 @@ func turnStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, tb
 		e, _, _ := full.Objective(data, c)
 		return e
 	}
-	return fmt.Sprintf("%.4f,%.4f,%.4f,%.4f,%.4g,%.5g,%.5g,%.5g", score(each[0]), score(m4), score(m8), score(r.Coeffs), spread,
-		eo(each[0]), eo(m8), r.MetricEnd), nil
+	line := fmt.Sprintf("%.4f,%.4f,%.4f,%.4f,%.4g,%.5g,%.5g,%.5g", score(each[0]), score(m4), score(m8), score(r.Coeffs), spread,
+		eo(each[0]), eo(m8), r.MetricEnd)
+	for _, pf := range turnPolish {
+		for _, start := range [][][]float64{each[0], m8} {
+			pr, err := pf.Fit(data, start)
+			if err != nil {
+				return "", err
+			}
+			e, _ := ResidualFraction(pr.Noll, truth, 21)
+			line += fmt.Sprintf(",%.4f", e)
+		}
+	}
+	return line, nil
 }
