@@ -170,6 +170,11 @@ func (e *NetEstimator) predict(w *netWorker, data [2][][]float64, out [][]float6
 	return nil
 }
 
+// DefaultTurns is the number of symmetries of the square the commands
+// average the learned estimate over unless told otherwise (see SetTurns:
+// four turns give nearly all of the eight's gain at half the cost).
+const DefaultTurns = 4
+
 // SetTurns sets how many symmetries of the square Estimate averages over:
 // 1 (the burst as recorded; the default), 4 (the four rotations) or 8
 // (rotations and reflections). Averaging k turned predictions costs k
@@ -230,4 +235,38 @@ func (e *NetEstimator) put(w *netWorker) {
 	e.mu.Lock()
 	e.free = append(e.free, w)
 	e.mu.Unlock()
+}
+
+// RemoveMeanTilt removes from native (frames × Count coefficients of b,
+// modified in place) the burst mean of the Noll tip and tilt (j = 2, 3),
+// which phase diversity cannot see, and returns the Noll equivalents
+// (j = 2…Count+1) of the result. It returns an error if b.ToNoll is
+// singular or a row has the wrong length.
+func RemoveMeanTilt(b *modes.Basis, native [][]float64) ([][]float64, error) {
+	m := b.Count
+	noll := make([][]float64, len(native))
+	var mean [2]float64
+	for j, c := range native {
+		if len(c) != m {
+			return nil, fmt.Errorf("remove mean tilt: frame %d has %d coefficients, want %d", j, len(c), m)
+		}
+		noll[j] = make([]float64, m)
+		b.NollEquivalent(noll[j], c)
+		for k := 0; k < 2 && k < m; k++ {
+			mean[k] += noll[j][k] / float64(len(native))
+		}
+	}
+	var inv mat.Dense
+	if err := inv.Inverse(b.ToNoll); err != nil {
+		return nil, fmt.Errorf("remove mean tilt: basis %s: %w", b.Describe(), err)
+	}
+	for j := range native {
+		for k := 0; k < 2 && k < m; k++ {
+			noll[j][k] -= mean[k]
+			for i := 0; i < m; i++ {
+				native[j][i] -= inv.At(i, k) * mean[k]
+			}
+		}
+	}
+	return noll, nil
 }

@@ -5,6 +5,7 @@ import (
 	"io"
 	"maps"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"time"
 
@@ -153,6 +154,9 @@ type PredictJob struct {
 	Version string
 	Out     string
 	Log     io.Writer
+	// Turns is how many symmetries of the square the prediction averages
+	// over (NetEstimator.SetTurns): 1, 4 or 8; 0 means 1.
+	Turns int
 	// Provenance is recorded with the settings (command line, input hashes).
 	Provenance map[string]string
 }
@@ -177,13 +181,14 @@ func (j PredictJob) Run() error {
 	}
 	p := b.Patch(c.X0, c.Y0, c.N)
 	start := time.Now()
-	native, noll, err := est.Burst([2][][]float64{p[0], p[1]})
+	native, noll, err := j.predict(est, p)
 	if err != nil {
 		return fmt.Errorf("predict: %s: %w", j.Name, err)
 	}
 	elapsed := time.Since(start)
 	settings := map[string]string{"verb": "predict", "burst": filepath.Base(j.Name), "weights": j.From,
-		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds()), "patch": c.Describe(b)}
+		"site": m.Meta.Site, "basis": m.Meta.Basis, "seconds": fmt.Sprintf("%.6f", elapsed.Seconds()), "patch": c.Describe(b),
+		"turns": strconv.Itoa(max(j.Turns, 1))}
 	maps.Copy(settings, j.Provenance)
 	table := &CoefficientTable{Basis: modes.Kind(m.Meta.Basis), Native: native, Noll: noll,
 		Title: "pdwave " + j.Version + " predict", Settings: settings}
@@ -195,6 +200,27 @@ func (j PredictJob) Run() error {
 			len(native), len(native[0]), m.Meta.Basis, elapsed.Round(time.Microsecond), j.From)
 	}
 	return nil
+}
+
+// predict returns the native and Noll coefficients of patch p (burst mean
+// of tip and tilt removed): est's prediction, or with Turns > 1 the mean
+// over the turned bursts in est's basis.
+func (j PredictJob) predict(est *net.Estimator, p [][][]float64) (native, noll [][]float64, err error) {
+	if j.Turns <= 1 {
+		return est.Burst([2][][]float64{p[0], p[1]})
+	}
+	ne, err := NewNetEstimator(j.Model, est.Basis())
+	if err != nil {
+		return nil, nil, err
+	}
+	if err := ne.SetTurns(j.Turns); err != nil {
+		return nil, nil, err
+	}
+	if native, err = ne.Estimate(p); err != nil {
+		return nil, nil, err
+	}
+	noll, err = RemoveMeanTilt(est.Basis(), native)
+	return native, noll, err
 }
 
 // write writes the prediction's table: the CSV alone, or FITS and CSV.

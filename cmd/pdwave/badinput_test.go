@@ -279,6 +279,7 @@ func TestBadInput(t *testing.T) {
 		// predict
 		{"predict missing weights", []string{"predict", p("good.fits"), "--weights", p("none.safetensors"), "--out", "OUT/p.fits"}, "none.safetensors"},
 		{"predict garbage weights", []string{"predict", p("good.fits"), "--weights", p("garbage.safetensors"), "--out", "OUT/p.fits"}, "garbage.safetensors"},
+		{"predict three turns", []string{"predict", p("good.fits"), "--turns", "3", "--out", "OUT/p.fits"}, "3 turns, want 1, 4 or 8"},
 		{"predict other optics", []string{"predict", p("other-optics.fits"), "--out", "OUT/p.fits"}, "0.7"},
 		{"predict no optics", []string{"predict", p("no-optics.fits"), "--out", "OUT/p.fits"}, "optic"},
 		{"predict burst smaller than a patch", []string{"predict", p("small.fits"), "--out", "OUT/p.fits"}, "smaller than"},

@@ -21,6 +21,7 @@ var predictOpts struct {
 	weights string
 	site    string
 	out     string
+	turns   int
 }
 
 var predictCmd = &cobra.Command{
@@ -51,6 +52,7 @@ func init() {
 	f.StringVar(&predictOpts.weights, "weights", "", "weight file (default: built-in weights)")
 	f.StringVar(&predictOpts.site, "site", "", "site file giving the optics of bursts without optics keywords")
 	f.StringVar(&predictOpts.out, "out", "", "output table (FITS, plus a CSV copy; or .csv)")
+	f.IntVar(&predictOpts.turns, "turns", infer.DefaultTurns, "average the network over 1, 4 or 8 symmetries of the square (turned bursts, turned back)")
 	root.AddCommand(predictCmd)
 }
 
@@ -99,6 +101,6 @@ func predictRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	job := infer.PredictJob{Provenance: prov, Burst: b, Name: args[0], Sources: src, Model: m, From: from, Version: version, Out: o.out, Log: os.Stderr}
+	job := infer.PredictJob{Provenance: prov, Burst: b, Name: args[0], Sources: src, Model: m, From: from, Version: version, Out: o.out, Log: os.Stderr, Turns: o.turns}
 	return job.Run()
 }
