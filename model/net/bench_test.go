@@ -151,3 +151,15 @@ func benchEstimator(b *testing.B) *Estimator {
 	}
 	return e
 }
+
+// BenchmarkForward32 measures the float32 forward pass alone (16 frames).
+func BenchmarkForward32(b *testing.B) {
+	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
+	if err != nil {
+		b.Fatal(err)
+	}
+	p := NewPredictor32(m)
+	x := randInput(p.InputLen(16), 1)
+	out := make([]float64, 16*36)
+	cpuLoop(b, func() { p.Forward(out, x, 16) })
+}

@@ -20,3 +20,37 @@ func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bi
 //
 //go:noescape
 func blockSums2Vec(out *float64, u0, u1, v0, v1, m0, m1 *complex128, nb int)
+
+// convTiles32Vec is convTile32 (see forward32.go) in AVX2+FMA for nt ≥ 1
+// tiles side by side: tile t reads p + 16t and writes c + 16t. c, p and w
+// point at the first elements, off holds k ≥ 1 byte offsets, cs is the row
+// stride of c in elements. The bias starts the sums, so the rounding
+// differs from convTile32 (which adds it last).
+//
+//go:noescape
+func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *[4]float32, relu bool, nt int)
+
+// split64to32Vec sets ev[i] = float32(src[2i]), od[i] = float32(src[2i+1])
+// for i < 4n, n ≥ 1 (AVX).
+//
+//go:noescape
+func split64to32Vec(ev, od *float32, src *float64, n int)
+
+// split32Vec sets ev[i] = src[2i], od[i] = src[2i+1] for i < 4n, n ≥ 1
+// (SSE).
+//
+//go:noescape
+func split32Vec(ev, od *float32, src *float32, n int)
+
+// splitImage64Vec puts an image of 2·rows rows of 8q float64 into its four
+// phase planes (see kernels_amd64.s); rows, q ≥ 1, rs and plane in bytes.
+//
+//go:noescape
+func splitImage64Vec(dst *float32, src *float64, rows, q, rs, plane int)
+
+// splitStrip32Vec splits frames segments of 8q values (strides so and do
+// in elements) into even and odd values (see kernels_amd64.s); frames,
+// q ≥ 1.
+//
+//go:noescape
+func splitStrip32Vec(ev, od *float32, src *float32, frames, q, so, do int)

@@ -13,3 +13,23 @@ func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bi
 func blockSums2Vec(out *float64, u0, u1, v0, v1, m0, m1 *complex128, nb int) {
 	panic("net: internal error: vector kernel called without vector support")
 }
+
+func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *[4]float32, relu bool, nt int) {
+	panic("net: internal error: vector kernel called without vector support")
+}
+
+func split64to32Vec(ev, od *float32, src *float64, n int) {
+	panic("net: internal error: vector kernel called without vector support")
+}
+
+func split32Vec(ev, od *float32, src *float32, n int) {
+	panic("net: internal error: vector kernel called without vector support")
+}
+
+func splitImage64Vec(dst *float32, src *float64, rows, q, rs, plane int) {
+	panic("net: internal error: vector kernel called without vector support")
+}
+
+func splitStrip32Vec(ev, od *float32, src *float32, frames, q, so, do int) {
+	panic("net: internal error: vector kernel called without vector support")
+}
