@@ -58,6 +58,8 @@ type Featurizer struct {
 	pair         bool         // bins of 2 pixels and n/2 even (see spectral)
 	runs         [][3]int     // (block row, first, end) of runs of inside blocks
 	vs           []float64    // lane sums of the vector kernel, 28 per block
+	bmean        [2]float64   // burst means of the two channels (prepare)
+	binv         float64      // 1/(s·bin²), s the burst standard deviation (prepare)
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -158,7 +160,25 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	if len(dst) != f.Len(frames) {
 		return fmt.Errorf("net: feature buffer has length %d, want %d", len(dst), f.Len(frames))
 	}
-	n, s := f.n, f.size
+	if err := f.prepare(data); err != nil {
+		return err
+	}
+	per := FeatureChannels * f.size * f.size
+	for j := 0; j < frames; j++ {
+		f.frame(dst[j*per:(j+1)*per], data, j)
+	}
+	return nil
+}
+
+// prepare checks the images of a burst and computes what the frames share:
+// the frame sums, the burst means and standard deviation, the burst mean
+// spectrum M and its block power. It returns an error as Burst.
+func (f *Featurizer) prepare(data [2][][]float64) error {
+	frames := len(data[0])
+	if frames < 1 || len(data[1]) != frames {
+		return fmt.Errorf("net: burst has %d focused and %d defocused frames", len(data[0]), len(data[1]))
+	}
+	n := f.n
 	for c := 0; c < 2; c++ {
 		for j, im := range data[c] {
 			if len(im) != n*n {
@@ -191,6 +211,7 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	if !(sd > 0) || math.IsInf(sd, 0) || math.IsNaN(mean[1]) || math.IsInf(mean[1], 0) {
 		return fmt.Errorf("net: focused images have standard deviation %g; need finite, varying data", sd)
 	}
+	f.bmean, f.binv = mean, 1/(sd*float64(f.bin*f.bin))
 	// The transform is linear: M = F{w·Σ_j (d1_j − mean d1_j)}/frames.
 	m1 := 0.0
 	for _, v := range f.fsum[0] {
@@ -203,17 +224,19 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	}
 	f.plan.ForwardReal(f.mean, f.sum)
 	f.blockPower()
-	plane := s * s
-	inv := 1 / (sd * float64(f.bin*f.bin))
-	for j := 0; j < frames; j++ {
-		out := dst[j*FeatureChannels*plane : (j+1)*FeatureChannels*plane]
-		for c := 0; c < 2; c++ {
-			f.binImage(out[c*plane:(c+1)*plane], data[c][j], mean[c], inv)
-		}
-		f.transform(data[0][j], data[1][j], f.fsum[0][j]/npix, f.fsum[1][j]/npix)
-		f.spectral(out[2*plane : 7*plane])
-	}
 	return nil
+}
+
+// frame writes the FeatureChannels planes of frame j into out (after
+// prepare for the same data).
+func (f *Featurizer) frame(out []float64, data [2][][]float64, j int) {
+	plane := f.size * f.size
+	npix := float64(f.n * f.n)
+	for c := 0; c < 2; c++ {
+		f.binImage(out[c*plane:(c+1)*plane], data[c][j], f.bmean[c], f.binv)
+	}
+	f.transform(data[0][j], data[1][j], f.fsum[0][j]/npix, f.fsum[1][j]/npix)
+	f.spectral(out[2*plane : 7*plane])
 }
 
 // sum returns Σ x (four partial sums).

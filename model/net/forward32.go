@@ -167,29 +167,51 @@ func (p *Predictor32) Forward(dst, x []float64, frames int) {
 // Raw computes the unscaled outputs y (frames × Modes), as Predictor.Raw;
 // α = Scale·y. Same contract as Forward otherwise.
 func (p *Predictor32) Raw(dst, x []float64, frames int) {
-	a := p.arch
-	if frames < 1 {
-		panic(fmt.Sprintf("net: %d frames", frames))
-	}
 	if len(x) != p.InputLen(frames) {
 		panic(fmt.Sprintf("net: input has length %d, want %d", len(x), p.InputLen(frames)))
 	}
-	if len(dst) != frames*a.Modes {
-		panic(fmt.Sprintf("net: output has length %d, want %d", len(dst), frames*a.Modes))
-	}
-	p.layout(frames)
-	s, c := a.Size, a.Channels
-	l0 := &p.layers[0]
+	p.begin(dst, frames)
+	per := p.InputLen(1)
 	for f := 0; f < frames; f++ {
-		for ci := 0; ci < c; ci++ {
-			l0.putImage(ci, f, x[(f*c+ci)*s*s:(f*c+ci+1)*s*s])
-		}
+		p.putFrame(f, x[f*per:(f+1)*per])
 	}
 	p.run(frames)
+	p.output(dst, frames, false)
+}
+
+// begin checks the frame count and the output length and lays the buffers
+// out for the frame count; it panics as Forward.
+func (p *Predictor32) begin(dst []float64, frames int) {
+	if frames < 1 {
+		panic(fmt.Sprintf("net: %d frames", frames))
+	}
+	if len(dst) != frames*p.arch.Modes {
+		panic(fmt.Sprintf("net: output has length %d, want %d", len(dst), frames*p.arch.Modes))
+	}
+	p.layout(frames)
+}
+
+// putFrame writes the features x (Channels × Size × Size) of frame f < the
+// frame count of begin into the first layer's phase planes.
+func (p *Predictor32) putFrame(f int, x []float64) {
+	s2 := p.arch.Size * p.arch.Size
+	for ci := 0; ci < p.arch.Channels; ci++ {
+		p.layers[0].putImage(ci, f, x[ci*s2:(ci+1)*s2])
+	}
+}
+
+// output writes the outputs of the last run into dst (frames × Modes),
+// times the output scale if scaled.
+func (p *Predictor32) output(dst []float64, frames int, scaled bool) {
+	nm := p.arch.Modes
 	for f := 0; f < frames; f++ {
-		row := dst[f*a.Modes : (f+1)*a.Modes]
+		row := dst[f*nm : (f+1)*nm]
 		for k := range row {
-			row[k] = float64(p.yT[k*p.fpad+f])
+			v := float64(p.yT[k*p.fpad+f])
+			if scaled {
+				v *= p.scale[k]
+			}
+			row[k] = v
 		}
 	}
 }
