@@ -46,20 +46,23 @@ type Featurizer struct {
 	cutoff       float64
 	plan         *fft.Plan
 	window       []float64
-	z            []complex128 // Z spectrum of the current frame (see transform)
-	mean         []complex128 // burst mean M of the focused spectra
-	sum          []float64    // pixel sum of the focused images, then its windowed deviation
-	fsum         [2][]float64 // per channel and frame: pixel sum
-	pm           []float64    // per output block: Σ|M|²
-	in           []int32      // output blocks whose centre is inside the cut-off
-	outside      []int        // spectrum indices beyond 1.05 r_c, for the noise floor
-	unshift      []int32      // centred index c → spectrum index (c − n/2) mod n
-	neg          []int32      // spectrum index k → index of −k, (n − k) mod n
-	pair         bool         // bins of 2 pixels and n/2 even (see spectral)
-	runs         [][3]int     // (block row, first, end) of runs of inside blocks
-	vs           []float64    // lane sums of the vector kernel, 28 per block
-	bmean        [2]float64   // burst means of the two channels (prepare)
-	binv         float64      // 1/(s·bin²), s the burst standard deviation (prepare)
+	z            []complex128  // Z spectrum of the current frame (see transform)
+	mean         []complex128  // burst mean M of the focused spectra
+	sum          []float64     // pixel sum of the focused images, then its windowed deviation
+	fsum         [2][]float64  // per channel and frame: pixel sum
+	pm           []float64     // per output block: Σ|M|²
+	in           []int32       // output blocks whose centre is inside the cut-off
+	outside      []int         // spectrum indices beyond 1.05 r_c, for the noise floor
+	unshift      []int32       // centred index c → spectrum index (c − n/2) mod n
+	neg          []int32       // spectrum index k → index of −k, (n − k) mod n
+	pair         bool          // bins of 2 pixels and n/2 even (see spectral)
+	runs         [][3]int      // (block row, first, end) of runs of inside blocks
+	vs           []float64     // scratch of the vector kernel: 6 rows of vstride
+	vstride      int           // Size rounded up to 4
+	rk           [5][4]float64 // constants of blockRatios2Vec: reg, 0.5, 0.25, 1, −0
+	bmean        [2]float64    // burst means of the two channels (prepare)
+	binv         float64       // 1/(s·bin²), s the burst standard deviation (prepare)
+	kc           [5][4]float64 // constants of packBin2Vec
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -100,7 +103,11 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 			}
 		}
 	}
-	f.vs = make([]float64, 28*size)
+	f.vstride = (size + 3) &^ 3
+	f.vs = make([]float64, 6*f.vstride)
+	for i, v := range [5]float64{0, 0.5, 0.25, 1, math.Copysign(0, -1)} {
+		f.rk[i] = [4]float64{v, v, v, v}
+	}
 	for ky := 0; ky < n; ky++ {
 		for kx := 0; kx < n; kx++ {
 			u, v := ky, kx
@@ -230,12 +237,24 @@ func (f *Featurizer) prepare(data [2][][]float64) error {
 // frame writes the FeatureChannels planes of frame j into out (after
 // prepare for the same data).
 func (f *Featurizer) frame(out []float64, data [2][][]float64, j int) {
-	plane := f.size * f.size
-	npix := float64(f.n * f.n)
-	for c := 0; c < 2; c++ {
-		f.binImage(out[c*plane:(c+1)*plane], data[c][j], f.bmean[c], f.binv)
+	n, plane := f.n, f.size*f.size
+	npix := float64(n * n)
+	d1, d2 := data[0][j], data[1][j]
+	m1, m2 := f.fsum[0][j]/npix, f.fsum[1][j]/npix
+	if useVec && f.bin == 2 && n%8 == 0 {
+		// Both passes over the images in one: the complex pair and the bins.
+		for i, v := range [5]float64{m1, m2, f.bmean[0], f.bmean[1], f.binv} {
+			f.kc[i] = [4]float64{v, v, v, v}
+		}
+		_ = d1[n*n-1] + d2[n*n-1] + real(f.z[n*n-1]) + f.window[n*n-1] + out[2*plane-1]
+		packBin2Vec(&f.z[0], &d1[0], &d2[0], &f.window[0], n, n/2, &f.kc, &out[0], &out[plane])
+		f.plan.Forward(f.z, f.z)
+	} else {
+		for c := 0; c < 2; c++ {
+			f.binImage(out[c*plane:(c+1)*plane], data[c][j], f.bmean[c], f.binv)
+		}
+		f.transform(d1, d2, m1, m2)
 	}
-	f.transform(data[0][j], data[1][j], f.fsum[0][j]/npix, f.fsum[1][j]/npix)
 	f.spectral(out[2*plane : 7*plane])
 }
 
@@ -424,47 +443,16 @@ func (f *Featurizer) finish(dst []float64, k int, a blockSums, reg float64) {
 	dst[4*plane+k] = a.ti * ir
 }
 
-// finishRun is finish for the nb blocks k0..k0+nb−1 of one block row, from
-// the lane sums the vector kernel left in f.vs (28 per block). The planes
-// are sliced once per run and both ratios share one division
-// (1/q = r/(qr), 1/r = q/(qr)).
-func (f *Featurizer) finishRun(dst []float64, k0, nb int, reg float64) {
-	plane := f.size * f.size
-	d0 := dst[k0 : k0+nb]
-	d1 := dst[plane+k0 : plane+k0+nb]
-	d2 := dst[2*plane+k0 : 2*plane+k0+nb]
-	d3 := dst[3*plane+k0 : 3*plane+k0+nb]
-	d4 := dst[4*plane+k0 : 4*plane+k0+nb]
-	pm := f.pm[k0 : k0+nb]
-	vs := f.vs[:28*nb]
-	for i := range d0 {
-		o := (*[28]float64)(vs[28*i : 28*i+28])
-		a1 := (o[0] + o[1]) + (o[2] + o[3])
-		a2 := (o[4] + o[5]) + (o[6] + o[7])
-		q := 0.5*(a1+a2) + reg
-		r := 0.25*((o[16]+o[17])+(o[18]+o[19])) + pm[i] + reg
-		if q <= 0 || r <= 0 {
-			continue
-		}
-		inv := 1 / (q * r)
-		iq, ir := r*inv, q*inv
-		d0[i] = ((o[8] - o[9]) + (o[10] - o[11])) * iq
-		d1[i] = ((o[12] + o[13]) + (o[14] + o[15])) * iq
-		d2[i] = 0.5 * (a1 - a2) * iq
-		d3[i] = ((o[20] + o[21]) + (o[22] + o[23])) * ir
-		d4[i] = ((o[25] - o[24]) + (o[27] - o[26])) * ir
-	}
-}
-
 // spectralPairs is the inside-block loop of spectral for bins of 2 with n/2
 // even, through the vector kernel. In a block row the blocks left and right
 // of the zero-frequency column (bx = Size/2, summed by blockScalar) have
 // adjacent spectrum columns kx, kx+1 whose mirrors n−kx, n−kx−1 are
-// adjacent too, so whole runs of blocks go through blockSums2Vec.
+// adjacent too, so whole runs of blocks go through blockRatios2Vec.
 func (f *Featurizer) spectralPairs(dst []float64, reg float64) {
 	n, s := f.n, f.size
 	z, mean := f.z, f.mean[:len(f.z)]
 	dc := s / 2
+	f.rk[0] = [4]float64{reg, reg, reg, reg}
 	for _, run := range f.runs {
 		by := run[0]
 		ky0 := int(f.unshift[2*by])
@@ -479,15 +467,19 @@ func (f *Featurizer) spectralPairs(dst []float64, reg float64) {
 			nb := hi - lo
 			_ = z[ky1*n+kx+2*nb-1] + mean[ky1*n+kx+2*nb-1] // the kernel's reach in every row
 			_ = z[kn0*n+n-kx] + z[kn1*n+n-kx] + z[kn0*n+n-kx-2*nb+1] + z[kn1*n+n-kx-2*nb+1]
-			blockSums2Vec(&f.vs[0], &z[ky0*n+kx], &z[ky1*n+kx], &z[kn0*n+n-kx-1], &z[kn1*n+n-kx-1],
-				&mean[ky0*n+kx], &mean[ky1*n+kx], nb)
-			f.finishRun(dst, by*s+lo, nb, reg)
+			k0 := by*s + lo
+			_ = dst[4*s*s+k0+nb-1] + f.pm[k0+nb-1] + f.vs[5*f.vstride+(nb+3)&^3-1]
+			blockRatios2Vec(&dst[k0], 8*s*s, &z[ky0*n+kx], &z[ky1*n+kx], &z[kn0*n+n-kx-1], &z[kn1*n+n-kx-1],
+				&mean[ky0*n+kx], &mean[ky1*n+kx], &f.pm[k0], &f.vs[0], 8*f.vstride, &f.rk, nb, &tailMask[nb&3])
 		}
 		if run[1] <= dc && dc < run[2] {
 			f.finish(dst, by*s+dc, f.blockScalar(by, dc), reg)
 		}
 	}
 }
+
+// tailMask[r] is the lane mask of blockRatios2Vec for the last r blocks.
+var tailMask = [4][4]int64{{}, {-1}, {-1, -1}, {-1, -1, -1}}
 
 // blockSums accumulates, over the frequencies u of a block, |Z|², |Z₋|²,
 // Re and Im of Z Z₋, |S|² and Re, Im of S M* (see spectral).

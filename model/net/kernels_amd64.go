@@ -15,12 +15,6 @@ var useVec = cpufeat.AVX2FMA
 //go:noescape
 func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bias *[4]float64, relu bool)
 
-// blockSums2Vec computes the lane-wise spectral sums of nb consecutive 2×2
-// blocks (see Featurizer.spectralPairs); nb ≥ 1.
-//
-//go:noescape
-func blockSums2Vec(out *float64, u0, u1, v0, v1, m0, m1 *complex128, nb int)
-
 // convTiles32Vec is convTile32 (see forward32.go) in AVX2+FMA for nt ≥ 1
 // tiles side by side: tile t reads p + 16t and writes c + 16t. c, p and w
 // point at the first elements, off holds k ≥ 1 byte offsets, cs is the row
@@ -54,3 +48,19 @@ func splitImage64Vec(dst *float32, src *float64, rows, q, rs, plane int)
 //
 //go:noescape
 func splitStrip32Vec(ev, od *float32, src *float32, frames, q, so, do int)
+
+// blockRatios2Vec writes the five ratio channels of nb ≥ 1 consecutive
+// blocks of 2×2 frequencies (see Featurizer.spectralPairs and
+// kernels_amd64.s); plane is the channel stride of out and stride that of
+// tmp (6 rows of nb rounded up to 4), both in bytes; k holds reg, 0.5,
+// 0.25, 1, −0 and tail the lane mask of the last nb mod 4 blocks.
+//
+//go:noescape
+func blockRatios2Vec(out *float64, plane int, u0, u1, v0, v1, m0, m1 *complex128, pm, tmp *float64, stride int, k *[5][4]float64, nb int, tail *[4]int64)
+
+// packBin2Vec fills z with the windowed complex pair of two images and
+// writes their 2×2 block sums (see kernels_amd64.s); n a multiple of 8,
+// rows2 ≥ 1.
+//
+//go:noescape
+func packBin2Vec(z *complex128, d1, d2, w *float64, n, rows2 int, k *[5][4]float64, b1, b2 *float64)
