@@ -5,6 +5,9 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 
 	"pdwave/model/instrument"
@@ -30,6 +33,8 @@ type Estimator struct {
 	pred   *Predictor   // float64 forward pass (NewEstimator64), else nil
 	pred32 *Predictor32 // float32 forward pass (NewEstimator), else nil
 	x, y   []float64
+	xf     []float64 // one frame's features (float32 path), written by Featurizer.frame only
+	corr   []float64 // the native correction for the mean tip/tilt
 }
 
 // NewEstimator builds the pupil and basis the model was made for with
@@ -151,34 +156,56 @@ func (e *Estimator) Burst(data [2][][]float64) (native, noll [][]float64, err er
 	// One backing array per result: the caller owns them.
 	nollAll := make([]float64, frames*nm)
 	nativeAll := make([]float64, frames*nm)
-	noll = make([][]float64, frames)
+	copy(nativeAll, e.y)
+	e.nollEquivalent(nollAll, e.y, frames)
 	var mean [2]float64
-	for j := range noll {
-		noll[j] = nollAll[j*nm : (j+1)*nm : (j+1)*nm]
-		e.basis.NollEquivalent(noll[j], e.y[j*nm:(j+1)*nm])
+	for j := 0; j < frames; j++ {
 		for k := 0; k < 2 && k < nm; k++ {
-			mean[k] += noll[j][k] / float64(frames)
+			mean[k] += nollAll[j*nm+k] / float64(frames)
 		}
 	}
+	// native −= ToNoll⁻¹ · (mean tilt in Noll), the same for every frame.
+	e.corr = grow(e.corr, nm)
+	corr := e.corr
+	for i := range corr {
+		corr[i] = 0
+		for k := 0; k < 2 && k < nm; k++ {
+			c := 0.0
+			if e.inv != nil {
+				c = e.inv.At(i, k)
+			} else if i == k {
+				c = 1
+			}
+			corr[i] += c * mean[k]
+		}
+	}
+	noll = make([][]float64, frames)
 	native = make([][]float64, frames)
 	for j := range native {
+		noll[j] = nollAll[j*nm : (j+1)*nm : (j+1)*nm]
 		native[j] = nativeAll[j*nm : (j+1)*nm : (j+1)*nm]
-		copy(native[j], e.y[j*nm:(j+1)*nm])
 		for k := 0; k < 2 && k < nm; k++ {
 			noll[j][k] -= mean[k]
-			// native −= ToNoll⁻¹ · (mean tilt in Noll)
-			for i := 0; i < nm; i++ {
-				c := 0.0
-				if e.inv != nil {
-					c = e.inv.At(i, k)
-				} else if i == k {
-					c = 1
-				}
-				native[j][i] -= c * mean[k]
-			}
 		}
+		floats.Sub(native[j], corr)
 	}
 	return native, noll, nil
+}
+
+// nollEquivalent sets dst (frames × Modes) to the Noll equivalents of the
+// native coefficients y, as Basis.NollEquivalent row by row, in one matrix
+// product: dst = y · ToNollᵀ.
+func (e *Estimator) nollEquivalent(dst, y []float64, frames int) {
+	b := e.basis
+	if b.Kind == modes.KindZernike {
+		copy(dst, y)
+		return
+	}
+	nm := b.Count
+	blas64.Gemm(blas.NoTrans, blas.Trans, 1,
+		blas64.General{Rows: frames, Cols: nm, Stride: nm, Data: y},
+		b.ToNoll.RawMatrix(),
+		0, blas64.General{Rows: frames, Cols: nm, Stride: nm, Data: dst})
 }
 
 // predict sets e.y to the coefficients (frames × Modes, rad) of data.
@@ -204,12 +231,14 @@ func (e *Estimator) predict(data [2][][]float64) error {
 	if err := e.feat.prepare(data); err != nil {
 		return err
 	}
-	e.x = grow(e.x, e.feat.Len(1))
+	if e.xf == nil {
+		e.xf = make([]float64, e.feat.Len(1))
+	}
 	p := e.pred32
 	p.begin(e.y, frames)
 	for j := 0; j < frames; j++ {
-		e.feat.frame(e.x, data, j)
-		p.putFrame(j, e.x)
+		e.feat.frame(e.xf, data, j, true)
+		p.putFrame(j, e.xf)
 	}
 	p.run(frames)
 	p.output(e.y, frames, true)

@@ -49,14 +49,14 @@ func splitImage64Vec(dst *float32, src *float64, rows, q, rs, plane int)
 //go:noescape
 func splitStrip32Vec(ev, od *float32, src *float32, frames, q, so, do int)
 
-// blockRatios2Vec writes the five ratio channels of nb ≥ 1 consecutive
-// blocks of 2×2 frequencies (see Featurizer.spectralPairs and
-// kernels_amd64.s); plane is the channel stride of out and stride that of
-// tmp (6 rows of nb rounded up to 4), both in bytes; k holds reg, 0.5,
-// 0.25, 1, −0 and tail the lane mask of the last nb mod 4 blocks.
+// spectralVec writes the five ratio channels of the blocks of nseg ≥ 1
+// segments of consecutive blocks of 2×2 frequencies (see
+// Featurizer.spectralPairs and kernels_amd64.s); plane is the channel
+// stride of out and stride that of tmp (6 rows of the longest segment
+// rounded up to 4), both in bytes; k holds reg, 0.5, 0.25, 1, −0.
 //
 //go:noescape
-func blockRatios2Vec(out *float64, plane int, u0, u1, v0, v1, m0, m1 *complex128, pm, tmp *float64, stride int, k *[5][4]float64, nb int, tail *[4]int64)
+func spectralVec(out *float64, plane int, z, mean *complex128, pm, tmp *float64, stride int, k *[5][4]float64, segs *[6]int, nseg int)
 
 // packBin2Vec fills z with the windowed complex pair of two images and
 // writes their 2×2 block sums (see kernels_amd64.s); n a multiple of 8,
@@ -64,3 +64,14 @@ func blockRatios2Vec(out *float64, plane int, u0, u1, v0, v1, m0, m1 *complex128
 //
 //go:noescape
 func packBin2Vec(z *complex128, d1, d2, w *float64, n, rows2 int, k *[5][4]float64, b1, b2 *float64)
+
+// sums2Vec adds d1 to acc and sets out to the sums of d1 and d2 (n values
+// each, n a positive multiple of 8).
+//
+//go:noescape
+func sums2Vec(acc, d1, d2 *float64, n int, out *[2]float64)
+
+// sumSqVec returns Σ (x[i] − m)², i < n, n a positive multiple of 8.
+//
+//go:noescape
+func sumSqVec(x *float64, m float64, n int) float64

@@ -400,32 +400,54 @@ sgroup:
 	SUBQ R13, BX \
 	VXORPD 128(AX), Y4, Y4
 
-// func blockRatios2Vec(out *float64, plane int, u0, u1, v0, v1, m0, m1 *complex128, pm, tmp *float64, stride int, k *[5][4]float64, nb int, tail *[4]int64)
+// tailmask<> + 32r: the lane mask of the last r blocks of a segment.
+DATA tailmask<>+32(SB)/8, $-1
+DATA tailmask<>+64(SB)/8, $-1
+DATA tailmask<>+72(SB)/8, $-1
+DATA tailmask<>+96(SB)/8, $-1
+DATA tailmask<>+104(SB)/8, $-1
+DATA tailmask<>+112(SB)/8, $-1
+GLOBL tailmask<>(SB), RODATA|NOPTR, $128
+
+// func spectralVec(out *float64, plane int, z, mean *complex128, pm, tmp *float64, stride int, k *[5][4]float64, segs *[6]int, nseg int)
 //
-// The five ratio channels of nb ≥ 1 consecutive 2×2 blocks (the sums of
-// Featurizer.blockScalar and the ratios of Featurizer.finish). Pass 1, per
-// block, rows r = 0, 1: U = (u_r[0], u_r[1]), V = (v_r[1], v_r[0]) (the
-// mirrored pair, stored in reverse), M = (m_r[0], m_r[1]), S = U + conj V;
-// the lane-wise sums of U·U, V·V, U·V, U·swap(V), S·M, S·swap(M) are
-// reduced to a1 = Σ|Z|², a2 = Σ|Z₋|², re, im of Σ Z Z₋ and tr, ti of
-// Σ S M*, stored at tmp + c·stride (c = a1, a2, re, −ti, im, tr; stride in
-// bytes; room for nb rounded up to 4). u and m advance by one pair per
-// block, v goes back by one. Pass 2, four blocks at a time: Σ|S|² = a1 +
-// a2 + 2 re, q = (a1+a2)/2 + reg, r = Σ|S|²/4 + pm + reg and, unless q ≤ 0
-// or r ≤ 0 (zeros then), out[i + c·plane] for c = 0..4 = re/q, im/q,
-// (a1−a2)/(2q), tr/r, ti/r (plane in bytes); the last nb mod 4 blocks
-// under the lane mask tail.
-TEXT ·blockRatios2Vec(SB), NOSPLIT, $0-112
-	MOVQ u0+16(FP), R8
-	MOVQ u1+24(FP), R9
-	MOVQ v0+32(FP), R10
-	MOVQ v1+40(FP), R11
-	MOVQ m0+48(FP), R12
-	MOVQ m1+56(FP), SI
-	MOVQ tmp+72(FP), BX
-	MOVQ stride+80(FP), R13
+// The five ratio channels (the sums of Featurizer.blockScalar and the ratios
+// of Featurizer.finish) of the blocks of nseg ≥ 1 segments, each a run of
+// nb ≥ 1 consecutive 2×2 blocks: segs[i] = byte offsets of the first
+// block's rows U0, U1 (into z and mean), of its mirrored pairs V0, V1 (into
+// z), of its output (into out and pm), and nb. Pass 1, per block, rows
+// r = 0, 1: U = (u_r[0], u_r[1]), V = (v_r[1], v_r[0]) (the mirrored pair,
+// stored in reverse), M = (m_r[0], m_r[1]), S = U + conj V; the lane-wise
+// sums of U·U, V·V, U·V, U·swap(V), S·M, S·swap(M) are reduced to a1 =
+// Σ|Z|², a2 = Σ|Z₋|², re, im of Σ Z Z₋ and tr, ti of Σ S M*, stored at
+// tmp + c·stride (c = a1, a2, re, −ti, im, tr; stride in bytes, room for
+// nb rounded up to 4). u and m advance by one pair per block, v goes back
+// by one. Pass 2, four blocks at a time: Σ|S|² = a1 + a2 + 2 re, q =
+// (a1+a2)/2 + reg, r = Σ|S|²/4 + pm + reg and, unless q ≤ 0 or r ≤ 0
+// (zeros then), out[i + c·plane] for c = 0..4 = re/q, im/q, (a1−a2)/(2q),
+// tr/r, ti/r (plane in bytes); the last nb mod 4 blocks under a lane mask.
+// k holds reg, 0.5, 0.25, 1 and −0, each in four lanes.
+TEXT ·spectralVec(SB), NOSPLIT, $0-80
+sseg:
+	MOVQ segs+64(FP), AX
+	MOVQ z+16(FP), DX
+	MOVQ (AX), R8
+	ADDQ DX, R8
+	MOVQ 8(AX), R9
+	ADDQ DX, R9
+	MOVQ 16(AX), R10
+	ADDQ DX, R10
+	MOVQ 24(AX), R11
+	ADDQ DX, R11
+	MOVQ mean+24(FP), DX
+	MOVQ (AX), R12
+	ADDQ DX, R12
+	MOVQ 8(AX), SI
+	ADDQ DX, SI
+	MOVQ 40(AX), CX
+	MOVQ tmp+40(FP), BX
+	MOVQ stride+48(FP), R13
 	LEAQ (R13)(R13*2), R14
-	MOVQ nb+96(FP), CX
 	VMOVUPD negodd<>(SB), Y15
 
 sloop:
@@ -458,14 +480,19 @@ sloop:
 	JNZ sloop
 
 	// Pass 2. R14 = 4·stride: from a1 to im, and from a2 to tr.
+	MOVQ segs+64(FP), AX
+	MOVQ 32(AX), R9
+	MOVQ 40(AX), R10
 	MOVQ out+0(FP), DI
+	ADDQ R9, DI
+	MOVQ pm+32(FP), SI
+	ADDQ R9, SI
 	MOVQ plane+8(FP), DX
 	LEAQ (DX)(DX*2), R8
-	MOVQ pm+64(FP), SI
-	MOVQ tmp+72(FP), BX
+	MOVQ tmp+40(FP), BX
 	LEAQ (R13*4), R14
-	MOVQ k+88(FP), AX
-	MOVQ nb+96(FP), CX
+	MOVQ k+56(FP), AX
+	MOVQ R10, CX
 	SHRQ $2, CX
 	JZ rtail
 
@@ -484,10 +511,11 @@ rloop:
 	JNZ rloop
 
 rtail:
-	MOVQ nb+96(FP), CX
-	ANDQ $3, CX
-	JZ rdone
-	MOVQ tail+104(FP), R9
+	ANDQ $3, R10
+	JZ rnext
+	SHLQ $5, R10
+	LEAQ tailmask<>(SB), R9
+	ADDQ R10, R9
 	VMOVUPD (R9), Y15
 	VMASKMOVPD (SI), Y15, Y15
 	RATIOS4(Y15)
@@ -498,7 +526,10 @@ rtail:
 	VMASKMOVPD Y3, Y5, (DI)(R8*1)
 	VMASKMOVPD Y4, Y5, (DI)(DX*4)
 
-rdone:
+rnext:
+	ADDQ $48, segs+64(FP)
+	DECQ nseg+72(FP)
+	JNZ sseg
 	VZEROUPPER
 	RET
 
@@ -597,5 +628,75 @@ pcol:
 	ADDQ DX, R11
 	DECQ rows2+40(FP)
 	JNZ prow
+	VZEROUPPER
+	RET
+
+// func sums2Vec(acc, d1, d2 *float64, n int, out *[2]float64)
+//
+// acc[i] += d1[i] for i < n, out = (Σ d1, Σ d2); n a positive multiple of
+// 8. Eight partial sums per image (two vectors), added pairwise at the end.
+TEXT ·sums2Vec(SB), NOSPLIT, $0-40
+	MOVQ acc+0(FP), DI
+	MOVQ d1+8(FP), SI
+	MOVQ d2+16(FP), BX
+	MOVQ n+24(FP), CX
+	SHRQ $3, CX
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+	VXORPD Y7, Y7, Y7
+
+s2loop:
+	VMOVUPD (SI), Y0
+	VMOVUPD 32(SI), Y1
+	VADDPD Y0, Y4, Y4
+	VADDPD Y1, Y5, Y5
+	VADDPD (DI), Y0, Y0
+	VADDPD 32(DI), Y1, Y1
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, 32(DI)
+	VADDPD (BX), Y6, Y6
+	VADDPD 32(BX), Y7, Y7
+	ADDQ $64, SI
+	ADDQ $64, DI
+	ADDQ $64, BX
+	DECQ CX
+	JNZ s2loop
+
+	MOVQ out+32(FP), DX
+	VADDPD Y5, Y4, Y4
+	VADDPD Y7, Y6, Y6
+	VHADDPD Y6, Y4, Y4
+	VEXTRACTF128 $1, Y4, X0
+	VADDPD X0, X4, X4
+	VMOVUPD X4, (DX)
+	VZEROUPPER
+	RET
+
+// func sumSqVec(x *float64, m float64, n int) float64
+//
+// Σ (x[i] − m)² for i < n, n a positive multiple of 8; eight partial sums.
+TEXT ·sumSqVec(SB), NOSPLIT, $0-32
+	MOVQ x+0(FP), SI
+	VBROADCASTSD m+8(FP), Y3
+	MOVQ n+16(FP), CX
+	SHRQ $3, CX
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+
+sqloop:
+	VSUBPD (SI), Y3, Y0
+	VSUBPD 32(SI), Y3, Y1
+	VFMADD231PD Y0, Y0, Y4
+	VFMADD231PD Y1, Y1, Y5
+	ADDQ $64, SI
+	DECQ CX
+	JNZ sqloop
+
+	VADDPD Y5, Y4, Y4
+	VEXTRACTF128 $1, Y4, X0
+	VADDPD X0, X4, X4
+	VHADDPD X4, X4, X4
+	VMOVSD X4, ret+24(FP)
 	VZEROUPPER
 	RET

@@ -30,10 +30,18 @@ func splitStrip32Vec(ev, od *float32, src *float32, frames, q, so, do int) {
 	panic("net: internal error: vector kernel called without vector support")
 }
 
-func blockRatios2Vec(out *float64, plane int, u0, u1, v0, v1, m0, m1 *complex128, pm, tmp *float64, stride int, k *[5][4]float64, nb int, tail *[4]int64) {
+func spectralVec(out *float64, plane int, z, mean *complex128, pm, tmp *float64, stride int, k *[5][4]float64, segs *[6]int, nseg int) {
 	panic("net: internal error: vector kernel called without vector support")
 }
 
 func packBin2Vec(z *complex128, d1, d2, w *float64, n, rows2 int, k *[5][4]float64, b1, b2 *float64) {
+	panic("net: internal error: vector kernel called without vector support")
+}
+
+func sums2Vec(acc, d1, d2 *float64, n int, out *[2]float64) {
+	panic("net: internal error: vector kernel called without vector support")
+}
+
+func sumSqVec(x *float64, m float64, n int) float64 {
 	panic("net: internal error: vector kernel called without vector support")
 }
