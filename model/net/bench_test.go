@@ -168,7 +168,12 @@ func BenchmarkEstimatorStream(b *testing.B) {
 // benchEstimator returns an Estimator made by newEst for the default
 // architecture (36 modes, demo optics) with weights drawn from seed 1.
 func benchEstimator(b *testing.B, newEst func(*Model) (*Estimator, error)) *Estimator {
-	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
+	return benchEstimatorArch(b, DefaultArch(36), newEst)
+}
+
+// benchEstimatorArch is benchEstimator for the architecture a (36 modes).
+func benchEstimatorArch(b *testing.B, a Arch, newEst func(*Model) (*Estimator, error)) *Estimator {
+	m, err := New(a, demoMeta(), make36(), 1)
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -189,4 +194,23 @@ func BenchmarkForward32(b *testing.B) {
 	x := randInput(p.InputLen(16), 1)
 	out := make([]float64, 16*36)
 	cpuLoop(b, func() { p.Forward(out, x, 16) })
+}
+
+// wideArch is the wider network of the model card's experiment (twice the
+// convolution channels and feature widths, 192 900 weights).
+func wideArch() Arch {
+	a := DefaultArch(36)
+	a.Conv, a.Hidden, a.Head = []int{16, 32, 64}, 128, 128
+	return a
+}
+
+// BenchmarkEstimatorWide is BenchmarkEstimator for the wider network.
+func BenchmarkEstimatorWide(b *testing.B) {
+	benchBurst(b, benchEstimatorArch(b, wideArch(), NewEstimator))
+}
+
+// BenchmarkEstimatorWide64 is BenchmarkEstimatorWide with the float64
+// forward pass.
+func BenchmarkEstimatorWide64(b *testing.B) {
+	benchBurst(b, benchEstimatorArch(b, wideArch(), NewEstimator64))
 }

@@ -372,16 +372,19 @@ func split32(ev, od, row []float32) {
 func (L *convLayer32) run() {
 	o, lp, k := L.o, L.lpad, L.k
 	cs := o * lp
+	if useVec {
+		// Row by row, all panels per tile (see convTiles32Vec).
+		for oy := 0; oy < o; oy++ {
+			convTiles32Vec(&L.out[oy*lp], cs, &L.in[oy*L.rs], &L.offB[0], &L.wp[0], k, &L.bp[0], true, lp/tile32, len(L.bp)/4)
+		}
+		return
+	}
 	for pb := 0; pb < len(L.bp)/4; pb++ {
 		w := L.wp[pb*4*k : (pb+1)*4*k]
 		bias := (*[4]float32)(L.bp[4*pb : 4*pb+4])
 		for oy := 0; oy < o; oy++ {
 			cb := (pb*4*o + oy) * lp
 			pbase := oy * L.rs
-			if useVec {
-				convTiles32Vec(&L.out[cb], cs, &L.in[pbase], &L.offB[0], &w[0], k, bias, true, lp/tile32)
-				continue
-			}
 			for t := 0; t < lp; t += tile32 {
 				convTile32(L.out[cb+t:], cs, L.in[pbase+t:], L.off, w, bias, true)
 			}
@@ -469,14 +472,15 @@ func (L *convLayer32) flattenT(dst []float32, frames, fpad int) {
 // (4 per panel).
 func (d *dense32) run(dst, x, b []float32, fpad int) {
 	k := d.in
+	if useVec {
+		_ = dst[4*d.panels*fpad-1] + x[k*fpad-1] + b[4*d.panels-1]
+		convTiles32Vec(&dst[0], fpad, &x[0], &d.offB[0], &d.wp[0], k, &b[0], d.relu, fpad/tile32, d.panels)
+		return
+	}
 	for pb := 0; pb < d.panels; pb++ {
 		w := d.wp[pb*4*k : (pb+1)*4*k]
 		bias := (*[4]float32)(b[4*pb : 4*pb+4])
 		c := dst[4*pb*fpad:]
-		if useVec {
-			convTiles32Vec(&c[0], fpad, &x[0], &d.offB[0], &w[0], k, bias, d.relu, fpad/tile32)
-			continue
-		}
 		for t := 0; t < fpad; t += tile32 {
 			convTile32(c[t:], fpad, x[t:], d.off, w, bias, d.relu)
 		}

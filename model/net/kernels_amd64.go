@@ -16,13 +16,15 @@ var useVec = cpufeat.AVX2FMA
 func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bias *[4]float64, relu bool)
 
 // convTiles32Vec is convTile32 (see forward32.go) in AVX2+FMA for nt ≥ 1
-// tiles side by side: tile t reads p + 16t and writes c + 16t. c, p and w
-// point at the first elements, off holds k ≥ 1 byte offsets, cs is the row
-// stride of c in elements. The bias starts the sums, so the rounding
-// differs from convTile32 (which adds it last).
+// tiles side by side and np ≥ 1 panels of 4 output channels: tile t of
+// panel b reads p + 16t, the weights w + 4kb and the bias + 4b, and writes
+// c + 16t + 4b·cs. c, p, w and bias point at the first elements, off holds
+// k ≥ 1 byte offsets, cs is the row stride of c in elements. The bias
+// starts the sums, so the rounding differs from convTile32 (which adds it
+// last).
 //
 //go:noescape
-func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *[4]float32, relu bool, nt int)
+func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *float32, relu bool, nt, np int)
 
 // split64to32Vec sets ev[i] = float32(src[2i]), od[i] = float32(src[2i+1])
 // for i < 4n, n ≥ 1 (AVX).

@@ -97,34 +97,41 @@ DATA negodd<>+16(SB)/8, $0x0000000000000000
 DATA negodd<>+24(SB)/8, $0x8000000000000000
 GLOBL negodd<>(SB), RODATA|NOPTR, $32
 
-// func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *[4]float32, relu bool, nt int)
+// func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *float32, relu bool, nt, np int)
 //
-// nt tiles of 4×16 float32: accumulator rows i = 0..3 (output channels) in
-// Y0/Y1, Y2/Y3, Y4/Y5, Y6/Y7, each holding 16 strip positions and starting
-// at the bias; per term κ the 16 inputs at p + off[κ] are multiplied by the
-// broadcast weights w[4κ+i].
-TEXT ·convTiles32Vec(SB), NOSPLIT, $0-72
+// nt × np tiles of 4×16 float32: tile (t, b) reads p + 16t, the weights
+// w + 4kb and the bias + 4b, and writes c + 16t + 4b·cs; for each t the np
+// panels run one after the other, so they find the inputs in the L1 cache.
+// Accumulator rows i = 0..3 (output channels) in Y0/Y1, Y2/Y3, Y4/Y5,
+// Y6/Y7, each holding 16 strip positions and starting at the bias; per term
+// κ the 16 inputs at p + off[κ] are multiplied by the broadcast weights
+// w[4κ+i].
+TEXT ·convTiles32Vec(SB), NOSPLIT, $0-80
 	MOVQ c+0(FP), DI
 	MOVQ cs+8(FP), R8
 	SHLQ $2, R8
 	MOVQ p+16(FP), SI
 	MOVQ off+24(FP), R12
 	MOVQ w+32(FP), R13
-	MOVQ bias+48(FP), DX
 	MOVQ nt+64(FP), R11
 	VXORPS Y15, Y15, Y15
 
 tile32:
-	VBROADCASTSS 0(DX), Y0
+	MOVQ R13, AX
+	MOVQ bias+48(FP), R10
+	MOVQ DI, R14
+	MOVQ np+72(FP), DX
+
+panel32:
+	VBROADCASTSS 0(R10), Y0
 	VMOVAPS Y0, Y1
-	VBROADCASTSS 4(DX), Y2
+	VBROADCASTSS 4(R10), Y2
 	VMOVAPS Y2, Y3
-	VBROADCASTSS 8(DX), Y4
+	VBROADCASTSS 8(R10), Y4
 	VMOVAPS Y4, Y5
-	VBROADCASTSS 12(DX), Y6
+	VBROADCASTSS 12(R10), Y6
 	VMOVAPS Y6, Y7
 	MOVQ R12, BX
-	MOVQ R13, AX
 	MOVQ k+40(FP), CX
 
 loop32:
@@ -148,8 +155,8 @@ loop32:
 	DECQ CX
 	JNZ loop32
 
-	MOVBLZX relu+56(FP), R10
-	TESTQ R10, R10
+	MOVBLZX relu+56(FP), R9
+	TESTQ R9, R9
 	JZ store32
 	// max(0, v) with v as the second source: NaN and −0 pass through,
 	// as `if v < 0 { v = 0 }` does.
@@ -163,7 +170,7 @@ loop32:
 	VMAXPS Y7, Y15, Y7
 
 store32:
-	MOVQ DI, R9
+	MOVQ R14, R9
 	VMOVUPS Y0, (R9)
 	VMOVUPS Y1, 32(R9)
 	ADDQ R8, R9
@@ -175,6 +182,12 @@ store32:
 	ADDQ R8, R9
 	VMOVUPS Y6, (R9)
 	VMOVUPS Y7, 32(R9)
+	// Next panel: AX is at its weights already; the bias and 4 rows of c on.
+	LEAQ (R9)(R8*1), R14
+	ADDQ $16, R10
+	DECQ DX
+	JNZ panel32
+
 	ADDQ $64, DI
 	ADDQ $64, SI
 	DECQ R11

@@ -10,7 +10,7 @@ func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bi
 	panic("net: internal error: vector kernel called without vector support")
 }
 
-func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *[4]float32, relu bool, nt int) {
+func convTiles32Vec(c *float32, cs int, p *float32, off *int, w *float32, k int, bias *float32, relu bool, nt, np int) {
 	panic("net: internal error: vector kernel called without vector support")
 }
 
