@@ -454,15 +454,13 @@ func (L *convLayer32) scatter(next *convLayer32, frames int) {
 // frame f at dst[((c·o+y)·o+x)·fpad + f].
 func (L *convLayer32) flattenT(dst []float32, frames, fpad int) {
 	o, o1, lp := L.o, L.o+1, L.lpad
-	for ch := 0; ch < L.cout; ch++ {
-		for oy := 0; oy < o; oy++ {
-			row := L.out[(ch*o+oy)*lp:]
-			d := dst[(ch*o+oy)*o*fpad:]
-			for ox := 0; ox < o; ox++ {
-				col := d[ox*fpad : ox*fpad+frames]
-				for f := range col {
-					col[f] = row[f*o1+ox]
-				}
+	for r := 0; r < L.cout*o; r++ {
+		row := L.out[r*lp : r*lp+frames*o1]
+		d := dst[r*o*fpad : (r+1)*o*fpad]
+		for f := 0; f < frames; f++ {
+			src := row[f*o1 : f*o1+o]
+			for ox, v := range src {
+				d[ox*fpad+f] = v
 			}
 		}
 	}
