@@ -24,7 +24,7 @@ import (
 // shipped weights the coefficients of the two differ by 3e-7 rad rms
 // (TestShippedWeights32), far below their error, and the float32 pass takes
 // less than half the time. The float32 path hands the features to the
-// network frame by frame, without the float64 feature array in between.
+// network frame by frame (Predictor32.Predict).
 type Estimator struct {
 	m      *Model
 	basis  *modes.Basis
@@ -33,7 +33,6 @@ type Estimator struct {
 	pred   *Predictor   // float64 forward pass (NewEstimator64), else nil
 	pred32 *Predictor32 // float32 forward pass (NewEstimator), else nil
 	x, y   []float64
-	xf     []float64 // one frame's features (float32 path), written by Featurizer.frame only
 	corr   []float64 // the native correction for the mean tip/tilt
 }
 
@@ -228,19 +227,5 @@ func (e *Estimator) predict(data [2][][]float64) error {
 		e.pred.Forward(e.y, e.x, frames)
 		return nil
 	}
-	if err := e.feat.prepare(data); err != nil {
-		return err
-	}
-	if e.xf == nil {
-		e.xf = make([]float64, e.feat.Len(1))
-	}
-	p := e.pred32
-	p.begin(e.y, frames)
-	for j := 0; j < frames; j++ {
-		e.feat.frame(e.xf, data, j, true)
-		p.putFrame(j, e.xf)
-	}
-	p.run(frames)
-	p.output(e.y, frames, true)
-	return nil
+	return e.pred32.Predict(e.y, e.feat, data)
 }

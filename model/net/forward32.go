@@ -30,16 +30,18 @@ type Predictor32 struct {
 	frames int // frame count of the current layout, 0 before the first call
 	fpad   int // frames rounded up to tile32: the strip of the dense layers
 	layers []convLayer32
-	enc    dense32   // flat → Hidden, ReLU
-	head   dense32   // Hidden (frame half) → Head, ReLU, bias from sumBias
-	out    dense32   // Head → Modes
-	wsum   []float32 // head1 weights of the summary half, Hidden × Head
-	bhead  []float32 // head1 bias, Head
-	flat   []float32 // flat × fpad: last convolution's output, transposed
-	encT   []float32 // 4·panels × fpad
-	hidT   []float32 // 4·panels × fpad
-	yT     []float32 // 4·panels × fpad
-	mean   []float32 // Hidden: the burst summary
+	enc    dense32     // flat → Hidden, ReLU
+	head   dense32     // Hidden (frame half) → Head, ReLU, bias from sumBias
+	out    dense32     // Head → Modes
+	wsum   []float32   // head1 weights of the summary half, Hidden × Head
+	bhead  []float32   // head1 bias, Head
+	flat   []float32   // flat × fpad: last convolution's output, transposed
+	encT   []float32   // 4·panels × fpad
+	hidT   []float32   // 4·panels × fpad
+	yT     []float32   // 4·panels × fpad
+	mean   []float32   // Hidden: the burst summary
+	xf     []float64   // one frame's features (Predict), written by xfBy.frame only
+	xfBy   *Featurizer // the featurizer that last wrote xf
 }
 
 // convLayer32 is convLayer in float32 with weights packed once.
@@ -177,6 +179,38 @@ func (p *Predictor32) Raw(dst, x []float64, frames int) {
 	}
 	p.run(frames)
 	p.output(dst, frames, false)
+}
+
+// Predict computes the coefficients of every frame of one burst straight
+// from its images, as Featurizer.Burst followed by Forward, but with f's
+// features handed to the network frame by frame (no feature array in
+// between). data[channel][frame] are the N×N images as in Featurizer.Burst,
+// whose errors it returns; dst receives frames × Modes coefficients in
+// rad, frame-major. f must be made for a model of the same architecture
+// (it panics otherwise, and if len(dst) is wrong). After the first call for
+// a frame count it allocates nothing.
+func (p *Predictor32) Predict(dst []float64, f *Featurizer, data [2][][]float64) error {
+	if f.Len(1) != p.InputLen(1) {
+		panic(fmt.Sprintf("net: featurizer writes %d values per frame, the network reads %d", f.Len(1), p.InputLen(1)))
+	}
+	if err := f.prepare(data); err != nil {
+		return err
+	}
+	frames := len(data[0])
+	p.begin(dst, frames)
+	// Featurizer.frame leaves the blocks outside its cut-off alone when
+	// clean; they are zero as long as only this featurizer wrote xf.
+	if p.xf == nil || p.xfBy != f {
+		p.xf = zeroed(p.xf, f.Len(1))
+		p.xfBy = f
+	}
+	for j := 0; j < frames; j++ {
+		f.frame(p.xf, data, j, true)
+		p.putFrame(j, p.xf)
+	}
+	p.run(frames)
+	p.output(dst, frames, true)
+	return nil
 }
 
 // begin checks the frame count and the output length and lays the buffers

@@ -175,3 +175,53 @@ func TestShippedWeights32(t *testing.T) {
 		t.Errorf("coefficients differ by %.3g rad rms, want < 1e-4", rms)
 	}
 }
+
+// Predict equals Featurizer.Burst followed by Forward (the same float32
+// arithmetic, so to rounding of the order of summation only), also after
+// switching to a featurizer with a tighter cut-off (blocks that were inside
+// before must read zero), and allocates nothing after the first call.
+func TestPredictor32Predict(t *testing.T) {
+	m := perturbedModel(t, DefaultArch(36), 3)
+	m.Meta = demoMeta()
+	p := NewPredictor32(m)
+	f1, err := NewFeaturizer(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m2 := *m
+	m2.Meta.PixelScale *= 0.6
+	f2, err := NewFeaturizer(&m2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	const frames = 5
+	d := randomBurst(frames, 64, 8)
+	for _, f := range []*Featurizer{f1, f2, f1} {
+		x := make([]float64, f.Len(frames))
+		if err := f.Burst(x, d); err != nil {
+			t.Fatal(err)
+		}
+		want := make([]float64, frames*36)
+		NewPredictor32(m).Forward(want, x, frames)
+		got := make([]float64, len(want))
+		if err := p.Predict(got, f, d); err != nil {
+			t.Fatal(err)
+		}
+		if diff, s := maxDiff(got, want); diff > 1e-6*s {
+			t.Fatalf("cut-off %.3g px: Predict differs from Burst + Forward by %.3g (scale %.3g)", f.cutoff, diff, s)
+		}
+	}
+	out := make([]float64, frames*36)
+	if n := testing.AllocsPerRun(5, func() {
+		if err := p.Predict(out, f1, d); err != nil {
+			t.Fatal(err)
+		}
+	}); n != 0 {
+		t.Errorf("%v allocations per Predict", n)
+	}
+	bad := d
+	bad[1] = bad[1][:frames-1]
+	if err := p.Predict(out, f1, bad); err == nil {
+		t.Error("Predict with 5 focused and 4 defocused frames: no error")
+	}
+}
