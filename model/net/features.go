@@ -224,34 +224,8 @@ func (f *Featurizer) prepare(data [2][][]float64) error {
 		}
 		f.fsum[c] = f.fsum[c][:frames]
 	}
-	// Frame sums; the focused images are also summed pixel by pixel for the
-	// burst mean spectrum.
-	clear(f.sum)
-	vec := useVec && n*n%8 == 0
-	var mean [2]float64
-	for j := 0; j < frames; j++ {
-		if vec {
-			var s [2]float64
-			sums2Vec(&f.sum[0], &data[0][j][0], &data[1][j][0], n*n, &s)
-			f.fsum[0][j], f.fsum[1][j] = s[0], s[1]
-		} else {
-			f.fsum[0][j] = sumAdd(f.sum, data[0][j])
-			f.fsum[1][j] = sum(data[1][j])
-		}
-		mean[0] += f.fsum[0][j]
-		mean[1] += f.fsum[1][j]
-	}
+	mean, ss := f.burstSums(data)
 	npix := float64(n * n)
-	mean[0] /= float64(frames) * npix
-	mean[1] /= float64(frames) * npix
-	ss := 0.0
-	for _, im := range data[0] {
-		if vec {
-			ss += sumSqVec(&im[0], mean[0], n*n)
-		} else {
-			ss += sumSq(im, mean[0])
-		}
-	}
 	sd := math.Sqrt(ss / (float64(frames) * npix))
 	if !(sd > 0) || math.IsInf(sd, 0) || math.IsNaN(mean[1]) || math.IsInf(mean[1], 0) {
 		return fmt.Errorf("net: focused images have standard deviation %g; need finite, varying data", sd)
@@ -270,6 +244,38 @@ func (f *Featurizer) prepare(data [2][][]float64) error {
 	f.plan.ForwardReal(f.mean, f.sum)
 	f.blockPower()
 	return nil
+}
+
+// burstSums sets the frame sums f.fsum and the pixel sums f.sum of the
+// focused images and returns the burst means of both channels and
+// Σ (d1 − mean)² over the focused frames.
+func (f *Featurizer) burstSums(data [2][][]float64) (mean [2]float64, ss float64) {
+	n, frames := f.n, len(data[0])
+	clear(f.sum)
+	vec := useVec && n*n%8 == 0
+	for j := 0; j < frames; j++ {
+		if vec {
+			var s [2]float64
+			sums2Vec(&f.sum[0], &data[0][j][0], &data[1][j][0], n*n, &s)
+			f.fsum[0][j], f.fsum[1][j] = s[0], s[1]
+		} else {
+			f.fsum[0][j] = sumAdd(f.sum, data[0][j])
+			f.fsum[1][j] = sum(data[1][j])
+		}
+		mean[0] += f.fsum[0][j]
+		mean[1] += f.fsum[1][j]
+	}
+	npix := float64(n * n)
+	mean[0] /= float64(frames) * npix
+	mean[1] /= float64(frames) * npix
+	for _, im := range data[0] {
+		if vec {
+			ss += sumSqVec(&im[0], mean[0], n*n)
+		} else {
+			ss += sumSq(im, mean[0])
+		}
+	}
+	return mean, ss
 }
 
 // frame writes the FeatureChannels planes of frame j into out (after
