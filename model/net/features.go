@@ -46,18 +46,28 @@ type Featurizer struct {
 	cutoff       float64
 	plan         *fft.Plan
 	window       []float64
-	z            []complex128 // Z spectrum of the current frame (see transform)
-	mean         []complex128 // burst mean M of the focused spectra
-	sum          []float64    // pixel sum of the focused images, then its windowed deviation
-	fsum         [2][]float64 // per channel and frame: pixel sum
-	pm           []float64    // per output block: Σ|M|²
-	in           []int32      // output blocks whose centre is inside the cut-off
-	outside      []int        // spectrum indices beyond 1.05 r_c, for the noise floor
-	unshift      []int32      // centred index c → spectrum index (c − n/2) mod n
-	neg          []int32      // spectrum index k → index of −k, (n − k) mod n
-	pair         bool         // bins of 2 pixels and n/2 even (see spectral)
-	runs         [][3]int     // (block row, first, end) of runs of inside blocks
-	vs           []float64    // lane sums of the vector kernel, 28 per block
+	z            []complex128  // Z spectrum of the current frame (see transform)
+	mean         []complex128  // burst mean M of the focused spectra
+	sum          []float64     // pixel sum of the focused images, then its windowed deviation
+	fsum         [2][]float64  // per channel and frame: pixel sum
+	pm           []float64     // per output block: Σ|M|²
+	in           []int32       // output blocks whose centre is inside the cut-off
+	outside      [][2]int      // runs [first, end) of spectrum indices beyond 1.05 r_c, for the noise floor
+	nout         int           // their number
+	out          []int32       // output blocks outside the cut-off
+	unshift      []int32       // centred index c → spectrum index (c − n/2) mod n
+	neg          []int32       // spectrum index k → index of −k, (n − k) mod n
+	pair         bool          // bins of 2 pixels and n/2 even (see spectral)
+	runs         [][3]int      // (block row, first, end) of runs of inside blocks
+	vs           []float64     // scratch of the vector kernel: 6 rows of vstride
+	vstride      int           // the longest segment rounded up to 4
+	rk           [5][4]float64 // constants of spectralVec: reg, 0.5, 0.25, 1, −0
+	zx           []complex128  // z, then the mirrored pairs of the zero-frequency block column
+	segs         [][6]int      // segments of inside blocks for spectralVec (setSegments)
+	dcRows       [][3]int      // block row and mirror rows of each zero-frequency block
+	bmean        [2]float64    // burst means of the two channels (prepare)
+	binv         float64       // 1/(s·bin²), s the burst standard deviation (prepare)
+	kc           [5][4]float64 // constants of packBin2Vec
 }
 
 // NewFeaturizer returns a Featurizer for the model's patch size and optics.
@@ -98,7 +108,28 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 			}
 		}
 	}
-	f.vs = make([]float64, 28*size)
+	if f.pair {
+		f.setSegments()
+	}
+	for i, v := range [5]float64{0, 0.5, 0.25, 1, math.Copysign(0, -1)} {
+		f.rk[i] = [4]float64{v, v, v, v}
+	}
+	f.setOutside()
+	for k, j := 0, 0; k < size*size; k++ {
+		if j < len(f.in) && int(f.in[j]) == k {
+			j++
+			continue
+		}
+		f.out = append(f.out, int32(k))
+	}
+	return f, nil
+}
+
+// setOutside lists the spectrum beyond 1.05 r_c, for the noise floor, as
+// runs of indices (in each row the frequencies beyond are one run around
+// the Nyquist column); none if fewer than 16.
+func (f *Featurizer) setOutside() {
+	n := f.n
 	for ky := 0; ky < n; ky++ {
 		for kx := 0; kx < n; kx++ {
 			u, v := ky, kx
@@ -109,14 +140,19 @@ func NewFeaturizer(m *Model) (*Featurizer, error) {
 				v -= n
 			}
 			if math.Hypot(float64(u), float64(v)) > 1.05*f.cutoff {
-				f.outside = append(f.outside, ky*n+kx)
+				i := ky*n + kx
+				if r := len(f.outside) - 1; r >= 0 && f.outside[r][1] == i {
+					f.outside[r][1]++
+				} else {
+					f.outside = append(f.outside, [2]int{i, i + 1})
+				}
+				f.nout++
 			}
 		}
 	}
-	if len(f.outside) < 16 {
-		f.outside = nil
+	if f.nout < 16 {
+		f.outside, f.nout = nil, 0
 	}
-	return f, nil
 }
 
 // EdgeWindow returns an n×n apodisation window: 1 inside, rising as a raised
@@ -158,7 +194,25 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	if len(dst) != f.Len(frames) {
 		return fmt.Errorf("net: feature buffer has length %d, want %d", len(dst), f.Len(frames))
 	}
-	n, s := f.n, f.size
+	if err := f.prepare(data); err != nil {
+		return err
+	}
+	per := FeatureChannels * f.size * f.size
+	for j := 0; j < frames; j++ {
+		f.frame(dst[j*per:(j+1)*per], data, j, false)
+	}
+	return nil
+}
+
+// prepare checks the images of a burst and computes what the frames share:
+// the frame sums, the burst means and standard deviation, the burst mean
+// spectrum M and its block power. It returns an error as Burst.
+func (f *Featurizer) prepare(data [2][][]float64) error {
+	frames := len(data[0])
+	if frames < 1 || len(data[1]) != frames {
+		return fmt.Errorf("net: burst has %d focused and %d defocused frames", len(data[0]), len(data[1]))
+	}
+	n := f.n
 	for c := 0; c < 2; c++ {
 		for j, im := range data[c] {
 			if len(im) != n*n {
@@ -170,27 +224,13 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 		}
 		f.fsum[c] = f.fsum[c][:frames]
 	}
-	// Frame sums; the focused images are also summed pixel by pixel for the
-	// burst mean spectrum.
-	clear(f.sum)
-	var mean [2]float64
-	for j := 0; j < frames; j++ {
-		f.fsum[0][j] = sumAdd(f.sum, data[0][j])
-		f.fsum[1][j] = sum(data[1][j])
-		mean[0] += f.fsum[0][j]
-		mean[1] += f.fsum[1][j]
-	}
+	mean, ss := f.burstSums(data)
 	npix := float64(n * n)
-	mean[0] /= float64(frames) * npix
-	mean[1] /= float64(frames) * npix
-	ss := 0.0
-	for _, im := range data[0] {
-		ss += sumSq(im, mean[0])
-	}
 	sd := math.Sqrt(ss / (float64(frames) * npix))
 	if !(sd > 0) || math.IsInf(sd, 0) || math.IsNaN(mean[1]) || math.IsInf(mean[1], 0) {
 		return fmt.Errorf("net: focused images have standard deviation %g; need finite, varying data", sd)
 	}
+	f.bmean, f.binv = mean, 1/(sd*float64(f.bin*f.bin))
 	// The transform is linear: M = F{w·Σ_j (d1_j − mean d1_j)}/frames.
 	m1 := 0.0
 	for _, v := range f.fsum[0] {
@@ -203,17 +243,64 @@ func (f *Featurizer) Burst(dst []float64, data [2][][]float64) error {
 	}
 	f.plan.ForwardReal(f.mean, f.sum)
 	f.blockPower()
-	plane := s * s
-	inv := 1 / (sd * float64(f.bin*f.bin))
-	for j := 0; j < frames; j++ {
-		out := dst[j*FeatureChannels*plane : (j+1)*FeatureChannels*plane]
-		for c := 0; c < 2; c++ {
-			f.binImage(out[c*plane:(c+1)*plane], data[c][j], mean[c], inv)
-		}
-		f.transform(data[0][j], data[1][j], f.fsum[0][j]/npix, f.fsum[1][j]/npix)
-		f.spectral(out[2*plane : 7*plane])
-	}
 	return nil
+}
+
+// burstSums sets the frame sums f.fsum and the pixel sums f.sum of the
+// focused images and returns the burst means of both channels and
+// Σ (d1 − mean)² over the focused frames.
+func (f *Featurizer) burstSums(data [2][][]float64) (mean [2]float64, ss float64) {
+	n, frames := f.n, len(data[0])
+	clear(f.sum)
+	vec := useVec && n*n%8 == 0
+	for j := 0; j < frames; j++ {
+		if vec {
+			var s [2]float64
+			sums2Vec(&f.sum[0], &data[0][j][0], &data[1][j][0], n*n, &s)
+			f.fsum[0][j], f.fsum[1][j] = s[0], s[1]
+		} else {
+			f.fsum[0][j] = sumAdd(f.sum, data[0][j])
+			f.fsum[1][j] = sum(data[1][j])
+		}
+		mean[0] += f.fsum[0][j]
+		mean[1] += f.fsum[1][j]
+	}
+	npix := float64(n * n)
+	mean[0] /= float64(frames) * npix
+	mean[1] /= float64(frames) * npix
+	for _, im := range data[0] {
+		if vec {
+			ss += sumSqVec(&im[0], mean[0], n*n)
+		} else {
+			ss += sumSq(im, mean[0])
+		}
+	}
+	return mean, ss
+}
+
+// frame writes the FeatureChannels planes of frame j into out (after
+// prepare for the same data). If clean, the blocks outside the cut-off are
+// zero in out already (as frame leaves them) and are not written.
+func (f *Featurizer) frame(out []float64, data [2][][]float64, j int, clean bool) {
+	n, plane := f.n, f.size*f.size
+	npix := float64(n * n)
+	d1, d2 := data[0][j], data[1][j]
+	m1, m2 := f.fsum[0][j]/npix, f.fsum[1][j]/npix
+	if useVec && f.bin == 2 && n%8 == 0 {
+		// Both passes over the images in one: the complex pair and the bins.
+		for i, v := range [5]float64{m1, m2, f.bmean[0], f.bmean[1], f.binv} {
+			f.kc[i] = [4]float64{v, v, v, v}
+		}
+		_ = d1[n*n-1] + d2[n*n-1] + real(f.z[n*n-1]) + f.window[n*n-1] + out[2*plane-1]
+		packBin2Vec(&f.z[0], &d1[0], &d2[0], &f.window[0], n, n/2, &f.kc, &out[0], &out[plane])
+		f.plan.Forward(f.z, f.z)
+	} else {
+		for c := 0; c < 2; c++ {
+			f.binImage(out[c*plane:(c+1)*plane], data[c][j], f.bmean[c], f.binv)
+		}
+		f.transform(d1, d2, m1, m2)
+	}
+	f.spectral(out[2*plane:7*plane], clean)
 }
 
 // sum returns Σ x (four partial sums).
@@ -342,25 +429,45 @@ func (f *Featurizer) blockPower() {
 //	|D1|² + |D2|² = (|Z|² + |Z₋|²)/2,  2 D1 M* = S M*,
 //
 // so the block sums need no per-frequency split. Only blocks inside the
-// cut-off are summed; the others are zero.
-func (f *Featurizer) spectral(dst []float64) {
+// cut-off are summed; the others are zero (written unless clean, see frame).
+func (f *Featurizer) spectral(dst []float64, clean bool) {
 	s, b := f.size, f.bin
 	z := f.z
 	noise := 0.0
-	if f.outside != nil {
-		for _, i := range f.outside {
-			v := z[i]
-			noise += real(v)*real(v) + imag(v)*imag(v) // Σ |D1|²+|D2|² (the cross terms cancel over ±u)
+	if f.nout > 0 {
+		// Σ |D1|²+|D2|² (the cross terms cancel over ±u), four partial sums.
+		var s0, s1, s2, s3 float64
+		for _, r := range f.outside {
+			run := z[r[0]:r[1]]
+			i := 0
+			for ; i+2 <= len(run); i += 2 {
+				v := (*[2]complex128)(run[i : i+2])
+				s0 += real(v[0]) * real(v[0])
+				s1 += imag(v[0]) * imag(v[0])
+				s2 += real(v[1]) * real(v[1])
+				s3 += imag(v[1]) * imag(v[1])
+			}
+			if i < len(run) {
+				s0 += real(run[i]) * real(run[i])
+				s1 += imag(run[i]) * imag(run[i])
+			}
 		}
-		noise /= 2 * float64(len(f.outside)) // per channel and frequency
+		noise = ((s0 + s1) + (s2 + s3)) / (2 * float64(f.nout)) // per channel and frequency
 	}
 	reg := 2 * noise * float64(b*b)
 	plane := s * s
-	clear(dst[:5*plane])
 	if f.pair && useVec {
+		// The kernel writes every inside block.
+		for c := 0; c < 5 && !clean; c++ {
+			d := dst[c*plane : (c+1)*plane]
+			for _, k := range f.out {
+				d[k] = 0
+			}
+		}
 		f.spectralPairs(dst, reg)
 		return
 	}
+	clear(dst[:5*plane])
 	for _, kb := range f.in {
 		k := int(kb)
 		f.finish(dst, k, f.blockScalar(k/s, k%s), reg)
@@ -401,47 +508,37 @@ func (f *Featurizer) finish(dst []float64, k int, a blockSums, reg float64) {
 	dst[4*plane+k] = a.ti * ir
 }
 
-// finishRun is finish for the nb blocks k0..k0+nb−1 of one block row, from
-// the lane sums the vector kernel left in f.vs (28 per block). The planes
-// are sliced once per run and both ratios share one division
-// (1/q = r/(qr), 1/r = q/(qr)).
-func (f *Featurizer) finishRun(dst []float64, k0, nb int, reg float64) {
-	plane := f.size * f.size
-	d0 := dst[k0 : k0+nb]
-	d1 := dst[plane+k0 : plane+k0+nb]
-	d2 := dst[2*plane+k0 : 2*plane+k0+nb]
-	d3 := dst[3*plane+k0 : 3*plane+k0+nb]
-	d4 := dst[4*plane+k0 : 4*plane+k0+nb]
-	pm := f.pm[k0 : k0+nb]
-	vs := f.vs[:28*nb]
-	for i := range d0 {
-		o := (*[28]float64)(vs[28*i : 28*i+28])
-		a1 := (o[0] + o[1]) + (o[2] + o[3])
-		a2 := (o[4] + o[5]) + (o[6] + o[7])
-		q := 0.5*(a1+a2) + reg
-		r := 0.25*((o[16]+o[17])+(o[18]+o[19])) + pm[i] + reg
-		if q <= 0 || r <= 0 {
-			continue
-		}
-		inv := 1 / (q * r)
-		iq, ir := r*inv, q*inv
-		d0[i] = ((o[8] - o[9]) + (o[10] - o[11])) * iq
-		d1[i] = ((o[12] + o[13]) + (o[14] + o[15])) * iq
-		d2[i] = 0.5 * (a1 - a2) * iq
-		d3[i] = ((o[20] + o[21]) + (o[22] + o[23])) * ir
-		d4[i] = ((o[25] - o[24]) + (o[27] - o[26])) * ir
-	}
-}
-
 // spectralPairs is the inside-block loop of spectral for bins of 2 with n/2
-// even, through the vector kernel. In a block row the blocks left and right
-// of the zero-frequency column (bx = Size/2, summed by blockScalar) have
-// adjacent spectrum columns kx, kx+1 whose mirrors n−kx, n−kx−1 are
-// adjacent too, so whole runs of blocks go through blockSums2Vec.
+// even, through the vector kernel: one call for the segments of f.segs
+// (see setSegments), after copying the mirrored pairs of the zero-frequency
+// block column next to each other.
 func (f *Featurizer) spectralPairs(dst []float64, reg float64) {
 	n, s := f.n, f.size
-	z, mean := f.z, f.mean[:len(f.z)]
+	z, zx := f.z, f.zx[len(f.z):]
+	for i, r := range f.dcRows {
+		kn0, kn1 := r[1], r[2]
+		v := zx[4*i : 4*i+4]
+		v[0], v[1] = z[kn0*n+n-1], z[kn0*n]
+		v[2], v[3] = z[kn1*n+n-1], z[kn1*n]
+	}
+	f.rk[0] = [4]float64{reg, reg, reg, reg}
+	_ = dst[5*s*s-1]
+	spectralVec(&dst[0], 8*s*s, &f.zx[0], &f.mean[0], &f.pm[0], &f.vs[0], 8*f.vstride, &f.rk, &f.segs[0], len(f.segs))
+}
+
+// setSegments lays out the inside blocks for spectralVec (bins of 2, n/2
+// even): in a block row the blocks left and right of the zero-frequency
+// column (bx = Size/2) have adjacent spectrum columns kx, kx+1 whose
+// mirrors n−kx, n−kx−1 are adjacent too, so each run of inside blocks is
+// one segment on either side. The zero-frequency block has the mirrors 0
+// and n−1; spectralPairs copies them, reversed as the kernel reads mirrored
+// pairs, into zx beyond the spectrum (four values per such block), where
+// its segment of one block points. It panics if a segment would reach
+// beyond a buffer (an internal error).
+func (f *Featurizer) setSegments() {
+	n, s := f.n, f.size
 	dc := s / 2
+	longest := 0
 	for _, run := range f.runs {
 		by := run[0]
 		ky0 := int(f.unshift[2*by])
@@ -452,17 +549,28 @@ func (f *Featurizer) spectralPairs(dst []float64, reg float64) {
 			if lo >= hi {
 				continue
 			}
-			kx := int(f.unshift[2*lo])
-			nb := hi - lo
-			_ = z[ky1*n+kx+2*nb-1] + mean[ky1*n+kx+2*nb-1] // the kernel's reach in every row
-			_ = z[kn0*n+n-kx] + z[kn1*n+n-kx] + z[kn0*n+n-kx-2*nb+1] + z[kn1*n+n-kx-2*nb+1]
-			blockSums2Vec(&f.vs[0], &z[ky0*n+kx], &z[ky1*n+kx], &z[kn0*n+n-kx-1], &z[kn1*n+n-kx-1],
-				&mean[ky0*n+kx], &mean[ky1*n+kx], nb)
-			f.finishRun(dst, by*s+lo, nb, reg)
+			kx, nb := int(f.unshift[2*lo]), hi-lo
+			if ky1*n+kx+2*nb > n*n || kn0*n+n-kx-2*nb < 0 || kn1*n+n-kx > n*n {
+				panic(fmt.Sprintf("net: internal error: segment of block row %d reaches beyond the spectrum", by))
+			}
+			f.segs = append(f.segs, [6]int{16 * (ky0*n + kx), 16 * (ky1*n + kx),
+				16 * (kn0*n + n - kx - 1), 16 * (kn1*n + n - kx - 1), 8 * (by*s + lo), nb})
+			longest = max(longest, nb)
 		}
 		if run[1] <= dc && dc < run[2] {
-			f.finish(dst, by*s+dc, f.blockScalar(by, dc), reg)
+			i := len(f.dcRows)
+			f.dcRows = append(f.dcRows, [3]int{by, kn0, kn1})
+			f.segs = append(f.segs, [6]int{16 * ky0 * n, 16 * ky1 * n,
+				16 * (n*n + 4*i), 16 * (n*n + 4*i + 2), 8 * (by*s + dc), 1})
+			longest = max(longest, 1)
 		}
+	}
+	f.zx = make([]complex128, n*n+4*len(f.dcRows))
+	f.z = f.zx[:n*n]
+	f.vstride = (longest + 3) &^ 3
+	f.vs = make([]float64, 6*f.vstride)
+	if len(f.segs) == 0 {
+		f.pair = false
 	}
 }
 

@@ -225,20 +225,7 @@ func (p *Predictor) layout(frames int) {
 			L.off = make([]int, L.k)
 			L.offB = make([]int, L.k)
 		}
-		for ci := 0; ci < L.cin; ci++ {
-			for ky := 0; ky < 3; ky++ {
-				// Input row 2·oy+ky−1: ky = 0 is odd-phase row oy−1 (padded
-				// row oy), ky = 1 and 2 are even- and odd-phase row oy
-				// (padded row oy+1). Columns likewise.
-				py, dr := 1-ky&1, min(ky, 1)
-				for kx := 0; kx < 3; kx++ {
-					px, dc := 1-kx&1, min(kx, 1)
-					kk := (ci*3+ky)*3 + kx
-					L.off[kk] = (((ci*2+py)*2+px)*o1+dr)*L.rs + dc
-					L.offB[kk] = 8 * L.off[kk]
-				}
-			}
-		}
+		phaseOffsets(L.off, L.offB, L.cin, o1, L.rs, 8)
 		panels := (L.cout + 3) / 4
 		L.wp = zeroed(L.wp, panels*4*L.k)
 		L.bp = zeroed(L.bp, panels*4)
@@ -251,6 +238,26 @@ func (p *Predictor) layout(frames int) {
 	panels := (frames + 3) / 4
 	p.xp = zeroed(p.xp, panels*4*max(a.flat(), 2*a.Hidden))
 	p.dtmp = zeroed(p.dtmp, panels*4*max(a.Hidden, a.Head))
+}
+
+// phaseOffsets sets off[κ], κ = (ci·3+ky)·3+kx, to the offset of term κ
+// of a 3×3 stride-2 filter into phase planes of o1 rows of stride rs (see
+// Predictor), and offB[κ] to the same in bytes for elements of esz bytes.
+func phaseOffsets(off, offB []int, cin, o1, rs, esz int) {
+	for ci := 0; ci < cin; ci++ {
+		for ky := 0; ky < 3; ky++ {
+			// Input row 2·oy+ky−1: ky = 0 is odd-phase row oy−1 (padded
+			// row oy), ky = 1 and 2 are even- and odd-phase row oy
+			// (padded row oy+1). Columns likewise.
+			py, dr := 1-ky&1, min(ky, 1)
+			for kx := 0; kx < 3; kx++ {
+				px, dc := 1-kx&1, min(kx, 1)
+				kk := (ci*3+ky)*3 + kx
+				off[kk] = (((ci*2+py)*2+px)*o1+dr)*rs + dc
+				offB[kk] = esz * off[kk]
+			}
+		}
+	}
 }
 
 // zeroed returns b resliced to n zeros, reallocated if too small.

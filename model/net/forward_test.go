@@ -131,8 +131,8 @@ func TestPredictorMatchesReference(t *testing.T) {
 	}
 }
 
-// After the first call for a frame count, Forward and Featurizer.Burst
-// allocate nothing.
+// After the first call for a frame count, Forward (of Predictor and
+// Predictor32) and Featurizer.Burst allocate nothing.
 func TestPredictNoAllocs(t *testing.T) {
 	m, err := New(DefaultArch(36), demoMeta(), make36(), 1)
 	if err != nil {
@@ -142,7 +142,7 @@ func TestPredictNoAllocs(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	p := NewPredictor(m)
+	p, p32 := NewPredictor(m), NewPredictor32(m)
 	const frames = 4
 	d := randomBurst(frames, 64, 1)
 	x := make([]float64, f.Len(frames))
@@ -152,6 +152,7 @@ func TestPredictNoAllocs(t *testing.T) {
 			t.Fatal(err)
 		}
 		p.Forward(out, x, frames)
+		p32.Forward(out, x, frames)
 	}
 	run()
 	if n := testing.AllocsPerRun(5, run); n != 0 {
