@@ -213,15 +213,15 @@ func (e *PatchEngine) coeffFigures(r *PatchResult) {
 	}
 }
 
-// restoreMinWindow is the window value below which the restored patch is
+// minTileWindow is the window value below which the restored patch is
 // not divided by the window but faded into the burst-mean image.
-const restoreMinWindow = 0.5
+const minTileWindow = 0.5
 
 // unapodise undoes the apodisation in the object estimate. pd's Restore
 // returns w·(o − m) + m (w the apodisation window, m the mean data level:
 // the window-weighted image means averaged over all images), so
-// o = m + (R − m)/w. Where w < restoreMinWindow the quotient amplifies noise;
-// there the tile fades linearly in w from the quotient at w = restoreMinWindow
+// o = m + (R − m)/w. Where w < minTileWindow the quotient amplifies noise;
+// there the tile fades linearly in w from the quotient at w = minTileWindow
 // to the burst-mean focused image at w = 0. Those pixels lie in the blend
 // margin of inner patch edges (weight 0) and matter only at the field edge.
 func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
@@ -241,7 +241,7 @@ func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
 	level /= float64(nimg)
 	for i := 0; i < n*n; i++ {
 		w := p.win[i]
-		if w >= restoreMinWindow {
+		if w >= minTileWindow {
 			dst[i] = level + (obj[i]-level)/w
 			continue
 		}
@@ -250,7 +250,7 @@ func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
 			raw += im[i]
 		}
 		raw /= float64(len(data[0]))
-		t := w / restoreMinWindow
-		dst[i] = t*(level+(obj[i]-level)/restoreMinWindow) + (1-t)*raw
+		t := w / minTileWindow
+		dst[i] = t*(level+(obj[i]-level)/minTileWindow) + (1-t)*raw
 	}
 }

@@ -12,9 +12,9 @@ import (
 // keeps their tile-less copies and records them in the journal, if any.
 type inOrder struct {
 	sink    Sink
-	results []PatchResult   // emitted results, tiles dropped
-	next    int             // id of the next patch to emit
-	jr      *restoreJournal // nil without a journal
+	results []PatchResult // emitted results, tiles dropped
+	next    int           // id of the next patch to emit
+	jr      *patchJournal // nil without a journal
 }
 
 // emit passes r to the sink and keeps a copy without the tile.
@@ -35,7 +35,7 @@ func (o *inOrder) openJournal(opt Options, lo, hi int) error {
 	if opt.Journal == "" {
 		return nil
 	}
-	jr, err := restoreOpenJournal(opt.Journal, opt.Key, opt.Resume, lo, hi, opt.BatchSize)
+	jr, err := openPatchJournal(opt.Journal, opt.Key, opt.Resume, lo, hi, opt.BatchSize)
 	if err != nil {
 		return err
 	}
@@ -56,14 +56,14 @@ func (o *inOrder) openJournal(opt Options, lo, hi int) error {
 	return err
 }
 
-// restoreRest restores the patches o.next..hi−1 of the shard [lo, hi) on
+// runRest restores the patches o.next..hi−1 of the shard [lo, hi) on
 // workers engines (patchrun.Runner, one engine per worker) and emits them
 // in order, with progress on opt.Progress. It flushes the journal at the
 // end (also after a failure of the sink or the journal). It fails with the
 // first error, the cause of a cancelled ctx, or context.Canceled when
 // interrupted.
-func (o *inOrder) restoreRest(ctx context.Context, f *Field, g *Grid, opt Options, workers, lo, hi int) error {
-	prog := restoreNewProgress(opt.Progress, opt.ProgressEvery, hi-lo, o.next-lo)
+func (o *inOrder) runRest(ctx context.Context, f *Field, g *Grid, opt Options, workers, lo, hi int) error {
+	prog := newProgress(opt.Progress, opt.ProgressEvery, hi-lo, o.next-lo)
 	rn := patchrun.Runner[*patchWorker, *PatchResult]{
 		Grid:    g,
 		Workers: workers,
@@ -73,10 +73,10 @@ func (o *inOrder) restoreRest(ctx context.Context, f *Field, g *Grid, opt Option
 			if err != nil {
 				return nil, fmt.Errorf("restore: making estimator: %w", err)
 			}
-			return &patchWorker{eng: eng, buf: restoreNewPatchBuffers(f.Frames, g.Patch), raw: make([]float64, g.Patch*g.Patch)}, nil
+			return &patchWorker{eng: eng, buf: newPatchBuffers(f.Frames, g.Patch), raw: make([]float64, g.Patch*g.Patch)}, nil
 		},
 		Work: func(ctx context.Context, w *patchWorker, p patchrun.Patch) (*PatchResult, bool) {
-			r := restorePatch(ctx, w.eng, f, g, p.ID, w.buf, w.raw)
+			r := runPatch(ctx, w.eng, f, g, p.ID, w.buf, w.raw)
 			return r, r != nil
 		},
 		Done: func(_ patchrun.Patch, r *PatchResult) error { return o.done(r, prog) },
@@ -110,7 +110,7 @@ type patchWorker struct {
 
 // done emits and journals the next patch r (the runner hands them over in
 // id order) and counts it in the progress.
-func (o *inOrder) done(r *PatchResult, prog *restoreProgress) error {
+func (o *inOrder) done(r *PatchResult, prog *patchProgress) error {
 	if r.ID != o.next {
 		return fmt.Errorf("restore: patch %d finished out of order (want %d)", r.ID, o.next)
 	}
