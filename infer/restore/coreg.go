@@ -137,19 +137,34 @@ func taperAt(t float64, n int) float64 {
 }
 
 // peak locates the maximum of the low-passed correlation of m.X (absolute
-// shift in pixels).
+// shift in pixels): the best pixel with a parabola through its
+// neighbours, refined by Newton steps on the cross-spectrum.
 func (m *shiftMeter) peak() (dx, dy float64) {
+	m.lowPass()
+	dx, dy = m.gridPeak()
+	return m.refine(dx, dy)
+}
+
+// lowPass weights the cross-spectrum m.X by exp(−(f/m.lowpass)²) (none
+// when m.lowpass ≤ 0).
+func (m *shiftMeter) lowPass() {
 	nx, ny := m.nx, m.ny
-	X := m.X
 	for k := 0; k < ny && m.lowpass > 0; k++ {
 		fy := dftFreq(k, ny)
 		for l := 0; l < nx; l++ {
 			f := math.Hypot(dftFreq(l, nx), fy) / m.lowpass
-			X[k*nx+l] *= complex(math.Exp(-f*f), 0)
+			m.X[k*nx+l] *= complex(math.Exp(-f*f), 0)
 		}
 	}
+}
+
+// gridPeak returns the position of the correlation's largest pixel,
+// signed (wrapped to (−n/2, n/2]), with the sub-pixel vertex of the
+// parabola through it and its neighbours along each axis.
+func (m *shiftMeter) gridPeak() (dx, dy float64) {
+	nx, ny := m.nx, m.ny
 	c := m.c
-	m.plan.InverseReal(c, X)
+	m.plan.InverseReal(c, m.X)
 	best, bi := math.Inf(-1), 0
 	for i, v := range c {
 		if v > best {
@@ -167,7 +182,14 @@ func (m *shiftMeter) peak() (dx, dy float64) {
 	if iy > ny/2 {
 		iy -= ny
 	}
-	dx, dy = float64(ix)+sx, float64(iy)+sy
+	return float64(ix) + sx, float64(iy) + sy
+}
+
+// refine maximises the continuous correlation Re Σ X·e^{2πi(fx·dx+fy·dy)}
+// from (dx, dy) by up to 8 Newton steps, stopping where the Hessian is not
+// that of a maximum or a step exceeds a pixel.
+func (m *shiftMeter) refine(dx, dy float64) (float64, float64) {
+	nx, ny := m.nx, m.ny
 	ex, ey := make([]complex128, nx), make([]complex128, ny)
 	fx, fy := make([]float64, nx), make([]float64, ny)
 	for l := 0; l < nx; l++ {
@@ -183,25 +205,7 @@ func (m *shiftMeter) peak() (dx, dy float64) {
 		for k := range ey {
 			ey[k] = cmplx.Rect(1, 2*math.Pi*fy[k]*dy)
 		}
-		var gx, gy, hxx, hyy, hxy float64
-		for k := 0; k < ny; k++ {
-			row := X[k*nx : (k+1)*nx]
-			wy := 2 * math.Pi * fy[k]
-			for l, v := range row {
-				if v == 0 {
-					continue
-				}
-				z := v * ex[l] * ey[k]
-				wx := 2 * math.Pi * fx[l]
-				re, im := real(z), imag(z)
-				// d/dτ Re(z e^{iωτ}) = −ω Im, d² = −ω² Re.
-				gx -= wx * im
-				gy -= wy * im
-				hxx -= wx * wx * re
-				hyy -= wy * wy * re
-				hxy -= wx * wy * re
-			}
-		}
+		gx, gy, hxx, hyy, hxy := m.derivatives(ex, ey, fx, fy)
 		det := hxx*hyy - hxy*hxy
 		if !(hxx < 0 && det > 0) { // not at a maximum: keep the estimate
 			break
@@ -218,6 +222,32 @@ func (m *shiftMeter) peak() (dx, dy float64) {
 		}
 	}
 	return dx, dy
+}
+
+// derivatives returns the gradient and Hessian of the continuous
+// correlation at the shift whose phase factors along x and y are ex, ey
+// (frequencies fx, fy).
+func (m *shiftMeter) derivatives(ex, ey []complex128, fx, fy []float64) (gx, gy, hxx, hyy, hxy float64) {
+	nx, ny := m.nx, m.ny
+	for k := 0; k < ny; k++ {
+		row := m.X[k*nx : (k+1)*nx]
+		wy := 2 * math.Pi * fy[k]
+		for l, v := range row {
+			if v == 0 {
+				continue
+			}
+			z := v * ex[l] * ey[k]
+			wx := 2 * math.Pi * fx[l]
+			re, im := real(z), imag(z)
+			// d/dτ Re(z e^{iωτ}) = −ω Im, d² = −ω² Re.
+			gx -= wx * im
+			gy -= wy * im
+			hxx -= wx * wx * re
+			hyy -= wy * wy * re
+			hxy -= wx * wy * re
+		}
+	}
+	return gx, gy, hxx, hyy, hxy
 }
 
 // shiftLowPass is the 1/e frequency (cycles per pixel) of the Gaussian
