@@ -113,8 +113,28 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	if truthNote != "" {
 		r.Notes = append(r.Notes, truthNote)
 	}
-	w := &patchWork{fitter: fitter, methods: methods, win: pd.Window(n, fc.Metric.Window),
+	w, err := newPatchWork(r, b, cfg, learned, fitter, polisher, constrain)
+	if err != nil {
+		return nil, err
+	}
+	outs := w.runAll(b, grid, truths, workers)
+	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
+		return nil, err
+	}
+	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs), b, w)
+}
+
+// newPatchWork returns what every patch of the run shares: the stages
+// (the learned estimate and polish when there is an estimator, the fit),
+// r's methods, restore's setup for the learned-suspect figure and, when
+// the burst carries its OBJECT, the diffraction-limited reference, noting
+// how image errors are scored in r.
+func newPatchWork(r *Report, b *burst.Burst, cfg Config, learned infer.Estimator, fitter, polisher *infer.Fitter,
+	constrain func([][]float64) [][]float64) (*patchWork, error) {
+	fc := cfg.Fit
+	w := &patchWork{fitter: fitter, methods: r.Methods, win: pd.Window(fc.Patch, fc.Metric.Window),
 		chain: patchrun.Chain{Fit: fitter, FitFromZero: !cfg.FromLearned, Constrain: constrain}}
+	var err error
 	if learned != nil {
 		w.chain.Learned, w.chain.Polish = learned, polisher
 		if w.suspect, err = restore.NewFieldSetup(fc, restore.Method{Start: learned, Name: Learned}); err != nil {
@@ -128,11 +148,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		w.refNx = b.Nx
 		r.Notes = append(r.Notes, "Image errors compare each restored patch with the true object seen through the perfect telescope (diffraction-limited), after registration, over the patch's central half: rms of the difference of the mean-normalised images over the rms fluctuation of the reference (0 = exact, 1 = no better than a flat image; over-restoration counts).")
 	}
-	outs := w.runAll(b, grid, truths, workers)
-	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
-		return nil, err
-	}
-	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs), b, w)
+	return w, nil
 }
 
 // checkRun rejects a missing burst and settings that cannot describe it:
