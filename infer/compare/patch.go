@@ -1,13 +1,14 @@
 package compare
 
 import (
+	"context"
 	"fmt"
 	"math"
-	"time"
 
 	"gonum.org/v1/gonum/stat"
 
 	"pdwave/infer"
+	"pdwave/infer/patchrun"
 	"pdwave/infer/restore"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
@@ -20,17 +21,14 @@ type patchOut struct {
 	err     error
 }
 
-// patchWork holds what every patch of a run shares: the estimators, the
-// methods to score, the coefficient constraint and the metric's window.
-// It is read-only during the parallel part.
+// patchWork holds what every patch of a run shares: the estimate's stages
+// (learned, polish, fit, as restore makes them), the methods to score and
+// the metric's window. It is read-only during the parallel part.
 type patchWork struct {
-	learned   infer.Estimator // nil: no learned or polished estimate
-	polisher  *infer.Fitter   // nil: no polished estimate
-	fitter    *infer.Fitter
-	fromZero  bool // the full fit starts from zero, not from the previous estimate
-	methods   []string
-	constrain func([][]float64) [][]float64
-	win       []float64 // n×n apodisation of the metric's data
+	chain   patchrun.Chain // Learned nil: no learned or polished estimate
+	fitter  *infer.Fitter  // the full fit, also scoring every method
+	methods []string
+	win     []float64 // n×n apodisation of the metric's data
 	// ref is the diffraction-limited true object over the field
 	// (infer.DiffractionLimited; refNx columns), nil when unknown.
 	ref   []float64
@@ -59,23 +57,22 @@ func (w *patchWork) imageError(img []float64, x, y, n int) *float64 {
 	return &sc.Error
 }
 
-// runAll computes every job's patch on workers goroutines, each with its
-// own FFT plan, and returns the results in job order.
-func (w *patchWork) runAll(b *burst.Burst, jobs []patchJob, truths [][][]float64, workers int) []patchOut {
-	n := w.fitter.Config().Patch
-	outs := make([]patchOut, len(jobs))
-	infer.ForEach(len(jobs), workers, func() *patchWorker { return w.newWorker(n) }, func(pw *patchWorker, i int) {
-		jb := jobs[i]
-		data := b.Patch(jb.x, jb.y, n)
-		out := w.run(data, jb, truths[jb.idx], pw.plan)
-		if out.err == nil && pw.engErr != nil {
-			out.err = pw.engErr
-		}
-		if out.err == nil && pw.eng != nil {
-			out.patch.LearnedOverNoise = learnedOverNoise(pw.eng, data, n)
-		}
-		outs[jb.idx] = out
-	})
+// runAll computes every patch of the grid on workers goroutines
+// (patchrun.Runner, restore's loop), each with its own FFT plan, and
+// returns the results in patch order.
+func (w *patchWork) runAll(b *burst.Burst, g *infer.Grid, truths [][][]float64, workers int) []patchOut {
+	n := g.Patch
+	outs := make([]patchOut, g.Count())
+	rn := patchrun.Runner[*patchWorker, patchOut]{
+		Grid:      g,
+		Workers:   workers,
+		NewWorker: func() (*patchWorker, error) { return w.newWorker(n), nil },
+		Work: func(_ context.Context, pw *patchWorker, p patchrun.Patch) (patchOut, bool) {
+			return w.run(b.Patch(p.X0, p.Y0, n), p, truths[p.ID], pw), true
+		},
+		Done: func(p patchrun.Patch, out patchOut) error { outs[p.ID] = out; return nil },
+	}
+	rn.Run(context.Background(), 0, g.Count()) // cannot fail: no error from NewWorker or Done
 	return outs
 }
 
@@ -83,7 +80,7 @@ func (w *patchWork) runAll(b *burst.Burst, jobs []patchJob, truths [][][]float64
 // learned estimator, restore's engine for the learned-suspect figure.
 type patchWorker struct {
 	plan   *fft.Plan
-	eng    restore.Engine
+	eng    *restore.PatchEngine
 	engErr error
 }
 
@@ -91,39 +88,41 @@ type patchWorker struct {
 func (w *patchWork) newWorker(n int) *patchWorker {
 	pw := &patchWorker{plan: fft.NewPlan(n, n)}
 	if w.suspect != nil {
-		pw.eng, pw.engErr = w.suspect.NewEngine()
+		pw.eng = w.suspect.NewPatchEngine()
 	}
 	return pw
 }
 
 // learnedOverNoise returns restore's metric over its noise-only
-// expectation at the learned estimate (the figure of infer.LearnedSuspect),
-// computed by restore's own engine; nil when the engine fails or the
-// figure is unknown.
-func learnedOverNoise(eng restore.Engine, data [][][]float64, n int) *float64 {
+// expectation at the learned estimate raw (as the estimator returned it;
+// the figure of infer.LearnedSuspect), computed by restore's own engine;
+// nil when the engine fails or the figure is unknown.
+func learnedOverNoise(eng *restore.PatchEngine, data [][][]float64, raw [][]float64, n int) *float64 {
 	pr := &restore.PatchResult{Tile: make([]float64, n*n), Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN()}
-	if err := eng.Restore(pr, data); err != nil || math.IsNaN(pr.MetricRatio) || math.IsInf(pr.MetricRatio, 0) {
+	if err := eng.RestoreWith(pr, data, raw); err != nil || math.IsNaN(pr.MetricRatio) || math.IsInf(pr.MetricRatio, 0) {
 		return nil
 	}
 	v := pr.MetricRatio
 	return &v
 }
 
-// run computes every estimate of one patch and scores each method: the
-// metric, the restored image's contrast and its power spectrum, beside
-// the raw frame average's.
-func (w *patchWork) run(data [][][]float64, jb patchJob, truth [][]float64, plan *fft.Plan) patchOut {
-	out := patchOut{patch: Patch{Index: jb.idx, X: jb.x, Y: jb.y}}
-	ests, err := w.estimate(data, truth)
+// run computes every estimate of one patch (patchrun.Chain) and scores
+// each method: the metric, the restored image's contrast and its power
+// spectrum, beside the raw frame average's, and with a learned estimate
+// restore's learned-suspect figure.
+func (w *patchWork) run(data [][][]float64, p patchrun.Patch, truth [][]float64, pw *patchWorker) patchOut {
+	out := patchOut{patch: Patch{Index: p.ID, X: p.X0, Y: p.Y0}}
+	est, err := w.chain.Estimate(data)
 	if err != nil {
 		out.err = err
 		return out
 	}
+	ests := estimatesOf(est, truth)
 	n := w.fitter.Config().Patch
 	avg, level := apodisedAverage(data[0], w.win)
-	sc := newScorer(n, level, plan)
+	sc := newScorer(n, level, pw.plan)
 	out.patch.RawContrast = sc.contrast(avg)
-	out.patch.RawImageError = w.imageError(avg, jb.x, jb.y, n)
+	out.patch.RawImageError = w.imageError(avg, p.X0, p.Y0, n)
 	out.spectra = append(out.spectra, sc.spectrum(avg))
 	for _, m := range w.methods {
 		e := ests[m]
@@ -139,58 +138,38 @@ func (w *patchWork) run(data [][][]float64, jb patchJob, truth [][]float64, plan
 			return out
 		}
 		e.Contrast = sc.contrast(img)
-		e.ImageError = w.imageError(img, jb.x, jb.y, n)
+		e.ImageError = w.imageError(img, p.X0, p.Y0, n)
 		if m != Truth {
 			out.spectra = append(out.spectra, sc.spectrum(img))
 		}
 		out.patch.Estimates = append(out.patch.Estimates, *e)
 	}
+	if pw.engErr != nil {
+		out.err = pw.engErr
+	} else if pw.eng != nil {
+		out.patch.LearnedOverNoise = learnedOverNoise(pw.eng, data, est.Raw, n)
+	}
 	return out
 }
 
-// estimate runs the learned estimator (constrained), the polish from it
-// and the full fit, timing each; the fit starts from the last estimate
-// unless fromZero, and its Total includes the stages it continued. A
-// non-nil truth is added as the Truth estimate. Metrics and contrasts are
-// left for the caller.
-func (w *patchWork) estimate(data [][][]float64, truth [][]float64) (map[string]*Estimate, error) {
+// estimatesOf returns the report's estimates of the chain's stages (the
+// learned one constrained, the fit's Total including the stages it
+// continued) and, with a non-nil truth, the Truth estimate. Metrics and
+// contrasts are left for the caller.
+func estimatesOf(est *patchrun.Estimates, truth [][]float64) map[string]*Estimate {
 	ests := map[string]*Estimate{}
-	var start [][]float64
-	var elapsed float64
-	if w.learned != nil {
-		t0 := time.Now()
-		c, err := w.learned.Estimate(data)
-		if err != nil {
-			return nil, fmt.Errorf("learned: %w", err)
-		}
-		sec := time.Since(t0).Seconds()
-		c = w.constrain(c)
-		ests[Learned] = &Estimate{Method: Learned, Coeffs: c, Seconds: sec, Total: sec}
-		start, elapsed = c, sec
-		if w.polisher != nil {
-			res, err := w.polisher.Fit(data, c)
-			if err != nil {
-				return nil, fmt.Errorf("polish: %w", err)
-			}
-			sec := res.Elapsed.Seconds()
-			elapsed += sec
-			ests[Polished] = &Estimate{Method: Polished, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed, Iterations: res.Iterations}
-			start = res.Coeffs
+	for _, st := range []struct {
+		method string
+		s      *patchrun.Stage
+	}{{Learned, est.Learned}, {Polished, est.Polished}, {Fitted, est.Fitted}} {
+		if st.s != nil {
+			ests[st.method] = &Estimate{Method: st.method, Coeffs: st.s.Coeffs, Seconds: st.s.Seconds, Total: st.s.Total, Iterations: st.s.Iterations}
 		}
 	}
-	if w.fromZero {
-		start, elapsed = nil, 0
-	}
-	res, err := w.fitter.Fit(data, start)
-	if err != nil {
-		return nil, fmt.Errorf("fit: %w", err)
-	}
-	sec := res.Elapsed.Seconds()
-	ests[Fitted] = &Estimate{Method: Fitted, Coeffs: res.Coeffs, Seconds: sec, Total: elapsed + sec, Iterations: res.Iterations}
 	if truth != nil {
 		ests[Truth] = &Estimate{Method: Truth, Coeffs: truth}
 	}
-	return ests, nil
+	return ests
 }
 
 // apodisedAverage returns the average of the frames of one channel,

@@ -12,6 +12,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"pdwave/infer"
+	"pdwave/infer/patchrun"
 	"pdwave/infer/restore"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
@@ -104,7 +105,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	r.Methods = methods
 	addMetricNotes(r, cfg)
 
-	jobs := patchJobs(grid)
+	jobs := patchrun.Patches(grid, 0, grid.Count())
 	truths, truthNote, err := patchTruths(jobs, cfg, truth, truthNote, basis, constrain)
 	if err != nil {
 		return nil, err
@@ -112,9 +113,30 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 	if truthNote != "" {
 		r.Notes = append(r.Notes, truthNote)
 	}
-	w := &patchWork{learned: learned, polisher: polisher, fitter: fitter, fromZero: !cfg.FromLearned,
-		methods: methods, constrain: constrain, win: pd.Window(n, fc.Metric.Window)}
+	w, err := newPatchWork(r, b, cfg, learned, fitter, polisher, constrain)
+	if err != nil {
+		return nil, err
+	}
+	outs := w.runAll(b, grid, truths, workers)
+	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
+		return nil, err
+	}
+	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs), b, w)
+}
+
+// newPatchWork returns what every patch of the run shares: the stages
+// (the learned estimate and polish when there is an estimator, the fit),
+// r's methods, restore's setup for the learned-suspect figure and, when
+// the burst carries its OBJECT, the diffraction-limited reference, noting
+// how image errors are scored in r.
+func newPatchWork(r *Report, b *burst.Burst, cfg Config, learned infer.Estimator, fitter, polisher *infer.Fitter,
+	constrain func([][]float64) [][]float64) (*patchWork, error) {
+	fc := cfg.Fit
+	w := &patchWork{fitter: fitter, methods: r.Methods, win: pd.Window(fc.Patch, fc.Metric.Window),
+		chain: patchrun.Chain{Fit: fitter, FitFromZero: !cfg.FromLearned, Constrain: constrain}}
+	var err error
 	if learned != nil {
+		w.chain.Learned, w.chain.Polish = learned, polisher
 		if w.suspect, err = restore.NewFieldSetup(fc, restore.Method{Start: learned, Name: Learned}); err != nil {
 			return nil, fmt.Errorf("compare: %w", err)
 		}
@@ -126,11 +148,7 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		w.refNx = b.Nx
 		r.Notes = append(r.Notes, "Image errors compare each restored patch with the true object seen through the perfect telescope (diffraction-limited), after registration, over the patch's central half: rms of the difference of the mean-normalised images over the rms fluctuation of the reference (0 = exact, 1 = no better than a flat image; over-restoration counts).")
 	}
-	outs := w.runAll(b, jobs, truths, workers)
-	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
-		return nil, err
-	}
-	return finishReport(r, cfg, fitter, div, overlap, workers, len(jobs), b, w)
+	return w, nil
 }
 
 // checkRun rejects a missing burst and settings that cannot describe it:
@@ -265,27 +283,13 @@ func addMetricNotes(r *Report, cfg Config) {
 	}
 }
 
-// patchJob is one patch to compare: its index in the report and its
-// origin in the field, pixels.
-type patchJob struct{ idx, x, y int }
-
-// patchJobs lists the patches of the grid in its order (row by row).
-func patchJobs(g *infer.Grid) []patchJob {
-	jobs := make([]patchJob, g.Count())
-	for id := range jobs {
-		x, y := g.Origin(id)
-		jobs[id] = patchJob{id, x, y}
-	}
-	return jobs
-}
-
 // patchTruths gives every job its truth: the single-patch truth when
 // cfg.TruthAt is nil (note is returned unchanged), otherwise the
 // constrained native truth at each patch centre, with the conversion note
 // of the last patch. It runs before the parallel part because TruthAt need
 // not be safe for concurrent use, and fails if a patch has no truth or it
 // cannot be converted.
-func patchTruths(jobs []patchJob, cfg Config, truth [][]float64, note string, basis *modes.Basis,
+func patchTruths(jobs []patchrun.Patch, cfg Config, truth [][]float64, note string, basis *modes.Basis,
 	constrain func([][]float64) [][]float64) ([][][]float64, string, error) {
 	n := cfg.Fit.Patch
 	truths := make([][][]float64, len(jobs))
@@ -294,9 +298,9 @@ func patchTruths(jobs []patchJob, cfg Config, truth [][]float64, note string, ba
 			truths[i] = truth
 			continue
 		}
-		tt := cfg.TruthAt(float64(jb.x+n/2), float64(jb.y+n/2))
+		tt := cfg.TruthAt(float64(jb.X0+n/2), float64(jb.Y0+n/2))
 		if tt == nil {
-			return nil, "", fmt.Errorf("compare: no truth at patch %d (%d, %d)", i, jb.x, jb.y)
+			return nil, "", fmt.Errorf("compare: no truth at patch %d (%d, %d)", i, jb.X0, jb.Y0)
 		}
 		t, tn, err := truthNative(tt, basis, cfg.Fit.Frames)
 		if err != nil {
@@ -312,7 +316,7 @@ func patchTruths(jobs []patchJob, cfg Config, truth [][]float64, note string, ba
 // the failed ones, and sets r.Spectra to the patch-mean power spectra (raw,
 // then each method but the truth) with the given cut-off, cycles/pixel. It
 // fails if no patch succeeded.
-func collectPatches(r *Report, outs []patchOut, jobs []patchJob, methods []string, cutoff float64) error {
+func collectPatches(r *Report, outs []patchOut, jobs []patchrun.Patch, methods []string, cutoff float64) error {
 	n := r.PatchSize
 	var failed []string
 	var spec [][]float64
@@ -320,7 +324,7 @@ func collectPatches(r *Report, outs []patchOut, jobs []patchJob, methods []strin
 	for i := range outs {
 		o := &outs[i]
 		if o.err != nil {
-			failed = append(failed, fmt.Sprintf("patch %d at (%d, %d): %v", jobs[i].idx, jobs[i].x, jobs[i].y, o.err))
+			failed = append(failed, fmt.Sprintf("patch %d at (%d, %d): %v", jobs[i].ID, jobs[i].X0, jobs[i].Y0, o.err))
 			continue
 		}
 		r.Patches = append(r.Patches, o.patch)

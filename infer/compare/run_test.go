@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"pdwave/infer"
+	"pdwave/infer/patchrun"
 	"pdwave/model/burst"
 	"pdwave/model/fft"
 	"pdwave/model/modes"
@@ -351,14 +352,14 @@ func TestPatchesAreRestores(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	jobs := patchJobs(g)
+	jobs := patchrun.Patches(g, 0, g.Count())
 	if len(jobs) != g.Count() || len(jobs) != 4*3 {
 		t.Fatalf("%d jobs, want the grid's %d (4×3)", len(jobs), g.Count())
 	}
 	for id, jb := range jobs {
 		x, y := g.Origin(id)
-		if jb.idx != id || jb.x != x || jb.y != y {
-			t.Errorf("job %d at (%d, %d), restore's patch %d is at (%d, %d)", jb.idx, jb.x, jb.y, id, x, y)
+		if jb.ID != id || jb.X0 != x || jb.Y0 != y {
+			t.Errorf("job %d at (%d, %d), restore's patch %d is at (%d, %d)", jb.ID, jb.X0, jb.Y0, id, x, y)
 		}
 	}
 }

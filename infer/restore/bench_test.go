@@ -28,7 +28,7 @@ func benchField(b *testing.B, n, frames int) *Field {
 	plan.ForwardReal(spec, im)
 	for k := 0; k < n; k++ {
 		for l := 0; l < n; l++ {
-			f := math.Hypot(restoreFreq(l, n), restoreFreq(k, n)) * 8
+			f := math.Hypot(dftFreq(l, n), dftFreq(k, n)) * 8
 			spec[k*n+l] *= complex(f*math.Exp(-f*f), 0)
 		}
 	}

@@ -25,7 +25,7 @@ func MeasureShift(ref, img []float64, nx, ny int) (dx, dy float64, err error) {
 // taper over 1/8 of each side); the cross-spectra conj(R_j)·I_j are summed
 // over the pairs, so frame-to-frame image motion common to both channels
 // cancels pair by pair, and weighted by a Gaussian low-pass (see
-// restoreLowPass: the channels are blurred by different kernels). The
+// shiftLowPass: the channels are blurred by different kernels). The
 // integer peak of the resulting cross-correlation is refined by a parabola
 // through the peak and its neighbours along each axis, then by Newton steps
 // on the Fourier-interpolated correlation c(τ) = Re Σ_u X(u)·exp(2πi u·τ/n),
@@ -36,13 +36,13 @@ func MeasureShift(ref, img []float64, nx, ny int) (dx, dy float64, err error) {
 // quarter of the image side and images without contrast are errors. Inputs
 // are not modified.
 func MeasureShiftFrames(ref, img [][]float64, nx, ny int) (dx, dy float64, err error) {
-	return restoreMeasure(ref, img, nx, ny, restoreLowPass)
+	return measureShift(ref, img, nx, ny, shiftLowPass)
 }
 
-// restoreMeasure is MeasureShiftFrames with the low-pass frequency as a
+// measureShift is MeasureShiftFrames with the low-pass frequency as a
 // parameter; lowpass ≤ 0 means none (for images blurred alike: the peak of
 // the plain cross-correlation is then the least-squares alignment).
-func restoreMeasure(ref, img [][]float64, nx, ny int, lowpass float64) (dx, dy float64, err error) {
+func measureShift(ref, img [][]float64, nx, ny int, lowpass float64) (dx, dy float64, err error) {
 	if nx < 4 || ny < 4 || len(ref) == 0 || len(ref) != len(img) {
 		return 0, 0, fmt.Errorf("restore: MeasureShift: need pairs of %d×%d images (have %d and %d)", nx, ny, len(ref), len(img))
 	}
@@ -51,7 +51,7 @@ func restoreMeasure(ref, img [][]float64, nx, ny int, lowpass float64) (dx, dy f
 			return 0, 0, fmt.Errorf("restore: MeasureShift: image pair %d has %d and %d pixels, want %d", j, len(ref[j]), len(img[j]), nx*ny)
 		}
 	}
-	m := &restoreShiftMeter{nx: nx, ny: ny, plan: fft.NewPlan(ny, nx), lowpass: lowpass,
+	m := &shiftMeter{nx: nx, ny: ny, plan: fft.NewPlan(ny, nx), lowpass: lowpass,
 		A: make([][]complex128, len(ref)), B: make([]complex128, nx*ny), X: make([]complex128, nx*ny),
 		c: make([]float64, nx*ny), buf: make([]float64, nx*ny)}
 	for j, r := range ref {
@@ -88,7 +88,9 @@ func restoreMeasure(ref, img [][]float64, nx, ny int, lowpass float64) (dx, dy f
 	return dx, dy, nil
 }
 
-type restoreShiftMeter struct {
+// shiftMeter measures the offset between two sets of frames by the peak
+// of their low-passed cross-correlation, with its plan and buffers.
+type shiftMeter struct {
 	nx, ny       int
 	plan         *fft.Plan
 	A            [][]complex128
@@ -100,7 +102,7 @@ type restoreShiftMeter struct {
 
 // taper writes the mean-subtracted image multiplied by the edge taper moved
 // by (dx, dy) into dst; false if the result has no power.
-func (m *restoreShiftMeter) taper(dst, im []float64, dx, dy float64) bool {
+func (m *shiftMeter) taper(dst, im []float64, dx, dy float64) bool {
 	nx, ny := m.nx, m.ny
 	var mean float64
 	for _, v := range im {
@@ -109,9 +111,9 @@ func (m *restoreShiftMeter) taper(dst, im []float64, dx, dy float64) bool {
 	mean /= float64(len(im))
 	var pow float64
 	for y := 0; y < ny; y++ {
-		wy := restoreTaperAt(float64(y)-dy, ny)
+		wy := taperAt(float64(y)-dy, ny)
 		for x := 0; x < nx; x++ {
-			v := (im[y*nx+x] - mean) * wy * restoreTaperAt(float64(x)-dx, nx)
+			v := (im[y*nx+x] - mean) * wy * taperAt(float64(x)-dx, nx)
 			dst[y*nx+x] = v
 			pow += v * v
 		}
@@ -119,10 +121,10 @@ func (m *restoreShiftMeter) taper(dst, im []float64, dx, dy float64) bool {
 	return pow > 0
 }
 
-// restoreTaperAt is a 1-D window over [0, n−1] equal to 1 in the middle and
+// taperAt is a 1-D window over [0, n−1] equal to 1 in the middle and
 // falling as a raised cosine to 0 over n/8 samples at each end, evaluated at
 // the continuous position t (0 outside).
-func restoreTaperAt(t float64, n int) float64 {
+func taperAt(t float64, n int) float64 {
 	m := float64(n / 8)
 	d := math.Min(t+0.5, float64(n)-0.5-t)
 	if d <= 0 {
@@ -135,19 +137,34 @@ func restoreTaperAt(t float64, n int) float64 {
 }
 
 // peak locates the maximum of the low-passed correlation of m.X (absolute
-// shift in pixels).
-func (m *restoreShiftMeter) peak() (dx, dy float64) {
+// shift in pixels): the best pixel with a parabola through its
+// neighbours, refined by Newton steps on the cross-spectrum.
+func (m *shiftMeter) peak() (dx, dy float64) {
+	m.lowPass()
+	dx, dy = m.gridPeak()
+	return m.refine(dx, dy)
+}
+
+// lowPass weights the cross-spectrum m.X by exp(−(f/m.lowpass)²) (none
+// when m.lowpass ≤ 0).
+func (m *shiftMeter) lowPass() {
 	nx, ny := m.nx, m.ny
-	X := m.X
 	for k := 0; k < ny && m.lowpass > 0; k++ {
-		fy := restoreFreq(k, ny)
+		fy := dftFreq(k, ny)
 		for l := 0; l < nx; l++ {
-			f := math.Hypot(restoreFreq(l, nx), fy) / m.lowpass
-			X[k*nx+l] *= complex(math.Exp(-f*f), 0)
+			f := math.Hypot(dftFreq(l, nx), fy) / m.lowpass
+			m.X[k*nx+l] *= complex(math.Exp(-f*f), 0)
 		}
 	}
+}
+
+// gridPeak returns the position of the correlation's largest pixel,
+// signed (wrapped to (−n/2, n/2]), with the sub-pixel vertex of the
+// parabola through it and its neighbours along each axis.
+func (m *shiftMeter) gridPeak() (dx, dy float64) {
+	nx, ny := m.nx, m.ny
 	c := m.c
-	m.plan.InverseReal(c, X)
+	m.plan.InverseReal(c, m.X)
 	best, bi := math.Inf(-1), 0
 	for i, v := range c {
 		if v > best {
@@ -156,8 +173,8 @@ func (m *restoreShiftMeter) peak() (dx, dy float64) {
 	}
 	px, py := bi%nx, bi/nx
 	at := func(x, y int) float64 { return c[((y%ny+ny)%ny)*nx+(x%nx+nx)%nx] }
-	sx := restoreParabola(at(px-1, py), at(px, py), at(px+1, py))
-	sy := restoreParabola(at(px, py-1), at(px, py), at(px, py+1))
+	sx := parabolaVertex(at(px-1, py), at(px, py), at(px+1, py))
+	sy := parabolaVertex(at(px, py-1), at(px, py), at(px, py+1))
 	ix, iy := px, py
 	if ix > nx/2 {
 		ix -= nx
@@ -165,14 +182,21 @@ func (m *restoreShiftMeter) peak() (dx, dy float64) {
 	if iy > ny/2 {
 		iy -= ny
 	}
-	dx, dy = float64(ix)+sx, float64(iy)+sy
+	return float64(ix) + sx, float64(iy) + sy
+}
+
+// refine maximises the continuous correlation Re Σ X·e^{2πi(fx·dx+fy·dy)}
+// from (dx, dy) by up to 8 Newton steps, stopping where the Hessian is not
+// that of a maximum or a step exceeds a pixel.
+func (m *shiftMeter) refine(dx, dy float64) (float64, float64) {
+	nx, ny := m.nx, m.ny
 	ex, ey := make([]complex128, nx), make([]complex128, ny)
 	fx, fy := make([]float64, nx), make([]float64, ny)
 	for l := 0; l < nx; l++ {
-		fx[l] = restoreFreq(l, nx)
+		fx[l] = dftFreq(l, nx)
 	}
 	for k := 0; k < ny; k++ {
-		fy[k] = restoreFreq(k, ny)
+		fy[k] = dftFreq(k, ny)
 	}
 	for iter := 0; iter < 8; iter++ {
 		for l := range ex {
@@ -181,25 +205,7 @@ func (m *restoreShiftMeter) peak() (dx, dy float64) {
 		for k := range ey {
 			ey[k] = cmplx.Rect(1, 2*math.Pi*fy[k]*dy)
 		}
-		var gx, gy, hxx, hyy, hxy float64
-		for k := 0; k < ny; k++ {
-			row := X[k*nx : (k+1)*nx]
-			wy := 2 * math.Pi * fy[k]
-			for l, v := range row {
-				if v == 0 {
-					continue
-				}
-				z := v * ex[l] * ey[k]
-				wx := 2 * math.Pi * fx[l]
-				re, im := real(z), imag(z)
-				// d/dτ Re(z e^{iωτ}) = −ω Im, d² = −ω² Re.
-				gx -= wx * im
-				gy -= wy * im
-				hxx -= wx * wx * re
-				hyy -= wy * wy * re
-				hxy -= wx * wy * re
-			}
-		}
+		gx, gy, hxx, hyy, hxy := m.derivatives(ex, ey, fx, fy)
 		det := hxx*hyy - hxy*hxy
 		if !(hxx < 0 && det > 0) { // not at a maximum: keep the estimate
 			break
@@ -218,9 +224,35 @@ func (m *restoreShiftMeter) peak() (dx, dy float64) {
 	return dx, dy
 }
 
-// restoreLowPass is the 1/e frequency (cycles per pixel) of the Gaussian
+// derivatives returns the gradient and Hessian of the continuous
+// correlation at the shift whose phase factors along x and y are ex, ey
+// (frequencies fx, fy).
+func (m *shiftMeter) derivatives(ex, ey []complex128, fx, fy []float64) (gx, gy, hxx, hyy, hxy float64) {
+	nx, ny := m.nx, m.ny
+	for k := 0; k < ny; k++ {
+		row := m.X[k*nx : (k+1)*nx]
+		wy := 2 * math.Pi * fy[k]
+		for l, v := range row {
+			if v == 0 {
+				continue
+			}
+			z := v * ex[l] * ey[k]
+			wx := 2 * math.Pi * fx[l]
+			re, im := real(z), imag(z)
+			// d/dτ Re(z e^{iωτ}) = −ω Im, d² = −ω² Re.
+			gx -= wx * im
+			gy -= wy * im
+			hxx -= wx * wx * re
+			hyy -= wy * wy * re
+			hxy -= wx * wy * re
+		}
+	}
+	return gx, gy, hxx, hyy, hxy
+}
+
+// shiftLowPass is the 1/e frequency (cycles per pixel) of the Gaussian
 // weight on the cross-spectrum in MeasureShiftFrames: a spatial smoothing of
-// the correlation with σ = 1/(√2·π·restoreLowPass) ≈ 19 px. The defocused
+// the correlation with σ = 1/(√2·π·shiftLowPass) ≈ 19 px. The defocused
 // image is the focused one blurred by a ring-shaped (defocus) kernel about
 // 8 λ/D ≈ 16 px across at one wave, and the bare correlation of such a pair
 // has a dip, not a peak, at the true offset; smoothed well beyond the kernel
@@ -228,11 +260,11 @@ func (m *restoreShiftMeter) peak() (dx, dy float64) {
 // (which the diversity does not move). Measured on simulated 192 px bursts
 // (8 frames, D/r0 = 5, 1 wave): bias about 0.1 px; 0.025 gave 0.15 px and
 // 0.006 was noise-dominated.
-const restoreLowPass = 0.012
+const shiftLowPass = 0.012
 
-// restoreFreq returns the signed frequency (cycles per sample) of DFT index k
+// dftFreq returns the signed frequency (cycles per sample) of DFT index k
 // of length n.
-func restoreFreq(k, n int) float64 {
+func dftFreq(k, n int) float64 {
 	if 2*k > n {
 		k -= n
 	} else if 2*k == n {
@@ -241,9 +273,9 @@ func restoreFreq(k, n int) float64 {
 	return float64(k) / float64(n)
 }
 
-// restoreParabola returns the vertex offset in (−0.5, 0.5) of the parabola
+// parabolaVertex returns the vertex offset in (−0.5, 0.5) of the parabola
 // through (−1, a), (0, b), (1, c).
-func restoreParabola(a, b, c float64) float64 {
+func parabolaVertex(a, b, c float64) float64 {
 	den := a - 2*b + c
 	if den >= 0 {
 		return 0
@@ -283,7 +315,9 @@ func NewShifter(nx, ny int) *Shifter {
 	}
 }
 
-func restoreRamp(r []complex128, d float64) {
+// shiftRamp fills r with the phase ramp exp(−2πi·f·d) of a shift by d
+// samples over the DFT frequencies f of len(r) (the Fourier shift theorem).
+func shiftRamp(r []complex128, d float64) {
 	n := len(r)
 	for k := range r {
 		f := float64(k) / float64(n)
@@ -311,11 +345,11 @@ func shift[T float32 | float64](s *Shifter, dst, src []T, dx, dy float64) {
 		panic("restore: Shifter.Shift: wrong image length")
 	}
 	if dx != s.rdx {
-		restoreRamp(s.rampX, dx)
+		shiftRamp(s.rampX, dx)
 		s.rdx = dx
 	}
 	if dy != s.rdy {
-		restoreRamp(s.rampY, dy)
+		shiftRamp(s.rampY, dy)
 		s.rdy = dy
 	}
 	t := s.tmp

@@ -139,7 +139,7 @@ func FitOffset(f *Field, cfg infer.Config, patch, iterations, workers int) (Core
 	n := len(xs) * len(ys)
 	offs := make([]Offset, n)
 	errs := make([]error, n)
-	infer.ForEach(n, workers, func() [][][]float64 { return restoreNewPatchBuffers(f.Frames, cfg.Patch) },
+	infer.ForEach(n, workers, func() [][][]float64 { return newPatchBuffers(f.Frames, cfg.Patch) },
 		func(buf [][][]float64, i int) {
 			offs[i], errs[i] = coregFitPatch(fit, f, buf, cfg.Patch, xs[i%len(xs)], ys[i/len(xs)])
 		})

@@ -12,7 +12,9 @@
 //	             Fourier shift of the defocused frames (Shifter)
 //	Grid         patch origins; separable sin²/cos² blend weights over the
 //	             overlaps, normalised by the accumulated weight (Mosaic)
-//	Run          one Engine per worker (each with its own solver and plans),
+//	Run          one Engine per worker (each with its own solver and plans)
+//	             on the per-patch runner it shares with compare
+//	             (infer/patchrun: the wavefront by a patchrun.Chain),
 //	             results handed to a Sink in increasing patch id, so any
 //	             accumulation is independent of scheduling; memory beyond the
 //	             field is bounded by the patches in flight; an optional

@@ -6,6 +6,7 @@ import (
 	"math"
 
 	"pdwave/infer"
+	"pdwave/infer/patchrun"
 	"pdwave/model/modes"
 	"pdwave/model/pd"
 )
@@ -30,7 +31,8 @@ type FieldSetup struct {
 	Config infer.Config // the full fit's configuration
 	Method Method       // learned start and polish, or the full fit
 
-	full, polish *infer.Fitter // safe for concurrent use
+	full, polish *infer.Fitter  // safe for concurrent use
+	chain        patchrun.Chain // the method's stages
 	div          [][]float64
 	sigma2       []float64
 	win          []float64
@@ -72,6 +74,10 @@ func NewFieldSetup(cfg infer.Config, m Method) (*FieldSetup, error) {
 			}
 		}
 	}
+	p.chain = patchrun.Chain{Learned: m.Start, Polish: p.polish}
+	if m.Start == nil {
+		p.chain.Fit = p.full // from zero: no earlier stage
+	}
 	p.div = p.full.Diversity()
 	p.sigma2 = p.full.PriorVariance()
 	p.win = pd.Window(cfg.Patch, TileWindow)
@@ -84,10 +90,13 @@ func NewFieldSetup(cfg infer.Config, m Method) (*FieldSetup, error) {
 // Basis returns the native basis of the coefficients.
 func (p *FieldSetup) Basis() *modes.Basis { return p.full.Basis() }
 
-// NewEngine returns an Engine with its own pd.Objective (for the object
-// estimate and the quality figures). It is a valid Options.NewEngine after
-// wrapping: func() (Engine, error) { return p.NewEngine() }.
-func (p *FieldSetup) NewEngine() (Engine, error) {
+// NewEngine returns NewPatchEngine as an Engine (never an error), so
+// p.NewEngine is a valid Options.NewEngine.
+func (p *FieldSetup) NewEngine() (Engine, error) { return p.NewPatchEngine(), nil }
+
+// NewPatchEngine returns an engine with its own pd.Objective (for the
+// object estimate and the quality figures), for one goroutine.
+func (p *FieldSetup) NewPatchEngine() *PatchEngine {
 	cfg := p.Config
 	set := cfg.Metric
 	set.PriorWeight = cfg.Prior
@@ -96,45 +105,45 @@ func (p *FieldSetup) NewEngine() (Engine, error) {
 	s := pd.NewObjective(p.full.Pupil(), p.full.Basis(), p.div, cfg.Frames, set)
 	s.SetPrior(p.sigma2)
 	n := cfg.Frames * cfg.Modes
-	return &restorePhysicsEngine{p: p, s: s, alpha: make([]float64, n), obj: make([]float64, cfg.Patch*cfg.Patch)}, nil
+	return &PatchEngine{p: p, s: s, alpha: make([]float64, n), obj: make([]float64, cfg.Patch*cfg.Patch)}
 }
 
-type restorePhysicsEngine struct {
+// PatchEngine is restore's Engine: the wavefront by the FieldSetup's
+// method (a patchrun.Chain), then the quality figures and the restored
+// tile. It is not safe for concurrent use.
+type PatchEngine struct {
 	p     *FieldSetup
 	s     *pd.Objective
 	alpha []float64
 	obj   []float64
 }
 
-// Restore implements Engine.
-func (e *restorePhysicsEngine) Restore(r *PatchResult, data [][][]float64) error {
-	p := e.p
-	cfg := p.Config
+// Restore implements Engine: the method's estimate, then RestoreWith.
+func (e *PatchEngine) Restore(r *PatchResult, data [][][]float64) error {
+	cfg := e.p.Config
 	if len(data) != 2 || len(data[0]) != cfg.Frames {
 		return fmt.Errorf("patch has %d channels × %d frames, the estimator wants 2 × %d", len(data), len(data[0]), cfg.Frames)
 	}
-	var coeffs [][]float64
-	var err error
-	switch {
-	case p.Method.Start == nil:
-		var res *infer.Result
-		res, err = p.full.Fit(data, nil)
-		if err == nil {
-			coeffs = res.Coeffs
-		}
-	default:
-		coeffs, err = p.Method.Start.Estimate(data)
-		if err == nil && p.polish != nil {
-			var res *infer.Result
-			res, err = p.polish.Fit(data, coeffs)
-			if err == nil {
-				coeffs = res.Coeffs
-			}
-		}
-	}
+	est, err := e.p.chain.Estimate(data)
 	if err != nil {
+		var se *patchrun.StageError
+		if errors.As(err, &se) {
+			err = se.Err // the flagged patch names the failure itself, as always
+		}
 		return err
 	}
+	return e.RestoreWith(r, data, est.Final())
+}
+
+// RestoreWith is Restore with the wavefront coefficients given (frames ×
+// modes, native basis, rad; not retained) instead of estimated: it sets
+// the metric, its ratio to the noise-only expectation, the flags, the
+// coefficient figures and the tile of r exactly as Restore does after its
+// estimate. compare judges its own learned estimate with it. It fails on
+// coefficients of the wrong shape or a patch without signal.
+func (e *PatchEngine) RestoreWith(r *PatchResult, data [][][]float64, coeffs [][]float64) error {
+	p := e.p
+	cfg := p.Config
 	m := cfg.Modes
 	if len(coeffs) != cfg.Frames {
 		return fmt.Errorf("estimator returned %d frames, want %d", len(coeffs), cfg.Frames)
@@ -152,6 +161,17 @@ func (e *restorePhysicsEngine) Restore(r *PatchResult, data [][][]float64) error
 		return err
 	}
 	e.s.Constrain(e.alpha)
+	e.metric(r)
+	e.coeffFigures(r)
+	e.s.Restore(e.obj, e.alpha)
+	p.unapodise(r.Tile, e.obj, data)
+	return nil
+}
+
+// metric sets r's metric at e.alpha, its ratio to the noise-only
+// expectation and the learned-suspect flag.
+func (e *PatchEngine) metric(r *PatchResult) {
+	p := e.p
 	e.s.ValueGrad(nil, e.alpha)
 	metric, _ := e.s.LastTerms()
 	r.Metric = metric
@@ -160,13 +180,20 @@ func (e *restorePhysicsEngine) Restore(r *PatchResult, data [][][]float64) error
 	// least-squares object leaves (K−1)·ν per frequency (Paxman, Schulz &
 	// Fienup 1992, JOSA A 9, 1072, the Gaussian-noise likelihood); L is
 	// normalised by the data power per image P̄.
-	k := float64(2 * cfg.Frames)
+	k := float64(2 * p.Config.Frames)
 	if nu, pbar := e.s.Noise(), e.s.DataPower(); nu > 0 && pbar > 0 {
 		r.MetricRatio = metric / ((k - 1) * float64(e.s.MaskSize()) * nu / pbar)
 	}
 	if p.Method.Start != nil && p.polish == nil && infer.LearnedSuspect(r.MetricRatio) {
 		r.Flags |= FlagLearned
 	}
+}
+
+// coeffFigures sets r's coefficients (native and Noll-equivalent) from
+// e.alpha and their rms over the prior's standard deviation.
+func (e *PatchEngine) coeffFigures(r *PatchResult) {
+	p := e.p
+	m := p.Config.Modes
 	var s2 float64
 	var cnt int
 	for i, a := range e.alpha {
@@ -181,23 +208,20 @@ func (e *restorePhysicsEngine) Restore(r *PatchResult, data [][][]float64) error
 	r.Coeffs = append([]float64(nil), e.alpha...)
 	r.Noll = make([]float64, len(e.alpha))
 	b := p.full.Basis()
-	for j := 0; j < cfg.Frames; j++ {
+	for j := 0; j < p.Config.Frames; j++ {
 		b.NollEquivalent(r.Noll[j*m:(j+1)*m], e.alpha[j*m:(j+1)*m])
 	}
-	e.s.Restore(e.obj, e.alpha)
-	p.unapodise(r.Tile, e.obj, data)
-	return nil
 }
 
-// restoreMinWindow is the window value below which the restored patch is
+// minTileWindow is the window value below which the restored patch is
 // not divided by the window but faded into the burst-mean image.
-const restoreMinWindow = 0.5
+const minTileWindow = 0.5
 
 // unapodise undoes the apodisation in the object estimate. pd's Restore
 // returns w·(o − m) + m (w the apodisation window, m the mean data level:
 // the window-weighted image means averaged over all images), so
-// o = m + (R − m)/w. Where w < restoreMinWindow the quotient amplifies noise;
-// there the tile fades linearly in w from the quotient at w = restoreMinWindow
+// o = m + (R − m)/w. Where w < minTileWindow the quotient amplifies noise;
+// there the tile fades linearly in w from the quotient at w = minTileWindow
 // to the burst-mean focused image at w = 0. Those pixels lie in the blend
 // margin of inner patch edges (weight 0) and matter only at the field edge.
 func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
@@ -217,7 +241,7 @@ func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
 	level /= float64(nimg)
 	for i := 0; i < n*n; i++ {
 		w := p.win[i]
-		if w >= restoreMinWindow {
+		if w >= minTileWindow {
 			dst[i] = level + (obj[i]-level)/w
 			continue
 		}
@@ -226,7 +250,7 @@ func (p *FieldSetup) unapodise(dst, obj []float64, data [][][]float64) {
 			raw += im[i]
 		}
 		raw /= float64(len(data[0]))
-		t := w / restoreMinWindow
-		dst[i] = t*(level+(obj[i]-level)/restoreMinWindow) + (1-t)*raw
+		t := w / minTileWindow
+		dst[i] = t*(level+(obj[i]-level)/minTileWindow) + (1-t)*raw
 	}
 }

@@ -38,7 +38,7 @@ func TestFieldQuantised(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	buf := restoreNewPatchBuffers(3, 16)
+	buf := newPatchBuffers(3, 16)
 	f.cut(buf, 5, 7, 16)
 	for c := range data {
 		for j, fr := range data[c] {

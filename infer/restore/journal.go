@@ -23,19 +23,26 @@ import (
 // leaves only complete batches. Because Run records patches in id order, the
 // batches always hold a contiguous prefix of the shard's patches.
 
-type restoreJournal struct {
+// patchJournal is the open journal of one shard: the batch being filled
+// and the number of batch files written.
+type patchJournal struct {
 	dir       string
 	batch     []*PatchResult
 	batchSize int
 	seq       int
 }
 
-func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*restoreJournal, error) {
+// openPatchJournal opens the journal dir of the patches [lo, hi) under the
+// identity key. With resume it continues a journal written under the same
+// key (refusing another key, with what differs); otherwise, or when it
+// holds no key yet, it refuses a journal holding finished patches, then
+// writes the key. batchSize ≤ 0 means 16 patches per batch.
+func openPatchJournal(dir, key string, resume bool, lo, hi, batchSize int) (*patchJournal, error) {
 	if batchSize <= 0 {
 		batchSize = 16
 	}
 	full := fmt.Sprintf("%s\nrange %d %d\n", key, lo, hi)
-	j := &restoreJournal{dir: dir, batchSize: batchSize}
+	j := &patchJournal{dir: dir, batchSize: batchSize}
 	keyPath := filepath.Join(dir, "key")
 	if resume {
 		old, err := os.ReadFile(keyPath)
@@ -65,7 +72,7 @@ func restoreOpenJournal(dir, key string, resume bool, lo, hi, batchSize int) (*r
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("creating journal %s: %w", dir, err)
 	}
-	if err := restoreWriteAtomic(keyPath, func(w io.Writer) error {
+	if err := atomicfile.Write(keyPath, func(w io.Writer) error {
 		_, err := io.WriteString(w, full)
 		return err
 	}); err != nil {
@@ -113,7 +120,7 @@ func journalBatch(name string) bool {
 }
 
 // batches lists the batch files in order.
-func (j *restoreJournal) batches() ([]string, error) {
+func (j *patchJournal) batches() ([]string, error) {
 	ents, err := os.ReadDir(j.dir)
 	if err != nil {
 		if errors.Is(err, os.ErrNotExist) {
@@ -132,7 +139,7 @@ func (j *restoreJournal) batches() ([]string, error) {
 }
 
 // replay feeds the recorded patches to fn in order.
-func (j *restoreJournal) replay(fn func(*PatchResult) error) error {
+func (j *patchJournal) replay(fn func(*PatchResult) error) error {
 	names, err := j.batches()
 	if err != nil {
 		return err
@@ -158,7 +165,8 @@ func (j *restoreJournal) replay(fn func(*PatchResult) error) error {
 	return nil
 }
 
-func (j *restoreJournal) add(r *PatchResult) error {
+// add records r, writing a batch file when the batch is full.
+func (j *patchJournal) add(r *PatchResult) error {
 	j.batch = append(j.batch, r)
 	if len(j.batch) >= j.batchSize {
 		return j.flush()
@@ -166,12 +174,13 @@ func (j *restoreJournal) add(r *PatchResult) error {
 	return nil
 }
 
-func (j *restoreJournal) flush() error {
+// flush writes the batch being filled, if any, as the next batch file.
+func (j *patchJournal) flush() error {
 	if len(j.batch) == 0 {
 		return nil
 	}
 	path := filepath.Join(j.dir, fmt.Sprintf("%06d.gob", j.seq))
-	if err := restoreWriteAtomic(path, func(w io.Writer) error {
+	if err := atomicfile.Write(path, func(w io.Writer) error {
 		return gob.NewEncoder(w).Encode(j.batch)
 	}); err != nil {
 		return err
@@ -179,11 +188,4 @@ func (j *restoreJournal) flush() error {
 	j.seq++
 	j.batch = j.batch[:0]
 	return nil
-}
-
-// restoreWriteAtomic writes path through fn with atomicfile.Write (a
-// temporary file in the same directory, synced and renamed into place);
-// errors name the path.
-func restoreWriteAtomic(path string, fn func(io.Writer) error) error {
-	return atomicfile.Write(path, fn)
 }

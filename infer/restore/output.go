@@ -53,7 +53,7 @@ func (c *Collector) Product(meta *Meta) *Product {
 	for i, p := range c.Patches {
 		mr[i] = p.MetricRatio
 	}
-	med := restoreMedian(mr)
+	med := finiteMedian(mr)
 	for i := range c.Patches {
 		if c.Patches[i].MetricRatio > MetricRatioLimit*med {
 			c.Patches[i].Flags |= FlagMetric
@@ -111,7 +111,7 @@ func (p *Product) Write(out, version string) error {
 	}
 	primary := &fits.Image{Dims: []int{m.Nx, m.Ny}, Data: p.Image, Cards: cards}
 	raw := &fits.Image{Name: "RAWMEAN", Dims: []int{m.Nx, m.Ny}, Data: m.Mean,
-		Cards: append(restoreWCSCards(m.Cards), fits.Card{Key: "COMMENT", Value: "burst-mean focused image after calibration"})}
+		Cards: append(wcsCards(m.Cards), fits.Card{Key: "COMMENT", Value: "burst-mean focused image after calibration"})}
 	set := atomicfile.NewSet()
 	defer set.Abort()
 	base := SidecarBase(out)
@@ -144,8 +144,8 @@ func ProductPaths(out string) []string {
 	return []string{base + "_preview.png", base + "_patches.csv", base + "_summary.json", out}
 }
 
-// restoreWCSCards picks the world-coordinate cards of the input.
-func restoreWCSCards(cards []fits.Card) []fits.Card {
+// wcsCards picks the world-coordinate cards of the input.
+func wcsCards(cards []fits.Card) []fits.Card {
 	var out []fits.Card
 	for _, c := range cards {
 		k := strings.ToUpper(c.Key)
@@ -177,8 +177,8 @@ func (p *Product) table() *fits.Table {
 		con[i] = []float64{r.Contrast}
 		rcon[i] = []float64{r.RawContrast}
 		ring[i] = []float64{r.Ringing}
-		coeffs[i] = restoreFixed(r.Coeffs, nc)
-		noll[i] = restoreFixed(r.Noll, nc)
+		coeffs[i] = exactOrNaN(r.Coeffs, nc)
+		noll[i] = exactOrNaN(r.Noll, nc)
 	}
 	cols := []fits.Column{
 		{Name: "PATCH", Int: ids}, // numbered from 1
@@ -211,8 +211,8 @@ func (p *Product) table() *fits.Table {
 	}}
 }
 
-// restoreFixed returns v padded (or replaced) with NaN to length n.
-func restoreFixed(v []float64, n int) []float64 {
+// exactOrNaN returns v padded (or replaced) with NaN to length n.
+func exactOrNaN(v []float64, n int) []float64 {
 	out := make([]float64, n)
 	for i := range out {
 		if i < len(v) && len(v) == n {
@@ -224,7 +224,9 @@ func restoreFixed(v []float64, n int) []float64 {
 	return out
 }
 
-func restoreFmt(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
+// formatFloat writes v with 6 significant digits, as every table of
+// restore does.
+func formatFloat(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 
 func (p *Product) writeCSV(w io.Writer) error {
 	cw := csv.NewWriter(w)
@@ -241,9 +243,9 @@ func (p *Product) writeCSV(w io.Writer) error {
 			// wavefront variance of a frame is Σ α² over its modes.
 			rms = math.Sqrt(s / float64(p.Meta.Frames))
 		}
-		cw.Write([]string{strconv.Itoa(r.ID + 1), strconv.Itoa(r.X0), strconv.Itoa(r.Y0), restoreFmt(rms),
-			restoreFmt(r.Metric), restoreFmt(r.MetricRatio), restoreFmt(r.CoeffRMS), restoreFmt(r.Contrast),
-			restoreFmt(r.RawContrast), restoreFmt(r.Ringing), FlagNames(r.Flags), r.Err})
+		cw.Write([]string{strconv.Itoa(r.ID + 1), strconv.Itoa(r.X0), strconv.Itoa(r.Y0), formatFloat(rms),
+			formatFloat(r.Metric), formatFloat(r.MetricRatio), formatFloat(r.CoeffRMS), formatFloat(r.Contrast),
+			formatFloat(r.RawContrast), formatFloat(r.Ringing), FlagNames(r.Flags), r.Err})
 	}
 	cw.Flush()
 	return cw.Error()
@@ -283,8 +285,8 @@ func (p *Product) Summary() Summary {
 		cr = append(cr, r.CoeffRMS)
 		ri = append(ri, r.Ringing)
 	}
-	s.MedianContrast, s.MedianRawContrast = restoreMedian(con), restoreMedian(raw)
-	s.MedianMetricRatio, s.MedianCoeffRMS, s.MedianRinging = restoreMedian(mr), restoreMedian(cr), restoreMedian(ri)
+	s.MedianContrast, s.MedianRawContrast = finiteMedian(con), finiteMedian(raw)
+	s.MedianMetricRatio, s.MedianCoeffRMS, s.MedianRinging = finiteMedian(mr), finiteMedian(cr), finiteMedian(ri)
 	// JSON cannot carry NaN.
 	for _, v := range []*float64{&s.MedianContrast, &s.MedianRawContrast, &s.MedianMetricRatio, &s.MedianCoeffRMS, &s.MedianRinging} {
 		if math.IsNaN(*v) || math.IsInf(*v, 0) {
@@ -294,8 +296,8 @@ func (p *Product) Summary() Summary {
 	return s
 }
 
-// restoreMedian is the median of the finite values of v (NaN if none).
-func restoreMedian(v []float64) float64 {
+// finiteMedian is the median of the finite values of v (NaN if none).
+func finiteMedian(v []float64) float64 {
 	var f []float64
 	for _, x := range v {
 		if !math.IsNaN(x) && !math.IsInf(x, 0) {

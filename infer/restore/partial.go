@@ -48,8 +48,8 @@ type Meta struct {
 // Doubles are IEEE binary64 (TFORM D), so a merge feeds exactly the values
 // a single run blends.
 
-// restorePartVersion is the part format written (PDPARTV).
-const restorePartVersion = 2
+// partVersion is the part format written (PDPARTV).
+const partVersion = 2
 
 // PartWriter collects the patches of one shard and writes them as a part
 // file on Close. Records must be written in increasing id order covering
@@ -117,7 +117,7 @@ func (w *PartWriter) hdus() ([]fits.HDU, error) {
 		return nil, err
 	}
 	primary := &fits.Image{Cards: []fits.Card{
-		{Key: "PDPARTV", Value: restorePartVersion, Comment: "pdwave restore part format"},
+		{Key: "PDPARTV", Value: partVersion, Comment: "pdwave restore part format"},
 		{Key: "PDSHARD", Value: w.shard.String(), Comment: "shard i/n of the patches"},
 		{Key: "PDLO", Value: w.lo, Comment: "first patch id of the shard"},
 		{Key: "PDHI", Value: w.hi, Comment: "patch id after the last of the shard"},
@@ -183,9 +183,9 @@ func Merge(paths []string, start func(*Meta, *Grid) (Sink, error)) (meta *Meta, 
 	if len(paths) == 0 {
 		return nil, 0, errors.New("restore: merge: no part files")
 	}
-	var parts []*restorePartReader
+	var parts []*partReader
 	for _, path := range paths {
-		p, err := restoreOpenPart(path)
+		p, err := openPart(path)
 		if err != nil {
 			return nil, 0, err
 		}
@@ -230,7 +230,7 @@ func Merge(paths []string, start func(*Meta, *Grid) (Sink, error)) (meta *Meta, 
 // mergeCheck checks that the parts (sorted by their first patch) share one
 // identity and sharding and tile the field's patches exactly, and returns
 // the field's grid.
-func mergeCheck(parts []*restorePartReader) (*Grid, error) {
+func mergeCheck(parts []*partReader) (*Grid, error) {
 	first := parts[0]
 	fm := first.meta
 	g, err := NewGrid(fm.Nx, fm.Ny, fm.Patch, fm.Overlap)
@@ -263,7 +263,7 @@ func mergeCheck(parts []*restorePartReader) (*Grid, error) {
 }
 
 // missingShards lists the shards i/n not among the parts.
-func missingShards(parts []*restorePartReader, n int) string {
+func missingShards(parts []*partReader, n int) string {
 	have := map[int]bool{}
 	for _, p := range parts {
 		have[p.shard.Index] = true

@@ -105,8 +105,8 @@ func decodePartMeta(js string) (*Meta, error) {
 	return &m, nil
 }
 
-// restorePartReader reads one part file.
-type restorePartReader struct {
+// partReader reads one part file.
+type partReader struct {
 	path   string
 	meta   *Meta
 	shard  Shard
@@ -114,11 +114,11 @@ type restorePartReader struct {
 	total  int
 }
 
-// restoreOpenPart reads the header and META of the part file path (not
+// openPart reads the header and META of the part file path (not
 // its patches), after checking that every HDU's declared size fits in the
 // file.
-func restoreOpenPart(path string) (*restorePartReader, error) {
-	var r *restorePartReader
+func openPart(path string) (*partReader, error) {
+	var r *partReader
 	err := withFITS(path, 2, func(hdus []fitsio.HDU) error {
 		var err error
 		r, err = partHeader(path, hdus)
@@ -163,7 +163,7 @@ func withFITS(path string, n int, fn func([]fitsio.HDU) error) (err error) {
 }
 
 // partHeader reads the primary header and META table of a part.
-func partHeader(path string, hdus []fitsio.HDU) (*restorePartReader, error) {
+func partHeader(path string, hdus []fitsio.HDU) (*partReader, error) {
 	if len(hdus) < 2 {
 		return nil, errors.New("not a pdwave restore part (too few HDUs)")
 	}
@@ -172,10 +172,10 @@ func partHeader(path string, hdus []fitsio.HDU) (*restorePartReader, error) {
 	if !ok {
 		return nil, errors.New("not a pdwave restore part (no PDPARTV)")
 	}
-	if v != restorePartVersion {
-		return nil, fmt.Errorf("part format %d, this program reads %d", v, restorePartVersion)
+	if v != partVersion {
+		return nil, fmt.Errorf("part format %d, this program reads %d", v, partVersion)
 	}
-	r := &restorePartReader{path: path}
+	r := &partReader{path: path}
 	var ok1, ok2, ok3 bool
 	r.lo, ok1 = cardInt(h, "PDLO")
 	r.hi, ok2 = cardInt(h, "PDHI")
@@ -237,7 +237,7 @@ func scanRows(tbl *fitsio.Table, fn func(*fitsio.Rows) error) error {
 
 // patches reads the mean image and every patch of the part, checking their
 // sizes against the META, and hands the patches to fn in file order.
-func (r *restorePartReader) patches(fn func(*PatchResult) error) error {
+func (r *partReader) patches(fn func(*PatchResult) error) error {
 	err := withFITS(r.path, 0, func(hdus []fitsio.HDU) error {
 		if len(hdus) != 4 || hdus[2].Name() != "MEAN" || hdus[3].Name() != "PATCHES" {
 			return errors.New("want the HDUs primary, META, MEAN, PATCHES")
@@ -259,7 +259,7 @@ func (r *restorePartReader) patches(fn func(*PatchResult) error) error {
 }
 
 // readMean reads the MEAN table into r.meta.Mean.
-func (r *restorePartReader) readMean(tbl *fitsio.Table) error {
+func (r *partReader) readMean(tbl *fitsio.Table) error {
 	m := r.meta
 	if int(tbl.NumRows()) != m.Ny || tbl.NumCols() != 1 {
 		return fmt.Errorf("MEAN has %d rows, want %d", tbl.NumRows(), m.Ny)
@@ -280,7 +280,7 @@ func (r *restorePartReader) readMean(tbl *fitsio.Table) error {
 var partVectors = []string{"METRIC", "MRATIO", "COEFRMS", "CONTRAST", "RAWCONTR", "RINGING", "COEFFS", "NOLL", "TILE"}
 
 // readPatches reads the PATCHES table and hands each patch to fn.
-func (r *restorePartReader) readPatches(tbl *fitsio.Table, fn func(*PatchResult) error) error {
+func (r *partReader) readPatches(tbl *fitsio.Table, fn func(*PatchResult) error) error {
 	m := r.meta
 	if int(tbl.NumRows()) != r.hi-r.lo {
 		return fmt.Errorf("PATCHES has %d rows, the shard %d patches", tbl.NumRows(), r.hi-r.lo)

@@ -241,7 +241,7 @@ func meanShift[A, B float32 | float64](t *testing.T, a [][]A, b [][]B, nx int) O
 			mb[i] += float64(b[j][i])
 		}
 	}
-	dx, dy, err := restoreMeasure([][]float64{ma}, [][]float64{mb}, nx, nx, 0)
+	dx, dy, err := measureShift([][]float64{ma}, [][]float64{mb}, nx, nx, 0)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -157,15 +157,15 @@ func Run(ctx context.Context, f *Field, opt Options, sink Sink) ([]PatchResult, 
 		}
 		return o.results, nil
 	}
-	if err := o.restoreRest(ctx, f, g, opt, workers, lo, hi); err != nil {
+	if err := o.runRest(ctx, f, g, opt, workers, lo, hi); err != nil {
 		return nil, err
 	}
 	return o.results, nil
 }
 
-// restoreNewPatchBuffers returns one worker's patch buffers
+// newPatchBuffers returns one worker's patch buffers
 // [channel][frame], each n×n.
-func restoreNewPatchBuffers(frames, n int) [][][]float64 {
+func newPatchBuffers(frames, n int) [][][]float64 {
 	buf := make([][][]float64, 2)
 	for c := range buf {
 		buf[c] = make([][]float64, frames)
@@ -176,10 +176,10 @@ func restoreNewPatchBuffers(frames, n int) [][][]float64 {
 	return buf
 }
 
-// restorePatch extracts patch id, runs the engine and computes the quality
+// runPatch extracts patch id, runs the engine and computes the quality
 // figures. Engine failures become flagged fallback tiles, not errors. It
 // returns nil if ctx is already cancelled.
-func restorePatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, buf [][][]float64, raw []float64) *PatchResult {
+func runPatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, buf [][][]float64, raw []float64) *PatchResult {
 	n := g.Patch
 	x0, y0 := g.Origin(id)
 	f.cut(buf, x0, y0, n)
@@ -191,7 +191,7 @@ func restorePatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, bu
 	}
 	r := &PatchResult{ID: id, X0: x0, Y0: y0, Tile: make([]float64, n*n),
 		Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN()}
-	err := restoreSafe(eng, r, buf)
+	err := runEngine(eng, r, buf)
 	if err == nil {
 		for _, v := range r.Tile {
 			if math.IsNaN(v) || math.IsInf(v, 0) {
@@ -205,13 +205,13 @@ func restorePatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, bu
 		r.Err = err.Error()
 		copy(r.Tile, raw)
 	}
-	restoreQuality(r, raw, g)
+	qualityFigures(r, raw, g)
 	return r
 }
 
-// restoreSafe runs the engine and turns a panic inside it into an error, so
+// runEngine runs the engine and turns a panic inside it into an error, so
 // one bad patch cannot take the whole field down.
-func restoreSafe(eng Engine, r *PatchResult, data [][][]float64) (err error) {
+func runEngine(eng Engine, r *PatchResult, data [][][]float64) (err error) {
 	defer func() {
 		if p := recover(); p != nil {
 			err = fmt.Errorf("estimator panicked: %v", p)
@@ -220,14 +220,14 @@ func restoreSafe(eng Engine, r *PatchResult, data [][][]float64) (err error) {
 	return eng.Restore(r, data)
 }
 
-// restoreQuality fills the image-based quality figures and the flags.
-func restoreQuality(r *PatchResult, raw []float64, g *Grid) {
+// qualityFigures fills the image-based quality figures and the flags.
+func qualityFigures(r *PatchResult, raw []float64, g *Grid) {
 	n := g.Patch
 	q := n / 4
-	r.Contrast = restoreContrast(r.Tile, n, q)
-	r.RawContrast = restoreContrast(raw, n, q)
+	r.Contrast = tileContrast(r.Tile, n, q)
+	r.RawContrast = tileContrast(raw, n, q)
 	band := max(g.Overlap/2, 2)
-	r.Ringing = restoreRinging(r.Tile, n, band)
+	r.Ringing = edgeRinging(r.Tile, n, band)
 	if r.CoeffRMS > CoeffRMSLimit {
 		r.Flags |= FlagCoeffs
 	}
@@ -242,9 +242,9 @@ func restoreQuality(r *PatchResult, raw []float64, g *Grid) {
 	}
 }
 
-// restoreContrast is the rms over the mean of the centre of an n×n tile
+// tileContrast is the rms over the mean of the centre of an n×n tile
 // (border q pixels excluded).
-func restoreContrast(t []float64, n, q int) float64 {
+func tileContrast(t []float64, n, q int) float64 {
 	var s, s2, c float64
 	for y := q; y < n-q; y++ {
 		for x := q; x < n-q; x++ {
@@ -261,9 +261,9 @@ func restoreContrast(t []float64, n, q int) float64 {
 	return math.Sqrt(math.Max(s2/c-m*m, 0)) / math.Abs(m)
 }
 
-// restoreRinging is the rms of the high-pass image t − box3(t) over the
+// edgeRinging is the rms of the high-pass image t − box3(t) over the
 // outer band of width band, divided by its rms over the rest of the tile.
-func restoreRinging(t []float64, n, band int) float64 {
+func edgeRinging(t []float64, n, band int) float64 {
 	var eb, ei, cb, ci float64
 	for y := 1; y < n-1; y++ {
 		for x := 1; x < n-1; x++ {
@@ -355,8 +355,8 @@ func (m *Mosaic) Image(dst []float64) []float64 {
 	return dst
 }
 
-// restoreProgress writes "restore: k/n patches, elapsed, ETA" lines.
-type restoreProgress struct {
+// patchProgress writes "restore: k/n patches, elapsed, ETA" lines.
+type patchProgress struct {
 	w          io.Writer
 	every      time.Duration // 0: rewrite in place every 0.5 s; > 0: whole lines
 	total, k   int
@@ -365,18 +365,18 @@ type restoreProgress struct {
 	wroteEnded bool
 }
 
-// restoreNewProgress returns a progress writer for total patches of which
+// newProgress returns a progress writer for total patches of which
 // done are already finished (replayed); w nil writes nothing. every is
 // Options.ProgressEvery.
-func restoreNewProgress(w io.Writer, every time.Duration, total, done int) *restoreProgress {
+func newProgress(w io.Writer, every time.Duration, total, done int) *patchProgress {
 	now := time.Now()
-	return &restoreProgress{w: w, every: every, total: total, k: done, start: done, t0: now, last: now}
+	return &patchProgress{w: w, every: every, total: total, k: done, start: done, t0: now, last: now}
 }
 
 // step counts one more finished patch and, at most every 0.5 s (or every
 // p.every) and at the last patch, writes the progress line with the ETA
 // from the patches computed in this run.
-func (p *restoreProgress) step() {
+func (p *patchProgress) step() {
 	p.k++
 	if p.w == nil {
 		return
@@ -405,7 +405,7 @@ func (p *restoreProgress) step() {
 }
 
 // finish ends the progress line, if one was rewritten in place.
-func (p *restoreProgress) finish() {
+func (p *patchProgress) finish() {
 	if p.w != nil && p.wroteEnded {
 		fmt.Fprintln(p.w)
 	}

@@ -136,7 +136,7 @@ func testPart(t *testing.T) (string, *Meta, []*PatchResult) {
 // failed the bit comparison.
 func TestPartFileRoundTrip(t *testing.T) {
 	path, meta, rows := testPart(t)
-	r, err := restoreOpenPart(path)
+	r, err := openPart(path)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -174,7 +174,7 @@ func TestPartFileRoundTrip(t *testing.T) {
 	b, _ := os.ReadFile(path)
 	short := filepath.Join(t.TempDir(), "short.fits")
 	os.WriteFile(short, b[:len(b)-2880], 0o644)
-	if r, err := restoreOpenPart(short); err == nil {
+	if r, err := openPart(short); err == nil {
 		if err := r.patches(func(*PatchResult) error { return nil }); err == nil {
 			t.Error("truncated part accepted")
 		}

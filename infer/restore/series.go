@@ -104,8 +104,8 @@ func (j *Job) writeSeries(units []unit) error {
 				continue
 			}
 			cw.Write([]string{u.name, filepath.Base(u.out), strconv.Itoa(s.Patches), strconv.Itoa(s.Flagged["failed"]),
-				restoreFmt(s.MedianContrast), restoreFmt(s.MedianRawContrast), restoreFmt(s.MedianMetricRatio),
-				s.Estimator, restoreFmt(s.ShiftX), restoreFmt(s.ShiftY)})
+				formatFloat(s.MedianContrast), formatFloat(s.MedianRawContrast), formatFloat(s.MedianMetricRatio),
+				s.Estimator, formatFloat(s.ShiftX), formatFloat(s.ShiftY)})
 		}
 		cw.Flush()
 		return cw.Error()
