@@ -28,7 +28,7 @@ type NetEstimator struct {
 
 type netWorker struct {
 	f      *net.Featurizer
-	p      *net.Predictor
+	p      *net.Predictor32
 	x      []float64
 	y      []float64
 	c, d   []float64      // one frame's coefficients and scratch
@@ -228,7 +228,7 @@ func (e *NetEstimator) get() (*netWorker, error) {
 	if err != nil {
 		return nil, fmt.Errorf("learned estimator: %w", err)
 	}
-	return &netWorker{f: f, p: net.NewPredictor(e.m)}, nil
+	return &netWorker{f: f, p: net.NewPredictor32(e.m)}, nil
 }
 
 func (e *NetEstimator) put(w *netWorker) {

@@ -26,6 +26,7 @@ type compareFlags struct {
 	weights     string
 	polish      int
 	iterations  int
+	turns       int
 	patch       int
 	overlap     int
 	workers     int
@@ -72,6 +73,7 @@ func init() {
 	f.StringVar(&compareOpts.weights, "weights", "", "network weight file (default: the built-in weights, if they fit the telescope)")
 	f.IntVar(&compareOpts.polish, "polish", 5, "L-BFGS iterations of the polish started from the learned coefficients (0 = no polished estimate)")
 	f.IntVar(&compareOpts.iterations, "iterations", 200, "maximum L-BFGS iterations of the full fit")
+	f.IntVar(&compareOpts.turns, "turns", infer.DefaultTurns, "average the network over 1, 4 or 8 symmetries of the square, as restore does")
 	f.IntVar(&compareOpts.patch, "patch", 0, "patch side, pixels (default: from the weights, else the site file, else 64)")
 	f.IntVar(&compareOpts.overlap, "overlap", -1, "overlap of neighbouring patches, pixels, as in restore (default: a quarter of the patch)")
 	f.IntVar(&compareOpts.workers, "workers", 0, "patches processed in parallel (default: all cores)")
@@ -105,7 +107,7 @@ func compareRun(cmd *cobra.Command, args []string) error {
 	if err != nil {
 		return err
 	}
-	setup, err := compare.Resolve(src, b, compare.Weights{Model: model, Name: o.weights, Builtin: o.weights == ""}, o.iterations, o.prior)
+	setup, err := compare.Resolve(src, b, compare.Weights{Model: model, Name: o.weights, Builtin: o.weights == "", Turns: o.turns}, o.iterations, o.prior)
 	if err != nil {
 		return err
 	}

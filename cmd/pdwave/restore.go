@@ -8,6 +8,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"pdwave/infer"
 	"pdwave/infer/restore"
 	"pdwave/internal/progress"
 	"pdwave/model/net"
@@ -21,6 +22,7 @@ var restoreFlags struct {
 	offset                             string
 	dark, flat, bad                    []string
 	patch, overlap, polish, workers    int
+	turns                              int
 	fit, resume, pairs, noAlign, quiet bool
 }
 
@@ -109,6 +111,7 @@ func init() {
 	f.IntVar(&o.patch, "patch", 0, "patch side, pixels (default: the weights', else the site's, else 64)")
 	f.IntVar(&o.overlap, "overlap", -1, "overlap of neighbouring patches, pixels (default: patch/4)")
 	f.IntVar(&o.polish, "polish", 0, "classical optimiser iterations after the learned estimate")
+	f.IntVar(&o.turns, "turns", infer.DefaultTurns, "average the network over 1, 4 or 8 symmetries of the square (turned patches, turned back)")
 	f.BoolVar(&o.fit, "fit", false, "full classical fit in every patch instead of the learned estimate")
 	f.StringSliceVar(&o.dark, "dark", nil, "dark frame (FITS, 2-D or a stack to average): one for both cameras, or two (camera 1,camera 2)")
 	f.StringSliceVar(&o.flat, "flat", nil, "flat field (FITS, dark-corrected; normalised to mean 1): one for both cameras, or two")
@@ -247,7 +250,7 @@ func restoreRun(cmd *cobra.Command, args []string) error {
 	}
 	job := &restore.Job{
 		Inputs: args, Pairs: o.pairs, Reading: burstOptions(), Out: o.out, Flags: fl, Overlap: o.overlap,
-		Polish: o.polish, Fit: o.fit, Calib: calib, NoAlign: o.noAlign,
+		Polish: o.polish, Turns: o.turns, Fit: o.fit, Calib: calib, NoAlign: o.noAlign,
 		Resume: o.resume, Workers: o.workers, Log: os.Stderr, Version: version,
 		Command:  "pdwave " + strings.Join(os.Args[1:], " "),
 		SiteFile: o.site, WeightsFile: o.weights,

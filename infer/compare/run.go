@@ -118,6 +118,9 @@ func Run(b *burst.Burst, cfg Config, learned infer.Estimator) (*Report, error) {
 		return nil, err
 	}
 	outs := w.runAll(b, grid, truths, workers)
+	if tl, ok := learned.(interface{ Turns() int }); ok {
+		r.Settings = append(r.Settings, Setting{"learned estimate", fmt.Sprintf("mean over %d symmetries of the square (turned back)", tl.Turns())})
+	}
 	if err := collectPatches(r, outs, jobs, methods, fc.Telescope.CutoffRadius(n)/float64(n)); err != nil {
 		return nil, err
 	}

@@ -27,6 +27,10 @@ type Weights struct {
 	Model   *net.Model
 	Name    string
 	Builtin bool
+	// Turns is how many symmetries of the square the learned estimate
+	// averages over (infer.NetEstimator.SetTurns: 1, 4 or 8; 0 = 1), as
+	// restore's --turns, so that both judge the same estimate.
+	Turns int
 }
 
 // Resolve resolves the comparison of b from the instrument sources src and
@@ -63,6 +67,9 @@ func Resolve(src instrument.Sources, b *burst.Burst, w Weights, iterations int, 
 		}
 		s.Model, s.Notes = nil, append(s.Notes, "Built-in weights not used: "+err.Error())
 		return s, nil
+	}
+	if err := est.SetTurns(max(w.Turns, 1)); err != nil {
+		return s, fmt.Errorf("compare: %w", err)
 	}
 	s.Learned = est
 	return s, nil

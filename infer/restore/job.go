@@ -47,6 +47,7 @@ type Job struct {
 	Flags    instrument.Partial
 	Overlap  int       // < 0 = patch/4
 	Polish   int       // classical iterations after the learned estimate
+	Turns    int       // symmetries of the square the learned estimate averages over (1, 4, 8; 0 = 1)
 	Fit      bool      // full classical fit instead of the learned estimate
 	NoAlign  bool      // measure but do not remove the channel offset
 	Offset   *Offset   // known channel offset (pixels) instead of measuring; nil = measure
@@ -334,6 +335,9 @@ func (j *Job) Configure(o burst.Optics, frames int) (infer.Config, Method, error
 	if err != nil {
 		return cfg, Method{}, err
 	}
+	if err := l.SetTurns(max(j.Turns, 1)); err != nil {
+		return cfg, Method{}, fmt.Errorf("restore: %w", err)
+	}
 	m := Method{Start: l, Polish: j.Polish, Name: "learned"}
 	if j.Polish > 0 {
 		m.Name = fmt.Sprintf("learned+polish %d", j.Polish)
@@ -446,6 +450,7 @@ func (j *Job) meta(b *burst.Burst, cal *Calibrations, cfg infer.Config, method M
 		"patch":     strconv.Itoa(cfg.Patch),
 		"overlap":   strconv.Itoa(overlap),
 		"polish":    strconv.Itoa(j.Polish),
+		"turns":     strconv.Itoa(max(j.Turns, 1)),
 		"basis":     string(cfg.Basis),
 		"modes":     strconv.Itoa(cfg.Modes),
 		"frames":    strconv.Itoa(cfg.Frames),

@@ -54,7 +54,7 @@ func (j *Job) request(u unit) (string, error) {
 		off = fmt.Sprintf("%g,%g", j.Offset.DX, j.Offset.DY)
 	}
 	// Not the shard: a merged product equals a single run's.
-	fmt.Fprintln(h, fmt.Sprintf("%+v", j.Flags), j.Overlap, j.Polish, j.Fit, j.NoAlign, off, j.ModelOptional)
+	fmt.Fprintln(h, fmt.Sprintf("%+v", j.Flags), j.Overlap, j.Polish, max(j.Turns, 1), j.Fit, j.NoAlign, off, j.ModelOptional)
 	return hex.EncodeToString(h.Sum(nil)), nil
 }
 
