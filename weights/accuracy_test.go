@@ -3,8 +3,10 @@ package weights_test
 import (
 	"maps"
 	"math/rand/v2"
+	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"testing"
 
 	"pdwave/infer"
@@ -86,14 +88,34 @@ func boundSet(t *testing.T) []boundCase {
 // network's residual fraction (infer.ResidualFraction) over Noll 2–10 and
 // 2–21, and logs every burst.
 func medianErrors(t *testing.T, label string, m *net.Model, set []boundCase) map[string][2]float64 {
+	return medianErrorsTurned(t, label, m, set, 1)
+}
+
+// medianErrorsTurned is medianErrors for the learned estimate averaged over
+// turns symmetries of the square (infer.NetEstimator.SetTurns; 1 = the
+// network's own Estimator).
+func medianErrorsTurned(t *testing.T, label string, m *net.Model, set []boundCase, turns int) map[string][2]float64 {
 	t.Helper()
 	est, err := net.NewEstimator(m)
 	if err != nil {
 		t.Fatal(err)
 	}
+	ne, err := infer.NewNetEstimator(m, est.Basis())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := ne.SetTurns(turns); err != nil {
+		t.Fatal(err)
+	}
 	per := map[string][2][]float64{}
 	for i, c := range set {
 		_, noll, err := est.Burst(c.data)
+		if turns > 1 && err == nil {
+			var native [][]float64
+			if native, err = ne.Estimate([][][]float64{c.data[0], c.data[1]}); err == nil {
+				noll, err = infer.RemoveMeanTilt(est.Basis(), native)
+			}
+		}
 		if err != nil {
 			t.Fatalf("%s: burst %d: %v", label, i, err)
 		}
@@ -174,4 +196,26 @@ func TestBuiltInAccuracyBound(t *testing.T) {
 			}
 		}
 	}
+}
+
+// TestCandidateAccuracy, run only with PDWAVE_EVAL_WEIGHTS=FILE: the
+// accuracy of FILE's network on boundSet, as TestBuiltInAccuracyBound
+// measures the built-in weights, for TURNS (default 1) symmetries of the
+// square averaged over; it only logs.
+func TestCandidateAccuracy(t *testing.T) {
+	path := os.Getenv("PDWAVE_EVAL_WEIGHTS")
+	if path == "" {
+		t.Skip("set PDWAVE_EVAL_WEIGHTS=FILE to score a weight file on the bound set")
+	}
+	m, err := net.Load(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	turns := 1
+	if v := os.Getenv("TURNS"); v != "" {
+		if turns, err = strconv.Atoi(v); err != nil {
+			t.Fatal(err)
+		}
+	}
+	medianErrorsTurned(t, path, m, boundSet(t), turns)
 }
