@@ -8,6 +8,7 @@ import (
 	"testing"
 
 	"pdwave/model/instrument"
+	"pdwave/model/net"
 	"pdwave/model/site"
 	"pdwave/simulate"
 	"pdwave/weights"
@@ -27,22 +28,11 @@ func TestFlagStudy(t *testing.T) {
 		t.Skip("set PDWAVE_FLAG_STUDY=N to run the flag calibration study")
 	}
 	seed, _ := strconv.ParseUint(os.Getenv("PDWAVE_FLAG_SEED"), 10, 64)
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
 	model, err := weights.Default()
 	if err != nil {
 		t.Fatal(err)
 	}
-	cfg, used, note, err := ConfigWithWeights(instrument.Sources{Site: st.Instrument()}, 16, model, false)
-	if err != nil || !used {
-		t.Fatal(err, note)
-	}
-	full, err := NewFitter(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg, full, est, scenes := learnedStudySetup(t, model)
 	polish := make([]*Fitter, len(flagStudyPolish))
 	for i, k := range flagStudyPolish {
 		pc := cfg
@@ -51,18 +41,6 @@ func TestFlagStudy(t *testing.T) {
 		if polish[i], err = NewFitter(pc); err != nil {
 			t.Fatal(err)
 		}
-	}
-	est, err := NewNetEstimator(model, full.Basis())
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	scenes, err := SimulatedStudyScenes(scfg, "mix,granulation", shippedImages)
-	if err != nil {
-		t.Fatal(err)
 	}
 	fmt.Println(flagStudyHeader())
 	for si, sc := range scenes {
@@ -138,4 +116,36 @@ func flagStudyBurst(data [][][]float64, truth [][]float64, est *NetEstimator, fu
 		line += fmt.Sprintf("%.6g,", v)
 	}
 	return line + fmt.Sprintf("%.4g", full.PriorChi2(cl)), nil
+}
+
+// learnedStudySetup returns for model on the demo site the fit
+// configuration (16 frames), the full fitter, the learned estimator in its
+// basis and the scene sets mix and granulation of the studies.
+func learnedStudySetup(t *testing.T, model *net.Model) (Config, *Fitter, *NetEstimator, []StudyScene) {
+	t.Helper()
+	st, err := site.Load("../testdata/demo-site.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg, used, note, err := ConfigWithWeights(instrument.Sources{Site: st.Instrument()}, 16, model, false)
+	if err != nil || !used {
+		t.Fatal(err, note)
+	}
+	full, err := NewFitter(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	est, err := NewNetEstimator(model, full.Basis())
+	if err != nil {
+		t.Fatal(err)
+	}
+	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	scenes, err := SimulatedStudyScenes(scfg, "mix,granulation", shippedImages)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return cfg, full, est, scenes
 }

@@ -23,27 +23,13 @@ func TestOffsetStudy(t *testing.T) {
 	if os.Getenv("PDWAVE_OFFSET_STUDY") == "" {
 		t.Skip("set PDWAVE_OFFSET_STUDY=1 to run the offset study")
 	}
-	frames := int(envF("FRAMES", 16))
-	_, scfg := demoSite(t)
-	scfg.Frames = frames
-	scfg.Patch = int(envF("PATCH", float64(scfg.Patch)))
-	scfg.Oversample = int(envF("OVERSAMPLE", 0))
-	scfg.Camera.Photons = envF("PHOT", scfg.Camera.Photons)
-	scfg.Turbulence.R0 = scfg.Telescope.Diameter / envF("DR0", 5)
-	sim, err := simulate.New(scfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	images, err := shippedImages()
-	if err != nil {
-		t.Fatal(err)
-	}
-	mix := simulate.SceneMix(simulate.GranulationParams{}, images)
-	_, _, cfg := demoStudySetup(t, "granulation", frames, nil)
-	cfg.DOverR0 = envF("DR0", 5)
-	cfg.Patch = scfg.Patch
+	sim, mix, cfg := offsetSetup(t, envF("DR0", 5), func(c *simulate.Config) {
+		c.Frames = int(envF("FRAMES", 16))
+		c.Patch = int(envF("PATCH", float64(c.Patch)))
+		c.Oversample = int(envF("OVERSAMPLE", 0))
+		c.Camera.Photons = envF("PHOT", c.Camera.Photons)
+	})
 	cfg.Modes = int(envF("MODES", 36))
-	cfg.Metric.FitChannelOffset = true
 	cfg.Metric.HighPass = envF("HP", cfg.Metric.HighPass)
 	cfg.Metric.Window = envF("WINDOW", cfg.Metric.Window)
 	cfg.Stop.Iterations = int(envF("ITER", float64(cfg.Stop.Iterations)))

@@ -38,20 +38,7 @@ import (
 // sign flipped in the fit's ramp (pd) → error 1.4 px, fails; the
 // simulated offset dropped → 0.8 px.
 func TestFitChannelOffset(t *testing.T) {
-	_, scfg := demoSite(t)
-	scfg.Turbulence.R0 = scfg.Telescope.Diameter / 5
-	sim, err := simulate.New(scfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	images, err := shippedImages()
-	if err != nil {
-		t.Fatal(err)
-	}
-	mix := simulate.SceneMix(simulate.GranulationParams{}, images)
-	_, _, cfg := demoStudySetup(t, "granulation", scfg.Frames, nil)
-	cfg.DOverR0 = 5
-	cfg.Metric.FitChannelOffset = true
+	sim, mix, cfg := offsetSetup(t, 5, nil)
 	f, err := NewFitter(cfg)
 	if err != nil {
 		t.Fatal(err)
@@ -85,4 +72,29 @@ func medianOf(x []float64) float64 {
 	y := append([]float64(nil), x...)
 	sort.Float64s(y)
 	return stat.Quantile(0.5, stat.Empirical, y, nil)
+}
+
+// offsetSetup returns the demo simulator at D/r0 = dr0 (adjust, if not
+// nil, changes its configuration first), the scene mix over the shipped
+// images and the fit configuration for its bursts with the channel offset
+// fitted.
+func offsetSetup(t *testing.T, dr0 float64, adjust func(*simulate.Config)) (*simulate.Simulator, simulate.Scene, Config) {
+	t.Helper()
+	_, scfg := demoSite(t)
+	scfg.Turbulence.R0 = scfg.Telescope.Diameter / dr0
+	if adjust != nil {
+		adjust(&scfg)
+	}
+	sim, err := simulate.New(scfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	images, err := shippedImages()
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, _, cfg := demoStudySetup(t, "granulation", scfg.Frames, nil)
+	cfg.DOverR0, cfg.Patch = dr0, scfg.Patch
+	cfg.Metric.FitChannelOffset = true
+	return sim, simulate.SceneMix(simulate.GranulationParams{}, images), cfg
 }

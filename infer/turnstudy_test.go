@@ -7,10 +7,7 @@ import (
 	"strconv"
 	"testing"
 
-	"pdwave/model/instrument"
 	"pdwave/model/net"
-	"pdwave/model/site"
-	"pdwave/simulate"
 	"pdwave/weights"
 )
 
@@ -25,10 +22,6 @@ func TestTurnStudy(t *testing.T) {
 	if n <= 0 {
 		t.Skip("set PDWAVE_TURN_STUDY=N")
 	}
-	st, err := site.Load("../testdata/demo-site.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
 	model, err := weights.Default()
 	if w := os.Getenv("WEIGHTS"); w != "" {
 		model, err = net.Load(w)
@@ -36,18 +29,7 @@ func TestTurnStudy(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	cfg, _, _, err := ConfigWithWeights(instrument.Sources{Site: st.Instrument()}, 16, model, false)
-	if err != nil {
-		t.Fatal(err)
-	}
-	full, err := NewFitter(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	est, err := NewNetEstimator(model, full.Basis())
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg, full, est, scenes := learnedStudySetup(t, model)
 	for _, k := range []int{10, 20} {
 		pc := cfg
 		pc.Stop = Stop{Iterations: k}
@@ -59,14 +41,6 @@ func TestTurnStudy(t *testing.T) {
 		turnPolish = append(turnPolish, f)
 	}
 	tb, err := NewTurnBack(full.Basis())
-	if err != nil {
-		t.Fatal(err)
-	}
-	scfg, _, err := simulate.ConfigFromSite(st, instrument.Partial{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	scenes, err := SimulatedStudyScenes(scfg, "mix,granulation", shippedImages)
 	if err != nil {
 		t.Fatal(err)
 	}
