@@ -51,10 +51,23 @@ func TurnImage(dst, src []float64, n, t int) {
 	if len(dst) != n*n || len(src) != n*n || t < 0 || t >= Turns {
 		panic(fmt.Sprintf("infer: TurnImage lengths %d, %d for n = %d, transform %d", len(dst), len(src), n, t))
 	}
+	if n == 0 {
+		return
+	}
+	// The map is affine: along a row the source index moves by a fixed step.
+	step := 0
+	if n > 1 {
+		y1, x1 := TurnPixel(t, 0, 1, n)
+		y0, x0 := TurnPixel(t, 0, 0, n)
+		step = (y1-y0)*n + (x1 - x0)
+	}
 	for y := 0; y < n; y++ {
-		for x := 0; x < n; x++ {
-			sy, sx := TurnPixel(t, y, x, n)
-			dst[y*n+x] = src[sy*n+sx]
+		sy, sx := TurnPixel(t, y, 0, n)
+		i := sy*n + sx
+		row := dst[y*n : y*n+n]
+		for x := range row {
+			row[x] = src[i]
+			i += step
 		}
 	}
 }

@@ -1,8 +1,10 @@
 package infer
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"pdwave/weights"
@@ -144,6 +146,81 @@ func TestTurnedEstimateEquivariant(t *testing.T) {
 			if k == 1 && !(rel > 0.01) {
 				t.Errorf("control: the single prediction is equivariant under turn %d to %.3g — the test cannot tell", s, rel)
 			}
+		}
+	}
+}
+
+// BenchmarkTurnedEstimate: the learned estimate of one 64² × 16-frame
+// demo burst, shipped weights, averaged over TURNS 1, 4 and 8.
+func BenchmarkTurnedEstimate(b *testing.B) {
+	model, err := weights.Default()
+	if err != nil {
+		b.Fatal(err)
+	}
+	cfg := DefaultConfig()
+	cfg.Telescope = demoTelescope()
+	f, err := NewFitter(cfg)
+	if err != nil {
+		b.Fatal(err)
+	}
+	data, _, err := demoSource(b)(StudyCase{DOverR0: 5, Patch: 64, Frames: 16, DiversityPV: 1}, rand.New(rand.NewPCG(5, 5)))
+	if err != nil {
+		b.Fatal(err)
+	}
+	for _, k := range []int{1, 4, Turns} {
+		est, err := NewNetEstimator(model, f.Basis())
+		if err != nil {
+			b.Fatal(err)
+		}
+		if err := est.SetTurns(k); err != nil {
+			b.Fatal(err)
+		}
+		b.Run(fmt.Sprintf("turns=%d", k), func(b *testing.B) {
+			for b.Loop() {
+				if _, err := est.Estimate(data); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}
+
+// TestTurnImage: TurnImage's row-stride walk equals TurnPixel pixel by
+// pixel for every transform, on odd and even sides; the four rotations
+// compose (turn 1 four times is the identity) and every reflection is its
+// own inverse.
+func TestTurnImage(t *testing.T) {
+	for _, n := range []int{1, 4, 5} {
+		src := make([]float64, n*n)
+		for i := range src {
+			src[i] = float64(i)
+		}
+		for tr := 0; tr < Turns; tr++ {
+			dst := make([]float64, n*n)
+			TurnImage(dst, src, n, tr)
+			for y := 0; y < n; y++ {
+				for x := 0; x < n; x++ {
+					sy, sx := TurnPixel(tr, y, x, n)
+					if dst[y*n+x] != src[sy*n+sx] {
+						t.Fatalf("n %d turn %d: pixel (%d, %d) = %g, want %g", n, tr, y, x, dst[y*n+x], src[sy*n+sx])
+					}
+				}
+			}
+			if tr >= 4 {
+				back := make([]float64, n*n)
+				TurnImage(back, dst, n, tr)
+				if !slices.Equal(back, src) {
+					t.Errorf("n %d: reflection %d is not its own inverse", n, tr)
+				}
+			}
+		}
+		a, b := append([]float64(nil), src...), make([]float64, n*n)
+		for k := 0; k < 4; k++ {
+			TurnImage(b, a, n, 1)
+			a, b = b, a
+		}
+		if !slices.Equal(a, src) {
+			t.Errorf("n %d: four quarter turns are not the identity", n)
 		}
 	}
 }
