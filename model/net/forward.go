@@ -329,23 +329,24 @@ func (L *convLayer) run() {
 				if useVec {
 					convTileVec(&L.out[cb+t], cs, &L.in[pbase+t], &L.offB[0], &w[0], k, bias, true)
 				} else {
-					convTile(L.out[cb+t:], cs, L.in[pbase+t:], L.off, w, bias, true)
+					convTile(L.out[cb+t:], cs, L.in[pbase+t:], L.off, w, bias, true, 8)
 				}
 			}
 		}
 	}
 }
 
-// convTile computes one 4-channel × 8-position tile: for i < 4, j < 8,
-// c[i·cs+j] = bias[i] + Σ_κ w[4κ+i]·p[off[κ]+j], then max(0, ·) if relu.
-// It runs in four 4 × 2 sub-tiles whose eight sums stay in registers.
-func convTile(c []float64, cs int, p []float64, off []int, w []float64, bias *[4]float64, relu bool) {
+// convTile computes one 4-channel × width-position tile (width even): for
+// i < 4, j < width, c[i·cs+j] = bias[i] + Σ_κ w[4κ+i]·p[off[κ]+j], then
+// max(0, ·) if relu. It runs in 4 × 2 sub-tiles whose eight sums stay in
+// registers. The float64 pass uses width 8, the float32 pass tile32.
+func convTile[T float32 | float64](c []T, cs int, p []T, off []int, w []T, bias *[4]T, relu bool, width int) {
 	w = w[:4*len(off)]
-	for j := 0; j < 8; j += 2 {
-		var a0, a1, b0, b1, c0, c1, d0, d1 float64
+	for j := 0; j < width; j += 2 {
+		var a0, a1, b0, b1, c0, c1, d0, d1 T
 		for kk, o := range off {
-			in := (*[2]float64)(p[o+j : o+j+2])
-			wk := (*[4]float64)(w[4*kk : 4*kk+4])
+			in := (*[2]T)(p[o+j : o+j+2])
+			wk := (*[4]T)(w[4*kk : 4*kk+4])
 			x0, x1 := in[0], in[1]
 			a0 += wk[0] * x0
 			a1 += wk[0] * x1
@@ -356,8 +357,8 @@ func convTile(c []float64, cs int, p []float64, off []int, w []float64, bias *[4
 			d0 += wk[3] * x0
 			d1 += wk[3] * x1
 		}
-		for i, v := range [4][2]float64{{a0, a1}, {b0, b1}, {c0, c1}, {d0, d1}} {
-			row := (*[2]float64)(c[i*cs+j : i*cs+j+2])
+		for i, v := range [4][2]T{{a0, a1}, {b0, b1}, {c0, c1}, {d0, d1}} {
+			row := (*[2]T)(c[i*cs+j : i*cs+j+2])
 			for q, x := range v {
 				x += bias[i]
 				if relu && x < 0 {

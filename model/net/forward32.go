@@ -420,40 +420,7 @@ func (L *convLayer32) run() {
 			cb := (pb*4*o + oy) * lp
 			pbase := oy * L.rs
 			for t := 0; t < lp; t += tile32 {
-				convTile32(L.out[cb+t:], cs, L.in[pbase+t:], L.off, w, bias, true)
-			}
-		}
-	}
-}
-
-// convTile32 computes one 4-channel × 16-position tile: for i < 4, j < 16,
-// c[i·cs+j] = bias[i] + Σ_κ w[4κ+i]·p[off[κ]+j], then max(0, ·) if relu.
-// It runs in eight 4 × 2 sub-tiles whose eight sums stay in registers.
-func convTile32(c []float32, cs int, p []float32, off []int, w []float32, bias *[4]float32, relu bool) {
-	w = w[:4*len(off)]
-	for j := 0; j < tile32; j += 2 {
-		var a0, a1, b0, b1, c0, c1, d0, d1 float32
-		for kk, o := range off {
-			in := (*[2]float32)(p[o+j : o+j+2])
-			wk := (*[4]float32)(w[4*kk : 4*kk+4])
-			x0, x1 := in[0], in[1]
-			a0 += wk[0] * x0
-			a1 += wk[0] * x1
-			b0 += wk[1] * x0
-			b1 += wk[1] * x1
-			c0 += wk[2] * x0
-			c1 += wk[2] * x1
-			d0 += wk[3] * x0
-			d1 += wk[3] * x1
-		}
-		for i, v := range [4][2]float32{{a0, a1}, {b0, b1}, {c0, c1}, {d0, d1}} {
-			row := (*[2]float32)(c[i*cs+j : i*cs+j+2])
-			for q, x := range v {
-				x += bias[i]
-				if relu && x < 0 {
-					x = 0
-				}
-				row[q] = x
+				convTile(L.out[cb+t:], cs, L.in[pbase+t:], L.off, w, bias, true, tile32)
 			}
 		}
 	}
@@ -514,7 +481,7 @@ func (d *dense32) run(dst, x, b []float32, fpad int) {
 		bias := (*[4]float32)(b[4*pb : 4*pb+4])
 		c := dst[4*pb*fpad:]
 		for t := 0; t < fpad; t += tile32 {
-			convTile32(c[t:], fpad, x[t:], d.off, w, bias, d.relu)
+			convTile(c[t:], fpad, x[t:], d.off, w, bias, d.relu, tile32)
 		}
 	}
 }

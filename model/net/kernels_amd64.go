@@ -15,12 +15,12 @@ var useVec = cpufeat.AVX2FMA
 //go:noescape
 func convTileVec(c *float64, cs int, p *float64, off *int, w *float64, k int, bias *[4]float64, relu bool)
 
-// convTiles32Vec is convTile32 (see forward32.go) in AVX2+FMA for nt ≥ 1
+// convTiles32Vec is convTile at width tile32 (see forward.go) in AVX2+FMA for nt ≥ 1
 // tiles side by side and np ≥ 1 panels of 4 output channels: tile t of
 // panel b reads p + 16t, the weights w + 4kb and the bias + 4b, and writes
 // c + 16t + 4b·cs. c, p, w and bias point at the first elements, off holds
 // k ≥ 1 byte offsets, cs is the row stride of c in elements. The bias
-// starts the sums, so the rounding differs from convTile32 (which adds it
+// starts the sums, so the rounding differs from convTile (which adds it
 // last).
 //
 //go:noescape
