@@ -3,6 +3,7 @@ package infer
 import (
 	"fmt"
 
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 
 	"pdwave/model/modes"
@@ -118,8 +119,20 @@ func NewTurnBack(b *modes.Basis) (*TurnBack, error) {
 
 // Back stores in dst (length Count) the native coefficients of the
 // recorded burst's wavefront given those of the burst turned by t, c.
-// dst must not alias c. It panics on wrong lengths or t.
+// dst must not alias c. It panics on wrong lengths or t; it allocates
+// nothing.
 func (tb *TurnBack) Back(dst, c []float64, t int) {
-	d := mat.NewVecDense(len(dst), dst)
-	d.MulVec(tb.back[t], mat.NewVecDense(len(c), c))
+	mulRows(dst, tb.back[t], c)
+}
+
+// mulRows sets dst = a·c for the dense matrix a (len(dst) × len(c))
+// without allocating. dst must not alias c; it panics on wrong lengths.
+func mulRows(dst []float64, a *mat.Dense, c []float64) {
+	r, k := a.Dims()
+	if len(dst) != r || len(c) != k {
+		panic(fmt.Sprintf("infer: %d×%d matrix times %d values into %d", r, k, len(c), len(dst)))
+	}
+	for i := range dst {
+		dst[i] = floats.Dot(a.RawRowView(i), c)
+	}
 }

@@ -224,3 +224,44 @@ func TestTurnImage(t *testing.T) {
 		}
 	}
 }
+
+// TestTurnedEstimateAllocs: averaging over turns allocates no more than
+// the single prediction (only the result rows Estimate returns): turning,
+// predicting and turning back reuse the worker's buffers. Planted: the
+// turn-back through mat.VecDense → 113 allocations against 17, fails.
+func TestTurnedEstimateAllocs(t *testing.T) {
+	model, err := weights.Default()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg := DefaultConfig()
+	cfg.Telescope = demoTelescope()
+	f, err := NewFitter(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	data, _, err := demoSource(t)(StudyCase{DOverR0: 5, Patch: 64, Frames: 16, DiversityPV: 1}, rand.New(rand.NewPCG(5, 5)))
+	if err != nil {
+		t.Fatal(err)
+	}
+	allocs := map[int]float64{}
+	for _, k := range []int{1, 4} {
+		est, err := NewNetEstimator(model, f.Basis())
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := est.SetTurns(k); err != nil {
+			t.Fatal(err)
+		}
+		est.Estimate(data) // the worker's buffers
+		allocs[k] = testing.AllocsPerRun(5, func() {
+			if _, err := est.Estimate(data); err != nil {
+				t.Fatal(err)
+			}
+		})
+	}
+	t.Logf("allocations per Estimate: 1 turn %.0f, 4 turns %.0f", allocs[1], allocs[4])
+	if allocs[4] > allocs[1] {
+		t.Errorf("4 turns allocate %.0f times per Estimate, the single prediction %.0f", allocs[4], allocs[1])
+	}
+}

@@ -158,7 +158,7 @@ func (e *NetEstimator) predict(w *netWorker, data [2][][]float64, out [][]float6
 	for j := range out {
 		copy(w.c, w.y[j*m:(j+1)*m])
 		if e.conv != nil {
-			mat.NewVecDense(m, w.d).MulVec(e.conv, mat.NewVecDense(m, w.c))
+			mulRows(w.d, e.conv, w.c)
 			w.c, w.d = w.d, w.c
 		}
 		if t > 0 {

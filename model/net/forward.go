@@ -261,9 +261,9 @@ func phaseOffsets(off, offB []int, cin, o1, rs, esz int) {
 }
 
 // zeroed returns b resliced to n zeros, reallocated if too small.
-func zeroed(b []float64, n int) []float64 {
+func zeroed[T float32 | float64](b []T, n int) []T {
 	if cap(b) < n {
-		return make([]float64, n)
+		return make([]T, n)
 	}
 	b = b[:n]
 	clear(b)

@@ -306,35 +306,25 @@ func (p *Predictor32) layout(frames int) {
 		o1 := L.o + 1
 		L.lpad = (frames*o1 + tile32 - 1) / tile32 * tile32
 		L.rs = L.lpad + tile32
-		L.in = zeroed32(L.in, L.cin*4*o1*L.rs)
+		L.in = zeroed(L.in, L.cin*4*o1*L.rs)
 		phaseOffsets(L.off, L.offB, L.cin, o1, L.rs, 4)
 		// The kernel's reach: the last term's offset plus the strip.
 		if reach := L.off[L.k-1] + (L.o-1)*L.rs + L.lpad; reach > len(L.in) {
 			panic(fmt.Sprintf("net: internal error: layer %d reads %d of %d values", l+1, reach, len(L.in)))
 		}
-		L.out = zeroed32(L.out, len(L.bp)*L.o*L.lpad)
+		L.out = zeroed(L.out, len(L.bp)*L.o*L.lpad)
 	}
 	a := p.arch
-	p.flat = zeroed32(p.flat, a.flat()*p.fpad)
-	p.encT = zeroed32(p.encT, 4*p.enc.panels*p.fpad)
-	p.hidT = zeroed32(p.hidT, 4*p.head.panels*p.fpad)
-	p.yT = zeroed32(p.yT, 4*p.out.panels*p.fpad)
+	p.flat = zeroed(p.flat, a.flat()*p.fpad)
+	p.encT = zeroed(p.encT, 4*p.enc.panels*p.fpad)
+	p.hidT = zeroed(p.hidT, 4*p.head.panels*p.fpad)
+	p.yT = zeroed(p.yT, 4*p.out.panels*p.fpad)
 	for _, d := range []*dense32{&p.enc, &p.head, &p.out} {
 		for k := range d.off {
 			d.off[k] = k * p.fpad
 			d.offB[k] = 4 * k * p.fpad
 		}
 	}
-}
-
-// zeroed32 returns b resliced to n zeros, reallocated if too small.
-func zeroed32(b []float32, n int) []float32 {
-	if cap(b) < n {
-		return make([]float32, n)
-	}
-	b = b[:n]
-	clear(b)
-	return b
 }
 
 // putImage writes input channel ci of frame f (s × s values) into the phase

@@ -141,19 +141,8 @@ func TestPredictor32Panics(t *testing.T) {
 // differ from the float64 Predictor's by far less than their error (the
 // model card's rms error is of order 0.1 rad): below 1e-4 rad rms.
 func TestShippedWeights32(t *testing.T) {
-	m, err := Load("../../weights/demo.safetensors")
-	if err != nil {
-		t.Fatal(err)
-	}
-	f, err := NewFeaturizer(m)
-	if err != nil {
-		t.Fatal(err)
-	}
 	const frames = 16
-	x := make([]float64, f.Len(frames))
-	if err := f.Burst(x, randomBurst(frames, m.Meta.Patch, 21)); err != nil {
-		t.Fatal(err)
-	}
+	m, x := shippedFeatures(t, frames)
 	p := NewPredictor32(m)
 	want := refRaw(m, x, frames)
 	got := make([]float64, len(want))

@@ -162,19 +162,8 @@ func TestPredictNoAllocs(t *testing.T) {
 
 // The shipped weights give the reference's outputs on real features.
 func TestShippedWeightsMatchReference(t *testing.T) {
-	m, err := Load("../../weights/demo.safetensors")
-	if err != nil {
-		t.Fatal(err)
-	}
-	f, err := NewFeaturizer(m)
-	if err != nil {
-		t.Fatal(err)
-	}
 	const frames = 6
-	x := make([]float64, f.Len(frames))
-	if err := f.Burst(x, randomBurst(frames, m.Meta.Patch, 21)); err != nil {
-		t.Fatal(err)
-	}
+	m, x := shippedFeatures(t, frames)
 	want := refRaw(m, x, frames)
 	got := make([]float64, len(want))
 	NewPredictor(m).Raw(got, x, frames)
@@ -183,4 +172,23 @@ func TestShippedWeightsMatchReference(t *testing.T) {
 			t.Fatalf("output %d: %.15g, reference %.15g", i, got[i], w)
 		}
 	}
+}
+
+// shippedFeatures returns the shipped weights and the features of a
+// random burst of frames frames (seed 21) for them.
+func shippedFeatures(t *testing.T, frames int) (*Model, []float64) {
+	t.Helper()
+	m, err := Load("../../weights/demo.safetensors")
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := NewFeaturizer(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x := make([]float64, f.Len(frames))
+	if err := f.Burst(x, randomBurst(frames, m.Meta.Patch, 21)); err != nil {
+		t.Fatal(err)
+	}
+	return m, x
 }
