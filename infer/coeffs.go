@@ -142,6 +142,7 @@ func (r *Result) Notes() []string {
 		fmt.Sprintf("metric_after: %.8g", r.MetricEnd),
 		fmt.Sprintf("data_metric_before: %.8g", r.DataStart),
 		fmt.Sprintf("data_metric_after: %.8g", r.DataEnd),
+		fmt.Sprintf("exact_edge_objective_after: %.8g", r.ExactEnd),
 		fmt.Sprintf("iterations: %d", r.Iterations),
 		fmt.Sprintf("seconds: %.3f", r.Elapsed.Seconds()),
 	}

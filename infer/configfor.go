@@ -40,13 +40,14 @@ func HeaderInstrument(o burst.Optics) instrument.Partial {
 // Settings describes the configuration for provenance (FITS HISTORY cards
 // via fits.Provenance, "# key: value" lines of a coefficient CSV): the
 // instrument's settings (instrument.Instrument.Settings), frames,
-// iterations, prior and, when known, where each instrument value came from
+// iterations, exact-edge iterations, prior and, when known, where each instrument value came from
 // ("from"). The caller adds its own keys (command, input files, patch
 // position).
 func (c Config) Settings() map[string]string {
 	m := c.Instrument.Settings()
 	m["frames"] = strconv.Itoa(c.Frames)
 	m["iterations"] = strconv.Itoa(c.Stop.Iterations)
+	m["exact_edges"] = strconv.Itoa(c.ExactEdges)
 	m["prior"] = strconv.FormatFloat(c.Prior, 'g', -1, 64)
 	if len(c.Notes) > 0 {
 		m["from"] = c.Notes.String()

@@ -62,7 +62,8 @@ type FitJob struct {
 	Name       string             // the burst as the user named it (provenance)
 	SiteName   string             // the site file's name (provenance)
 	Sources    instrument.Sources // flags, header, site
-	Iterations int                // L-BFGS iterations
+	Iterations int                // L-BFGS iterations on the periodic metric
+	ExactEdges int                // L-BFGS iterations of the exact-edge refinement (Config.ExactEdges; 0 = none)
 	Wall       time.Duration      // wall time per fit; 0 = none
 	Prior      float64            // prior weight
 	Version    string
@@ -89,6 +90,7 @@ func (j FitJob) Run() (string, error) {
 	}
 	j.logf("%s", c.Note(b, "fitting"))
 	cfg.Stop.Iterations, cfg.Stop.WallTime, cfg.Prior = j.Iterations, j.Wall, j.Prior
+	cfg.ExactEdges = j.ExactEdges
 	fitter, err := NewFitter(cfg)
 	if err != nil {
 		return "", fmt.Errorf("%s: %w", j.Name, err)
@@ -139,6 +141,8 @@ func fitCards(cfg Config, res *Result) []fits.Card {
 		{Key: "METRIC1", Value: res.MetricEnd, Comment: "objective after the fit"},
 		{Key: "DATAM0", Value: res.DataStart, Comment: "normalised metric L/P before the fit"},
 		{Key: "DATAM1", Value: res.DataEnd, Comment: "normalised metric L/P after the fit"},
+		{Key: "EXACTIT", Value: cfg.ExactEdges, Comment: "exact-edge refinement iterations (0 = none)"},
+		{Key: "EXACT1", Value: res.ExactEnd, Comment: "exact-edge objective after the fit (0 = none)"},
 	}
 }
 

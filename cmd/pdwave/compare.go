@@ -72,7 +72,7 @@ func init() {
 	f.StringVar(&compareOpts.site, "site", "", "site/telescope YAML file (fills optics the burst header lacks, expected seeing, sizes)")
 	f.StringVar(&compareOpts.weights, "weights", "", "network weight file (default: the built-in weights, if they fit the telescope)")
 	f.IntVar(&compareOpts.polish, "polish", 5, "L-BFGS iterations of the polish started from the learned coefficients (0 = no polished estimate)")
-	f.IntVar(&compareOpts.iterations, "iterations", 200, "maximum L-BFGS iterations of the full fit")
+	f.IntVar(&compareOpts.iterations, "iterations", infer.DefaultConfig().Stop.Iterations, "maximum L-BFGS iterations of the full fit on the windowed metric (the exact-edge refinement follows, as in fit)")
 	f.IntVar(&compareOpts.turns, "turns", infer.DefaultTurns, "average the network over 1, 4 or 8 symmetries of the square, as restore does")
 	f.IntVar(&compareOpts.patch, "patch", 0, "patch side, pixels (default: from the weights, else the site file, else 64)")
 	f.IntVar(&compareOpts.overlap, "overlap", -1, "overlap of neighbouring patches, pixels, as in restore (default: a quarter of the patch)")

@@ -187,6 +187,7 @@ func newFitters(cfg Config, learned infer.Estimator) (fitter, polisher *infer.Fi
 	if learned != nil && cfg.Polish > 0 {
 		pc := fc
 		pc.Stop = infer.Stop{Iterations: cfg.Polish}
+		pc.ExactEdges = 0 // a polish is the periodic metric's few steps
 		if polisher, err = infer.NewFitter(pc); err != nil {
 			return nil, nil, fmt.Errorf("compare: polish: %w", err)
 		}

@@ -68,6 +68,7 @@ func NewFieldSetup(cfg infer.Config, m Method) (*FieldSetup, error) {
 		if m.Polish > 0 {
 			pc := cfg
 			pc.Stop = infer.Stop{Iterations: m.Polish}
+			pc.ExactEdges = 0 // a polish is the periodic metric's few steps
 			p.polish, err = infer.NewFitter(pc)
 			if err != nil {
 				return nil, err

@@ -73,6 +73,17 @@
 // the channel's phase density projected on the ramp, summed over frames.
 // The parameter layout is given by NumParams.
 //
+// SetExactEdges switches the objective to one without the window's model
+// error: the object lives on a support larger than the patch and the data
+// are the crop of its convolution with each PSF, the object eliminated by
+// regularised least squares (variable projection),
+//
+//	E_x(α) = N²/P̄ · min_o [ Σ_jk ‖C(s_jk ⊗ o) − (d_jk − d̄)‖² + μ‖o‖² ] + prior,
+//
+// with C the crop to the N×N data and μ a small ridge; see edge.go for the
+// solve and the gradient. It costs about four times the periodic metric
+// per evaluation and is meant for a refinement after the periodic fit.
+//
 // An independent numpy implementation (testdata/pdref.py) checks the
 // objective, gradient, noise measurement, mask and object estimate.
 package pd

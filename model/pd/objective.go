@@ -140,10 +140,11 @@ type Objective struct {
 	tiltModes    [2]int
 	scratchGrad  []float64
 	lastL, lastP float64
-	nOff         int       // number of offset parameters (0 without FitChannelOffset)
-	rx, ry       []float64 // phase per pixel of image shift in x, y at pidx (rad/px)
-	off          []float64 // current channel offsets (px), [2·(k−1) + 0/1]
-	offGrad      []float64 // ∂L/∂offset accumulator (scaled like qacc)
+	nOff         int        // number of offset parameters (0 without FitChannelOffset)
+	rx, ry       []float64  // phase per pixel of image shift in x, y at pidx (rad/px)
+	off          []float64  // current channel offsets (px), [2·(k−1) + 0/1]
+	offGrad      []float64  // ∂L/∂offset accumulator (scaled like qacc)
+	edge         *edgeModel // CorrectEdges' buffers (nil until first use)
 }
 
 // NewObjective returns a solver for frames frames seen through len(diversity)
@@ -597,6 +598,9 @@ var ErrNoSignal = errors.New("pd: no frequency above the noise floor")
 // empty. It allocates nothing.
 func (s *Objective) SetData(data [][][]float64) error {
 	s.hasData = false
+	if s.edge != nil {
+		s.edge.on = false
+	}
 	if err := s.checkData(data); err != nil {
 		return err
 	}
@@ -996,8 +1000,11 @@ func (s *Objective) ValueGrad(grad, alpha []float64) float64 {
 		panic(fmt.Sprintf("pd: grad has length %d, want %d", len(grad), s.NumParams()))
 	}
 	s.load(alpha, "ValueGrad")
-	L := s.otfs()
-	s.lastL = L / s.norm
+	if s.edge != nil && s.edge.on {
+		s.lastL = s.exactValueGrad(grad)
+	} else {
+		s.lastL = s.otfs() / s.norm
+	}
 	var prior float64
 	w := s.set.PriorWeight
 	m := s.count
@@ -1017,10 +1024,13 @@ func (s *Objective) ValueGrad(grad, alpha []float64) float64 {
 	return s.lastL + prior
 }
 
-// gradient stores ∂E/∂α in grad after otfs: the phase densities from
-// densities, projected on the modes and offset ramps, plus the prior.
+// gradient stores ∂E/∂α in grad after otfs (or exactValueGrad): the phase
+// densities from densities (or left by exactValueGrad), projected on the
+// modes and offset ramps, plus the prior.
 func (s *Objective) gradient(grad []float64) {
-	s.densities()
+	if s.edge == nil || !s.edge.on {
+		s.densities()
+	}
 	m := s.count
 	w := s.set.PriorWeight
 	for j := 0; j < s.frames; j++ {

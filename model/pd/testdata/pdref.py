@@ -20,6 +20,10 @@ the cogradient convention dL = Re sum conj(g_z) dz for complex z; it passes
 through ifft2 for the OTF step and keeps the derivative of the PSF
 normalisation, unlike the Go code. A central-difference check of this
 script's own gradient is printed as fd_rel_err.
+
+With an "exact" entry (m, pad, mu) it evaluates instead the exact-edge
+objective by dense linear algebra (exact_value) and its gradient by central
+differences of that value.
 """
 import json
 import sys
@@ -195,11 +199,62 @@ class Case:
         return L / self.pbar + prior, L / self.pbar, prior, grad, rest
 
 
+def exact_value(case, c, x):
+    """The exact-edge objective by dense linear algebra: the object on an
+    m x m grid, each image the crop (rows and columns pad..pad+n-1) of the
+    circular convolution on that grid with the origin-centred n x n PSF,
+    the object eliminated by solving the regularised normal equations
+    directly. Returns E = n^2 J / Pbar + prior."""
+    n, m, pad, mu = case.n, c["exact"]["m"], c["exact"]["pad"], c["exact"]["mu"]
+    data = np.array(c["data"], float).reshape(case.nch, case.frames, n, n)
+    level = data.mean()
+    nt = case.frames * case.count
+    ap, off = case.project(np.asarray(x[:nt], float)), np.asarray(x[nt:], float)
+    r = signed(n)
+    lhs = mu * np.eye(m * m)
+    rhs = np.zeros(m * m)
+    ks, ds = [], []
+    for j, k, ph in case.phases(ap, off):
+        I = np.abs(np.fft.ifft2(case.amp * np.exp(1j * ph))) ** 2
+        s = I / I.sum()
+        K = np.zeros((n * n, m * m))
+        rows = np.arange(n * n)
+        y, xx = rows // n, rows % n
+        for a in range(n):
+            for b in range(n):
+                cols = ((y + pad - r[a]) % m) * m + (xx + pad - r[b]) % m
+                K[rows, cols] += s[a, b]
+        d = (data[k, j] - level).ravel()
+        lhs += K.T @ K
+        rhs += K.T @ d
+        ks.append(K)
+        ds.append(d)
+    o = np.linalg.solve(lhs, rhs)
+    J = sum(float(((K @ o - d) ** 2).sum()) for K, d in zip(ks, ds)) + mu * float((o ** 2).sum())
+    prior = 0.5 * case.w * float((ap.reshape(case.frames, case.count) ** 2 * case.inv_var).sum())
+    return n * n * J / case.pbar + prior
+
+
+def main_exact(case, c, x):
+    value = exact_value(case, c, x)
+    h = 1e-6
+    fd = np.empty_like(x)
+    for i in range(len(x)):
+        xp, xm = x.copy(), x.copy()
+        xp[i] += h
+        xm[i] -= h
+        fd[i] = (exact_value(case, c, xp) - exact_value(case, c, xm)) / (2 * h)
+    json.dump({"value": value, "grad": fd.tolist()}, sys.stdout)
+
+
 def main():
     with open(sys.argv[1]) as f:
         c = json.load(f)
     case = Case(c)
     x = np.array(c["alpha"], float)
+    if c.get("exact"):
+        main_exact(case, c, x)
+        return
     value, metric, prior, grad, rest = case.evaluate(x)
     # Own sanity check: central differences of this script's value.
     h = 1e-6
