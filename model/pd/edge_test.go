@@ -64,7 +64,8 @@ func converged(t *testing.T, s *Objective, grad, alpha []float64) float64 {
 	return 0
 }
 
-// benchData regenerates benchSolverWith's data (same seed).
+// benchData returns benchSolverWith's data: 2 channels of a sinusoidal
+// pattern plus 1 % noise (seed fixed).
 func benchData(s *Objective) [][][]float64 {
 	n, frames, _, _ := s.Size()
 	rng := rand.New(rand.NewPCG(1, 2))

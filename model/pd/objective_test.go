@@ -382,19 +382,7 @@ func benchSolverWith(tb testing.TB, offset bool) (*Objective, []float64, []float
 	s := NewObjective(pup, b, div, frames, Settings{PriorWeight: 0.1, NoiseFilter: true, TiltConstrain: true, FitChannelOffset: offset})
 	s.SetPrior(KolmogorovPrior(b, 5))
 	rng := rand.New(rand.NewPCG(1, 2))
-	data := make([][][]float64, 2)
-	for k := range data {
-		data[k] = make([][]float64, frames)
-		for j := range data[k] {
-			img := make([]float64, n*n)
-			for i := range img {
-				y, x := i/n, i%n
-				img[i] = 1 + 0.1*math.Sin(float64(x)*0.7+float64(y)*0.3+float64(j)) + 0.01*rng.NormFloat64()
-			}
-			data[k][j] = img
-		}
-	}
-	if err := s.SetData(data); err != nil {
+	if err := s.SetData(benchData(s)); err != nil {
 		tb.Fatal(err)
 	}
 	alpha := make([]float64, s.NumParams())

@@ -235,15 +235,20 @@ def exact_value(case, c, x):
     return n * n * J / case.pbar + prior
 
 
-def main_exact(case, c, x):
-    value = exact_value(case, c, x)
-    h = 1e-6
+def central_diff(f, x, h=1e-6):
+    """Central differences of the scalar function f at x, step h."""
     fd = np.empty_like(x)
     for i in range(len(x)):
         xp, xm = x.copy(), x.copy()
         xp[i] += h
         xm[i] -= h
-        fd[i] = (exact_value(case, c, xp) - exact_value(case, c, xm)) / (2 * h)
+        fd[i] = (f(xp) - f(xm)) / (2 * h)
+    return fd
+
+
+def main_exact(case, c, x):
+    value = exact_value(case, c, x)
+    fd = central_diff(lambda v: exact_value(case, c, v), x)
     json.dump({"value": value, "grad": fd.tolist()}, sys.stdout)
 
 
@@ -257,13 +262,7 @@ def main():
         return
     value, metric, prior, grad, rest = case.evaluate(x)
     # Own sanity check: central differences of this script's value.
-    h = 1e-6
-    fd = np.empty_like(x)
-    for i in range(len(x)):
-        xp, xm = x.copy(), x.copy()
-        xp[i] += h
-        xm[i] -= h
-        fd[i] = (case.value(xp) - case.value(xm)) / (2 * h)
+    fd = central_diff(case.value, x)
     fd_err = float(np.abs(fd - grad).max() / np.abs(grad).max())
     out = {
         "value": value, "metric": metric, "prior": prior,
