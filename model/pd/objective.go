@@ -986,8 +986,10 @@ func (s *Objective) load(alpha []float64, who string) {
 	}
 }
 
-// ValueGrad returns the objective E(α) (see the package comment) and, if
-// grad is not nil, stores ∂E/∂α in grad. alpha and grad have length
+// ValueGrad returns the objective E(α) (see the package comment; after
+// SetExactEdges, the exact-edge objective E_x, whose data term LastTerms
+// then reports) and, if grad is not nil, stores ∂E/∂α in grad. alpha and
+// grad have length
 // NumParams: frames·modes coefficients, frame-major (alpha[j*modes+m]),
 // then the channel offsets in pixels with Settings.FitChannelOffset; grad
 // may not alias alpha. It panics if SetData has not succeeded or on wrong
