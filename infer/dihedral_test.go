@@ -7,6 +7,7 @@ import (
 	"slices"
 	"testing"
 
+	"pdwave/model/net"
 	"pdwave/weights"
 )
 
@@ -83,16 +84,7 @@ func TestTurnBackFit(t *testing.T) {
 // differ by more than 1 % — and dropping the turn-back breaks the 8-turn
 // case (planted: 0.37–0.42 of the rms; the control measured 0.32–0.36). Shipped weights, one demo burst.
 func TestTurnedEstimateEquivariant(t *testing.T) {
-	model, err := weights.Default()
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg := DefaultConfig()
-	cfg.Telescope = demoTelescope()
-	f, err := NewFitter(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
+	model, f := shippedNetSetup(t)
 	est, err := NewNetEstimator(model, f.Basis())
 	if err != nil {
 		t.Fatal(err)
@@ -105,7 +97,7 @@ func TestTurnedEstimateEquivariant(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	n, m := cfg.Patch, f.Basis().Count
+	n, m := f.Config().Patch, f.Basis().Count
 	for _, k := range []int{Turns, 1} {
 		if err := est.SetTurns(k); err != nil {
 			t.Fatal(err)
@@ -150,19 +142,27 @@ func TestTurnedEstimateEquivariant(t *testing.T) {
 	}
 }
 
-// BenchmarkTurnedEstimate: the learned estimate of one 64² × 16-frame
-// demo burst, shipped weights, averaged over TURNS 1, 4 and 8.
-func BenchmarkTurnedEstimate(b *testing.B) {
+// shippedNetSetup returns the shipped weights and a fit of the default
+// configuration on the demo telescope (whose basis the estimators use).
+func shippedNetSetup(tb testing.TB) (*net.Model, *Fitter) {
+	tb.Helper()
 	model, err := weights.Default()
 	if err != nil {
-		b.Fatal(err)
+		tb.Fatal(err)
 	}
 	cfg := DefaultConfig()
 	cfg.Telescope = demoTelescope()
 	f, err := NewFitter(cfg)
 	if err != nil {
-		b.Fatal(err)
+		tb.Fatal(err)
 	}
+	return model, f
+}
+
+// BenchmarkTurnedEstimate: the learned estimate of one 64² × 16-frame
+// demo burst, shipped weights, averaged over TURNS 1, 4 and 8.
+func BenchmarkTurnedEstimate(b *testing.B) {
+	model, f := shippedNetSetup(b)
 	data, _, err := demoSource(b)(StudyCase{DOverR0: 5, Patch: 64, Frames: 16, DiversityPV: 1}, rand.New(rand.NewPCG(5, 5)))
 	if err != nil {
 		b.Fatal(err)
@@ -230,16 +230,7 @@ func TestTurnImage(t *testing.T) {
 // predicting and turning back reuse the worker's buffers. Planted: the
 // turn-back through mat.VecDense → 113 allocations against 17, fails.
 func TestTurnedEstimateAllocs(t *testing.T) {
-	model, err := weights.Default()
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg := DefaultConfig()
-	cfg.Telescope = demoTelescope()
-	f, err := NewFitter(cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
+	model, f := shippedNetSetup(t)
 	data, _, err := demoSource(t)(StudyCase{DOverR0: 5, Patch: 64, Frames: 16, DiversityPV: 1}, rand.New(rand.NewPCG(5, 5)))
 	if err != nil {
 		t.Fatal(err)
