@@ -22,18 +22,14 @@ import (
 // (granulation and the shipped real images); the per-axis median must lie
 // within 0.15 px of the truth.
 //
-// Measured (TestOffsetStudy, 8 bursts, seeds 1–3): single bursts miss by
-// 0.13–0.34 px rms, the median of 8 by 0.05–0.13 px; here the medians miss
-// by 0.06 px and 0.09 px. The accuracy issue asks for 0.05 px; what limits
-// it is the fitted wavefront, not the offset search: cross-correlating the
-// two channels' separately restored objects, given the fitted wavefronts,
-// reproduces each burst's error (rms 0.13 px against 0.13 px). The error
-// does not shrink without turbulence or noise (0.10 px at D/r0 = 0.05 and
-// 10⁸ photons; 0.03–0.09 px for compact objects clear of the window's
-// edges), nor with 66 modes, 400 iterations or 128 px patches: it is the
-// model error of the apodised Fourier metric (w·(o⊗s) ≠ (w·o)⊗s over the
-// taper, larger for the wider defocused PSF), and the high-pass halves it
-// (0.22 px rms without). The camera's offset is a constant of the
+// Measured with the periodic metric alone (TestOffsetStudy, 8 bursts,
+// seeds 1–3): single bursts missed by 0.13–0.34 px rms, the median of 8 by
+// 0.05–0.13 px, the model error of the apodised metric (w·(o⊗s) ≠ (w·o)⊗s
+// over the taper; 0.10 px even at D/r0 = 0.05 and 10⁸ photons). With the
+// default fit's exact-edge refinement (2026-12-03): single bursts 0.094 px
+// rms and the median of 8 0.06 px (seed 1); 0.045 px rms at D/r0 = 0.05
+// and 10⁸ photons; here the medians miss by 0.070 and 0.071 px. The
+// accuracy issue asks for 0.05 px. The camera's offset is a constant of the
 // instrument: measure it over many patches and bursts. Planted: the x tilt
 // sign flipped in the fit's ramp (pd) → error 1.4 px, fails; the
 // simulated offset dropped → 0.8 px.
