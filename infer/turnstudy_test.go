@@ -16,7 +16,9 @@ import (
 // learned estimate of the burst as recorded, the mean of the learned
 // estimates of its eight turns (turned back), and the fit; with the spread
 // of the eight turned-back estimates (prior-whitened mean square about
-// their mean). One CSV line per burst.
+// their mean), and 10- and 20-step polishes of the periodic metric (with
+// POLISHX=1: one periodic step, then 9 or 19 on the exact-edge
+// objective). One CSV line per burst.
 func TestTurnStudy(t *testing.T) {
 	n, _ := strconv.Atoi(os.Getenv("PDWAVE_TURN_STUDY"))
 	if n <= 0 {
@@ -32,7 +34,10 @@ func TestTurnStudy(t *testing.T) {
 	cfg, full, est, scenes := learnedStudySetup(t, model)
 	for _, k := range []int{10, 20} {
 		pc := cfg
-		pc.Stop = Stop{Iterations: k}
+		pc.Stop, pc.ExactEdges = Stop{Iterations: k}, 0
+		if os.Getenv("POLISHX") != "" { // the polish on the exact-edge objective
+			pc.Stop, pc.ExactEdges = Stop{Iterations: 1}, k-1
+		}
 		pc.Chi2Limit = 0
 		f, err := NewFitter(pc)
 		if err != nil {
