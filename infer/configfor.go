@@ -40,7 +40,7 @@ func HeaderInstrument(o burst.Optics) instrument.Partial {
 // Settings describes the configuration for provenance (FITS HISTORY cards
 // via fits.Provenance, "# key: value" lines of a coefficient CSV): the
 // instrument's settings (instrument.Instrument.Settings), frames,
-// iterations, exact-edge iterations, prior and, when known, where each instrument value came from
+// iterations, exact-edge iterations and gate, prior and, when known, where each instrument value came from
 // ("from"). The caller adds its own keys (command, input files, patch
 // position).
 func (c Config) Settings() map[string]string {
@@ -48,6 +48,7 @@ func (c Config) Settings() map[string]string {
 	m["frames"] = strconv.Itoa(c.Frames)
 	m["iterations"] = strconv.Itoa(c.Stop.Iterations)
 	m["exact_edges"] = strconv.Itoa(c.ExactEdges)
+	m["edge_gate"] = strconv.FormatFloat(c.EdgeGate, 'g', -1, 64)
 	m["prior"] = strconv.FormatFloat(c.Prior, 'g', -1, 64)
 	if len(c.Notes) > 0 {
 		m["from"] = c.Notes.String()

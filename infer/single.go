@@ -135,13 +135,14 @@ func fitCards(cfg Config, res *Result) []fits.Card {
 		{Key: "FITMODES", Value: cfg.Modes, Comment: "modes per frame, piston excluded"},
 		{Key: "FITITER", Value: res.Iterations, Comment: "L-BFGS iterations"},
 		{Key: "FITSTAT", Value: status, Comment: "why the optimiser stopped"},
-		{Key: "FITFLAGS", Value: guard, Comment: "guard: implausible, refitted, rejected or none"},
+		{Key: "FITFLAGS", Value: guard, Comment: "implausible,refitted,rejected,edges_dropped"},
 		{Key: "PRIORCHI", Value: res.Chi2, Comment: "mean coefficient^2 / Kolmogorov variance"},
 		{Key: "METRIC0", Value: res.MetricStart, Comment: "objective before the fit (metric/power + prior)"},
 		{Key: "METRIC1", Value: res.MetricEnd, Comment: "objective after the fit"},
 		{Key: "DATAM0", Value: res.DataStart, Comment: "normalised metric L/P before the fit"},
 		{Key: "DATAM1", Value: res.DataEnd, Comment: "normalised metric L/P after the fit"},
 		{Key: "EXACTIT", Value: cfg.ExactEdges, Comment: "exact-edge refinement iterations (0 = none)"},
+		{Key: "EDGEGATE", Value: cfg.EdgeGate, Comment: "exact-edge refinement gate (0 = none)"},
 		{Key: "EXACT1", Value: res.ExactEnd, Comment: "exact-edge objective after the fit (0 = none)"},
 	}
 }
