@@ -133,17 +133,17 @@ type flagRow struct {
 	errL, errP2, errP5, errF float64 // Noll 2–21 error fractions
 	eL, eP2, eP5, eF         float64 // objectives
 	mratio, crms             float64 // restore's figures at the learned estimate
-	mask, snr, rawc          float64 // metric mask size, data power over noise, raw contrast
+	share, rawc              float64 // restore's signal share and the raw contrast at the learned estimate
 	chi2, contrast           float64 // prior chi² of the learned estimate; its contrast / raw contrast
 	flagged                  bool    // infer.LearnedSuspect fired
 }
 
 // flagStudyColumns names the CSV fields of flagRow.csv.
-const flagStudyColumns = "err_learned,err_polish2,err_polish5,err_fit,e_learned,e_polish2,e_polish5,e_fit,metric_ratio,coeff_rms,chi2_learned,contrast_ratio,mask,snr,raw_contrast,flagged"
+const flagStudyColumns = "err_learned,err_polish2,err_polish5,err_fit,e_learned,e_polish2,e_polish5,e_fit,metric_ratio,coeff_rms,chi2_learned,contrast_ratio,signal_share,raw_contrast,flagged"
 
 func (r flagRow) csv() string {
-	return fmt.Sprintf("%.5g,%.5g,%.5g,%.5g,%.6g,%.6g,%.6g,%.6g,%.5g,%.4g,%.4g,%.4g,%g,%.5g,%.4g,%v",
-		r.errL, r.errP2, r.errP5, r.errF, r.eL, r.eP2, r.eP5, r.eF, r.mratio, r.crms, r.chi2, r.contrast, r.mask, r.snr, r.rawc, r.flagged)
+	return fmt.Sprintf("%.5g,%.5g,%.5g,%.5g,%.6g,%.6g,%.6g,%.6g,%.5g,%.4g,%.4g,%.4g,%.4g,%.4g,%v",
+		r.errL, r.errP2, r.errP5, r.errF, r.eL, r.eP2, r.eP5, r.eF, r.mratio, r.crms, r.chi2, r.contrast, r.share, r.rawc, r.flagged)
 }
 
 // field simulates field f of the set seed and scores every patch of
@@ -230,11 +230,7 @@ func (fs *flagStudy) patch(data [][][]float64, tr *burst.Truth, eng restore.Engi
 		return r, err
 	}
 	r.mratio, r.crms = pr.MetricRatio, pr.CoeffRMS
-	obj := pd.NewObjective(fs.full.Pupil(), fs.full.Basis(), fs.full.Diversity(), len(data[0]), fs.cfg.Metric)
-	if err := obj.SetData(data); err != nil {
-		return r, err
-	}
-	r.mask, r.snr = float64(obj.MaskSize()), obj.DataPower()/obj.Noise()
+	r.share = pr.SignalShare
 	r.chi2 = fs.full.PriorChi2(cl)
 	img, err := fs.full.Restore(data, cl)
 	if err != nil {
@@ -244,7 +240,7 @@ func (fs *flagStudy) patch(data [][][]float64, tr *burst.Truth, eng restore.Engi
 	sc := newScorer(n, level, plan)
 	r.rawc = sc.contrast(avg)
 	r.contrast = sc.contrast(img) / r.rawc
-	r.flagged = infer.LearnedSuspect(r.mratio)
+	r.flagged = infer.LearnedSuspect(r.share)
 	return r, nil
 }
 

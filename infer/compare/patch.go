@@ -93,17 +93,23 @@ func (w *patchWork) newWorker(n int) *patchWorker {
 	return pw
 }
 
-// learnedOverNoise returns restore's metric over its noise-only
-// expectation at the learned estimate raw (as the estimator returned it;
-// the figure of infer.LearnedSuspect), computed by restore's own engine;
-// nil when the engine fails or the figure is unknown.
-func learnedOverNoise(eng *restore.PatchEngine, data [][][]float64, raw [][]float64, n int) *float64 {
-	pr := &restore.PatchResult{Tile: make([]float64, n*n), Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN()}
-	if err := eng.RestoreWith(pr, data, raw); err != nil || math.IsNaN(pr.MetricRatio) || math.IsInf(pr.MetricRatio, 0) {
-		return nil
+// learnedFigures returns restore's metric over its noise-only expectation
+// at the learned estimate raw (as the estimator returned it) and the
+// patch's signal share (the figure of infer.LearnedSuspect), computed by
+// restore's own engine; each nil when the engine fails or the figure is
+// unknown.
+func learnedFigures(eng *restore.PatchEngine, data [][][]float64, raw [][]float64, n int) (overNoise, share *float64) {
+	pr := &restore.PatchResult{Tile: make([]float64, n*n), Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN(), SignalShare: math.NaN()}
+	if err := eng.RestoreWith(pr, data, raw); err != nil {
+		return nil, nil
 	}
-	v := pr.MetricRatio
-	return &v
+	finite := func(v float64) *float64 {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil
+		}
+		return &v
+	}
+	return finite(pr.MetricRatio), finite(pr.SignalShare)
 }
 
 // run computes every estimate of one patch (patchrun.Chain) and scores
@@ -147,7 +153,7 @@ func (w *patchWork) run(data [][][]float64, p patchrun.Patch, truth [][]float64,
 	if pw.engErr != nil {
 		out.err = pw.engErr
 	} else if pw.eng != nil {
-		out.patch.LearnedOverNoise = learnedOverNoise(pw.eng, data, est.Raw, n)
+		out.patch.LearnedOverNoise, out.patch.SignalShare = learnedFigures(pw.eng, data, est.Raw, n)
 	}
 	return out
 }

@@ -85,9 +85,12 @@ type Patch struct {
 	RawImageError *float64 `json:"raw_image_error,omitempty"`
 	// LearnedOverNoise is restore's metric over its noise-only expectation
 	// at the learned estimate (restore.PatchResult.MetricRatio with the
-	// learned estimate unpolished), the figure of infer.LearnedSuspect;
-	// nil without a learned estimate.
+	// learned estimate unpolished); nil without a learned estimate.
 	LearnedOverNoise *float64 `json:"learned_metric_over_noise,omitempty"`
+	// SignalShare is restore's signal share of the patch
+	// (restore.PatchResult.SignalShare), the figure of
+	// infer.LearnedSuspect; nil without a learned estimate.
+	SignalShare *float64 `json:"signal_share,omitempty"`
 	// Estimates holds one entry per method, in Report.Methods order; the
 	// truth, when known, is an Estimate with Method == Truth.
 	Estimates []Estimate `json:"estimates"`
@@ -239,9 +242,9 @@ const (
 	// FlagFlat: raw contrast below FlatLimit; too little structure for
 	// phase diversity to see the wavefront.
 	FlagFlat = "flat"
-	// FlagLearnedSuspect: the learned estimate's metric over its
-	// noise-only expectation exceeds infer.LearnedSuspectLimit (one patch,
-	// no comparison with the fit or the field); the same flag as restore's.
+	// FlagLearnedSuspect: the patch's signal share exceeds
+	// infer.LearnedSuspectShare (one patch, no comparison with the fit or
+	// the field); the same flag as restore's.
 	FlagLearnedSuspect = infer.FlagLearnedSuspect
 )
 
@@ -259,7 +262,7 @@ var FlagNotes = []Setting{
 	{FlagRatio, fmt.Sprintf("The learned estimate's metric is more than %.1f× the fitted one: the network is outside its training envelope here (seeing, scene or noise unlike its training data). Prefer the polished or fitted coefficients.", RatioLimit)},
 	{FlagContrast, fmt.Sprintf("The learned restoration's contrast (rms/mean) differs from the fitted one by more than %.0f %%: the learned wavefront under- or over-corrects this patch.", 100*ContrastLimit)},
 	{FlagTruth, "Simulations only: the fit ends above the metric of the true coefficients, so the optimiser stopped early or in a local minimum; raise --iterations."},
-	{FlagLearnedSuspect, fmt.Sprintf("The learned estimate's metric is more than %.1f× its noise-only expectation (restore's metric_over_noise, computed without the fit): on simulated fields such patches had a learned wavefront error above twice the fit's more often than the others; a fit or polish would help here. Measured on fresh simulated fields it catches about 1 in 5 of the patches where the learned error exceeds twice the fit's, and marks about 1 in 11 of those where it is within 1.2× (see the README).", infer.LearnedSuspectLimit)},
+	{FlagLearnedSuspect, fmt.Sprintf("More than %.0f %% of the frequencies inside the diffraction cut-off carry signal above the noise (restore's signal_share, computed from the data alone, without the fit): on such patches the classical fit reaches much better wavefronts than the network, so polish or fit here before science. Measured on fresh simulated fields it catches about 2 in 3 of the patches where the learned error exceeds twice the fit's, and marks about 1 in 12 of those where it is within 1.2× (see the README).", 100*infer.LearnedSuspectShare)},
 	{FlagFlat, fmt.Sprintf("The raw contrast is below %.0f %%: too little structure for phase diversity to measure the wavefront; all methods are unreliable here.", 100*FlatLimit)},
 }
 
@@ -492,7 +495,7 @@ func flags(p *Patch) []string {
 	if tr != nil && fit != nil && !(fit.Metric <= tr.Metric) {
 		out = append(out, FlagTruth)
 	}
-	if p.LearnedOverNoise != nil && infer.LearnedSuspect(*p.LearnedOverNoise) {
+	if p.SignalShare != nil && infer.LearnedSuspect(*p.SignalShare) {
 		out = append(out, FlagLearnedSuspect)
 	}
 	if !(p.RawContrast >= FlatLimit) {

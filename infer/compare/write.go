@@ -88,13 +88,14 @@ func WriteCoefficientsCSV(w io.Writer, r *Report) error {
 	return cw.Error()
 }
 
-// WritePatchesCSV writes one row per patch: raw contrast, and per method the
+// WritePatchesCSV writes one row per patch: raw contrast, signal share
+// (empty without a learned estimate), and per method the
 // metric, restored contrast, stage and total seconds, iterations, then the
 // metric ratio of each method to the fit, then the flags (";"-separated).
 // Call Summarise first.
 func WritePatchesCSV(w io.Writer, r *Report) error {
 	cw := csv.NewWriter(w)
-	head := []string{"patch", "x0", "y0", "raw_contrast"}
+	head := []string{"patch", "x0", "y0", "raw_contrast", "signal_share"}
 	for _, m := range r.Methods {
 		head = append(head, "metric_"+m, "contrast_"+m, "seconds_"+m, "total_seconds_"+m, "iterations_"+m)
 	}
@@ -107,7 +108,11 @@ func WritePatchesCSV(w io.Writer, r *Report) error {
 	}
 	for i := range r.Patches {
 		p := &r.Patches[i]
-		row := []string{strconv.Itoa(p.Index + 1), strconv.Itoa(p.X), strconv.Itoa(p.Y), ftoa(p.RawContrast)}
+		share := ""
+		if p.SignalShare != nil {
+			share = ftoa(*p.SignalShare)
+		}
+		row := []string{strconv.Itoa(p.Index + 1), strconv.Itoa(p.X), strconv.Itoa(p.Y), ftoa(p.RawContrast), share}
 		for _, e := range p.Estimates {
 			row = append(row, ftoa(e.Metric), ftoa(e.Contrast), ftoa(e.Seconds), ftoa(e.Total), strconv.Itoa(e.Iterations))
 		}

@@ -170,12 +170,13 @@ func (e *PatchEngine) RestoreWith(r *PatchResult, data [][][]float64, coeffs [][
 }
 
 // metric sets r's metric at e.alpha, its ratio to the noise-only
-// expectation and the learned-suspect flag.
+// expectation, the signal share and the learned-suspect flag.
 func (e *PatchEngine) metric(r *PatchResult) {
 	p := e.p
 	e.s.ValueGrad(nil, e.alpha)
 	metric, _ := e.s.LastTerms()
 	r.Metric = metric
+	r.SignalShare = e.s.MaskShare()
 	// Noise-only expectation of the object-eliminated metric: with K images
 	// and white noise of power ν per frequency, the residual of the
 	// least-squares object leaves (K−1)·ν per frequency (Paxman, Schulz &
@@ -185,7 +186,7 @@ func (e *PatchEngine) metric(r *PatchResult) {
 	if nu, pbar := e.s.Noise(), e.s.DataPower(); nu > 0 && pbar > 0 {
 		r.MetricRatio = metric / ((k - 1) * float64(e.s.MaskSize()) * nu / pbar)
 	}
-	if p.Method.Start != nil && p.polish == nil && infer.LearnedSuspect(r.MetricRatio) {
+	if p.Method.Start != nil && p.polish == nil && infer.LearnedSuspect(r.SignalShare) {
 		r.Flags |= FlagLearned
 	}
 }

@@ -164,7 +164,7 @@ func (p *Product) table() *fits.Table {
 	n := len(p.Patches)
 	ids, x0, y0, flags := make([]int64, n), make([]int64, n), make([]int64, n), make([]int64, n)
 	col := func() [][]float64 { return make([][]float64, n) }
-	metric, mratio, crms, con, rcon, ring := col(), col(), col(), col(), col(), col()
+	metric, mratio, crms, con, rcon, ring, share := col(), col(), col(), col(), col(), col(), col()
 	names := make([]string, n)
 	nc := p.Meta.Frames * p.Meta.Modes
 	coeffs, noll := col(), col()
@@ -177,6 +177,7 @@ func (p *Product) table() *fits.Table {
 		con[i] = []float64{r.Contrast}
 		rcon[i] = []float64{r.RawContrast}
 		ring[i] = []float64{r.Ringing}
+		share[i] = []float64{r.SignalShare}
 		coeffs[i] = exactOrNaN(r.Coeffs, nc)
 		noll[i] = exactOrNaN(r.Noll, nc)
 	}
@@ -198,6 +199,7 @@ func (p *Product) table() *fits.Table {
 		fits.Column{Name: "CONTRAST", Float: con},
 		fits.Column{Name: "RAWCONTR", Float: rcon},
 		fits.Column{Name: "RINGING", Float: ring},
+		fits.Column{Name: "SIGSHARE", Float: share}, // share of the OTF support above the noise threshold
 		fits.Column{Name: "FLAGS", Int: flags},
 		fits.Column{Name: "FLAGNAME", Text: names},
 	)
@@ -230,7 +232,7 @@ func formatFloat(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 
 func (p *Product) writeCSV(w io.Writer) error {
 	cw := csv.NewWriter(w)
-	cw.Write([]string{"patch", "x0", "y0", "wavefront_rms_rad", "metric", "metric_over_noise", "coeff_rms_vs_prior", "contrast", "raw_contrast", "ringing", "flags", "error"})
+	cw.Write([]string{"patch", "x0", "y0", "wavefront_rms_rad", "metric", "metric_over_noise", "coeff_rms_vs_prior", "contrast", "raw_contrast", "ringing", "signal_share", "flags", "error"})
 	for _, r := range p.Patches {
 		rms := math.NaN()
 		if len(r.Coeffs) > 0 && p.Meta.Frames > 0 {
@@ -245,7 +247,7 @@ func (p *Product) writeCSV(w io.Writer) error {
 		}
 		cw.Write([]string{strconv.Itoa(r.ID + 1), strconv.Itoa(r.X0), strconv.Itoa(r.Y0), formatFloat(rms),
 			formatFloat(r.Metric), formatFloat(r.MetricRatio), formatFloat(r.CoeffRMS), formatFloat(r.Contrast),
-			formatFloat(r.RawContrast), formatFloat(r.Ringing), FlagNames(r.Flags), r.Err})
+			formatFloat(r.RawContrast), formatFloat(r.Ringing), formatFloat(r.SignalShare), FlagNames(r.Flags), r.Err})
 	}
 	cw.Flush()
 	return cw.Error()

@@ -140,7 +140,7 @@ func (w *PartWriter) patchTable() *fits.Table {
 	ints := func() []int64 { return make([]int64, n) }
 	id, x0, y0, flags, ncoef := ints(), ints(), ints(), ints(), ints()
 	vec := func() [][]float64 { return make([][]float64, n) }
-	metric, mratio, crms, con, rcon, ring, coeffs, noll, tile := vec(), vec(), vec(), vec(), vec(), vec(), vec(), vec(), vec()
+	metric, mratio, crms, con, rcon, ring, coeffs, noll, tile, share := vec(), vec(), vec(), vec(), vec(), vec(), vec(), vec(), vec(), vec()
 	errs := make([]string, n)
 	for i, r := range w.rows {
 		id[i], x0[i], y0[i], flags[i], ncoef[i] = int64(r.ID), int64(r.X0), int64(r.Y0), int64(r.Flags), int64(len(r.Coeffs))
@@ -148,6 +148,7 @@ func (w *PartWriter) patchTable() *fits.Table {
 		con[i], rcon[i], ring[i] = []float64{r.Contrast}, []float64{r.RawContrast}, []float64{r.Ringing}
 		coeffs[i], noll[i] = padNaN(r.Coeffs, max(nc, 1)), padNaN(r.Noll, max(nc, 1))
 		tile[i] = r.Tile
+		share[i] = []float64{r.SignalShare}
 		errs[i] = strconv.QuoteToASCII(r.Err)
 	}
 	return &fits.Table{Name: "PATCHES", Columns: []fits.Column{
@@ -156,7 +157,7 @@ func (w *PartWriter) patchTable() *fits.Table {
 		{Name: "METRIC", Float: metric}, {Name: "MRATIO", Float: mratio}, {Name: "COEFRMS", Float: crms},
 		{Name: "CONTRAST", Float: con}, {Name: "RAWCONTR", Float: rcon}, {Name: "RINGING", Float: ring},
 		{Name: "COEFFS", Unit: "rad", Float: coeffs}, {Name: "NOLL", Unit: "rad", Float: noll},
-		{Name: "TILE", Float: tile}, {Name: "ERR", Text: errs},
+		{Name: "TILE", Float: tile}, {Name: "SIGSHARE", Float: share}, {Name: "ERR", Text: errs},
 	}}
 }
 

@@ -277,7 +277,7 @@ func (r *partReader) readMean(tbl *fitsio.Table) error {
 
 // partVectors are the vector columns of PATCHES, in table order after the
 // integers.
-var partVectors = []string{"METRIC", "MRATIO", "COEFRMS", "CONTRAST", "RAWCONTR", "RINGING", "COEFFS", "NOLL", "TILE"}
+var partVectors = []string{"METRIC", "MRATIO", "COEFRMS", "CONTRAST", "RAWCONTR", "RINGING", "COEFFS", "NOLL", "TILE", "SIGSHARE"}
 
 // readPatches reads the PATCHES table and hands each patch to fn.
 func (r *partReader) readPatches(tbl *fitsio.Table, fn func(*PatchResult) error) error {
@@ -286,7 +286,7 @@ func (r *partReader) readPatches(tbl *fitsio.Table, fn func(*PatchResult) error)
 		return fmt.Errorf("PATCHES has %d rows, the shard %d patches", tbl.NumRows(), r.hi-r.lo)
 	}
 	nc := max(m.Frames*m.Modes, 1)
-	lens := []int{1, 1, 1, 1, 1, 1, nc, nc, m.Patch * m.Patch}
+	lens := []int{1, 1, 1, 1, 1, 1, nc, nc, m.Patch * m.Patch, 1}
 	for _, name := range append([]string{"ID", "X0", "Y0", "FLAGS", "NCOEF", "ERR"}, partVectors...) {
 		if tbl.Index(name) < 0 {
 			return fmt.Errorf("PATCHES lacks column %s", name)
@@ -338,7 +338,7 @@ func patchFromCells(cell map[string]any, v [][]float64, nc int) (*PatchResult, e
 	}
 	p := &PatchResult{ID: ints["ID"], X0: ints["X0"], Y0: ints["Y0"], Flags: ints["FLAGS"], Err: msg,
 		Metric: v[0][0], MetricRatio: v[1][0], CoeffRMS: v[2][0], Contrast: v[3][0], RawContrast: v[4][0], Ringing: v[5][0],
-		Tile: v[8]}
+		Tile: v[8], SignalShare: v[9][0]}
 	if k > 0 {
 		p.Coeffs, p.Noll = v[6][:k], v[7][:k]
 	}

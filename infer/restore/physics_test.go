@@ -401,12 +401,12 @@ func TestLearnedAndPolish(t *testing.T) {
 		}
 	}
 	// learned_suspect is calibrated for the unpolished learned estimate
-	// only: set where that estimate's metric over noise exceeds the limit,
-	// never on polished patches.
+	// only: set where the patch's signal share exceeds the limit, never on
+	// polished patches.
 	for i := range bare {
-		want := infer.LearnedSuspect(bare[i].MetricRatio)
+		want := infer.LearnedSuspect(bare[i].SignalShare)
 		if got := bare[i].Flags&FlagLearned != 0; got != want {
-			t.Errorf("patch %d (learned, metric over noise %.3g): learned_suspect %v, want %v", bare[i].ID, bare[i].MetricRatio, got, want)
+			t.Errorf("patch %d (learned, signal share %.3g): learned_suspect %v, want %v", bare[i].ID, bare[i].SignalShare, got, want)
 		}
 		if polished[i].Flags&FlagLearned != 0 {
 			t.Errorf("patch %d: learned_suspect set on a polished patch", polished[i].ID)

@@ -20,7 +20,7 @@ const (
 	FlagCoeffs               // coefficient rms above CoeffRMSLimit times the prior rms
 	FlagContrast             // restored contrast below the raw contrast or above ContrastLimit times it
 	FlagRinging              // edge ringing above RingingLimit
-	FlagLearned              // metric over noise above infer.LearnedSuspectLimit: the learned wavefront is likely much worse than a fit's (set by the engine for the learned estimate without polish only, the case it is calibrated for)
+	FlagLearned              // signal share above infer.LearnedSuspectShare: the learned wavefront is likely much worse than a fit's (set by the engine for the learned estimate without polish only, the case it is calibrated for)
 )
 
 // flagNames names each flag bit, in bit order, as every output writes it.
@@ -65,11 +65,15 @@ type PatchResult struct {
 	Metric       float64 // phase-diversity metric at the solution (engine units; NaN if unknown)
 	MetricRatio  float64 // Metric over its noise-only expectation (NaN if unknown)
 	CoeffRMS     float64 // rms coefficient over the rms prior standard deviation (NaN if unknown)
-	Contrast     float64 // rms/mean of the restored tile centre
-	RawContrast  float64 // rms/mean of the burst-mean focused tile centre
-	Ringing      float64 // high-pass rms in the blend band over that in the centre
-	Flags        int     // Flag* bits
-	Err          string  // engine error message when FlagFailed
+	// SignalShare is the share of the frequencies inside the diffraction
+	// cut-off whose power exceeds the metric's noise threshold
+	// (pd.Objective.MaskShare, with restore's tile window; NaN if unknown).
+	SignalShare float64
+	Contrast    float64 // rms/mean of the restored tile centre
+	RawContrast float64 // rms/mean of the burst-mean focused tile centre
+	Ringing     float64 // high-pass rms in the blend band over that in the centre
+	Flags       int     // Flag* bits
+	Err         string  // engine error message when FlagFailed
 }
 
 // Engine restores single patches. Each worker owns one Engine (with its own
@@ -190,7 +194,7 @@ func runPatch(ctx context.Context, eng Engine, f *Field, g *Grid, id int, buf []
 		return nil // cancelled: nothing computed, nothing to record
 	}
 	r := &PatchResult{ID: id, X0: x0, Y0: y0, Tile: make([]float64, n*n),
-		Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN()}
+		Metric: math.NaN(), MetricRatio: math.NaN(), CoeffRMS: math.NaN(), SignalShare: math.NaN()}
 	err := runEngine(eng, r, buf)
 	if err == nil {
 		for _, v := range r.Tile {

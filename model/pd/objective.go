@@ -833,6 +833,18 @@ func (s *Objective) Noise() float64 { return s.noise }
 // MaskSize returns the number of frequencies in the metric after SetData.
 func (s *Objective) MaskSize() int { return len(s.mask) }
 
+// MaskShare returns MaskSize over the number of non-zero frequencies
+// inside the diffraction cut-off: the share of the OTF's support where the
+// last SetData's smoothed power exceeds the noise threshold (1 without
+// Settings.NoiseFilter). It measures how much of the spectrum carries
+// wavefront information; 0 before SetData.
+func (s *Objective) MaskShare() float64 {
+	if c := cap(s.mask) - 1; c > 0 {
+		return float64(len(s.mask)) / float64(c)
+	}
+	return 0
+}
+
 // DataPower returns P̄, the masked data power per image that normalises L.
 func (s *Objective) DataPower() float64 { return s.norm }
 
