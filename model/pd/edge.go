@@ -208,20 +208,6 @@ func (s *Objective) ExactEdges() (on bool, residual float64) {
 	return s.edge.on, s.edge.lastRes
 }
 
-// PeriodicValue returns the periodic objective E (the normalised metric
-// L/P̄ plus the prior, as ValueGrad without the exact-edge objective) at
-// alpha, whether or not the exact-edge objective is on; the exact-edge
-// state (on or off, and the object solve's warm start) is left as it was.
-// It panics as ValueGrad does.
-func (s *Objective) PeriodicValue(alpha []float64) float64 {
-	if s.edge == nil || !s.edge.on {
-		return s.ValueGrad(nil, alpha)
-	}
-	s.edge.on = false
-	defer func() { s.edge.on = true }()
-	return s.ValueGrad(nil, alpha)
-}
-
 // exactValueGrad is ValueGrad for the exact-edge objective: it returns
 // N²·J/P̄ (the prior is added by the caller) and, if grad is not nil,
 // leaves the phase densities in s.qacc and s.offGrad.
