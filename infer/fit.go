@@ -114,7 +114,8 @@ type Config struct {
 // configured D/r0 (pd.Settings.HighPass, HighPassSeeing), noise
 // filter, tilt constraint, 1 wave of defocus in channel 1, 30 iterations
 // or 1e-6 relative change on that metric followed by 150 iterations on the
-// exact-edge objective, and the guard at PriorChi2 1.8. The telescope
+// exact-edge objective under its gate (EdgeGate 8, against anisoplanatic
+// patches), and the guard at PriorChi2 1.8. The telescope
 // must still be filled in.
 //
 // Chosen on the scene mix, not on granulation alone: bursts of the demo
