@@ -101,6 +101,9 @@ func (j FitJob) Run() (string, error) {
 	}
 	j.logf("fitted %d frames × %d %s modes in %d iterations (%v): metric %.5g → %.5g (%s)",
 		b.Frames, cfg.Modes, cfg.Basis, res.Iterations, res.Elapsed.Round(time.Millisecond), res.MetricStart, res.MetricEnd, res.Status)
+	if res.Flags&FlagEdgesDropped != 0 {
+		j.logf("the exact-edge refinement left an implausible wavefront and was undone (edges_dropped: the PSF likely varies across the patch; the windowed fit was continued)")
+	}
 	settings := cfg.Settings()
 	settings["command"], settings["burst"], settings["site"] = "fit", filepath.Base(j.Name), filepath.Base(j.SiteName)
 	settings["patch"] = c.Describe(b)
