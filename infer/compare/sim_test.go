@@ -133,7 +133,7 @@ func TestRunSimulateField(t *testing.T) {
 // 10⁴ photons per pixel a large share of the spectrum inside the cut-off carries
 // signal and learned_suspect must fire on that single patch (no field to
 // compare with); at 300 photons little does and it must stay off (measured
-// 0.227 and 0.080 against the limit 0.122). The
+// 0.227 and 0.080 against the limit 0.115). The
 // figure is the data's, so the stand-in learned estimate (the truth) does
 // not matter. Planted and seen to fail: the comparison flipped in
 // infer.LearnedSuspect (both cases fail), and the flag left out of
