@@ -21,8 +21,10 @@ import (
 // FlagEdgesDropped, ungated ≥ 2× the gated error; isoplanatic, no flag
 // and ≤ 0.1. Seen to fail: with the gate compared the wrong way round
 // (drop when the ratio is below the limit) both the flag and the
-// isoplanatic bound fail, and with the default EdgeGate set to 0 the
-// anisoplanatic bound fails.
+// isoplanatic bound fail, with the default EdgeGate set to 0 the
+// anisoplanatic bound fails, and without the early look (edgeWatch) the
+// anisoplanatic patch spends the whole refinement (the iteration count
+// fails).
 func TestEdgeGateAnisoplanatic(t *testing.T) {
 	if testing.Short() {
 		t.Skip("three full fits on simulated fields")
@@ -42,6 +44,9 @@ func TestEdgeGateAnisoplanatic(t *testing.T) {
 	if aniso.flags&FlagEdgesDropped == 0 || aniso.err > 0.4 {
 		t.Errorf("anisoplanatic patch: error %.3f, flags %q; want ≤ 0.4 with edges_dropped", aniso.err, aniso.flags)
 	}
+	if full := cfg.Stop.Iterations + 2*cfg.ExactEdges; aniso.its >= full {
+		t.Errorf("anisoplanatic patch: %d iterations, want fewer than %d (the gate's early look stops the refinement)", aniso.its, full)
+	}
 	if raw.err < 2*aniso.err {
 		t.Errorf("ungated refinement error %.3f, gated %.3f: the control should be at least twice as bad", raw.err, aniso.err)
 	}
@@ -60,6 +65,7 @@ func TestEdgeGateAnisoplanatic(t *testing.T) {
 type gateOutcome struct {
 	err   float64 // Noll 2–21 error fraction
 	flags FitFlags
+	its   int // L-BFGS iterations in all
 }
 
 // fieldPatchError simulates a 128² px granulation field (seed fixed,
@@ -89,5 +95,5 @@ func fieldPatchError(t *testing.T, scfg simulate.Config, cfg Config) gateOutcome
 	if err != nil {
 		t.Fatal(err)
 	}
-	return gateOutcome{e, r.Flags}
+	return gateOutcome{e, r.Flags, r.Iterations}
 }
