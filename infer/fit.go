@@ -85,7 +85,8 @@ type Config struct {
 	// expectation, and EdgeGate times the chi² where the periodic
 	// iterations ended, the refinement is undone, the periodic fit
 	// continues for ExactEdges iterations instead, and FlagEdgesDropped is
-	// set. 0 = no gate.
+	// set; an early look after edgeEarlyIteration refinement iterations
+	// stops a refinement that is already going that way. 0 = no gate.
 	//
 	// Why: the exact-edge model holds one PSF per frame over the whole
 	// patch and its margin. Where the PSF varies across the patch
@@ -562,9 +563,10 @@ func (f *Fitter) minimise(w *worker, x0 []float64, res *Result, st Stop, watch *
 
 // refineEdges refines w.alpha on the exact-edge objective with
 // Config.ExactEdges iterations, leaving that objective switched on. If the
-// refined wavefront fails Config.EdgeGate, the refinement is undone: the exact-edge objective is switched off and the periodic
-// fit continues from where it ended for as many iterations
-// (FlagEdgesDropped).
+// refined wavefront fails Config.EdgeGate (at the end, or already at the
+// early look, edgeEarlyIteration), the refinement is undone: the exact-edge
+// objective is switched off and the periodic fit continues from where it
+// ended for as many iterations (FlagEdgesDropped).
 func (f *Fitter) refineEdges(w *worker, data [][][]float64, res *Result) error {
 	if f.cfg.ExactEdges <= 0 {
 		return nil
