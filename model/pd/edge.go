@@ -72,7 +72,7 @@ type edgeModel struct {
 	m, pad  int
 	plan    *fft.Plan
 	neg     []int          // index of −u on the M grid
-	half    []int          // the frequencies u with u ≤ −u (index order): one of each Hermitian pair
+	hp      int            // M²/2 + M/2 + 1: the index prefix [0, hp) holds u or −u of every frequency (rows 0 and M/2 hold both)
 	emb     []int          // M-grid index of each N-grid pixel (origin-centred, wrap-around)
 	otf     [][]complex128 // [nimg][M²] OTFs on the M grid
 	data    [][]complex128 // [nimg][M²] F{Cᵀ(d_k − d̄)}
@@ -116,11 +116,7 @@ func (s *Objective) newEdgeModel() *edgeModel {
 			e.neg[y*m+x] = ((m-y)%m)*m + (m-x)%m
 		}
 	}
-	for u, v := range e.neg {
-		if u <= v {
-			e.half = append(e.half, u)
-		}
-	}
+	e.hp = mm/2 + m/2 + 1
 	n := s.n
 	e.emb = make([]int, s.npix)
 	for y := 0; y < n; y++ {
@@ -220,7 +216,7 @@ func (s *Objective) exactValueGrad(grad []float64) float64 {
 		}
 	}
 	e.fillOTFs(s)
-	for _, u := range e.half {
+	for u := range e.hp {
 		var t complex128
 		for i, o := range e.otf {
 			t += cmplx.Conj(o[u]) * e.data[i][u]
@@ -283,7 +279,7 @@ func (e *edgeModel) pairProduct(dst, x []complex128, a, nimg int) {
 // imageDensity.
 func (e *edgeModel) densityPair(s *Objective, a int) {
 	w := e.res[a/2]
-	for _, u := range e.half {
+	for u := range e.hp {
 		// q = RA·X* + i·RB·X*, at u and at −u (where RA, RB and X are
 		// conjugated).
 		ra, rb := e.split(w, u)
@@ -310,7 +306,7 @@ func (e *edgeModel) densityPair(s *Objective, a int) {
 // in z (see split); with da and db the same slice (an odd last image) the
 // first is kept.
 func (e *edgeModel) splitInto(da, db, z []complex128) {
-	for _, u := range e.half {
+	for u := range e.hp {
 		a, b := e.split(z, u)
 		n := e.neg[u]
 		db[u], db[n] = b, cmplx.Conj(b)
@@ -347,7 +343,7 @@ func (e *edgeModel) fillOTFs(s *Objective) {
 	}
 	f := float64(s.npix) / float64(e.m*e.m)
 	mu := e.edgeMuAbs(s)
-	for _, u := range e.half {
+	for u := range e.hp {
 		var t float64
 		for i := range e.otf {
 			z := e.otf[i][u]
@@ -383,25 +379,25 @@ func (e *edgeModel) placeData(dst []complex128, im []float64, level float64, n i
 // spectra held together in each of w.
 func (e *edgeModel) adjoint(dst []complex128, w [][]complex128, x []complex128, s *Objective) {
 	mu := complex(e.edgeMuAbs(s), 0)
-	for _, u := range e.half {
+	for u := range e.hp {
 		dst[u] = mu * x[u]
 	}
 	for a := 0; a < s.nimg; a += 2 {
 		z, oa := w[a/2], e.otf[a]
 		if a+1 >= s.nimg {
-			for _, u := range e.half {
+			for u := range e.hp {
 				za, _ := e.split(z, u)
 				dst[u] += cmplx.Conj(oa[u]) * za
 			}
 			continue
 		}
 		ob := e.otf[a+1]
-		for _, u := range e.half {
+		for u := range e.hp {
 			za, zb := e.split(z, u)
 			dst[u] += cmplx.Conj(oa[u])*za + cmplx.Conj(ob[u])*zb
 		}
 	}
-	for _, u := range e.half {
+	for u := range e.hp {
 		dst[e.neg[u]] = cmplx.Conj(dst[u])
 	}
 }
