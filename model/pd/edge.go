@@ -216,13 +216,7 @@ func (s *Objective) exactValueGrad(grad []float64) float64 {
 		}
 	}
 	e.fillOTFs(s)
-	for u := range e.hp {
-		var t complex128
-		for i, o := range e.otf {
-			t += cmplx.Conj(o[u]) * e.data[i][u]
-		}
-		e.b[u], e.b[e.neg[u]] = t, cmplx.Conj(t)
-	}
+	e.rhsAndPreconditioner(s)
 	rr := e.solve(s)
 	J := rr + e.edgeMuAbs(s)*dotRe(e.x, e.x)/float64(e.m*e.m)
 	if grad != nil {
@@ -323,7 +317,7 @@ func (e *edgeModel) split(z []complex128, u int) (a, b complex128) {
 }
 
 // fillOTFs computes the OTFs of the current PSFs (|s.h|²/c, on the N grid)
-// on the M grid, two images per FFT, and the preconditioner.
+// on the M grid, two images per FFT.
 func (e *edgeModel) fillOTFs(s *Objective) {
 	ic := 1 / s.c
 	for a := 0; a < s.nimg; a += 2 {
@@ -341,16 +335,26 @@ func (e *edgeModel) fillOTFs(s *Objective) {
 		e.plan.Forward(e.w1, e.w1)
 		e.splitInto(e.otf[a], e.otf[min(a+1, s.nimg-1)], e.w1)
 	}
+}
+
+// rhsAndPreconditioner sets, in one pass over the OTFs, the right-hand
+// side b = Σ_k S̃_k*·F{Cᵀ(d_k − d̄)} of the normal equations and the
+// preconditioner 1/(f·Σ_k|S̃_k|² + μ), f = N²/M².
+func (e *edgeModel) rhsAndPreconditioner(s *Objective) {
 	f := float64(s.npix) / float64(e.m*e.m)
 	mu := e.edgeMuAbs(s)
 	for u := range e.hp {
-		var t float64
-		for i := range e.otf {
-			z := e.otf[i][u]
-			t += real(z)*real(z) + imag(z)*imag(z)
+		var t complex128
+		var p float64
+		for i, o := range e.otf {
+			z := o[u]
+			t += cmplx.Conj(z) * e.data[i][u]
+			p += real(z)*real(z) + imag(z)*imag(z)
 		}
-		e.pre[u] = 1 / (f*t + mu)
-		e.pre[e.neg[u]] = e.pre[u]
+		n := e.neg[u]
+		e.b[u], e.b[n] = t, cmplx.Conj(t)
+		e.pre[u] = 1 / (f*p + mu)
+		e.pre[n] = e.pre[u]
 	}
 }
 
