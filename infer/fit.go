@@ -585,12 +585,11 @@ func (f *Fitter) refineEdges(w *worker, data [][][]float64, res *Result) error {
 	g := f.cfg.EdgeGate
 	if g > 0 {
 		watch = &edgeWatch{at: edgeEarlyIteration, fail: func(xs []float64) bool {
-			c := f.chi2Scaled(w, xs)
-			return c > edgeEarlyFloor && c > edgeEarlyFactor*chiPer
+			return edgeImplausible(f.chi2Scaled(w, xs), chiPer, edgeEarlyFloor, edgeEarlyFactor)
 		}}
 	}
 	f.setAlpha(w, f.minimise(w, x, res, st, watch))
-	if g > 0 && (watch.tripped || edgeImplausible(f.chi2Flat(w.alpha), chiPer, g)) {
+	if g > 0 && (watch.tripped || edgeImplausible(f.chi2Flat(w.alpha), chiPer, 1, g)) {
 		res.Flags |= FlagEdgesDropped
 		_ = w.s.SetExactEdges(nil)
 		f.setAlpha(w, f.minimise(w, x, res, st, nil))
@@ -654,11 +653,12 @@ func (f *Fitter) chi2Scaled(w *worker, x []float64) float64 {
 }
 
 // edgeImplausible reports whether a refinement whose wavefront has prior
-// chi² chiX, from a periodic fit with chiPer, is dropped under the gate
-// g (Config.EdgeGate): above 1 (the prior's own expectation) and above g
-// times chiPer. NaN is dropped.
-func edgeImplausible(chiX, chiPer, g float64) bool {
-	return !(chiX <= 1 || chiX <= g*chiPer)
+// chi² chiX, from a periodic fit with chiPer, is dropped: chiX above floor
+// and above factor times chiPer (the final gate: floor 1, the prior's own
+// expectation, and Config.EdgeGate; the early look: edgeEarlyFloor and
+// edgeEarlyFactor). NaN is dropped.
+func edgeImplausible(chiX, chiPer, floor, factor float64) bool {
+	return !(chiX <= floor || chiX <= factor*chiPer)
 }
 
 // setAlpha sets w.alpha to the coefficients of the scaled point x, with the

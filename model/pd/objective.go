@@ -105,6 +105,7 @@ type Objective struct {
 	c            float64        // Σ|h|² = Σ A² / N² (Parseval)
 	neg          []int          // index of −u
 	cutoff       float64        // diffraction cut-off radius, frequency pixels
+	inCutoff     int            // non-zero frequencies inside the cut-off (MaskShare's denominator)
 	set          Settings
 	gamma        float64
 	invVar       []float64 // 1/σ_m² (0 = loose)
@@ -309,6 +310,7 @@ func (s *Objective) allocBuffers() {
 			}
 		}
 	}
+	s.inCutoff = maxMask - 1 // without u = 0
 	s.mask = make([]int, 0, maxMask)
 	s.filt = make([]float64, 0, maxMask)
 	for i := range s.dm {
@@ -839,8 +841,8 @@ func (s *Objective) MaskSize() int { return len(s.mask) }
 // Settings.NoiseFilter). It measures how much of the spectrum carries
 // wavefront information; 0 before SetData.
 func (s *Objective) MaskShare() float64 {
-	if c := cap(s.mask) - 1; c > 0 {
-		return float64(len(s.mask)) / float64(c)
+	if s.inCutoff > 0 {
+		return float64(len(s.mask)) / float64(s.inCutoff)
 	}
 	return 0
 }
